@@ -1,0 +1,138 @@
+"""The ``roomloop`` command line: check, simulate, probe, run, demo.
+
+Exit codes (DESIGN.md): 0 ok, 1 runtime failure, 2 usage or config error.
+Each sub-command lives in its own module and is imported only when used, so
+``roomloop check`` does not pay for pymodbus or aiomqtt.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+from collections.abc import Sequence
+
+from roomloop import __version__
+from roomloop.errors import ConfigError, RoomloopError
+
+EXIT_OK = 0
+EXIT_RUNTIME = 1
+EXIT_USAGE = 2
+
+SAFETY = """\
+safety: roomloop switches heating plant. Mains wiring is for qualified people only.
+The plant's own limit and safety controls (boiler high-limit, overheat cut-outs,
+frost thermostats) stay in place and wired as the maker says; roomloop is not a
+safety device. Local codes and licensed practice prevail."""
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that exits 2 with one line on a usage mistake (its default is 2 as well)."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        self.print_usage(sys.stderr)
+        print(f"{self.prog}: error: {message}", file=sys.stderr)
+        raise SystemExit(EXIT_USAGE)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(
+        prog="roomloop",
+        description=(
+            "An anticipating on/off controller for heating zones: reads temperatures and "
+            "switches relays over Modbus or MQTT, publishes to an MQTT broker, and predicts "
+            "and tunes zones with a plant simulator."
+        ),
+        epilog=SAFETY,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    parser.add_argument("--version", action="version", version=f"roomloop {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    sub.required = True
+
+    def add(name: str, help_text: str) -> argparse.ArgumentParser:
+        return sub.add_parser(
+            name,
+            help=help_text,
+            description=help_text,
+            epilog=SAFETY,
+            formatter_class=argparse.RawDescriptionHelpFormatter,
+        )
+
+    check = add("check", "validate a site file and print the resolved zones, points and links")
+    check.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help="the site file")
+
+    sim = add("simulate", "run one zone's controller against a plant model on the standard protocol")
+    who = sim.add_mutually_exclusive_group(required=True)
+    who.add_argument("-c", "--config", metavar="SITE.yaml", help="take the zone from this site file")
+    who.add_argument(
+        "--heating",
+        metavar="TYPE",
+        choices=["forced-air", "hydronic", "underfloor", "electric", "steam"],
+        help="simulate a zone with this heating type's defaults (no site needed)",
+    )
+    sim.add_argument("--zone", metavar="NAME", help="the zone to simulate (with -c)")
+    sim.add_argument(
+        "--plant",
+        required=True,
+        metavar="PLANT",
+        help="a built-in plant (forced-air, hydronic, underfloor, electric) or a plant YAML file",
+    )
+    sim.add_argument(
+        "--controller",
+        default="anticipator",
+        choices=["anticipator", "plain", "electromechanical", "time-proportional"],
+        help="the controller to run (default: anticipator, roomloop's own)",
+    )
+    sim.add_argument("--seed", type=int, default=1, help="seed of the sensor noise (default 1)")
+    sim.add_argument("--json", metavar="OUT.json", help="write the figures as JSON")
+    sim.add_argument("--plot", metavar="OUT.png", help="write a plot (needs the 'plot' extra)")
+
+    probe = add("probe", "commissioning: read one point (or switch an output) and show raw and decoded values")
+    probe.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help="the site file")
+    probe.add_argument("point", metavar="POINT", help="the point's name")
+    probe.add_argument("--set", choices=["on", "off"], help="switch an output, then read it back")
+    probe.add_argument("--yes", action="store_true", help="do not ask before switching an output")
+
+    run = add("run", "the service: control every zone of a site and publish to the broker")
+    run.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help="the site file")
+    run.add_argument(
+        "--state-dir",
+        metavar="DIR",
+        help="where runtime state is kept (default: the site's state_dir, or $STATE_DIRECTORY under systemd)",
+    )
+
+    demo = add("demo", "run an invented three-zone site against simulated plants over real Modbus TCP")
+    demo.add_argument("--hours", type=float, default=8.0, help="simulated hours (default 8)")
+    demo.add_argument("--speed", type=float, default=None, help="simulated seconds per real second (default: 8 h in about a minute)")
+    demo.add_argument("--broker", metavar="HOST:PORT", help="also publish to this MQTT broker, as 'run' does")
+    demo.add_argument("--plot", metavar="OUT.png", help="write a plot of every zone (needs the 'plot' extra)")
+    return parser
+
+
+_COMMANDS = {
+    "check": "roomloop.cli.check",
+    "simulate": "roomloop.cli.simulate",
+    "probe": "roomloop.cli.probe",
+    "run": "roomloop.cli.run",
+    "demo": "roomloop.cli.demo",
+}
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Parse, dispatch, and turn every error a user can cause into a clear line and an exit code."""
+    args = build_parser().parse_args(argv)
+    try:
+        module = importlib.import_module(_COMMANDS[args.command])
+        code: int = module.main(args)
+        return code
+    except ConfigError as exc:
+        for problem in exc.problems:
+            print(str(problem), file=sys.stderr)
+        return EXIT_USAGE
+    except RoomloopError as exc:
+        print(f"roomloop {args.command}: {exc}", file=sys.stderr)
+        return EXIT_RUNTIME
+    except KeyboardInterrupt:
+        print(f"roomloop {args.command}: interrupted", file=sys.stderr)
+        return 130

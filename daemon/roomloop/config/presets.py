@@ -1,0 +1,109 @@
+"""Heating-type presets: the tuning defaults a zone gets for its kind of plant.
+
+Sources (../shared/REFERENCES.md):
+- cycle rates: forced-air gas/oil 5-6, hot water / radiant 3, steam or gravity 1,
+  electric 9 cycles per hour [trade, common practice, no single source];
+- differential about 0.5 K [trade, common practice, no source];
+- minimum on/off times and the anticipator gain are common practice, no source:
+  minimum times keep a burner or pump from short runs without eating much of the
+  cycle; the gain is a few times the differential so that the anticipator, not
+  the room's slow response, sets the cycle.
+
+The anticipator time constant is derived from the cycle rate with the formula of
+../shared/DESIGN.md ("Cycle-rate sizing"): at 50 % on-time the relay oscillates
+with on-time = off-time = tau ln((G + D) / (G - D)), hence
+tau = 3600 / (2 cph ln((G + D) / (G - D))).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from roomloop.config.models import HeatingType, Tuning, TuningInput
+
+
+@dataclass(frozen=True)
+class Preset:
+    cycle_rate_cph: float
+    differential_k: float
+    anticipator_gain_k: float
+    min_on_s: float
+    min_off_s: float
+    max_cycles_per_hour: int
+    droop_time_s: float
+
+
+PRESETS: dict[str, Preset] = {
+    # A fast air heater: 5 cph (gas/oil forced air 5-6 [trade]).
+    "forced-air": Preset(5.0, 0.5, 1.5, 120.0, 120.0, 6, 3600.0),
+    # Panel radiators on a boiler: 3 cph (hot water [trade]).
+    "hydronic": Preset(3.0, 0.5, 1.5, 180.0, 180.0, 4, 5400.0),
+    # Radiant floor: 3 cph (radiant [trade]); longer minimum times for the slow loop.
+    "underfloor": Preset(3.0, 0.5, 1.5, 300.0, 300.0, 4, 7200.0),
+    # Convector or panel heater: 9 cph (electric [trade]).
+    "electric": Preset(9.0, 0.5, 1.5, 60.0, 60.0, 10, 2700.0),
+    # Steam or gravity: 1 cph [trade]; a steam boiler needs long runs.
+    "steam": Preset(1.0, 0.5, 1.5, 600.0, 600.0, 2, 10800.0),
+}
+
+_PRESET_KEYS = (
+    "cycle_rate_cph",
+    "differential_k",
+    "anticipator_gain_k",
+    "min_on_s",
+    "min_off_s",
+    "max_cycles_per_hour",
+    "droop_time_s",
+)
+
+
+def time_constant_for_cycle_rate(cycle_rate_cph: float, gain_k: float, differential_k: float) -> float:
+    """Anticipator time constant (s) that gives ``cycle_rate_cph`` at 50 % on-time.
+
+    DESIGN.md: tau = 3600 / (2 cph ln((G + D) / (G - D))). Needs G > D: with a gain at
+    or below the differential the anticipator alone can never switch the relay.
+    """
+    if cycle_rate_cph <= 0:
+        raise ValueError("cycle rate must be positive")
+    if gain_k <= differential_k:
+        raise ValueError(
+            f"anticipator gain {gain_k:g} K must exceed the differential {differential_k:g} K "
+            "to derive a time constant from the cycle rate"
+        )
+    return 3600.0 / (2.0 * cycle_rate_cph * math.log((gain_k + differential_k) / (gain_k - differential_k)))
+
+
+def resolve_tuning(heating: HeatingType, given: TuningInput) -> tuple[Tuning, dict[str, str]]:
+    """Fill what the file left out from the heating type's preset; say where each value came from.
+
+    An impossible derivation (gain not above the differential) leaves the time constant at
+    the cycle period so the model still builds; :mod:`roomloop.config.checks` reports it.
+    """
+    preset = PRESETS[heating]
+    values: dict[str, object] = {}
+    origins: dict[str, str] = {}
+    for key in _PRESET_KEYS:
+        value = getattr(given, key)
+        if value is None:
+            values[key] = getattr(preset, key)
+            origins[key] = f"preset {heating}"
+        else:
+            values[key] = value
+            origins[key] = "file"
+    values["droop_compensation"] = True if given.droop_compensation is None else given.droop_compensation
+    origins["droop_compensation"] = f"preset {heating}" if given.droop_compensation is None else "file"
+    if given.anticipator_time_constant_s is not None:
+        values["anticipator_time_constant_s"] = given.anticipator_time_constant_s
+        origins["anticipator_time_constant_s"] = "file"
+    else:
+        cph = float(values["cycle_rate_cph"])  # type: ignore[arg-type]
+        gain = float(values["anticipator_gain_k"])  # type: ignore[arg-type]
+        diff = float(values["differential_k"])  # type: ignore[arg-type]
+        try:
+            tau = time_constant_for_cycle_rate(cph, gain, diff)
+        except ValueError:
+            tau = 3600.0 / cph
+        values["anticipator_time_constant_s"] = tau
+        origins["anticipator_time_constant_s"] = "derived from cycle rate"
+    return Tuning.model_validate(values), origins
