@@ -1,0 +1,89 @@
+"""The state file: atomic saves, and bad files moved aside without blocking the start."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+from structlog.testing import capture_logs
+
+from roomloop.service.persist import StateStore
+
+
+def test_round_trip_and_no_temporary_files_left(tmp_path: Path) -> None:
+    store = StateStore(tmp_path / "state", "villa-invented")
+    zones = {"living": {"mode": "hold", "hold_setpoint": 22.5}, "bath": {"mode": "auto"}}
+    assert store.save(zones, now=1000.0) is True
+    assert sorted(p.name for p in (tmp_path / "state").iterdir()) == ["villa-invented.state.json"]
+    again = StateStore(tmp_path / "state", "villa-invented")
+    assert again.load() == zones
+
+
+def test_unchanged_states_are_not_written_again(tmp_path: Path) -> None:
+    store = StateStore(tmp_path, "s")
+    assert store.save({"z": {"a": 1}}, now=1.0) is True
+    assert store.save({"z": {"a": 1}}, now=2.0) is False
+    assert store.save({"z": {"a": 2}}, now=3.0) is True
+    assert json.loads(store.path.read_text())["zones"] == {"z": {"a": 2}}
+    # After a restart, the loaded content counts as written.
+    fresh = StateStore(tmp_path, "s")
+    fresh.load()
+    assert fresh.save({"z": {"a": 2}}, now=4.0) is False
+
+
+def test_missing_file_is_a_fresh_start(tmp_path: Path) -> None:
+    assert StateStore(tmp_path, "s").load() == {}
+
+
+@pytest.mark.parametrize(
+    ("content", "reason_part"),
+    [
+        (b"{\"format\": \"roomloop-state\", \"ver", "not JSON"),
+        (b"\xff\xfe garbage", "not UTF-8"),
+        (b"[1, 2, 3]", "not a roomloop state file"),
+        (b'{"some": "other program"}', "not a roomloop state file"),
+        (b'{"format": "roomloop-state", "version": 99, "site": "s", "zones": {}}', "version 99"),
+        (
+            b'{"format": "roomloop-state", "version": 1, "site": "other", "zones": {}}',
+            "site 'other'",
+        ),
+        (b'{"format": "roomloop-state", "version": 1, "site": "s", "zones": []}', "no zone states"),
+        (b"", "not JSON"),
+    ],
+)
+def test_bad_file_is_moved_aside_with_a_log_event(
+    tmp_path: Path, content: bytes, reason_part: str
+) -> None:
+    store = StateStore(tmp_path, "s")
+    store.path.write_bytes(content)
+    with capture_logs() as events:
+        assert store.load() == {}
+    moved = [e for e in events if e["event"] == "persist.moved_aside"]
+    assert len(moved) == 1 and reason_part in moved[0]["reason"]
+    assert not store.path.exists()
+    aside = list(tmp_path.glob("s.state.json.bad-*"))
+    assert len(aside) == 1 and aside[0].read_bytes() == content
+    # The next save works and a second bad file does not overwrite the first one aside.
+    assert store.save({"z": {}}, now=1.0)
+    store.path.write_bytes(b"junk")
+    StateStore(tmp_path, "s").load()
+    assert len(list(tmp_path.glob("s.state.json.bad-*"))) == 2
+
+
+def test_a_failed_write_leaves_the_old_file_intact(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    store = StateStore(tmp_path, "s")
+    store.save({"z": {"v": 1}}, now=1.0)
+
+    def disk_fails(src: str, dst: str) -> None:
+        raise OSError(28, "No space left on device")
+
+    # A failing disk cannot be had on loopback; make the rename fail instead.
+    monkeypatch.setattr("roomloop.service.persist.os.replace", disk_fails)
+    with pytest.raises(OSError):
+        store.save({"z": {"v": 2}}, now=2.0)
+    monkeypatch.undo()
+    assert StateStore(tmp_path, "s").load() == {"z": {"v": 1}}
+    assert [p.name for p in tmp_path.iterdir()] == ["s.state.json"]
