@@ -158,8 +158,19 @@ class ModbusRtuLink(ModbusLinkBase):
     baud: int = 9600
     parity: Literal["N", "E", "O"] = "E"
     """Modbus over Serial Line V1.02 asks for even parity by default."""
-    data_bits: Literal[7, 8] = 8
+    data_bits: int = 8
+    """Modbus RTU characters carry 8 data bits (Modbus over Serial Line V1.02)."""
     stop_bits: Literal[1, 2] = 1
+
+    @field_validator("data_bits")
+    @classmethod
+    def _rtu_data_bits(cls, value: int) -> int:
+        if value != 8:
+            raise ValueError(
+                f"Modbus RTU sends 8 data bits per character, not {value} "
+                "(7 data bits is Modbus ASCII, which roomloop does not speak)"
+            )
+        return value
 
     @field_validator("baud")
     @classmethod

@@ -1,0 +1,384 @@
+"""Cross-checks of a site: the references and sums that no single model can see.
+
+The models check one object at a time. Here the sections meet: a zone naming a
+point that does not exist, two zones switching one relay, set points out of order,
+minimum run times that leave no room for the cycle rate, two outputs on one coil.
+
+The checks run on :class:`SiteParts`, the section items that validated on their own,
+each with its index in the file, so a broken zone does not hide a dangling reference
+in another. Every :class:`Finding` names the key path of the offending value; the
+loader turns it into a file line.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any, Literal
+
+from roomloop.config.models import (
+    LEVELS,
+    Broker,
+    Logging,
+    ModbusInput,
+    ModbusOutput,
+    ModbusRtuLink,
+    ModbusTcpLink,
+    MqttInput,
+    MqttOutput,
+    Site,
+    SiteInfo,
+    Zone,
+)
+
+KeyPath = tuple[str | int, ...]
+AnyPoint = ModbusInput | MqttInput | ModbusOutput | MqttOutput
+AnyLink = ModbusTcpLink | ModbusRtuLink
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One cross-check problem: where (key path) and what."""
+
+    path: KeyPath
+    message: str
+
+
+@dataclass
+class SiteParts:
+    """The pieces of a site that validated, with their positions in the file."""
+
+    units: Literal["C", "F"] = "C"
+    site: SiteInfo | None = None
+    broker: Broker | None = None
+    broker_present: bool = False
+    logging: Logging | None = None
+    links: list[tuple[int, AnyLink]] = field(default_factory=list)
+    points: list[tuple[int, AnyPoint]] = field(default_factory=list)
+    zones: list[tuple[int, Zone]] = field(default_factory=list)
+    invalid_names: dict[str, set[str]] = field(default_factory=dict)
+    """Names of items that failed validation: not reported again as unknown."""
+
+    @classmethod
+    def from_site(cls, site: Site) -> SiteParts:
+        return cls(
+            units=site.site.units,
+            site=site.site,
+            broker=site.broker,
+            broker_present=site.broker is not None,
+            logging=site.logging,
+            links=list(enumerate(site.links)),
+            points=list(enumerate(site.points)),
+            zones=list(enumerate(site.zones)),
+        )
+
+
+def check_site(site: Site) -> list[Finding]:
+    """Every cross-check problem of a whole (already validated) site."""
+    return check_parts(SiteParts.from_site(site))
+
+
+def check_parts(parts: SiteParts) -> list[Finding]:
+    """Every cross-check problem of the parts that validated."""
+    findings: list[Finding] = []
+    findings += _duplicate_names("links", parts.links)
+    findings += _duplicate_names("points", parts.points)
+    findings += _duplicate_names("zones", parts.zones)
+    findings += _point_links(parts)
+    findings += _modbus_overlaps(parts)
+    findings += _serial_devices(parts)
+    findings += _zone_references(parts)
+    for index, zone in parts.zones:
+        findings += _setpoints(index, zone, parts.units)
+        findings += _tuning(index, zone, parts.units)
+        findings += _program(index, zone)
+    return findings
+
+
+# --------------------------------------------------------------------------- formatting
+
+
+def temperature_text(celsius: float, units: str) -> str:
+    """An absolute temperature as the user typed it: ``20 °C`` or ``68 °F``."""
+    value = celsius * 9.0 / 5.0 + 32.0 if units == "F" else celsius
+    return f"{_num(value)} °{units}"
+
+
+def delta_text(kelvin: float, units: str) -> str:
+    """A temperature difference in the site's units: ``0.5 K`` or ``0.9 °F``."""
+    if units == "F":
+        return f"{_num(kelvin * 9.0 / 5.0)} °F"
+    return f"{_num(kelvin)} K"
+
+
+def _num(value: float) -> str:
+    return f"{round(value, 2):g}"
+
+
+# --------------------------------------------------------------------------- names and links
+
+
+def _duplicate_names(section: str, items: list[tuple[int, Any]]) -> list[Finding]:
+    findings: list[Finding] = []
+    first: dict[str, int] = {}
+    for index, item in items:
+        name = item.name
+        if name in first:
+            findings.append(
+                Finding(
+                    (section, index, "name"),
+                    f"duplicate name {name!r}: {section}[{first[name]}] has it already; names must be unique",
+                )
+            )
+        else:
+            first[name] = index
+    return findings
+
+
+def _point_links(parts: SiteParts) -> list[Finding]:
+    findings: list[Finding] = []
+    links = {link.name for _, link in parts.links}
+    bad_links = parts.invalid_names.get("links", set())
+    for index, point in parts.points:
+        if isinstance(point, ModbusInput | ModbusOutput):
+            if point.link not in links and point.link not in bad_links:
+                known = ", ".join(sorted(links)) or "none defined"
+                findings.append(
+                    Finding(
+                        ("points", index, "link"),
+                        f"unknown link {point.link!r} (links: {known})",
+                    )
+                )
+            if point.unit_id == 0:
+                findings.append(
+                    Finding(
+                        ("points", index, "unit_id"),
+                        "unit id 0 is the broadcast address: no device answers it; use the device's id (1-247)",
+                    )
+                )
+        elif not parts.broker_present:
+            findings.append(
+                Finding(
+                    ("points", index, "type"),
+                    f"an {point.type} point needs the site's MQTT broker: add a 'broker' section",
+                )
+            )
+    return findings
+
+
+def _modbus_overlaps(parts: SiteParts) -> list[Finding]:
+    """Two outputs on one coil or register fight each other; so do an output and an input there."""
+    findings: list[Finding] = []
+    outputs: dict[tuple[str, int, str, int], tuple[int, str]] = {}
+    for index, point in parts.points:
+        if isinstance(point, ModbusOutput):
+            key = (point.link, point.unit_id, point.table, point.address)
+            if key in outputs:
+                other_index, other = outputs[key]
+                findings.append(
+                    Finding(
+                        ("points", index, "address"),
+                        f"{point.table} {point.address} of unit {point.unit_id} on link {point.link!r} "
+                        f"is already output {other!r} (points[{other_index}]); one output per coil or register",
+                    )
+                )
+            else:
+                outputs[key] = (index, point.name)
+    for index, point in parts.points:
+        if isinstance(point, ModbusInput) and point.table == "holding":
+            for address in range(point.address, point.address + point.registers):
+                hit = outputs.get((point.link, point.unit_id, "holding", address))
+                if hit is not None:
+                    findings.append(
+                        Finding(
+                            ("points", index, "address"),
+                            f"holding register {address} of unit {point.unit_id} on link {point.link!r} "
+                            f"is written by output {hit[1]!r}; an input cannot read a relay's register",
+                        )
+                    )
+                    break
+    return findings
+
+
+def _serial_devices(parts: SiteParts) -> list[Finding]:
+    findings: list[Finding] = []
+    seen: dict[str, str] = {}
+    for index, link in parts.links:
+        if isinstance(link, ModbusRtuLink):
+            if link.device in seen:
+                findings.append(
+                    Finding(
+                        ("links", index, "device"),
+                        f"serial device {link.device!r} is already link {seen[link.device]!r}; "
+                        "one serial port is one link (put every unit id on it)",
+                    )
+                )
+            else:
+                seen[link.device] = link.name
+    return findings
+
+
+# --------------------------------------------------------------------------- zones
+
+
+def _zone_references(parts: SiteParts) -> list[Finding]:
+    findings: list[Finding] = []
+    points = {point.name: point for _, point in parts.points}
+    bad_points = parts.invalid_names.get("points", set())
+    known = ", ".join(sorted(points)) or "none defined"
+    used_outputs: dict[str, str] = {}
+    for index, zone in parts.zones:
+        seen_inputs: set[str] = set()
+        for j, name in enumerate(zone.inputs):
+            where: KeyPath = ("zones", index, "inputs", j)
+            if name in seen_inputs:
+                findings.append(Finding(where, f"input {name!r} is listed twice"))
+                continue
+            seen_inputs.add(name)
+            point = points.get(name)
+            if point is None:
+                if name not in bad_points:
+                    findings.append(Finding(where, f"unknown point {name!r} (points: {known})"))
+            elif isinstance(point, ModbusOutput | MqttOutput):
+                findings.append(
+                    Finding(where, f"{name!r} is an output ({point.type}); a zone's inputs are temperature inputs")
+                )
+        where = ("zones", index, "output")
+        output = points.get(zone.output)
+        if output is None:
+            if zone.output not in bad_points:
+                findings.append(Finding(where, f"unknown point {zone.output!r} (points: {known})"))
+        elif isinstance(output, ModbusInput | MqttInput):
+            findings.append(
+                Finding(where, f"{zone.output!r} is an input ({output.type}); a zone's output must be a relay output")
+            )
+        elif zone.output in used_outputs:
+            findings.append(
+                Finding(
+                    where,
+                    f"output {zone.output!r} is already switched by zone {used_outputs[zone.output]!r}; "
+                    "two zones cannot share one relay",
+                )
+            )
+        else:
+            used_outputs[zone.output] = zone.name
+        backup = zone.fail_safe.backup_point
+        if backup is not None:
+            where = ("zones", index, "fail_safe", "backup_point")
+            point = points.get(backup)
+            if point is None:
+                if backup not in bad_points:
+                    findings.append(Finding(where, f"unknown point {backup!r} (points: {known})"))
+            elif isinstance(point, ModbusOutput | MqttOutput):
+                findings.append(Finding(where, f"{backup!r} is an output; the backup point must be a temperature input"))
+            elif backup in zone.inputs:
+                findings.append(
+                    Finding(where, f"{backup!r} is already one of the zone's inputs; a backup must be a second sensor")
+                )
+    return findings
+
+
+def _setpoints(index: int, zone: Zone, units: str) -> list[Finding]:
+    findings: list[Finding] = []
+    base: KeyPath = ("zones", index)
+    low, high = zone.limits.min, zone.limits.max
+    if low >= high:
+        findings.append(
+            Finding(
+                (*base, "limits", "min"),
+                f"limits.min {temperature_text(low, units)} must be below limits.max "
+                f"{temperature_text(high, units)}",
+            )
+        )
+    for upper, lower in zip(LEVELS, LEVELS[1:], strict=False):
+        above = zone.setpoints.for_level(upper)
+        below = zone.setpoints.for_level(lower)
+        if below > above:
+            findings.append(
+                Finding(
+                    (*base, "setpoints", lower),
+                    f"{lower} {temperature_text(below, units)} is above {upper} "
+                    f"{temperature_text(above, units)}; set points go comfort >= standby >= economy >= protection",
+                )
+            )
+    if low < high:
+        for level in LEVELS:
+            value = zone.setpoints.for_level(level)
+            if not low - 1e-9 <= value <= high + 1e-9:
+                findings.append(
+                    Finding(
+                        (*base, "setpoints", level),
+                        f"{level} {temperature_text(value, units)} is outside the zone's limits "
+                        f"{temperature_text(low, units)} to {temperature_text(high, units)}",
+                    )
+                )
+    return findings
+
+
+def _tuning(index: int, zone: Zone, units: str) -> list[Finding]:
+    findings: list[Finding] = []
+    tuning = zone.effective
+    origins = zone.origins
+    base: KeyPath = ("zones", index)
+
+    def where(*keys: str) -> KeyPath:
+        """The first of ``keys`` the file gave, else the zone's heating type (the preset's source)."""
+        for key in keys:
+            if origins.get(key) == "file":
+                return (*base, "tuning", key)
+        return (*base, "heating")
+
+    def shown(key: str) -> str:
+        return "" if origins.get(key) == "file" else f" ({origins.get(key)})"
+
+    period = 3600.0 / tuning.cycle_rate_cph
+    if tuning.min_on_s + tuning.min_off_s > period + 1e-9:
+        findings.append(
+            Finding(
+                where("min_on_s", "min_off_s", "cycle_rate_cph"),
+                f"min_on_s {_num(tuning.min_on_s)} s{shown('min_on_s')} + min_off_s {_num(tuning.min_off_s)} s"
+                f"{shown('min_off_s')} is longer than the cycle period 3600 / {_num(tuning.cycle_rate_cph)} cph"
+                f"{shown('cycle_rate_cph')} = {_num(period)} s: the cycle rate cannot be reached",
+            )
+        )
+    if tuning.max_cycles_per_hour < tuning.cycle_rate_cph - 1e-9:
+        findings.append(
+            Finding(
+                where("max_cycles_per_hour", "cycle_rate_cph"),
+                f"max_cycles_per_hour {tuning.max_cycles_per_hour}{shown('max_cycles_per_hour')} is below the "
+                f"cycle rate {_num(tuning.cycle_rate_cph)} cph{shown('cycle_rate_cph')}: "
+                "short-cycle protection would stop every design cycle",
+            )
+        )
+    derived = origins.get("anticipator_time_constant_s") == "derived from cycle rate"
+    if derived and tuning.anticipator_gain_k <= tuning.differential_k:
+        findings.append(
+            Finding(
+                where("anticipator_gain_k", "differential_k"),
+                f"anticipator_gain_k {delta_text(tuning.anticipator_gain_k, units)} must exceed differential_k "
+                f"{delta_text(tuning.differential_k, units)} to derive the time constant from the cycle rate; "
+                "raise the gain or give anticipator_time_constant_s",
+            )
+        )
+    if not math.isfinite(tuning.anticipator_time_constant_s):  # pragma: no cover - models refuse inf
+        findings.append(Finding(where("anticipator_time_constant_s"), "must be a finite number"))
+    return findings
+
+
+def _program(index: int, zone: Zone) -> list[Finding]:
+    findings: list[Finding] = []
+    seen: dict[tuple[str, int], int] = {}
+    for k, entry in enumerate(zone.program):
+        for day in entry.days:
+            key = (day, entry.minute_of_day)
+            if key in seen and zone.program[seen[key]].level != entry.level:
+                findings.append(
+                    Finding(
+                        ("zones", index, "program", k, "at"),
+                        f"{day} {entry.at} is already program[{seen[key]}] with level "
+                        f"{zone.program[seen[key]].level!r}; one level per time",
+                    )
+                )
+                break
+            seen.setdefault(key, k)
+    return findings
