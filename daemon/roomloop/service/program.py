@@ -36,7 +36,7 @@ class Switch:
 
 
 def switch_instant(day: dt.date, minute_of_day: int, tz: ZoneInfo) -> float:
-    """POSIX time of the first instant on ``day`` with local wall time ``minute_of_day`` or later."""
+    """POSIX time of the first instant on ``day`` with wall time ``minute_of_day`` or later."""
     wall = dt.datetime.combine(day, dt.time(minute_of_day // 60, minute_of_day % 60))
     first = wall.replace(tzinfo=tz, fold=0)
     if _wall_time(first.timestamp(), tz) == wall:

@@ -1,0 +1,67 @@
+"""The shipped unit file: hardened to an exposure of 2.0 or less, serial adapters still reachable."""
+
+from __future__ import annotations
+
+import re
+import shlex
+import shutil
+import subprocess
+from pathlib import Path
+
+import pytest
+
+from roomloop.cli import build_parser
+
+UNIT = Path(__file__).resolve().parents[2] / "systemd" / "roomloop.service"
+
+
+def _settings() -> dict[str, list[str]]:
+    out: dict[str, list[str]] = {}
+    for line in UNIT.read_text().splitlines():
+        line = line.strip()
+        if not line or line.startswith(("#", "[")):
+            continue
+        key, _, value = line.partition("=")
+        out.setdefault(key, []).append(value)
+    return out
+
+
+@pytest.mark.skipif(shutil.which("systemd-analyze") is None, reason="no systemd-analyze here")
+def test_exposure_score_is_at_most_2() -> None:
+    result = subprocess.run(
+        ["systemd-analyze", "security", "--offline=true", "--no-pager", str(UNIT)],
+        capture_output=True,
+        text=True,
+        timeout=60,
+        check=False,
+    )
+    match = re.search(r"Overall exposure level for \S+: (\d+(?:\.\d+)?)", result.stdout)
+    assert match is not None, result.stdout + result.stderr
+    assert float(match.group(1)) <= 2.0
+
+
+def test_notify_watchdog_restart_and_directories() -> None:
+    settings = _settings()
+    assert settings["Type"] == ["notify"]
+    assert float(settings["WatchdogSec"][0]) > 0
+    assert settings["Restart"] == ["on-failure"]
+    assert settings["StateDirectory"] == ["roomloop"]
+    assert settings["ConfigurationDirectory"] == ["roomloop"]
+
+
+def test_serial_adapters_stay_reachable() -> None:
+    settings = _settings()
+    allowed = {value.split()[0] for value in settings["DeviceAllow"]}
+    assert {"char-ttyUSB", "char-ttyACM"} <= allowed
+    assert "dialout" in settings["SupplementaryGroups"][0].split()
+    # PrivateDevices=yes would hide /dev/ttyUSB* whatever DeviceAllow says.
+    assert settings.get("PrivateDevices", ["no"]) == ["no"]
+
+
+def test_exec_start_is_a_valid_run_command_line() -> None:
+    argv = shlex.split(_settings()["ExecStart"][0])
+    assert argv[0].endswith("/roomloop")
+    args = build_parser().parse_args(argv[1:])
+    assert args.command == "run"
+    assert args.config == "${CONFIGURATION_DIRECTORY}/site.yaml"
+    assert args.state_dir == "${STATE_DIRECTORY}"
