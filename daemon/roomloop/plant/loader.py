@@ -1,0 +1,65 @@
+"""Find and read plant model files: the built-in ones by name, or a YAML file by path.
+
+Plant files are read and located exactly like the site file (the config loader's
+line-marked YAML and its pydantic error mapping), so a mistake reads
+``FILE:LINE: key.path: message`` and the command exits 2.
+"""
+
+from __future__ import annotations
+
+import os
+from importlib import resources
+from pathlib import Path
+
+from pydantic import ValidationError
+
+from roomloop.config.loader import load_yaml_document, problems_from_validation_error
+from roomloop.errors import ConfigError, ConfigProblem
+from roomloop.plant.spec import PlantSpec
+
+BUILTIN_PLANTS: tuple[str, ...] = ("forced-air", "hydronic", "underfloor", "electric")
+"""The built-in plants, one per heating type the protocol compares (steam has none)."""
+
+PLANT_FOR_HEATING: dict[str, str] = {name: name for name in BUILTIN_PLANTS}
+
+
+def builtin_plant_path(name: str) -> Path:
+    """Where the built-in plant ``name`` lives inside the installed package."""
+    if name not in BUILTIN_PLANTS:
+        raise KeyError(name)
+    return Path(str(resources.files("roomloop.plant").joinpath("builtin", f"{name}.yaml")))
+
+
+def load_plant_file(path: str | os.PathLike[str]) -> PlantSpec:
+    """Read and validate one plant file; :class:`ConfigError` with every problem located."""
+    data, lines = load_yaml_document(path)
+    try:
+        return PlantSpec.model_validate(data)
+    except ValidationError as err:
+        raise ConfigError(
+            problems_from_validation_error(err, str(path), lines, data=data, schema=PlantSpec)
+        ) from None
+
+
+def load_plant(name_or_path: str | os.PathLike[str]) -> PlantSpec:
+    """A built-in plant by name, else a plant file by path.
+
+    A name that is neither gives one clear problem listing the built-in names.
+    """
+    text = os.fspath(name_or_path)
+    if text in BUILTIN_PLANTS:
+        return load_plant_file(builtin_plant_path(text))
+    if not os.path.exists(text):
+        raise ConfigError(
+            [
+                ConfigProblem(
+                    text,
+                    None,
+                    "",
+                    "no such plant file, and not a built-in plant (built-in: "
+                    + ", ".join(BUILTIN_PLANTS)
+                    + ")",
+                )
+            ]
+        )
+    return load_plant_file(text)
