@@ -12,6 +12,7 @@ loader turns it into a file line.
 
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import dataclass, field
 from typing import Any, Literal
@@ -127,7 +128,8 @@ def _duplicate_names(section: str, items: list[tuple[int, Any]]) -> list[Finding
             findings.append(
                 Finding(
                     (section, index, "name"),
-                    f"duplicate name {name!r}: {section}[{first[name]}] has it already; names must be unique",
+                    f"duplicate name {name!r}: {section}[{first[name]}] has it already; names "
+                    "must be unique",
                 )
             )
         else:
@@ -153,7 +155,8 @@ def _point_links(parts: SiteParts) -> list[Finding]:
                 findings.append(
                     Finding(
                         ("points", index, "unit_id"),
-                        "unit id 0 is the broadcast address: no device answers it; use the device's id (1-247)",
+                        "unit id 0 is the broadcast address: no device answers it; use the "
+                        "device's id (1-247)",
                     )
                 )
         elif not parts.broker_present:
@@ -178,8 +181,10 @@ def _modbus_overlaps(parts: SiteParts) -> list[Finding]:
                 findings.append(
                     Finding(
                         ("points", index, "address"),
-                        f"{point.table} {point.address} of unit {point.unit_id} on link {point.link!r} "
-                        f"is already output {other!r} (points[{other_index}]); one output per coil or register",
+                        f"{point.table} {point.address} of unit {point.unit_id} on link "
+                        f"{point.link!r} "
+                        f"is already output {other!r} (points[{other_index}]); one output per "
+                        "coil or register",
                     )
                 )
             else:
@@ -192,8 +197,10 @@ def _modbus_overlaps(parts: SiteParts) -> list[Finding]:
                     findings.append(
                         Finding(
                             ("points", index, "address"),
-                            f"holding register {address} of unit {point.unit_id} on link {point.link!r} "
-                            f"is written by output {hit[1]!r}; an input cannot read a relay's register",
+                            f"holding register {address} of unit {point.unit_id} on link "
+                            f"{point.link!r} "
+                            f"is written by output {hit[1]!r}; an input cannot read a relay's "
+                            "register",
                         )
                     )
                     break
@@ -241,7 +248,11 @@ def _zone_references(parts: SiteParts) -> list[Finding]:
                     findings.append(Finding(where, f"unknown point {name!r} (points: {known})"))
             elif isinstance(point, ModbusOutput | MqttOutput):
                 findings.append(
-                    Finding(where, f"{name!r} is an output ({point.type}); a zone's inputs are temperature inputs")
+                    Finding(
+                        where,
+                        f"{name!r} is an output ({point.type}); a zone's inputs are "
+                        "temperature inputs",
+                    )
                 )
         where = ("zones", index, "output")
         output = points.get(zone.output)
@@ -250,13 +261,18 @@ def _zone_references(parts: SiteParts) -> list[Finding]:
                 findings.append(Finding(where, f"unknown point {zone.output!r} (points: {known})"))
         elif isinstance(output, ModbusInput | MqttInput):
             findings.append(
-                Finding(where, f"{zone.output!r} is an input ({output.type}); a zone's output must be a relay output")
+                Finding(
+                    where,
+                    f"{zone.output!r} is an input ({output.type}); a zone's output must be a "
+                    "relay output",
+                )
             )
         elif zone.output in used_outputs:
             findings.append(
                 Finding(
                     where,
-                    f"output {zone.output!r} is already switched by zone {used_outputs[zone.output]!r}; "
+                    f"output {zone.output!r} is already switched by zone "
+                    f"{used_outputs[zone.output]!r}; "
                     "two zones cannot share one relay",
                 )
             )
@@ -270,10 +286,19 @@ def _zone_references(parts: SiteParts) -> list[Finding]:
                 if backup not in bad_points:
                     findings.append(Finding(where, f"unknown point {backup!r} (points: {known})"))
             elif isinstance(point, ModbusOutput | MqttOutput):
-                findings.append(Finding(where, f"{backup!r} is an output; the backup point must be a temperature input"))
+                findings.append(
+                    Finding(
+                        where,
+                        f"{backup!r} is an output; the backup point must be a temperature input",
+                    )
+                )
             elif backup in zone.inputs:
                 findings.append(
-                    Finding(where, f"{backup!r} is already one of the zone's inputs; a backup must be a second sensor")
+                    Finding(
+                        where,
+                        f"{backup!r} is already one of the zone's inputs; a backup must be a "
+                        "second sensor",
+                    )
                 )
     return findings
 
@@ -290,7 +315,7 @@ def _setpoints(index: int, zone: Zone, units: str) -> list[Finding]:
                 f"{temperature_text(high, units)}",
             )
         )
-    for upper, lower in zip(LEVELS, LEVELS[1:], strict=False):
+    for upper, lower in itertools.pairwise(LEVELS):
         above = zone.setpoints.for_level(upper)
         below = zone.setpoints.for_level(lower)
         if below > above:
@@ -298,7 +323,8 @@ def _setpoints(index: int, zone: Zone, units: str) -> list[Finding]:
                 Finding(
                     (*base, "setpoints", lower),
                     f"{lower} {temperature_text(below, units)} is above {upper} "
-                    f"{temperature_text(above, units)}; set points go comfort >= standby >= economy >= protection",
+                    f"{temperature_text(above, units)}; set points go comfort >= standby >= "
+                    "economy >= protection",
                 )
             )
     if low < high:
@@ -322,7 +348,8 @@ def _tuning(index: int, zone: Zone, units: str) -> list[Finding]:
     base: KeyPath = ("zones", index)
 
     def where(*keys: str) -> KeyPath:
-        """The first of ``keys`` the file gave, else the zone's heating type (the preset's source)."""
+        """The first of ``keys`` the file gave, else the zone's heating type (the preset's "
+        "source)."""
         for key in keys:
             if origins.get(key) == "file":
                 return (*base, "tuning", key)
@@ -336,8 +363,10 @@ def _tuning(index: int, zone: Zone, units: str) -> list[Finding]:
         findings.append(
             Finding(
                 where("min_on_s", "min_off_s", "cycle_rate_cph"),
-                f"min_on_s {_num(tuning.min_on_s)} s{shown('min_on_s')} + min_off_s {_num(tuning.min_off_s)} s"
-                f"{shown('min_off_s')} is longer than the cycle period 3600 / {_num(tuning.cycle_rate_cph)} cph"
+                f"min_on_s {_num(tuning.min_on_s)} s{shown('min_on_s')} + min_off_s "
+                f"{_num(tuning.min_off_s)} s"
+                f"{shown('min_off_s')} is longer than the cycle period 3600 / "
+                f"{_num(tuning.cycle_rate_cph)} cph"
                 f"{shown('cycle_rate_cph')} = {_num(period)} s: the cycle rate cannot be reached",
             )
         )
@@ -345,7 +374,8 @@ def _tuning(index: int, zone: Zone, units: str) -> list[Finding]:
         findings.append(
             Finding(
                 where("max_cycles_per_hour", "cycle_rate_cph"),
-                f"max_cycles_per_hour {tuning.max_cycles_per_hour}{shown('max_cycles_per_hour')} is below the "
+                "max_cycles_per_hour "
+                f"{tuning.max_cycles_per_hour}{shown('max_cycles_per_hour')} is below the "
                 f"cycle rate {_num(tuning.cycle_rate_cph)} cph{shown('cycle_rate_cph')}: "
                 "short-cycle protection would stop every design cycle",
             )
@@ -355,12 +385,16 @@ def _tuning(index: int, zone: Zone, units: str) -> list[Finding]:
         findings.append(
             Finding(
                 where("anticipator_gain_k", "differential_k"),
-                f"anticipator_gain_k {delta_text(tuning.anticipator_gain_k, units)} must exceed differential_k "
-                f"{delta_text(tuning.differential_k, units)} to derive the time constant from the cycle rate; "
+                f"anticipator_gain_k {delta_text(tuning.anticipator_gain_k, units)} must "
+                "exceed differential_k "
+                f"{delta_text(tuning.differential_k, units)} to derive the time constant from "
+                "the cycle rate; "
                 "raise the gain or give anticipator_time_constant_s",
             )
         )
-    if not math.isfinite(tuning.anticipator_time_constant_s):  # pragma: no cover - models refuse inf
+    if not math.isfinite(
+        tuning.anticipator_time_constant_s
+    ):  # pragma: no cover - models refuse inf
         findings.append(Finding(where("anticipator_time_constant_s"), "must be a finite number"))
     return findings
 

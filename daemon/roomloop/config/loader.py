@@ -189,7 +189,9 @@ class _Builder:
         )
 
 
-def _fail(file: str, message: str, line: int | None = None, column: int | None = None) -> ConfigError:
+def _fail(
+    file: str, message: str, line: int | None = None, column: int | None = None
+) -> ConfigError:
     return ConfigError([ConfigProblem(file, line, "", message, column)])
 
 
@@ -208,7 +210,10 @@ def _read_text(path: str | os.PathLike[str]) -> tuple[str, str]:
     except OSError as exc:
         raise _fail(file, f"cannot read the file: {exc.strerror or exc}") from None
     if len(raw) > MAX_FILE_BYTES:
-        raise _fail(file, f"the file is larger than {MAX_FILE_BYTES // (1024 * 1024)} MiB; is it the right file?")
+        raise _fail(
+            file,
+            f"the file is larger than {MAX_FILE_BYTES // (1024 * 1024)} MiB; is it the right file?",
+        )
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
@@ -231,7 +236,9 @@ def _compose(file: str, text: str) -> Node | None:
         raise _fail(file, f"YAML error: {exc}") from None
 
 
-def _read_document(path: str | os.PathLike[str]) -> tuple[str, dict[str, Any], LineMap, list[ConfigProblem]]:
+def _read_document(
+    path: str | os.PathLike[str],
+) -> tuple[str, dict[str, Any], LineMap, list[ConfigProblem]]:
     file, text = _read_text(path)
     if not text.strip():
         raise _fail(file, "the file is empty")
@@ -291,9 +298,8 @@ def _clean_loc(loc: Sequence[str | int], data: Any) -> KeyPath:
                 out.append(part)
                 current = current[part]
             # else: a member name of a union over a list ('list[str]'): skip
-        else:
-            if isinstance(part, int) and i == last and current is not None:
-                out.append(part)
+        elif isinstance(part, int) and i == last and current is not None:
+            out.append(part)
             # a scalar has no keys: whatever follows names a union member
     return tuple(out)
 
@@ -320,7 +326,7 @@ def _message(error: Mapping[str, Any], allowed: Iterable[str] = ()) -> str:
         if kind == "union_tag_not_found":
             return f"missing 'type': say which kind this is ({tags})"
         return f"unknown type {found!r}; use one of {tags}"
-    if kind == "model_type" or kind == "dict_type":
+    if kind in {"model_type", "dict_type"}:
         return f"must be a mapping of keys, got {_show(error.get('input'))}"
     shown = error.get("input")
     if kind not in ("value_error", "assertion_error") and not isinstance(shown, dict | list):
@@ -378,7 +384,8 @@ def _drop_tags(loc: Sequence[str | int]) -> KeyPath:
     return tuple(
         part
         for part in loc
-        if isinstance(part, int) or not (re.search(r"[\[\]]", part) or re.fullmatch(r"[a-z0-9]+(-[a-z0-9]+)+", part))
+        if isinstance(part, int)
+        or not (re.search(r"[\[\]]", part) or re.fullmatch(r"[a-z0-9]+(-[a-z0-9]+)+", part))
     )
 
 
@@ -422,7 +429,9 @@ def _narrow(tp: Any, value: Any) -> Any:
             for member in members:
                 if isinstance(member, type) and issubclass(member, BaseModel):
                     type_field = member.model_fields.get("type")
-                    if type_field is not None and value.get("type") in get_args(type_field.annotation):
+                    if type_field is not None and value.get("type") in get_args(
+                        type_field.annotation
+                    ):
                         chosen = member
         if chosen is None:
             return None
@@ -513,13 +522,19 @@ def site_from_data(
         if section in data and data[section] is not None:
             setattr(parts, section, validate(section, data[section], (section,)))
         elif section in data and section == "site":
-            found.append(ConfigProblem(file, lines.line(("site",)), "site", "must be a mapping with at least 'name'"))
+            found.append(
+                ConfigProblem(
+                    file, lines.line(("site",)), "site", "must be a mapping with at least 'name'"
+                )
+            )
 
     for section in _LIST_SECTIONS:
         items = data.get(section)
         if items is None:
             if section == "zones" and section in data:
-                found.append(ConfigProblem(file, lines.line((section,)), section, "list at least one zone"))
+                found.append(
+                    ConfigProblem(file, lines.line((section,)), section, "list at least one zone")
+                )
             continue
         if not isinstance(items, list):
             found.append(
@@ -532,7 +547,9 @@ def site_from_data(
             )
             continue
         if section == "zones" and not items:
-            found.append(ConfigProblem(file, lines.line((section,)), section, "list at least one zone"))
+            found.append(
+                ConfigProblem(file, lines.line((section,)), section, "list at least one zone")
+            )
         valid: list[tuple[int, Any]] = []
         invalid_names: set[str] = set()
         for index, item in enumerate(items):

@@ -124,7 +124,9 @@ class SiteInfo(Strict):
         try:
             zoneinfo.ZoneInfo(value)
         except (zoneinfo.ZoneInfoNotFoundError, ValueError) as exc:
-            raise ValueError(f"unknown time zone {value!r} (use an IANA name such as Europe/Vienna)") from exc
+            raise ValueError(
+                f"unknown time zone {value!r} (use an IANA name such as Europe/Vienna)"
+            ) from exc
         return value
 
 
@@ -225,7 +227,12 @@ class Broker(Strict):
     def _clean_prefix(cls, value: str | None) -> str | None:
         if value is None:
             return None
-        if not value or value.startswith("/") or value.endswith("/") or any(c in value for c in "#+"):
+        if (
+            not value
+            or value.startswith("/")
+            or value.endswith("/")
+            or any(c in value for c in "#+")
+        ):
             raise ValueError("a topic prefix has no leading or trailing '/', and no '#' or '+'")
         return value
 
@@ -363,9 +370,7 @@ class MqttOutput(Strict):
 
 InputPoint = ModbusInput | MqttInput
 OutputPoint = ModbusOutput | MqttOutput
-Point = Annotated[
-    ModbusInput | MqttInput | ModbusOutput | MqttOutput, Field(discriminator="type")
-]
+Point = Annotated[ModbusInput | MqttInput | ModbusOutput | MqttOutput, Field(discriminator="type")]
 
 # --------------------------------------------------------------------------- zones
 
@@ -477,8 +482,8 @@ def expand_days(value: list[str] | str) -> list[str]:
     """``"mon-fri"``, ``"sat,sun"``, ``"all"`` or a list of day names, to the list of day names."""
     parts = value if isinstance(value, list) else [p for p in re.split(r"[,\s]+", value) if p]
     out: list[str] = []
-    for part in parts:
-        part = str(part).strip().lower()
+    for raw in parts:
+        part = str(raw).strip().lower()
         if part in ("all", "daily", "every-day"):
             days = list(DAYS)
         elif "-" in part:
@@ -490,7 +495,9 @@ def expand_days(value: list[str] | str) -> list[str]:
         elif part in DAYS:
             days = [part]
         else:
-            raise ValueError(f"{part!r} is not a day (mon, tue, wed, thu, fri, sat, sun, or a range mon-fri)")
+            raise ValueError(
+                f"{part!r} is not a day (mon, tue, wed, thu, fri, sat, sun, or a range mon-fri)"
+            )
         for day in days:
             if day not in out:
                 out.append(day)
@@ -500,7 +507,8 @@ def expand_days(value: list[str] | str) -> list[str]:
 
 
 class Zone(Strict):
-    """A controlled space: inputs combined, one output, a heating type, set points, tuning, fail-safe."""
+    """A controlled space: inputs combined, one output, a heating type, set points, tuning, "
+    "fail-safe."""
 
     name: Name
     inputs: Annotated[list[Name], Field(min_length=1)]

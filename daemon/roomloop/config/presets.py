@@ -58,7 +58,9 @@ _PRESET_KEYS = (
 )
 
 
-def time_constant_for_cycle_rate(cycle_rate_cph: float, gain_k: float, differential_k: float) -> float:
+def time_constant_for_cycle_rate(
+    cycle_rate_cph: float, gain_k: float, differential_k: float
+) -> float:
     """Anticipator time constant (s) that gives ``cycle_rate_cph`` at 50 % on-time.
 
     DESIGN.md: tau = 3600 / (2 cph ln((G + D) / (G - D))). Needs G > D: with a gain at
@@ -71,7 +73,9 @@ def time_constant_for_cycle_rate(cycle_rate_cph: float, gain_k: float, different
             f"anticipator gain {gain_k:g} K must exceed the differential {differential_k:g} K "
             "to derive a time constant from the cycle rate"
         )
-    return 3600.0 / (2.0 * cycle_rate_cph * math.log((gain_k + differential_k) / (gain_k - differential_k)))
+    return 3600.0 / (
+        2.0 * cycle_rate_cph * math.log((gain_k + differential_k) / (gain_k - differential_k))
+    )
 
 
 def resolve_tuning(heating: HeatingType, given: TuningInput) -> tuple[Tuning, dict[str, str]]:
@@ -91,8 +95,12 @@ def resolve_tuning(heating: HeatingType, given: TuningInput) -> tuple[Tuning, di
         else:
             values[key] = value
             origins[key] = "file"
-    values["droop_compensation"] = True if given.droop_compensation is None else given.droop_compensation
-    origins["droop_compensation"] = f"preset {heating}" if given.droop_compensation is None else "file"
+    values["droop_compensation"] = (
+        True if given.droop_compensation is None else given.droop_compensation
+    )
+    origins["droop_compensation"] = (
+        f"preset {heating}" if given.droop_compensation is None else "file"
+    )
     if given.anticipator_time_constant_s is not None:
         values["anticipator_time_constant_s"] = given.anticipator_time_constant_s
         origins["anticipator_time_constant_s"] = "file"

@@ -1,0 +1,223 @@
+"""``roomloop check -c SITE.yaml``: validate a site and print it as roomloop will run it.
+
+Problems come back from the loader as a :class:`~roomloop.errors.ConfigError` (the
+command-line front prints them, one per line, and exits 2). On success the resolved
+site is printed in the site's units: links, the broker (never a secret), points, and
+each zone with its effective tuning and where every value came from.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from collections.abc import Callable
+from typing import TextIO
+
+from roomloop.config.checks import delta_text, temperature_text
+from roomloop.config.loader import load_site
+from roomloop.config.models import (
+    LEVELS,
+    Broker,
+    ModbusInput,
+    ModbusOutput,
+    ModbusRtuLink,
+    ModbusTcpLink,
+    MqttInput,
+    MqttOutput,
+    Site,
+    Zone,
+)
+
+
+def main(args: argparse.Namespace) -> int:
+    site = load_site(args.config)
+    print_site(site, sys.stdout)
+    print(f"\n{args.config}: ok", file=sys.stdout)
+    return 0
+
+
+def _n(value: float) -> str:
+    return f"{round(value, 3):g}"
+
+
+def print_site(site: Site, out: TextIO) -> None:
+    """The resolved site, readable, in the site's units."""
+    units = site.site.units
+    w = out.write
+    info = site.site
+    w(f"site {info.name}: units {units}, time zone {info.timezone}, state in {info.state_dir}\n")
+    w(f"logging: level {site.logging.level}, format {site.logging.format}\n")
+
+    w("\nlinks\n")
+    if not site.links:
+        w("  (none)\n")
+    for link in site.links:
+        timing = (
+            f"timeout {_n(link.timeout_s)} s, retries {link.retries}, gap "
+            f"{_n(link.request_gap_s)} s, "
+            f"poll every {_n(link.poll_interval_s)} s, bridges up to {link.max_gap_registers} "
+            "registers"
+        )
+        if isinstance(link, ModbusTcpLink):
+            w(f"  {link.name}: modbus-tcp {link.host}:{link.port}; {timing}\n")
+        elif isinstance(link, ModbusRtuLink):
+            frame = f"{link.baud} baud {link.data_bits}{link.parity}{link.stop_bits}"
+            w(f"  {link.name}: modbus-rtu {link.device} {frame}; {timing}\n")
+
+    w("\nbroker\n")
+    w(f"  {_broker_text(site.broker, site)}\n")
+
+    w("\npoints\n")
+    if not site.points:
+        w("  (none)\n")
+    for point in site.points:
+        w(f"  {point.name}: {_point_text(point, units)}\n")
+
+    w("\nzones\n")
+    for zone in site.zones:
+        _zone(zone, units, w)
+
+
+def _broker_text(broker: Broker | None, site: Site) -> str:
+    if broker is None:
+        return "(none: no publishing, no commands, no MQTT points)"
+    parts = [
+        f"{broker.host}:{broker.port}",
+        f"client id {broker.client_id or 'roomloop-' + site.name}",
+    ]
+    parts.append(f"keepalive {broker.keepalive_s} s")
+    if broker.username:
+        if broker.password_file:
+            secret = f"password from file {broker.password_file}"
+        elif broker.password_env:
+            secret = f"password from ${broker.password_env}"
+        else:
+            secret = "no password"
+        parts.append(f"user {broker.username} ({secret})")
+    else:
+        parts.append("anonymous")
+    if broker.tls is not None:
+        tls = "TLS"
+        if broker.tls.ca_file:
+            tls += f" CA {broker.tls.ca_file}"
+        if broker.tls.cert_file:
+            tls += f", client certificate {broker.tls.cert_file}"
+        if broker.tls.insecure:
+            tls += ", host name NOT checked"
+        parts.append(tls)
+    else:
+        parts.append("no TLS")
+    parts.append(f"topics under {site.topic_prefix}/")
+    parts.append(f"state every {_n(broker.publish_interval_s)} s")
+    parts.append(f"{broker.command_rate_per_min} commands/min per zone")
+    return ", ".join(parts)
+
+
+def _point_text(point: ModbusInput | MqttInput | ModbusOutput | MqttOutput, units: str) -> str:
+    if isinstance(point, ModbusInput | MqttInput):
+        low, high = point.valid_range
+        common = (
+            f"valid {temperature_text(low, units)} to {temperature_text(high, units)}, "
+            f"device sends °{point.unit}"
+        )
+        if point.scale != 1.0 or point.offset != 0.0:
+            common += f" as raw x {_n(point.scale)} + {_n(point.offset)}"
+        if isinstance(point, ModbusInput):
+            order = (
+                f"{point.word_order}-word {point.byte_order}-byte"
+                if point.registers > 1
+                else f"{point.byte_order}-byte"
+            )
+            text = (
+                f"modbus-input on {point.link}, unit {point.unit_id}, {point.table} register "
+                f"{point.address} "
+                f"({point.data_type}, {order}); {common}"
+            )
+            if point.sentinels:
+                text += ", no reading when raw is " + " or ".join(
+                    f"0x{s & 0xFFFFFFFF:04X}" for s in point.sentinels
+                )
+            return text
+        field = f", field {point.field}" if point.field else ", plain number"
+        return f"mqtt-input {point.topic}{field}; {common}"
+    if isinstance(point, ModbusOutput):
+        back = "read back" if point.read_back else "no read-back"
+        return (
+            f"modbus-output on {point.link}, unit {point.unit_id}, {point.table} {point.address}, "
+            f"on {point.on_value} / off {point.off_value}, {back}, re-sent every "
+            f"{_n(point.reassert_s)} s"
+        )
+    state = (
+        f"state on {point.state_topic} within {_n(point.state_timeout_s)} s"
+        if point.state_topic
+        else "no state topic"
+    )
+    return (
+        f"mqtt-output {point.command_topic}, payloads {point.on_payload!r} / "
+        f"{point.off_payload!r}, "
+        f"{state}, re-sent every {_n(point.reassert_s)} s"
+    )
+
+
+def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:
+    write(
+        f"  {zone.name}: {zone.heating}, output {zone.output}, inputs "
+        f"{', '.join(zone.inputs)} ({zone.combine})\n"
+    )
+    sp = ", ".join(
+        f"{level} {temperature_text(zone.setpoints.for_level(level), units)}" for level in LEVELS
+    )
+    write(f"    set points: {sp}\n")
+    write(
+        f"    limits: {temperature_text(zone.limits.min, units)} to "
+        f"{temperature_text(zone.limits.max, units)}; "
+        f"mode at first start {zone.mode}, default level {zone.default_level}, "
+        f"protection in off {'yes' if zone.protection_in_off else 'no'}, tick {_n(zone.tick_s)} s, "
+        f"safe state {zone.safe_state}\n"
+    )
+    tuning = zone.effective
+    origins = zone.origins
+    rows = [
+        ("differential", delta_text(tuning.differential_k, units), "differential_k"),
+        ("anticipator gain", delta_text(tuning.anticipator_gain_k, units), "anticipator_gain_k"),
+        (
+            "anticipator time constant",
+            f"{_n(tuning.anticipator_time_constant_s)} s",
+            "anticipator_time_constant_s",
+        ),
+        ("cycle rate", f"{_n(tuning.cycle_rate_cph)} per hour", "cycle_rate_cph"),
+        ("minimum on", f"{_n(tuning.min_on_s)} s", "min_on_s"),
+        ("minimum off", f"{_n(tuning.min_off_s)} s", "min_off_s"),
+        ("most cycles per hour", str(tuning.max_cycles_per_hour), "max_cycles_per_hour"),
+        ("droop compensation", "on" if tuning.droop_compensation else "off", "droop_compensation"),
+        ("droop time", f"{_n(tuning.droop_time_s)} s", "droop_time_s"),
+    ]
+    write("    tuning:\n")
+    for label, value, key in rows:
+        write(f"      {label:<27} {value:<14} {origins.get(key, '')}\n")
+    fs = zone.fail_safe
+    policy: str = fs.policy
+    if fs.policy == "fixed-duty":
+        policy += f" {fs.duty:.0%} of {_n(fs.period_s)} s"
+    elif fs.policy == "learned-duty":
+        policy += (
+            f" over {_n(fs.learn_hours)} h, {fs.min_duty:.0%} to {fs.max_duty:.0%} of "
+            f"{_n(fs.period_s)} s "
+            f"(starts at {fs.duty:.0%})"
+        )
+    backup = f", backup point {fs.backup_point}" if fs.backup_point else ", no backup point"
+    write(
+        f"    fail-safe: {policy} after {_n(fs.sensor_timeout_s)} s without a reliable "
+        f"input{backup}, "
+        f"recovers after {_n(fs.recovery_s)} s\n"
+    )
+    if zone.program:
+        write("    program:\n")
+        for entry in zone.program:
+            write(f"      {_days(entry.days):<24} {entry.at}  {entry.level}\n")
+    else:
+        write(f"    program: none (mode auto uses {zone.default_level})\n")
+
+
+def _days(days: list[str] | str) -> str:
+    return days if isinstance(days, str) else ",".join(days)
