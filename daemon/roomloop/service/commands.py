@@ -1,0 +1,260 @@
+"""Commands from the broker: ``<prefix>/zone/<zone>/cmd/<field>``, checked, applied, answered.
+
+A command is a plain payload (``21.5``, ``hold``) or JSON (``21.5``,
+``"hold"``, ``{"value": 21.5}``). It is parsed here, in the site's units;
+the zone's limits and the glossary are checked; and only then is it handed to
+the zone (the control core may still refuse it, with a reason). Whatever the
+outcome, one answer goes to ``<prefix>/zone/<zone>/cmd/result``:
+``{"field": ..., "ok": true, "value": ...}`` or ``{"field": ..., "ok": false,
+"reason": ...}``. A refused command changes nothing.
+
+Retained commands are ignored: a stale retained message must not reprogram a
+zone when the service starts. Commands are rate-limited per zone.
+"""
+
+from __future__ import annotations
+
+import collections
+import datetime as dt
+import json
+import math
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+from zoneinfo import ZoneInfo
+
+from roomloop.config.models import LEVELS, Zone
+
+FIELDS = ("setpoint", "mode", "level", "hold_until")
+MODES = ("auto", "hold", "off")
+MAX_PAYLOAD_BYTES = 1024
+RESULT = "result"
+
+
+class Refused(Exception):
+    """A command that is not carried out; the message is the reason sent back."""
+
+
+@dataclass(frozen=True, slots=True)
+class Command:
+    """A parsed command: ``value`` in the controller's terms (Celsius, POSIX seconds)."""
+
+    zone: str
+    field: str
+    value: Any
+
+
+@dataclass(frozen=True, slots=True)
+class CommandTopic:
+    zone: str
+    field: str
+
+
+def command_filter(prefix: str) -> str:
+    """The subscription that catches every zone's commands."""
+    return f"{prefix}/zone/+/cmd/+"
+
+
+def result_topic(prefix: str, zone: str) -> str:
+    return f"{prefix}/zone/{zone}/cmd/{RESULT}"
+
+
+def parse_topic(prefix: str, topic: str) -> CommandTopic | None:
+    """The zone and field of a command topic; None for any other topic (our own answers too)."""
+    head = f"{prefix}/zone/"
+    if not topic.startswith(head):
+        return None
+    parts = topic[len(head) :].split("/")
+    if len(parts) != 3 or parts[1] != "cmd" or not parts[0] or parts[2] == RESULT:
+        return None
+    return CommandTopic(parts[0], parts[2])
+
+
+def _payload_value(payload: bytes) -> Any:
+    if len(payload) > MAX_PAYLOAD_BYTES:
+        raise Refused(f"payload of {len(payload)} bytes is too large")
+    try:
+        text = payload.decode("utf-8").strip()
+    except UnicodeDecodeError:
+        raise Refused("payload is not UTF-8 text") from None
+    if not text:
+        raise Refused("empty payload")
+    try:
+        value = json.loads(text)
+    except (ValueError, RecursionError):
+        return text  # a plain payload
+    if isinstance(value, dict):
+        if set(value) != {"value"}:
+            raise Refused('a JSON object payload is {"value": ...} and nothing else')
+        value = value["value"]
+    return value
+
+
+def _number(value: Any, what: str) -> float:
+    if isinstance(value, bool) or value is None:
+        raise Refused(f"{what} must be a number, not {json.dumps(value)}")
+    if isinstance(value, str):
+        try:
+            value = float(value)
+        except ValueError:
+            raise Refused(f"{what} must be a number, not {value[:40]!r}") from None
+    if not isinstance(value, int | float):
+        raise Refused(f"{what} must be a number, not a {type(value).__name__}")
+    number = float(value)
+    if not math.isfinite(number):
+        raise Refused(f"{what} must be a finite number")
+    return number
+
+
+def _word(value: Any, what: str, allowed: tuple[str, ...]) -> str:
+    if not isinstance(value, str) or value.strip().lower() not in allowed:
+        shown = value[:40] if isinstance(value, str) else json.dumps(value)[:40]
+        raise Refused(f"{what} {shown!r} is not one of {', '.join(allowed)}")
+    return value.strip().lower()
+
+
+def parse_time(value: Any, tz: ZoneInfo) -> float | None:
+    """``hold_until``: ISO 8601 (local to the site without an offset), POSIX seconds, or none."""
+    if value is None or (isinstance(value, str) and value.strip().lower() in ("none", "null")):
+        return None
+    if isinstance(value, str):
+        try:
+            when = dt.datetime.fromisoformat(value.strip())
+        except ValueError:
+            try:
+                return _number(value, "hold_until")
+            except Refused:
+                raise Refused(
+                    f"hold_until {value[:40]!r} is not a time (ISO 8601 such as "
+                    "2026-12-24T18:00, POSIX seconds, or none)"
+                ) from None
+        if when.tzinfo is None:
+            when = when.replace(tzinfo=tz)
+        return when.timestamp()
+    return _number(value, "hold_until")
+
+
+def to_celsius(value: float, units: str) -> float:
+    return (value - 32.0) * 5.0 / 9.0 if units == "F" else value
+
+
+def from_celsius(value: float, units: str) -> float:
+    return value * 9.0 / 5.0 + 32.0 if units == "F" else value
+
+
+def parse_command(
+    zone: Zone, field: str, payload: bytes, *, units: str, tz: ZoneInfo, now: float
+) -> Command:
+    """Parse and check one command against the zone's limits; :class:`Refused` says why not."""
+    if field not in FIELDS:
+        raise Refused(f"unknown field {field[:40]!r} (commands: {', '.join(FIELDS)})")
+    value = _payload_value(payload)
+    if field == "setpoint":
+        number = _number(value, "setpoint")
+        celsius = to_celsius(number, units)
+        low, high = zone.limits.min, zone.limits.max
+        if not low - 1e-9 <= celsius <= high + 1e-9:
+            raise Refused(
+                f"setpoint {number:g} is outside the zone's limits "
+                f"{from_celsius(low, units):g} to {from_celsius(high, units):g} {units}"
+            )
+        return Command(zone.name, field, celsius)
+    if field == "mode":
+        return Command(zone.name, field, _word(value, "mode", MODES))
+    if field == "level":
+        return Command(zone.name, field, _word(value, "level", LEVELS))
+    when = parse_time(value, tz)
+    if when is not None and when <= now:
+        raise Refused("hold_until is in the past")
+    return Command(zone.name, field, when)
+
+
+def shown_value(command: Command, *, units: str, tz: ZoneInfo) -> Any:
+    """The accepted value as the user sees it: the site's units, local ISO 8601 time."""
+    if command.field == "setpoint":
+        return round(from_celsius(float(command.value), units), 2)
+    if command.field == "hold_until":
+        if command.value is None:
+            return None
+        return dt.datetime.fromtimestamp(float(command.value), tz).isoformat(timespec="seconds")
+    return command.value
+
+
+class RateLimit:
+    """At most ``per_minute`` commands per zone in any 60 s window (refused ones count too)."""
+
+    def __init__(self, per_minute: int) -> None:
+        self.per_minute = per_minute
+        self._seen: dict[str, collections.deque[float]] = {}
+
+    def allow(self, zone: str, now: float) -> bool:
+        seen = self._seen.setdefault(zone, collections.deque())
+        while seen and now - seen[0] >= 60.0:
+            seen.popleft()
+        if len(seen) >= self.per_minute:
+            return False
+        seen.append(now)
+        return True
+
+
+@dataclass(frozen=True, slots=True)
+class Answer:
+    topic: str
+    payload: str
+
+
+Apply = Callable[[Command], Any]
+"""Hands a checked command to its zone; raises :class:`Refused` (or the core's refusal)."""
+
+
+class CommandHandler:
+    """Turns one inbound message into at most one answer; never raises for what a client sends."""
+
+    def __init__(
+        self,
+        prefix: str,
+        zones: dict[str, Zone],
+        apply: Apply,
+        *,
+        units: str,
+        tz: ZoneInfo,
+        rate_per_min: int,
+        refusals: tuple[type[Exception], ...] = (),
+    ) -> None:
+        self.prefix = prefix
+        self.zones = zones
+        self.apply = apply
+        self.units = units
+        self.tz = tz
+        self.limit = RateLimit(rate_per_min)
+        self.refusals: tuple[type[Exception], ...] = (Refused, *refusals)
+
+    def topics(self) -> tuple[str, ...]:
+        return (command_filter(self.prefix),)
+
+    def handle(
+        self, topic: str, payload: bytes, *, retained: bool, now: float, monotonic: float
+    ) -> Answer | None:
+        """Check, apply and answer one message; ``monotonic`` is real time for the rate limit."""
+        where = parse_topic(self.prefix, topic)
+        if where is None or retained:
+            return None
+        zone = self.zones.get(where.zone)
+        if zone is None:
+            return None  # not ours: another site with the same prefix, or a typo nobody reads
+        answer: dict[str, Any] = {"field": where.field}
+        if not self.limit.allow(zone.name, monotonic):
+            answer.update(
+                ok=False, reason=f"too many commands (at most {self.limit.per_minute} a minute)"
+            )
+        else:
+            try:
+                command = parse_command(
+                    zone, where.field, payload, units=self.units, tz=self.tz, now=now
+                )
+                self.apply(command)
+            except self.refusals as exc:
+                answer.update(ok=False, reason=str(exc) or type(exc).__name__)
+            else:
+                answer.update(ok=True, value=shown_value(command, units=self.units, tz=self.tz))
+        return Answer(result_topic(self.prefix, zone.name), json.dumps(answer))

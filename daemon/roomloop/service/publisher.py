@@ -1,0 +1,181 @@
+"""What the service publishes: ``status``, each zone's retained state JSON and plain fields.
+
+The payloads are built here from the control core's :class:`ZoneOutputs`, in
+the site's units (temperatures absolute, anticipator and droop terms as
+differences). :class:`StatePublisher` decides what is due: a zone's state when
+something a reader cares about changed, or at least every
+``publish_interval_s``; a plain field only when its text changed; everything
+again after a reconnect (the broker may have lost its retained messages).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+from collections.abc import Iterable
+from dataclasses import dataclass
+from typing import Any
+from zoneinfo import ZoneInfo
+
+from roomloop.core.types import ZoneOutputs
+from roomloop.service.program import Switch
+
+ONLINE = "online"
+OFFLINE = "offline"
+PLAIN_FIELDS = ("temperature", "setpoint", "demand", "mode", "level")
+
+
+def status_topic(prefix: str) -> str:
+    return f"{prefix}/status"
+
+
+def state_topic(prefix: str, zone: str) -> str:
+    return f"{prefix}/zone/{zone}/state"
+
+
+def field_topic(prefix: str, zone: str, field: str) -> str:
+    return f"{prefix}/zone/{zone}/{field}"
+
+
+def _abs(value: float | None, units: str, digits: int = 2) -> float | None:
+    if value is None:
+        return None
+    return round(value * 9.0 / 5.0 + 32.0 if units == "F" else value, digits)
+
+
+def _delta(value: float, units: str, digits: int = 3) -> float:
+    return round(value * 9.0 / 5.0 if units == "F" else value, digits)
+
+
+def iso(posix: float, tz: ZoneInfo) -> str:
+    return dt.datetime.fromtimestamp(posix, tz).isoformat(timespec="seconds")
+
+
+@dataclass(frozen=True, slots=True)
+class ZoneView:
+    """One zone's latest decision plus what the service adds around it."""
+
+    zone: str
+    outputs: ZoneOutputs
+    at: float
+    """When the decision was taken (POSIX seconds, on the service's clock)."""
+    output_point: str
+    output_verdict: str | None = None
+    output_confirmed: bool | None = None
+    hold_until: float | None = None
+    next_change: Switch | None = None
+
+
+def state_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, Any]:
+    """The retained state JSON of one zone."""
+    out = view.outputs
+    return {
+        "zone": view.zone,
+        "timestamp": iso(view.at, tz),
+        "units": units,
+        "temperature": _abs(out.temperature, units),
+        "setpoint": _abs(out.setpoint, units),
+        "level": out.level,
+        "mode": out.mode,
+        "hold_until": None if view.hold_until is None else iso(view.hold_until, tz),
+        "demand": out.demand,
+        "reason": out.reason,
+        "anticipator": _delta(out.anticipator_k, units),
+        "droop": _delta(out.droop_k, units),
+        "reliability": dict(out.reliability),
+        "fail_safe": out.fail_safe,
+        "fail_safe_policy": out.fail_safe_policy,
+        "fail_safe_reason": out.fail_safe_reason,
+        "on_fraction_1h": round(out.on_fraction_1h, 3),
+        "cycles_1h": out.cycles_1h,
+        "output": {
+            "point": view.output_point,
+            "verdict": view.output_verdict,
+            "confirmed": view.output_confirmed,
+        },
+        "next_change": None
+        if view.next_change is None
+        else {"at": iso(view.next_change.at, tz), "level": view.next_change.level},
+    }
+
+
+def plain_fields(view: ZoneView, *, units: str) -> dict[str, str]:
+    """The plain retained per-field values for dashboards."""
+    out = view.outputs
+    temperature = _abs(out.temperature, units)
+    setpoint = _abs(out.setpoint, units)
+    return {
+        "temperature": "unknown" if temperature is None else f"{temperature:.2f}",
+        "setpoint": f"{setpoint:.2f}",
+        "demand": "true" if out.demand else "false",
+        "mode": out.mode,
+        "level": out.level,
+    }
+
+
+def _significant(payload: dict[str, Any]) -> str:
+    """What counts as a change: everything but the timestamp and the slowly drifting terms."""
+    keep = {
+        k: v
+        for k, v in payload.items()
+        if k not in ("timestamp", "anticipator", "droop", "on_fraction_1h")
+    }
+    if isinstance(keep.get("temperature"), float):
+        keep["temperature"] = round(keep["temperature"], 1)
+    return json.dumps(keep, sort_keys=True)
+
+
+@dataclass(frozen=True, slots=True)
+class Message:
+    topic: str
+    payload: str
+    retain: bool = True
+
+
+class StatePublisher:
+    """Decides which retained messages are due; the broker session sends them."""
+
+    def __init__(self, prefix: str, *, units: str, tz: ZoneInfo, interval_s: float) -> None:
+        self.prefix = prefix
+        self.units = units
+        self.tz = tz
+        self.interval_s = interval_s
+        self._views: dict[str, ZoneView] = {}
+        self._sent_state: dict[str, tuple[str, float]] = {}
+        self._sent_fields: dict[tuple[str, str], str] = {}
+
+    def update(self, view: ZoneView) -> None:
+        self._views[view.zone] = view
+
+    def views(self) -> Iterable[ZoneView]:
+        return self._views.values()
+
+    def forget_sent(self) -> None:
+        """After a reconnect: everything is due again."""
+        self._sent_state.clear()
+        self._sent_fields.clear()
+
+    def due(self, now: float) -> list[Message]:
+        """Messages to send now; call :meth:`sent` for each one the broker acknowledged."""
+        messages: list[Message] = []
+        for zone, view in self._views.items():
+            payload = state_payload(view, units=self.units, tz=self.tz)
+            key = _significant(payload)
+            last = self._sent_state.get(zone)
+            if last is None or last[0] != key or now - last[1] >= self.interval_s:
+                messages.append(Message(state_topic(self.prefix, zone), json.dumps(payload)))
+            for field, text in plain_fields(view, units=self.units).items():
+                if self._sent_fields.get((zone, field)) != text:
+                    messages.append(Message(field_topic(self.prefix, zone, field), text))
+        return messages
+
+    def sent(self, message: Message, now: float) -> None:
+        parts = message.topic[len(self.prefix) + 1 :].split("/")
+        if len(parts) != 3 or parts[0] != "zone":
+            return
+        zone, field = parts[1], parts[2]
+        if field == "state":
+            payload = json.loads(message.payload)
+            self._sent_state[zone] = (_significant(payload), now)
+        else:
+            self._sent_fields[(zone, field)] = message.payload
