@@ -1,0 +1,196 @@
+"""The site's broker connection: credentials, TLS, last will, reconnection with backoff.
+
+:class:`BrokerConnection` turns a :class:`~roomloop.config.models.Broker` into
+aiomqtt clients and runs the usual loop: connect, call ``on_connect`` (subscribe,
+publish ``online``, attach the MQTT points), hand every message to
+``on_message``, and on a lost connection call ``on_disconnect`` and try again
+after a pause that doubles up to ``backoff_max_s``. A refused password, a bad
+certificate or an unreachable broker never ends the loop, they are logged.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import inspect
+import os
+import ssl
+from collections.abc import Awaitable, Callable, Mapping
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import aiomqtt
+
+from roomloop.config.models import Broker
+from roomloop.errors import BrokerError
+from roomloop.io.eventlog import RateLimitedLog, get_logger
+
+log = get_logger("broker")
+
+MessageHandler = Callable[[aiomqtt.Message], Awaitable[None] | None]
+ClientHook = Callable[[aiomqtt.Client], Awaitable[None] | None]
+
+
+@dataclass(frozen=True, slots=True)
+class LastWill:
+    """Published by the broker when we vanish (e.g. ``<prefix>/status`` = ``offline``, retained)."""
+
+    topic: str
+    payload: str
+    qos: int = 1
+    retain: bool = True
+
+
+def endpoint_of(broker: Broker) -> str:
+    scheme = "mqtts" if broker.tls is not None else "mqtt"
+    return f"{scheme}://{broker.host}:{broker.port}"
+
+
+def read_password(broker: Broker, env: Mapping[str, str] | None = None) -> str | None:
+    """The password from ``password_file`` (first line) or ``password_env``.
+
+    Raises :class:`BrokerError` when the file or variable is missing or empty.
+    """
+    env = os.environ if env is None else env
+    where = endpoint_of(broker)
+    if broker.password_file is not None:
+        try:
+            text = Path(broker.password_file).read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError) as exc:
+            raise BrokerError(
+                f"cannot read password_file {broker.password_file}: {exc}", endpoint=where
+            ) from None
+        lines = text.splitlines()
+        if not lines or not lines[0]:
+            raise BrokerError(f"password_file {broker.password_file} is empty", endpoint=where)
+        return lines[0]
+    if broker.password_env is not None:
+        value = env.get(broker.password_env)
+        if not value:
+            raise BrokerError(
+                f"environment variable {broker.password_env} (password_env) is not set",
+                endpoint=where,
+            )
+        return value
+    return None
+
+
+def client_options(
+    broker: Broker, will: LastWill | None = None, env: Mapping[str, str] | None = None
+) -> dict[str, Any]:
+    """Keyword arguments for ``aiomqtt.Client`` from the site's broker section."""
+    options: dict[str, Any] = {
+        "hostname": broker.host,
+        "port": broker.port,
+        "identifier": broker.client_id,
+        "keepalive": broker.keepalive_s,
+        "username": broker.username,
+        "password": read_password(broker, env),
+        "timeout": 10.0,
+    }
+    if will is not None:
+        options["will"] = aiomqtt.Will(will.topic, will.payload, qos=will.qos, retain=will.retain)
+    if broker.tls is not None:
+        tls = broker.tls
+        options["tls_params"] = aiomqtt.TLSParameters(
+            ca_certs=tls.ca_file,
+            certfile=tls.cert_file,
+            keyfile=tls.key_file,
+            cert_reqs=ssl.CERT_REQUIRED,
+        )
+        options["tls_insecure"] = tls.insecure
+    return options
+
+
+async def _call(hook: Callable[..., Any] | None, arg: Any) -> None:
+    if hook is None:
+        return
+    result = hook(arg)
+    if inspect.isawaitable(result):
+        await result
+
+
+class BrokerConnection:
+    """One broker connection, kept up until cancelled.
+
+    >>> conn = BrokerConnection(site.broker, will=LastWill(f"{prefix}/status", "offline"))
+    >>> await conn.run(route, on_connect=subscribe_and_announce, on_disconnect=points.detach)
+    """
+
+    def __init__(
+        self,
+        broker: Broker,
+        *,
+        will: LastWill | None = None,
+        backoff_min_s: float = 1.0,
+        backoff_max_s: float = 60.0,
+        env: Mapping[str, str] | None = None,
+    ) -> None:
+        self.broker = broker
+        self.endpoint = endpoint_of(broker)
+        self.will = will
+        self.backoff_min_s = backoff_min_s
+        self.backoff_max_s = backoff_max_s
+        self._env = env
+        self.client: aiomqtt.Client | None = None
+        """The connected client, or None between connections."""
+        self.connected = asyncio.Event()
+        self.connections = 0
+        """How many times a connection was made (tests and status)."""
+        self._events = RateLimitedLog(log, 300.0)
+
+    def make_client(self) -> aiomqtt.Client:
+        """A new, not yet connected client (reads the password again, so a rotated one is used)."""
+        return aiomqtt.Client(**client_options(self.broker, self.will, self._env))
+
+    async def run(
+        self,
+        on_message: MessageHandler,
+        on_connect: ClientHook | None = None,
+        on_disconnect: Callable[[], Awaitable[None] | None] | None = None,
+    ) -> None:
+        """Connect, serve messages, reconnect with backoff; returns only by cancellation."""
+        delay = self.backoff_min_s
+        loop = asyncio.get_running_loop()
+        while True:
+            try:
+                client = self.make_client()
+                async with client:
+                    self.client = client
+                    self.connections += 1
+                    delay = self.backoff_min_s
+                    log.info(
+                        "broker.connected", endpoint=self.endpoint, connections=self.connections
+                    )
+                    self._events.recovered(
+                        self.endpoint, "broker.reconnected", endpoint=self.endpoint
+                    )
+                    await _call(on_connect, client)
+                    self.connected.set()
+                    async for message in client.messages:
+                        await _call(on_message, message)
+            except (aiomqtt.MqttError, OSError, BrokerError) as exc:
+                self._events.problem(
+                    self.endpoint,
+                    "broker.disconnected",
+                    loop.time(),
+                    endpoint=self.endpoint,
+                    reason=str(exc) or type(exc).__name__,
+                    retry_in_s=delay,
+                )
+            finally:
+                was_connected = self.client is not None
+                self.client = None
+                self.connected.clear()
+                if was_connected:
+                    await _call_noarg(on_disconnect)
+            await asyncio.sleep(delay)
+            delay = min(delay * 2, self.backoff_max_s)
+
+
+async def _call_noarg(hook: Callable[[], Awaitable[None] | None] | None) -> None:
+    if hook is None:
+        return
+    result = hook()
+    if inspect.isawaitable(result):
+        await result

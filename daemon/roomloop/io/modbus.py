@@ -1,0 +1,499 @@
+"""One Modbus link (TCP or RTU): paced, serialised requests, coalesced polls, verified outputs.
+
+A :class:`ModbusLink` owns one pymodbus client. Every request goes through one
+lock (RS-485 is half-duplex, and many TCP gateways serve one request at a
+time) and keeps ``request_gap_s`` between requests. A request that times out,
+gets an exception reply or a short reply is retried with backoff
+(``retries``); if it still fails, exactly the points that request serves are
+``comm-failure``. Each link runs in its own task, so a slow link never holds
+up another. A lost connection is re-opened on later polls with a growing pause.
+
+Time: ``received_at`` and ``now`` are POSIX seconds from the injected ``clock``
+(a simulated clock in the demo); pacing and timeouts use the event loop.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import logging
+import time
+from collections.abc import Awaitable, Callable, Sequence
+from dataclasses import dataclass, replace
+from types import TracebackType
+from typing import Any
+
+from roomloop.config.models import ModbusInput, ModbusOutput, ModbusRtuLink, ModbusTcpLink
+from roomloop.core.types import PointSample
+from roomloop.errors import DeviceError
+from roomloop.io.codec import Decoded, decode_point
+from roomloop.io.eventlog import RateLimitedLog, get_logger
+from roomloop.io.planner import Read, plan_reads
+from roomloop.io.ports import OutputState
+
+log = get_logger("modbus")
+
+RETRY_BACKOFF_S = 0.05
+"""First pause before a retry; doubles each attempt, at most :data:`RETRY_BACKOFF_MAX_S`."""
+RETRY_BACKOFF_MAX_S = 1.0
+
+
+class _RequestFailed(Exception):
+    """A request that failed after all retries; ``reason`` is what the log and probe show."""
+
+    def __init__(self, reason: str, exception_code: int | None = None) -> None:
+        super().__init__(reason)
+        self.reason = reason
+        self.exception_code = exception_code
+
+
+@dataclass(frozen=True, slots=True)
+class PointReading:
+    """One input point read on its own (``probe``): the raw registers and what they mean."""
+
+    point: ModbusInput
+    registers: tuple[int, ...]
+    decoded: Decoded
+
+
+@dataclass(frozen=True, slots=True)
+class OutputReading:
+    """An output's register or coil as read back: the raw value and on/off (None: neither value)."""
+
+    point: ModbusOutput
+    raw: int
+    on: bool | None
+
+
+def endpoint_of(link: ModbusTcpLink | ModbusRtuLink) -> str:
+    """How logs and errors name a link's far end."""
+    if isinstance(link, ModbusTcpLink):
+        return f"modbus-tcp://{link.host}:{link.port}"
+    return f"modbus-rtu:{link.device}@{link.baud}{link.data_bits}{link.parity}{link.stop_bits}"
+
+
+def _quiet_pymodbus() -> None:
+    """pymodbus logs every timeout with a frame dump; our own rate-limited events replace that."""
+    logging.getLogger("pymodbus").setLevel(logging.CRITICAL)
+
+
+class ModbusLink:
+    """One ``modbus-tcp`` or ``modbus-rtu`` link with its input and output points.
+
+    Use as ``async with ModbusLink(link, inputs, outputs) as modbus:`` then either
+    ``await modbus.run()`` in a task (poll every ``poll_interval_s`` and re-assert
+    outputs), or call :meth:`poll` / :meth:`set_output` yourself. Entering never
+    fails for an unreachable device: the link keeps trying in the background.
+    """
+
+    def __init__(
+        self,
+        link: ModbusTcpLink | ModbusRtuLink,
+        inputs: Sequence[ModbusInput] = (),
+        outputs: Sequence[ModbusOutput] = (),
+        *,
+        clock: Callable[[], float] = time.time,
+        log_interval_s: float = 300.0,
+        reconnect_min_s: float = 0.2,
+        reconnect_max_s: float = 30.0,
+    ) -> None:
+        for point_name, point_link in [(p.name, p.link) for p in inputs] + [
+            (p.name, p.link) for p in outputs
+        ]:
+            if point_link != link.name:
+                raise ValueError(
+                    f"point {point_name} belongs to link {point_link}, not {link.name}"
+                )
+        self.link = link
+        self.endpoint = endpoint_of(link)
+        self.inputs = {p.name: p for p in inputs}
+        self.outputs = {p.name: p for p in outputs}
+        self.plan: tuple[Read, ...] = plan_reads(inputs, link.max_gap_registers)
+        self._clock = clock
+        self._events = RateLimitedLog(log, log_interval_s)
+        self._lock = asyncio.Lock()
+        self._last_request_end = 0.0
+        self._reconnect_min_s = reconnect_min_s
+        self._reconnect_max_s = reconnect_max_s
+        self._reconnect_delay = reconnect_min_s
+        self._next_connect_at = 0.0
+        self._client: Any = None
+        self._samples: dict[str, PointSample] = {
+            name: PointSample(name, None, None, "comm-failure") for name in self.inputs
+        }
+        self._outputs: dict[str, OutputState] = {name: OutputState(name) for name in self.outputs}
+        self.cycles = 0
+        """Completed poll cycles (tests and status use it)."""
+        self.requests = 0
+        """Requests sent, retries included."""
+
+    # ------------------------------------------------------------------ lifecycle
+
+    @property
+    def name(self) -> str:
+        return self.link.name
+
+    @property
+    def connected(self) -> bool:
+        return bool(self._client is not None and self._client.connected)
+
+    async def __aenter__(self) -> ModbusLink:
+        _quiet_pymodbus()
+        self._client = self._make_client()
+        await self._ensure_connected()
+        return self
+
+    async def __aexit__(
+        self,
+        exc_type: type[BaseException] | None,
+        exc: BaseException | None,
+        tb: TracebackType | None,
+    ) -> None:
+        if self._client is not None:
+            self._client.close()
+            self._client = None
+
+    def _make_client(self) -> Any:
+        from pymodbus.client import AsyncModbusSerialClient, AsyncModbusTcpClient
+        from pymodbus.framer import FramerType
+
+        link = self.link
+        # Retries and reconnection are ours (backoff, per-point verdicts), not pymodbus's.
+        if isinstance(link, ModbusTcpLink):
+            return AsyncModbusTcpClient(
+                link.host, port=link.port, timeout=link.timeout_s, retries=0, reconnect_delay=0
+            )
+        return AsyncModbusSerialClient(
+            link.device,
+            framer=FramerType.RTU,
+            baudrate=link.baud,
+            bytesize=link.data_bits,
+            parity=link.parity,
+            stopbits=link.stop_bits,
+            timeout=link.timeout_s,
+            retries=0,
+            reconnect_delay=0,
+        )
+
+    async def _ensure_connected(self) -> bool:
+        if self._client is None:
+            raise RuntimeError("use 'async with ModbusLink(...)' before talking to the link")
+        if self._client.connected:
+            return True
+        loop_now = time.monotonic()
+        if loop_now < self._next_connect_at:
+            return False
+        try:
+            ok = bool(await asyncio.wait_for(self._client.connect(), self.link.timeout_s + 1.0))
+        except Exception as exc:  # refused, a serial port that vanished, DNS, a timeout ...
+            ok = False
+            reason = f"{type(exc).__name__}: {exc}"
+        else:
+            reason = "refused or not reachable"
+        if ok:
+            if self._reconnect_delay > self._reconnect_min_s or self.cycles:
+                self._events.recovered(
+                    self.endpoint, "modbus.connected", link=self.name, endpoint=self.endpoint
+                )
+            self._reconnect_delay = self._reconnect_min_s
+            return True
+        self._events.problem(
+            self.endpoint,
+            "modbus.connect_failed",
+            self._clock(),
+            link=self.name,
+            endpoint=self.endpoint,
+            reason=reason,
+            retry_in_s=round(self._reconnect_delay, 2),
+        )
+        self._next_connect_at = time.monotonic() + self._reconnect_delay
+        self._reconnect_delay = min(self._reconnect_delay * 2, self._reconnect_max_s)
+        return False
+
+    # ------------------------------------------------------------------ requests
+
+    async def _request(
+        self, call: Callable[[Any], Awaitable[Any]], check: Callable[[Any], str | None]
+    ) -> Any:
+        """Send one request under the link lock, paced, with retries; raise ``_RequestFailed``."""
+        attempts = self.link.retries + 1
+        reason = "not attempted"
+        async with self._lock:
+            for attempt in range(attempts):
+                if attempt:
+                    await asyncio.sleep(
+                        min(RETRY_BACKOFF_S * 2 ** (attempt - 1), RETRY_BACKOFF_MAX_S)
+                    )
+                if not await self._ensure_connected():
+                    raise _RequestFailed(f"not connected to {self.endpoint}")
+                gap = self._last_request_end + self.link.request_gap_s - time.monotonic()
+                if gap > 0:
+                    await asyncio.sleep(gap)
+                self.requests += 1
+                try:
+                    response = await asyncio.wait_for(call(self._client), self.link.timeout_s + 1.0)
+                except TimeoutError:
+                    reason = f"no answer within {self.link.timeout_s} s"
+                    continue
+                except Exception as exc:  # pymodbus raises ModbusException subclasses and OSError
+                    reason = _describe(exc)
+                    if not self._client.connected:
+                        self._next_connect_at = 0.0
+                    continue
+                finally:
+                    self._last_request_end = time.monotonic()
+                if response.isError():
+                    code = getattr(response, "exception_code", None)
+                    raise _RequestFailed(f"exception reply, code {code}", code)
+                problem = check(response)
+                if problem is None:
+                    return response
+                reason = problem
+        raise _RequestFailed(f"{reason} (after {attempts} attempt(s))")
+
+    async def _read_registers(
+        self, unit_id: int, table: str, address: int, count: int
+    ) -> list[int]:
+        async def call(client: Any) -> Any:
+            if table == "input":
+                return await client.read_input_registers(address, count=count, device_id=unit_id)
+            return await client.read_holding_registers(address, count=count, device_id=unit_id)
+
+        def check(response: Any) -> str | None:
+            got = len(getattr(response, "registers", []) or [])
+            return None if got == count else f"short reply: {got} of {count} registers"
+
+        response = await self._request(call, check)
+        return [int(r) for r in response.registers[:count]]
+
+    async def read_registers(self, unit_id: int, table: str, address: int, count: int) -> list[int]:
+        """Read raw registers (``input`` or ``holding``); raise :class:`DeviceError` on failure."""
+        try:
+            return await self._read_registers(unit_id, table, address, count)
+        except _RequestFailed as exc:
+            raise DeviceError(exc.reason, endpoint=self.endpoint, register=address) from None
+
+    # ------------------------------------------------------------------ inputs
+
+    def input_names(self) -> tuple[str, ...]:
+        return tuple(self.inputs)
+
+    def samples(self, now: float) -> dict[str, PointSample]:
+        """Latest sample per input point; ``ok`` older than ``stale_after_s`` becomes ``stale``."""
+        out: dict[str, PointSample] = {}
+        for name, latest in self._samples.items():
+            sample = latest
+            limit = self.inputs[name].reliability.stale_after_s
+            if (
+                sample.transport == "ok"
+                and sample.received_at is not None
+                and now - sample.received_at > limit
+            ):
+                sample = replace(sample, transport="stale")
+            out[name] = sample
+        return out
+
+    async def poll(self) -> list[PointSample]:
+        """One cycle: every planned read once; returns the new sample of every input point.
+
+        A failed read gives its points ``comm-failure`` (value ``None``, ``received_at``
+        the time of the failed attempt); the other reads go on.
+        """
+        fresh: list[PointSample] = []
+        for read in self.plan:
+            try:
+                registers = await self._read_registers(
+                    read.unit_id, read.table, read.address, read.count
+                )
+            except _RequestFailed as exc:
+                now = self._clock()
+                self._events.problem(
+                    f"read:{read.unit_id}:{read.table}:{read.address}",
+                    "modbus.read_failed",
+                    now,
+                    link=self.name,
+                    endpoint=self.endpoint,
+                    points=list(read.point_names),
+                    unit_id=read.unit_id,
+                    table=read.table,
+                    address=read.address,
+                    count=read.count,
+                    reason=exc.reason,
+                )
+                for name in read.point_names:
+                    fresh.append(PointSample(name, None, now, "comm-failure"))
+                continue
+            now = self._clock()
+            self._events.recovered(
+                f"read:{read.unit_id}:{read.table}:{read.address}",
+                "modbus.read_recovered",
+                link=self.name,
+                points=list(read.point_names),
+            )
+            for part in read.slices:
+                regs = registers[part.offset : part.offset + part.count]
+                decoded = decode_point(part.point, regs)
+                self._note_decoded(part.point, regs, decoded, now)
+                fresh.append(PointSample(part.point.name, decoded.value, now, decoded.transport))
+        for sample in fresh:
+            self._samples[sample.name] = sample
+        return fresh
+
+    def _note_decoded(
+        self, point: ModbusInput, regs: Sequence[int], decoded: Decoded, now: float
+    ) -> None:
+        if decoded.transport == "ok":
+            self._events.recovered(
+                point.name, "modbus.point_recovered", point=point.name, link=self.name
+            )
+            return
+        self._events.problem(
+            point.name,
+            "modbus.point_unreliable",
+            now,
+            point=point.name,
+            link=self.name,
+            reliability=decoded.transport,
+            raw=[f"0x{r:04X}" for r in regs],
+            value=decoded.raw if isinstance(decoded.raw, int) else repr(decoded.raw),
+            detail=decoded.detail,
+        )
+
+    async def read_point(self, name: str) -> PointReading:
+        """Read one input point on its own (commissioning); :class:`DeviceError` on failure."""
+        point = self.inputs[name]
+        try:
+            regs = await self._read_registers(
+                point.unit_id, point.table, point.address, point.registers
+            )
+        except _RequestFailed as exc:
+            raise DeviceError(
+                exc.reason, endpoint=self.endpoint, point=name, register=point.address
+            ) from None
+        return PointReading(point, tuple(regs), decode_point(point, regs))
+
+    # ------------------------------------------------------------------ outputs
+
+    def output_names(self) -> tuple[str, ...]:
+        return tuple(self.outputs)
+
+    def output_state(self, name: str) -> OutputState:
+        return self._outputs[name]
+
+    async def read_output(self, name: str) -> OutputReading:
+        """Read an output's coil or register back; raise :class:`DeviceError` on failure."""
+        point = self.outputs[name]
+        try:
+            raw = await self._read_output_raw(point)
+        except _RequestFailed as exc:
+            raise DeviceError(
+                exc.reason, endpoint=self.endpoint, point=name, register=point.address
+            ) from None
+        on = True if raw == point.on_value else False if raw == point.off_value else None
+        return OutputReading(point, raw, on)
+
+    async def _read_output_raw(self, point: ModbusOutput) -> int:
+        if point.table == "coil":
+
+            async def call(client: Any) -> Any:
+                return await client.read_coils(point.address, count=1, device_id=point.unit_id)
+
+            def check(response: Any) -> str | None:
+                return (
+                    None
+                    if len(getattr(response, "bits", []) or []) >= 1
+                    else "short reply: no coil"
+                )
+
+            response = await self._request(call, check)
+            return 1 if response.bits[0] else 0
+        return (await self._read_registers(point.unit_id, "holding", point.address, 1))[0]
+
+    async def set_output(self, name: str, on: bool) -> OutputState:
+        """Write the on or off value, read it back if configured; the state says what happened."""
+        point = self.outputs[name]
+        value = point.on_value if on else point.off_value
+        now = self._clock()
+        state = replace(self._outputs[name], wanted=on, written_at=now)
+
+        if point.table == "coil":
+
+            async def write(client: Any) -> Any:
+                return await client.write_coil(point.address, bool(value), device_id=point.unit_id)
+        else:
+
+            async def write(client: Any) -> Any:
+                return await client.write_register(point.address, value, device_id=point.unit_id)
+
+        try:
+            await self._request(write, lambda _response: None)
+            if point.read_back:
+                raw = await self._read_output_raw(point)
+        except _RequestFailed as exc:
+            state = replace(state, verdict="comm-failure", detail=exc.reason)
+            self._events.problem(
+                name,
+                "modbus.write_failed",
+                now,
+                point=name,
+                link=self.name,
+                endpoint=self.endpoint,
+                address=point.address,
+                value=value,
+                reason=exc.reason,
+            )
+        else:
+            if not point.read_back:
+                state = replace(state, verdict="unverified", detail=None)
+            else:
+                confirmed = (
+                    True if raw == point.on_value else False if raw == point.off_value else None
+                )
+                state = replace(state, confirmed=confirmed, confirmed_at=self._clock())
+                if raw == value:
+                    state = replace(state, verdict="ok", detail=None)
+                    self._events.recovered(
+                        name, "modbus.output_confirmed", point=name, link=self.name
+                    )
+                else:
+                    detail = f"wrote {value}, read back {raw}"
+                    state = replace(state, verdict="mismatch", detail=detail)
+                    self._events.problem(
+                        name,
+                        "modbus.output_mismatch",
+                        now,
+                        point=name,
+                        link=self.name,
+                        address=point.address,
+                        written=value,
+                        raw=raw,
+                    )
+        self._outputs[name] = state
+        return state
+
+    async def reassert_due(self, now: float) -> list[OutputState]:
+        """Write again each commanded output due (``reassert_s``) or whose last write failed."""
+        done: list[OutputState] = []
+        for name, point in self.outputs.items():
+            state = self._outputs[name]
+            if state.wanted is None:
+                continue
+            overdue = state.written_at is None or now - state.written_at >= point.reassert_s
+            if overdue or state.verdict in ("comm-failure", "mismatch"):
+                done.append(await self.set_output(name, state.wanted))
+        return done
+
+    # ------------------------------------------------------------------ loop
+
+    async def run(self) -> None:
+        """Poll every ``poll_interval_s`` and re-assert outputs, until cancelled."""
+        while True:
+            started = time.monotonic()
+            await self.poll()
+            await self.reassert_due(self._clock())
+            self.cycles += 1
+            await asyncio.sleep(max(0.0, self.link.poll_interval_s - (time.monotonic() - started)))
+
+
+def _describe(exc: BaseException) -> str:
+    text = str(exc).strip() or type(exc).__name__
+    return text if len(text) < 200 else text[:197] + "..."
