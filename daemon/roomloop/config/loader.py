@@ -26,7 +26,7 @@ import os
 import re
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Any, Literal, get_args, get_origin
+from typing import Annotated, Any, Literal, get_args, get_origin
 
 import yaml
 from pydantic import BaseModel, TypeAdapter, ValidationError
@@ -227,7 +227,7 @@ def _compose(file: str, text: str) -> Node | None:
         return yaml.compose(text, Loader=yaml.SafeLoader)
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark
-        what = " ".join(part for part in (exc.context, exc.problem) if part)
+        what = ": ".join(part for part in (exc.context, exc.problem) if part)
         message = f"YAML syntax error: {what or 'cannot parse'}"
         if mark is None:
             raise _fail(file, message) from None
@@ -307,7 +307,7 @@ def _clean_loc(loc: Sequence[str | int], data: Any) -> KeyPath:
 _PREFIXES = ("Value error, ", "Assertion failed, ")
 
 
-def _message(error: Mapping[str, Any], allowed: Iterable[str] = ()) -> str:
+def _message(error: Mapping[str, Any], allowed: Iterable[str] = (), tags: str = "") -> str:
     kind = str(error.get("type", ""))
     msg = str(error.get("msg", "invalid"))
     for prefix in _PREFIXES:
@@ -321,17 +321,20 @@ def _message(error: Mapping[str, Any], allowed: Iterable[str] = ()) -> str:
         hint = f"; did you mean {close[0]!r}?" if close else ""
         return f"unknown key {key!r} (a typo is never ignored){hint}"
     if kind in ("union_tag_invalid", "union_tag_not_found"):
-        tags = error.get("ctx", {}).get("expected_tags", "")
+        tags = tags or str(error.get("ctx", {}).get("expected_tags", ""))
         found = error.get("ctx", {}).get("tag")
         if kind == "union_tag_not_found":
-            return f"missing 'type': say which kind this is ({tags})"
+            return f"missing 'type': say which kind this is ({tags or 'see the reference'})"
         return f"unknown type {found!r}; use one of {tags}"
     if kind in {"model_type", "dict_type"}:
         return f"must be a mapping of keys, got {_show(error.get('input'))}"
     shown = error.get("input")
-    if kind not in ("value_error", "assertion_error") and not isinstance(shown, dict | list):
-        return f"{msg[:1].lower()}{msg[1:]} (got {_show(shown)})"
-    return f"{msg[:1].lower()}{msg[1:]}"
+    if kind in ("value_error", "assertion_error"):
+        return msg  # our own wording, already a sentence fragment
+    msg = f"{msg[:1].lower()}{msg[1:]}"  # pydantic's "Input should be ..." reads on after the path
+    if isinstance(shown, dict | list):
+        return msg
+    return f"{msg} (got {_show(shown)})"
 
 
 def _show(value: Any) -> str:
@@ -369,7 +372,12 @@ def problems_from_validation_error(
         path = _clean_loc(loc, data) if data is not None else _drop_tags(loc)
         full = (*tuple(prefix), *path)
         allowed = _allowed_keys(schema, data, path[:-1]) if schema is not None else ()
-        message = _message(error, allowed)
+        tags = ""
+        if str(error.get("type", "")).startswith("union_tag"):
+            tags = _type_tags(schema)
+            if error["type"] == "union_tag_invalid":
+                full = (*full, "type")  # point at the 'type' line itself
+        message = _message(error, allowed, tags)
         line = linemap.line(full)
         key = (line, format_path(full), message)
         if key in seen:
@@ -377,6 +385,20 @@ def problems_from_validation_error(
         seen.add(key)
         problems.append(ConfigProblem(file, line, format_path(full), message))
     return problems
+
+
+def _type_tags(schema: Any) -> str:
+    """The ``type`` values a discriminated union accepts: ``'modbus-tcp', 'modbus-rtu'``."""
+    tp = schema
+    while get_origin(tp) is Annotated:
+        tp = get_args(tp)[0]
+    tags: list[str] = []
+    for member in get_args(tp):
+        if isinstance(member, type) and issubclass(member, BaseModel):
+            type_field = member.model_fields.get("type")
+            if type_field is not None:
+                tags.extend(repr(tag) for tag in get_args(type_field.annotation))
+    return ", ".join(tags)
 
 
 def _drop_tags(loc: Sequence[str | int]) -> KeyPath:
@@ -420,7 +442,7 @@ def _narrow(tp: Any, value: Any) -> Any:
             return tp
         if origin in (list, tuple):
             return tp
-        if str(origin).endswith("Annotated"):
+        if origin is Annotated:
             tp = args[0]
             continue
         members = [a for a in args if a is not type(None)]
