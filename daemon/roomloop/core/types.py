@@ -55,7 +55,7 @@ class ZoneOutputs:
 
     demand: bool
     reason: str
-    """Which rule decided, e.g. ``anticipator-cut-out``, ``min-on``, ``protection``, ``fail-safe:fixed-duty``."""
+    """Which rule decided, e.g. ``cut-out``, ``min-on``, ``protection``, ``fail-safe:off``."""
     temperature: float | None
     setpoint: float
     level: str

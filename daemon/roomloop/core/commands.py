@@ -1,0 +1,186 @@
+"""Commands on a zone's state, as pure functions the service calls between steps.
+
+:func:`apply_command` takes a field name and a value as they arrived (a JSON
+value or the plain payload text) and returns the new :class:`ZoneState`, or
+raises :class:`CommandRejected` with a reason the service can publish on
+``cmd/result``. Values are Celsius and POSIX seconds; the service converts site
+units before calling.
+
+Fields:
+
+- ``setpoint``: a number within the zone's limits: a hold at that temperature
+  (keeping a running hold's ``hold_until``, otherwise indefinite).
+- ``mode``: ``auto`` (clears any hold and level override), ``hold`` (a hold
+  at the set point in force now), ``off``.
+- ``level``: ``comfort``, ``standby``, ``economy`` or ``protection``. In
+  ``auto`` it overrides the program's level until the program's level next
+  changes; in ``hold`` it becomes a hold at that level's set point; in ``off``
+  it starts a hold at that level.
+- ``hold_until``: POSIX seconds in the future, or ``null``/empty for an
+  indefinite hold. In ``auto`` it starts a hold at the set point in force now;
+  in ``off`` it is refused (there is nothing to hold).
+
+The next :meth:`ZoneController.step` clamps and applies the result, so a
+command never has to wait for a tick to be validated.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import replace
+from typing import Any
+
+from roomloop.errors import RoomloopError
+
+from .settings import LEVEL_NAMES, MODE_NAMES, ZoneSettings
+from .state import ZoneState
+
+COMMAND_FIELDS = ("setpoint", "mode", "level", "hold_until")
+
+
+class CommandRejected(RoomloopError):
+    """A command that was refused; ``reason`` says why in words fit for the result topic."""
+
+    def __init__(self, field: str, reason: str) -> None:
+        self.field = field
+        self.reason = reason
+        super().__init__(f"{field}: {reason}")
+
+
+def current_level(settings: ZoneSettings, state: ZoneState) -> str:
+    """The level in force for ``state`` (as the last step saw it)."""
+    if state.mode == "hold" and state.hold_level is not None:
+        return state.hold_level
+    if state.mode == "auto" and state.level_override is not None:
+        return state.level_override
+    return state.scheduled_level
+
+
+def current_setpoint(settings: ZoneSettings, state: ZoneState) -> float:
+    """The set point in force for ``state``, clamped to the limits."""
+    if state.mode == "hold" and state.hold_setpoint is not None:
+        value = state.hold_setpoint
+    else:
+        value = settings.setpoint_for(current_level(settings, state))
+    return min(max(value, settings.limit_min_c), settings.limit_max_c)
+
+
+def apply_command(
+    settings: ZoneSettings, state: ZoneState, field: str, value: object, now: float
+) -> ZoneState:
+    """Return ``state`` with the command applied, or raise :class:`CommandRejected`."""
+    if field == "setpoint":
+        number = _number(field, value)
+        low, high = settings.limit_min_c, settings.limit_max_c
+        if not low <= number <= high:
+            raise CommandRejected(
+                field, f"{number:g} C is outside the zone's limits {low:g} to {high:g} C"
+            )
+        keep_until = state.hold_until if state.mode == "hold" else None
+        return replace(
+            state,
+            mode="hold",
+            hold_setpoint=number,
+            hold_level=(
+                current_level(settings, state) if state.mode != "off" else state.scheduled_level
+            ),
+            hold_until=keep_until,
+            level_override=None,
+        )
+    if field == "mode":
+        mode = _word(field, value, MODE_NAMES)
+        if mode == state.mode:
+            return state
+        if mode == "auto":
+            return replace(
+                state, mode="auto", hold_setpoint=None, hold_level=None, hold_until=None,
+                level_override=None,
+            )
+        if mode == "hold":
+            if state.mode == "off":
+                return replace(
+                    state, mode="hold", hold_setpoint=None, hold_level=state.scheduled_level,
+                    hold_until=None, level_override=None,
+                )
+            return replace(
+                state,
+                mode="hold",
+                hold_setpoint=current_setpoint(settings, state),
+                hold_level=current_level(settings, state),
+                hold_until=None,
+                level_override=None,
+            )
+        return replace(
+            state, mode="off", hold_setpoint=None, hold_level=None, hold_until=None,
+            level_override=None,
+        )
+    if field == "level":
+        level = _word(field, value, LEVEL_NAMES)
+        if state.mode == "auto":
+            return replace(state, level_override=level)
+        keep_until = state.hold_until if state.mode == "hold" else None
+        return replace(
+            state, mode="hold", hold_setpoint=None, hold_level=level, hold_until=keep_until,
+            level_override=None,
+        )
+    if field == "hold_until":
+        until = _optional_number(field, value)
+        if until is not None and until <= now:
+            raise CommandRejected(field, f"{until:.0f} is not in the future (now is {now:.0f})")
+        if state.mode == "off":
+            raise CommandRejected(field, "the zone is off; set a mode, set point or level first")
+        if state.mode == "auto":
+            return replace(
+                state,
+                mode="hold",
+                hold_setpoint=current_setpoint(settings, state),
+                hold_level=current_level(settings, state),
+                hold_until=until,
+                level_override=None,
+            )
+        return replace(state, hold_until=until)
+    raise CommandRejected(
+        field, f"unknown field {field!r}; use one of {', '.join(COMMAND_FIELDS)}"
+    )
+
+
+def _unwrap(value: object) -> object:
+    """Plain payload text may carry JSON (``"21.5"``, ``"\\"auto\\""``, ``null``)."""
+    if isinstance(value, bytes):
+        try:
+            value = value.decode("utf-8")
+        except UnicodeDecodeError:
+            return value
+    if isinstance(value, str):
+        text = value.strip()
+        try:
+            parsed: Any = json.loads(text)
+        except ValueError:
+            return text
+        return parsed
+    return value
+
+
+def _number(field: str, value: object) -> float:
+    raw = _unwrap(value)
+    if isinstance(raw, bool) or not isinstance(raw, int | float):
+        raise CommandRejected(field, f"{value!r} is not a number")
+    number = float(raw)
+    if not math.isfinite(number):
+        raise CommandRejected(field, f"{value!r} is not a finite number")
+    return number
+
+
+def _optional_number(field: str, value: object) -> float | None:
+    raw = _unwrap(value)
+    if raw is None or raw == "":
+        return None
+    return _number(field, raw)
+
+
+def _word(field: str, value: object, allowed: tuple[str, ...]) -> str:
+    raw = _unwrap(value)
+    if not isinstance(raw, str) or raw.strip().lower() not in allowed:
+        raise CommandRejected(field, f"{value!r} is not one of {', '.join(allowed)}")
+    return raw.strip().lower()

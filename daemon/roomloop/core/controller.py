@@ -1,0 +1,492 @@
+"""The zone controller: one sans-IO step per tick, following DESIGN.md "Control law".
+
+Each :meth:`ZoneController.step` takes the previous :class:`ZoneState`, the
+tick's :class:`ZoneInputs` and the time, and returns the next state and the
+:class:`ZoneOutputs`. It reads no clock and does no I/O; the same code runs in
+the service, the plant simulator and the demo.
+
+Order of one step (``u`` = relay state held during the elapsed tick):
+
+1. **Anticipator**, exact over the elapsed ``dt``:
+   ``a <- G u + (a - G u) exp(-dt / tau)``; the trajectory does not depend on
+   the tick length.
+2. **Points** judged (:mod:`roomloop.core.reliability`); the trusted ones are
+   combined (``mean``, ``median``, ``min``, ``first-ok``) into ``T``.
+3. **Commands**: a hold past ``hold_until`` returns to ``auto``; a level
+   override set in ``auto`` lasts until the program's level changes.
+4. **Set point** ``S`` from mode and level (``off`` shows the protection set
+   point), clamped to the zone's limits.
+5. **Fail-safe** (:mod:`roomloop.core.failsafe`) entered when no trusted ``T``
+   for ``sensor_timeout_s``; left after a trusted ``T`` has lasted the recovery
+   time. Until fail-safe starts the zone *coasts*: it keeps switching on the
+   last trusted temperature (the anticipator still cycles the relay at about the
+   cycle rate), reasons prefixed ``last-temperature:``.
+6. **Switching** on ``T + a - b`` across ``S -/+ D/2`` (``cut-in``,
+   ``cut-out``, ``in-band``).
+7. **Short-cycle protection** holds the relay: ``min-on``, ``min-off``,
+   ``max-cycles`` (switch-ons in the sliding hour ``(now - 3600, now]``).
+8. **Protection** overrides everything: below the protection set point
+   (zone temperature, or the backup point while the zone has none) the relay is
+   on, whatever the mode (in ``off`` only with ``protection_in_off``), the
+   minimum off time and the cycle limit. In mode ``off`` the relay goes off as
+   soon as the temperature is back at the protection set point, even inside
+   ``min_on_s``: mode off never heats above it.
+9. **Droop compensation** ``b`` integrates ``(S - T) dt / droop_time_s`` and is
+   clamped to ``[0, G]``. With the anticipator's mean ``G x duty`` the room
+   would otherwise settle ``G x duty`` below ``S`` (REFERENCES.md [derived]);
+   ``b`` converges to that bias. Anti-windup: ``b`` is frozen while recovering
+   from a set-point change (from the change until ``T`` first enters the band on
+   the far side: ``T >= S - D/2`` after a rise, ``T <= S + D/2`` after a drop),
+   in fail-safe, while coasting, in mode ``off``, during protection and while
+   short-cycle protection holds the relay. Freezing during recovery keeps the
+   long warm-up of a set-back recovery out of the integral, which would
+   otherwise overshoot afterwards; the anticipator (saturated near ``G`` after
+   a long run) cuts out early and limits the overshoot of the recovery itself.
+   Start-up and leaving fail-safe count as a set-point change.
+
+Every output carries ``reason``: the rule that decided the relay this tick.
+"""
+
+from __future__ import annotations
+
+import math
+
+from .failsafe import BUCKET_S as _BUCKET_S
+from .failsafe import choose_duty, duty_wants_on, record_duty
+from .reliability import evaluate_point
+from .settings import ZoneSettings
+from .state import PointState, ZoneState
+from .types import Reliability, ZoneInputs, ZoneOutputs
+
+HOUR_S = 3600.0
+MAX_SWITCH_LOG = 128
+"""Bound of the switch log (the last hour's switchings; 60 cycles at most are allowed)."""
+
+
+class ZoneController:
+    """Our anticipating on/off controller for one zone (conforms to ``types.Controller``)."""
+
+    __slots__ = ("_cache_decay", "_cache_dt", "_half", "_learn_s", "settings")
+
+    def __init__(self, settings: ZoneSettings) -> None:
+        self.settings = settings
+        self._half = settings.differential_k / 2.0
+        self._learn_s = settings.learn_hours * HOUR_S
+        self._cache_dt = -1.0
+        self._cache_decay = 1.0
+
+    # ------------------------------------------------------------------ state
+
+    def initial_state(self, now: float) -> ZoneState:
+        """A fresh zone: relay off, nothing learned, the configured start mode."""
+        s = self.settings
+        return ZoneState(
+            mode=s.initial_mode,
+            hold_setpoint=None,
+            hold_level=s.default_level if s.initial_mode == "hold" else None,
+            hold_until=None,
+            level_override=None,
+            scheduled_level=s.default_level,
+            anticipator_k=0.0,
+            droop_k=0.0,
+            relay_on=False,
+            switched_at=None,
+            protection_run=False,
+            switches=(),
+            started_at=now,
+            last_step_at=now,
+            last_setpoint=None,
+            recovering=0,
+            temperature=None,
+            good_at=now,
+            good_since=None,
+            normal=False,
+            fail_safe=False,
+            fail_safe_since=None,
+            fail_safe_duty=None,
+            fail_safe_reason=None,
+            duty_buckets=(),
+            duty_current=(math.floor(now / _BUCKET_S) * _BUCKET_S, 0.0, 0.0),
+            points=tuple(PointState(p.name) for p in s.inputs),
+            backup=None if s.backup is None else PointState(s.backup.name),
+        )
+
+    def resume(self, state: ZoneState, now: float, relay_on: bool = False) -> ZoneState:
+        """Adopt a state loaded from disk after a restart at ``now``.
+
+        ``relay_on`` is the output's state while roomloop was down (its safe
+        state). The anticipator decays (or rises) over the gap as if it had run,
+        point memories are kept only for points still configured under the same
+        name, times in the future (a clock set back) are pulled to ``now``, and
+        the gap does not count toward the learned duty.
+        """
+        s = self.settings
+        gap = max(0.0, now - state.last_step_at)
+        gain = s.anticipator_gain_k
+        u = gain if relay_on else 0.0
+        anticipator = u + (state.anticipator_k - u) * math.exp(-gap / s.anticipator_time_constant_s)
+        switched_at = state.switched_at
+        switches = tuple(sw for sw in state.switches if sw[0] <= now)
+        if relay_on != state.relay_on:
+            switched_at = min(state.last_step_at, now)
+            switches = (*switches, (switched_at, relay_on))[-MAX_SWITCH_LOG:]
+        elif switched_at is not None:
+            switched_at = min(switched_at, now)
+        old_points = {p.name: p for p in state.points}
+        points = tuple(old_points.get(p.name, PointState(p.name)) for p in s.inputs)
+        backup: PointState | None = None
+        if s.backup is not None:
+            backup = (
+                state.backup
+                if state.backup is not None and state.backup.name == s.backup.name
+                else PointState(s.backup.name)
+            )
+        return ZoneState(
+            mode=state.mode,
+            hold_setpoint=state.hold_setpoint,
+            hold_level=state.hold_level,
+            hold_until=state.hold_until,
+            level_override=state.level_override,
+            scheduled_level=state.scheduled_level,
+            anticipator_k=min(max(anticipator, 0.0), gain),
+            droop_k=min(max(state.droop_k, 0.0), gain) if s.droop_compensation else 0.0,
+            relay_on=relay_on,
+            switched_at=switched_at,
+            protection_run=False,
+            switches=switches,
+            started_at=min(state.started_at, now),
+            last_step_at=now,
+            last_setpoint=state.last_setpoint,
+            recovering=state.recovering,
+            temperature=state.temperature,
+            good_at=min(state.good_at, now),
+            good_since=None,
+            normal=False,
+            fail_safe=state.fail_safe,
+            fail_safe_since=(
+                None if state.fail_safe_since is None else min(state.fail_safe_since, now)
+            ),
+            fail_safe_duty=state.fail_safe_duty,
+            fail_safe_reason=state.fail_safe_reason,
+            duty_buckets=tuple(b for b in state.duty_buckets if b[0] <= now),
+            duty_current=state.duty_current
+            if state.duty_current[0] <= now
+            else (math.floor(now / _BUCKET_S) * _BUCKET_S, 0.0, 0.0),
+            points=points,
+            backup=backup,
+        )
+
+    # ------------------------------------------------------------------ step
+
+    def step(
+        self, state: ZoneState, inputs: ZoneInputs, now: float
+    ) -> tuple[ZoneState, ZoneOutputs]:
+        """One tick of the control law (see the module docstring)."""
+        s = self.settings
+        half = self._half
+        gain = s.anticipator_gain_k
+        was_on = state.relay_on
+
+        # 1. anticipator, exact over the elapsed tick
+        dt = now - state.last_step_at
+        dt = max(dt, 0.0)
+        a = state.anticipator_k
+        if dt > 0.0:
+            if dt != self._cache_dt:
+                self._cache_dt = dt
+                self._cache_decay = math.exp(-dt / s.anticipator_time_constant_s)
+            decay = self._cache_decay
+            a = gain + (a - gain) * decay if was_on else a * decay
+        on_s = dt if was_on else 0.0
+
+        # 2. points and the zone temperature
+        cfgs = s.inputs
+        samples = inputs.samples
+        old_points = state.points
+        count = len(cfgs)
+        if len(old_points) != count:
+            old_points = tuple(PointState(c.name) for c in cfgs)
+        n_samples = len(samples)
+        points: list[PointState] = []
+        values: list[float] = []
+        reliability: dict[str, Reliability] = {}
+        for i in range(count):
+            point = evaluate_point(
+                cfgs[i], old_points[i], samples[i] if i < n_samples else None, now, on_s
+            )
+            points.append(point)
+            reliability[point.name] = point.reliability
+            if point.reliability == "ok" and point.value is not None:
+                values.append(point.value)
+        temperature: float | None
+        if not values:
+            temperature = None
+        elif len(values) == 1 or s.combine == "first-ok":
+            temperature = values[0]
+        elif s.combine == "mean":
+            temperature = sum(values) / len(values)
+        elif s.combine == "min":
+            temperature = min(values)
+        else:
+            ordered = sorted(values)
+            mid = len(ordered) // 2
+            temperature = (
+                ordered[mid] if len(ordered) % 2 else 0.5 * (ordered[mid - 1] + ordered[mid])
+            )
+        backup = state.backup
+        backup_value: float | None = None
+        if s.backup is not None:
+            backup = evaluate_point(
+                s.backup, backup if backup is not None else PointState(s.backup.name),
+                inputs.backup, now, on_s,
+            )
+            reliability[backup.name] = backup.reliability
+            if backup.reliability == "ok":
+                backup_value = backup.value
+
+        if temperature is not None:
+            good_at = now
+            good_since = state.good_since if state.good_since is not None else now
+            last_temperature: float | None = temperature
+        else:
+            good_at = state.good_at
+            good_since = None
+            last_temperature = state.temperature
+
+        # 3. commands that expire
+        mode = state.mode
+        hold_setpoint = state.hold_setpoint
+        hold_level = state.hold_level
+        hold_until = state.hold_until
+        if mode == "hold" and hold_until is not None and now >= hold_until:
+            mode = "auto"
+            hold_setpoint = hold_level = hold_until = None
+        scheduled = inputs.scheduled_level
+        override = state.level_override
+        if override is not None and scheduled != state.scheduled_level:
+            override = None
+
+        # 4. set point
+        if mode == "auto":
+            level: str = override if override is not None else scheduled
+            setpoint = s.setpoint_for(level)
+        elif mode == "hold":
+            level = hold_level if hold_level is not None else scheduled
+            setpoint = hold_setpoint if hold_setpoint is not None else s.setpoint_for(level)
+        else:
+            level = "protection"
+            setpoint = s.protection_c
+        if setpoint < s.limit_min_c:
+            setpoint = s.limit_min_c
+        elif setpoint > s.limit_max_c:
+            setpoint = s.limit_max_c
+
+        # 5. fail-safe
+        fail_safe = state.fail_safe
+        fs_since = state.fail_safe_since
+        fs_duty = state.fail_safe_duty
+        fs_reason = state.fail_safe_reason
+        left_fail_safe = False
+        if fail_safe:
+            if good_since is not None and now - good_since >= s.fail_safe_recovery_s:
+                fail_safe = False
+                fs_since = fs_duty = fs_reason = None
+                left_fail_safe = True
+        elif temperature is None and now - good_at >= s.sensor_timeout_s:
+            fail_safe = True
+            fs_since = now
+            fs_duty, why = choose_duty(
+                s.fail_safe_policy, state.duty_buckets, state.duty_current, now,
+                duty=s.fail_safe_duty, period_s=s.fail_safe_period_s,
+                learn_hours=s.learn_hours, min_duty=s.min_duty, max_duty=s.max_duty,
+            )
+            fs_reason = f"no reliable temperature for {now - good_at:.0f} s; {why}"
+
+        # recovery from a set-point change (and start-up, and leaving fail-safe)
+        recovering = state.recovering
+        last_setpoint = state.last_setpoint
+        if last_setpoint is None or setpoint != last_setpoint or left_fail_safe:
+            ref = temperature if temperature is not None else last_temperature
+            if ref is None:
+                recovering = 1 if last_setpoint is None or setpoint > last_setpoint else -1
+            elif ref < setpoint - half:
+                recovering = 1
+            elif ref > setpoint + half:
+                recovering = -1
+            else:
+                recovering = 0
+        elif recovering != 0 and temperature is not None and (
+            (recovering > 0 and temperature >= setpoint - half)
+            or (recovering < 0 and temperature <= setpoint + half)
+        ):
+            recovering = 0
+
+        # 6-8. the relay decision
+        b = state.droop_k
+        protect_value = temperature if temperature is not None else backup_value
+        forced = (
+            protect_value is not None
+            and protect_value < s.protection_c
+            and (mode != "off" or s.protection_in_off)
+        )
+        want: bool
+        if forced:
+            want = True
+            reason = "protection"
+        elif mode == "off":
+            want = False
+            reason = "mode-off"
+        elif fail_safe:
+            assert fs_since is not None and fs_duty is not None
+            want = duty_wants_on(fs_since, now, fs_duty, s.fail_safe_period_s)
+            reason = "fail-safe:" + s.fail_safe_policy
+        elif last_temperature is None:
+            want = False
+            reason = "no-temperature"
+        else:
+            sensed = last_temperature + a - b
+            if was_on:
+                if sensed >= setpoint + half:
+                    want = False
+                    reason = "cut-out"
+                else:
+                    want = True
+                    reason = "in-band"
+            elif sensed <= setpoint - half:
+                want = True
+                reason = "cut-in"
+            else:
+                want = False
+                reason = "in-band"
+            if temperature is None:
+                reason = "last-temperature:" + reason
+
+        on = want
+        held = False
+        switches = state.switches
+        switched_at = state.switched_at
+        if want != was_on and not forced and mode != "off":
+            since = HOUR_S * 1e6 if switched_at is None else now - switched_at
+            if want:
+                if since < s.min_off_s:
+                    on, held, reason = False, True, "min-off"
+                elif _ons_since(switches, now - HOUR_S) >= s.max_cycles_per_hour:
+                    on, held, reason = False, True, "max-cycles"
+            elif since < s.min_on_s:
+                on, held, reason = True, True, "min-on"
+        protection_run = state.protection_run
+        if on != was_on:
+            switched_at = now
+            horizon = now - HOUR_S
+            if switches and switches[0][0] <= horizon:
+                switches = tuple(sw for sw in switches if sw[0] > horizon)
+            switches = (*switches, (now, on))
+            if len(switches) > MAX_SWITCH_LOG:
+                switches = switches[-MAX_SWITCH_LOG:]
+            protection_run = on and forced
+
+        # 9. droop compensation with anti-windup
+        if (
+            s.droop_compensation
+            and dt > 0.0
+            and temperature is not None
+            and recovering == 0
+            and not fail_safe
+            and not held
+            and not forced
+            and mode != "off"
+        ):
+            b += (setpoint - temperature) * dt / s.droop_time_s
+            if b < 0.0:
+                b = 0.0
+            elif b > gain:
+                b = gain
+
+        # learned-duty history: the elapsed tick counts if it was ordinary control
+        buckets = state.duty_buckets
+        current = state.duty_current
+        if state.normal and dt > 0.0:
+            buckets, current = record_duty(
+                buckets, current, at=now, on_s=on_s, seen_s=dt, learn_s=self._learn_s
+            )
+        normal = temperature is not None and not fail_safe and mode != "off"
+
+        # figures of the last hour
+        window_start = now - HOUR_S
+        window_start = max(window_start, state.started_at)
+        cycles = 0
+        on_time = 0.0
+        relay = on
+        t_end = now
+        for t_switch, switched_on in reversed(switches):
+            if t_switch <= window_start:
+                break
+            if relay:
+                on_time += t_end - t_switch
+            if switched_on:
+                cycles += 1
+            relay = not switched_on
+            t_end = t_switch
+        if relay:
+            on_time += t_end - window_start
+        span = now - window_start
+        on_fraction = on_time / span if span > 0.0 else (1.0 if on else 0.0)
+
+        new_state = ZoneState(
+            mode,
+            hold_setpoint,
+            hold_level,
+            hold_until,
+            override,
+            scheduled,
+            a,
+            b,
+            on,
+            switched_at,
+            protection_run,
+            switches,
+            state.started_at,
+            now,
+            setpoint,
+            recovering,
+            last_temperature,
+            good_at,
+            good_since,
+            normal,
+            fail_safe,
+            fs_since,
+            fs_duty,
+            fs_reason,
+            buckets,
+            current,
+            tuple(points),
+            backup,
+        )
+        outputs = ZoneOutputs(
+            on,
+            reason,
+            temperature,
+            setpoint,
+            level,
+            mode,
+            a,
+            b,
+            reliability,
+            fail_safe,
+            s.fail_safe_policy if fail_safe else None,
+            fs_reason,
+            on_fraction,
+            cycles,
+        )
+        return new_state, outputs
+
+
+def _ons_since(switches: tuple[tuple[float, bool], ...], horizon: float) -> int:
+    """Switch-ons strictly after ``horizon``."""
+    count = 0
+    for t_switch, switched_on in reversed(switches):
+        if t_switch <= horizon:
+            break
+        if switched_on:
+            count += 1
+    return count

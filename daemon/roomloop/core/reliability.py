@@ -1,0 +1,111 @@
+"""Point reliability: may this reading be used to control the zone?
+
+Pure functions over :class:`~roomloop.core.state.PointState`; the vocabulary is
+BACnet's reliability property (ASHRAE 135, REFERENCES.md). A reading is judged
+once (when its ``received_at`` is new); its verdict is, in order:
+
+1. the I/O layer's transport verdict (``comm-failure``, or ``over-range`` /
+   ``under-range`` when it saw a configured raw sentinel);
+2. ``stale`` when the reading is older than ``stale_after_s`` (judged every tick);
+3. ``under-range`` / ``over-range`` against the point's valid range;
+4. ``implausible`` when it moved away from the last accepted reading faster than
+   ``max_rate_k_per_min`` (a probe's power-on 85.0 C is the classic case,
+   REFERENCES.md). The rate is taken against the last *accepted* reading over
+   the time since then, so a real but sudden change is accepted once the time
+   since the last good reading makes it plausible;
+5. ``stuck`` when the value has not moved by at least ``resolution_k`` for
+   ``stuck_after_s`` seconds *of relay-on time* (a heated room moves; a frozen
+   transmitter does not). Relay-off time does not count, so a zone that idles
+   in mild weather is never called stuck.
+
+After any fault the point must read ``ok`` for ``recovery_s`` before it is
+trusted again; meanwhile the published reliability keeps the fault's name. A
+point that has simply not delivered its first reading yet is ``stale`` but not
+faulted, so start-up needs no recovery time.
+"""
+
+from __future__ import annotations
+
+from .settings import PointSettings
+from .state import PointState
+from .types import PointSample, Reliability
+
+
+def initial_point_state(name: str) -> PointState:
+    return PointState(name=name)
+
+
+def evaluate_point(
+    cfg: PointSettings,
+    st: PointState,
+    sample: PointSample | None,
+    now: float,
+    relay_on_s: float,
+) -> PointState:
+    """Judge one point at ``now``; ``relay_on_s`` is the relay-on time since the previous step."""
+    still_value = st.still_value
+    still_on_s = st.still_on_s + relay_on_s
+    value = st.value
+    value_at = st.value_at
+    seen_at = st.seen_at
+    verdict: Reliability
+    if sample is None or sample.value is None or sample.received_at is None:
+        transport = "stale" if sample is None else sample.transport
+        verdict = transport if transport != "ok" else "stale"
+        if verdict == "stale" and value is None and not st.faulted:
+            # Nothing delivered yet since start: not a fault.
+            return PointState(cfg.name, "stale", "stale", None, None, None, None, 0.0, None, False)
+    else:
+        received_at = sample.received_at
+        reading = sample.value
+        if sample.transport != "ok":
+            verdict = sample.transport
+            seen_at = received_at
+        elif now - received_at > cfg.stale_after_s:
+            verdict = "stale"
+        elif seen_at is not None and received_at <= seen_at:
+            # The same reading again: keep its verdict, but stuck time runs on.
+            verdict = st.verdict
+            if verdict == "stale":
+                verdict = "ok"
+            if verdict in ("ok", "stuck") and cfg.stuck_after_s is not None:
+                verdict = "stuck" if still_on_s >= cfg.stuck_after_s else "ok"
+        else:
+            seen_at = received_at
+            if reading < cfg.valid_low_c:
+                verdict = "under-range"
+            elif reading > cfg.valid_high_c:
+                verdict = "over-range"
+            elif (
+                value is not None
+                and value_at is not None
+                and abs(reading - value) * 60.0
+                > cfg.max_rate_k_per_min * max(received_at - value_at, 1e-9)
+            ):
+                verdict = "implausible"
+            else:
+                value = reading
+                value_at = received_at
+                step = cfg.resolution_k if cfg.resolution_k > 0 else 1e-9
+                if still_value is None or abs(reading - still_value) >= step * (1.0 - 1e-9):
+                    still_value = reading
+                    still_on_s = 0.0
+                if cfg.stuck_after_s is not None and still_on_s >= cfg.stuck_after_s:
+                    verdict = "stuck"
+                else:
+                    verdict = "ok"
+
+    if verdict == "ok":
+        good_since = st.good_since if st.verdict == "ok" and st.good_since is not None else now
+        faulted = st.faulted and now - good_since < cfg.recovery_s
+        if faulted:
+            reliability: Reliability = st.reliability if st.reliability != "ok" else "stale"
+        else:
+            reliability = "ok"
+        return PointState(
+            cfg.name, reliability, "ok", value, value_at, seen_at,
+            still_value, still_on_s, good_since, faulted,
+        )
+    return PointState(
+        cfg.name, verdict, verdict, value, value_at, seen_at, still_value, still_on_s, None, True
+    )

@@ -1,0 +1,294 @@
+"""What one zone's step needs from the site configuration, flattened once, in Celsius and seconds.
+
+The config models are frozen pydantic objects: fine to validate a file, too slow
+to read on every tick of hundreds of zones. :class:`ZoneSettings` copies the
+resolved values (heating-type presets filled in, see ``Zone.effective``) into
+a plain slotted dataclass, so the step reads attributes and nothing else.
+
+Three ways to build one:
+
+- :meth:`ZoneSettings.from_site` - the service: a loaded site and a zone name;
+- :meth:`ZoneSettings.from_zone` - a zone model plus its input point configs;
+- :meth:`ZoneSettings.for_heating_type` - the simulator's ``--heating TYPE``: a zone
+  with that type's defaults and one input point, no site file needed.
+
+Tests and tools may then adjust single values with :func:`dataclasses.replace`.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass
+
+from roomloop.config.models import (
+    FailSafe,
+    InputPoint,
+    Limits,
+    MqttInput,
+    Reliability,
+    Setpoints,
+    Site,
+    TuningInput,
+    Zone,
+)
+from roomloop.errors import RoomloopError
+
+COMBINE_RULES = ("mean", "median", "min", "first-ok")
+FAIL_SAFE_POLICIES = ("off", "fixed-duty", "learned-duty")
+LEVEL_NAMES = ("comfort", "standby", "economy", "protection")
+MODE_NAMES = ("auto", "hold", "off")
+
+
+class SettingsError(RoomloopError, ValueError):
+    """Settings the controller cannot run with (an unknown zone, a missing point, a bad value)."""
+
+
+@dataclass(frozen=True, slots=True)
+class PointSettings:
+    """How one input point's readings are judged (see :mod:`roomloop.core.reliability`)."""
+
+    name: str
+    valid_low_c: float = -30.0
+    valid_high_c: float = 60.0
+    stale_after_s: float = 120.0
+    max_rate_k_per_min: float = 2.0
+    stuck_after_s: float | None = 10800.0
+    """Relay-on seconds without a move beyond ``resolution_k`` before the point is ``stuck``."""
+    resolution_k: float = 0.1
+    recovery_s: float = 60.0
+
+    @classmethod
+    def from_point(cls, point: InputPoint) -> PointSettings:
+        rel = point.reliability
+        low, high = point.valid_range
+        return cls(
+            name=point.name,
+            valid_low_c=float(low),
+            valid_high_c=float(high),
+            stale_after_s=float(rel.stale_after_s),
+            max_rate_k_per_min=float(rel.max_rate_k_per_min),
+            stuck_after_s=None if rel.stuck_after_s is None else float(rel.stuck_after_s),
+            resolution_k=float(rel.resolution_k),
+            recovery_s=float(rel.recovery_s),
+        )
+
+
+@dataclass(frozen=True, slots=True)
+class ZoneSettings:
+    """Everything the zone step reads, resolved; temperatures in Celsius, differences in K."""
+
+    name: str
+    heating: str
+    inputs: tuple[PointSettings, ...]
+    backup: PointSettings | None = None
+    combine: str = "mean"
+    # tuning (Zone.effective)
+    differential_k: float = 0.5
+    anticipator_gain_k: float = 1.5
+    anticipator_time_constant_s: float = 519.0
+    cycle_rate_cph: float = 5.0
+    min_on_s: float = 120.0
+    min_off_s: float = 120.0
+    max_cycles_per_hour: int = 6
+    droop_compensation: bool = True
+    droop_time_s: float = 3600.0
+    # set points per level and the limits every set point is clamped to
+    comfort_c: float = 20.0
+    standby_c: float = 18.0
+    economy_c: float = 16.0
+    protection_c: float = 7.0
+    limit_min_c: float = 5.0
+    limit_max_c: float = 28.0
+    # fail-safe
+    fail_safe_policy: str = "learned-duty"
+    sensor_timeout_s: float = 600.0
+    fail_safe_duty: float = 0.3
+    fail_safe_period_s: float = 1200.0
+    learn_hours: float = 4.0
+    min_duty: float = 0.1
+    max_duty: float = 0.7
+    fail_safe_recovery_s: float = 120.0
+    # behaviour
+    protection_in_off: bool = True
+    initial_mode: str = "auto"
+    default_level: str = "comfort"
+    tick_s: float = 10.0
+
+    def __post_init__(self) -> None:
+        problems: list[str] = []
+        if not self.inputs:
+            problems.append("a zone needs at least one input point")
+        if self.combine not in COMBINE_RULES:
+            problems.append(f"combine {self.combine!r} is not one of {', '.join(COMBINE_RULES)}")
+        if self.fail_safe_policy not in FAIL_SAFE_POLICIES:
+            problems.append(f"fail-safe policy {self.fail_safe_policy!r} is unknown")
+        if self.initial_mode not in MODE_NAMES:
+            problems.append(f"mode {self.initial_mode!r} is unknown")
+        if self.default_level not in LEVEL_NAMES:
+            problems.append(f"level {self.default_level!r} is unknown")
+        positive = {
+            "differential_k": self.differential_k,
+            "anticipator_time_constant_s": self.anticipator_time_constant_s,
+            "droop_time_s": self.droop_time_s,
+            "sensor_timeout_s": self.sensor_timeout_s,
+            "fail_safe_period_s": self.fail_safe_period_s,
+            "learn_hours": self.learn_hours,
+        }
+        for key, value in positive.items():
+            if not (math.isfinite(value) and value > 0):
+                problems.append(f"{key} must be a positive number, not {value!r}")
+        if not (math.isfinite(self.anticipator_gain_k) and self.anticipator_gain_k >= 0):
+            problems.append("anticipator_gain_k must be zero or positive")
+        if self.max_cycles_per_hour < 1:
+            problems.append("max_cycles_per_hour must be at least 1")
+        if self.limit_min_c > self.limit_max_c:
+            problems.append("limit_min_c must not exceed limit_max_c")
+        if not 0.0 <= self.min_duty <= self.max_duty <= 1.0:
+            problems.append("need 0 <= min_duty <= max_duty <= 1")
+        if problems:
+            raise SettingsError(f"zone {self.name!r}: " + "; ".join(problems))
+
+    def setpoint_for(self, level: str) -> float:
+        """The configured set point of a level (not clamped)."""
+        if level == "comfort":
+            return self.comfort_c
+        if level == "standby":
+            return self.standby_c
+        if level == "economy":
+            return self.economy_c
+        return self.protection_c
+
+    # ------------------------------------------------------------------ builders
+
+    @classmethod
+    def from_zone(
+        cls,
+        zone: Zone,
+        inputs: Mapping[str, InputPoint],
+        backup: InputPoint | None = None,
+    ) -> ZoneSettings:
+        """Build from a zone model and the configs of its input points (and backup point)."""
+        missing = [name for name in zone.inputs if name not in inputs]
+        if missing:
+            raise SettingsError(
+                f"zone {zone.name!r}: no input point config for {', '.join(missing)}"
+            )
+        if zone.fail_safe.backup_point is not None and backup is None:
+            raise SettingsError(
+                f"zone {zone.name!r}: backup point {zone.fail_safe.backup_point!r} has no config"
+            )
+        tuning = zone.effective
+        fs = zone.fail_safe
+        sp = zone.setpoints
+        return cls(
+            name=zone.name,
+            heating=zone.heating,
+            inputs=tuple(PointSettings.from_point(inputs[name]) for name in zone.inputs),
+            backup=None if backup is None else PointSettings.from_point(backup),
+            combine=zone.combine,
+            differential_k=float(tuning.differential_k),
+            anticipator_gain_k=float(tuning.anticipator_gain_k),
+            anticipator_time_constant_s=float(tuning.anticipator_time_constant_s),
+            cycle_rate_cph=float(tuning.cycle_rate_cph),
+            min_on_s=float(tuning.min_on_s),
+            min_off_s=float(tuning.min_off_s),
+            max_cycles_per_hour=int(tuning.max_cycles_per_hour),
+            droop_compensation=bool(tuning.droop_compensation),
+            droop_time_s=float(tuning.droop_time_s),
+            comfort_c=float(sp.comfort),
+            standby_c=float(sp.standby),
+            economy_c=float(sp.economy),
+            protection_c=float(sp.protection),
+            limit_min_c=float(zone.limits.min),
+            limit_max_c=float(zone.limits.max),
+            fail_safe_policy=fs.policy,
+            sensor_timeout_s=float(fs.sensor_timeout_s),
+            fail_safe_duty=float(fs.duty),
+            fail_safe_period_s=float(fs.period_s),
+            learn_hours=float(fs.learn_hours),
+            min_duty=float(fs.min_duty),
+            max_duty=float(fs.max_duty),
+            fail_safe_recovery_s=float(fs.recovery_s),
+            protection_in_off=zone.protection_in_off,
+            initial_mode=zone.mode,
+            default_level=zone.default_level,
+            tick_s=float(zone.tick_s),
+        )
+
+    @classmethod
+    def from_site(cls, site: Site, zone_name: str) -> ZoneSettings:
+        """Build for one zone of a loaded site (the service's way in)."""
+        try:
+            zone = site.zone(zone_name)
+        except KeyError:
+            raise SettingsError(f"site {site.name!r} has no zone {zone_name!r}") from None
+        inputs: dict[str, InputPoint] = {}
+        names = list(zone.inputs)
+        if zone.fail_safe.backup_point is not None:
+            names.append(zone.fail_safe.backup_point)
+        for name in names:
+            try:
+                point = site.point(name)
+            except KeyError:
+                raise SettingsError(f"zone {zone_name!r}: no point named {name!r}") from None
+            if point.type not in ("modbus-input", "mqtt-input"):
+                raise SettingsError(
+                    f"zone {zone_name!r}: point {name!r} is an output, not an input"
+                )
+            inputs[name] = point
+        backup_name = zone.fail_safe.backup_point
+        backup = None if backup_name is None else inputs[backup_name]
+        return cls.from_zone(zone, inputs, backup)
+
+    @classmethod
+    def for_heating_type(
+        cls,
+        heating: str,
+        *,
+        name: str = "zone",
+        input_name: str = "temperature",
+        tuning: TuningInput | None = None,
+        setpoints: Setpoints | None = None,
+        limits: Limits | None = None,
+        fail_safe: FailSafe | None = None,
+        reliability: Reliability | None = None,
+        valid_range: tuple[float, float] = (-30.0, 60.0),
+        protection_in_off: bool = True,
+        tick_s: float = 10.0,
+    ) -> ZoneSettings:
+        """A zone with ``heating``'s preset defaults and a single input point (simulator, tests).
+
+        Raises :class:`SettingsError` for an unknown heating type or invalid values.
+        """
+        from pydantic import ValidationError
+
+        try:
+            point = MqttInput(
+                type="mqtt-input",
+                name=input_name,
+                topic=f"simulated/{name}/{input_name}",
+                valid_range=valid_range,
+                reliability=reliability if reliability is not None else Reliability(),
+            )
+            zone = Zone.model_validate(
+                {
+                    "name": name,
+                    "inputs": [input_name],
+                    "output": f"{name}-relay",
+                    "heating": heating,
+                    "tuning": tuning if tuning is not None else TuningInput(),
+                    "setpoints": setpoints if setpoints is not None else Setpoints(),
+                    "limits": limits if limits is not None else Limits(),
+                    "fail_safe": (fail_safe if fail_safe is not None else FailSafe()).model_copy(
+                        update={"backup_point": None}
+                    ),
+                    "protection_in_off": protection_in_off,
+                    "tick_s": tick_s,
+                }
+            )
+        except ValidationError as exc:
+            first = exc.errors()[0]
+            where = ".".join(str(p) for p in first.get("loc", ()))
+            raise SettingsError(f"heating type {heating!r}: {where}: {first.get('msg')}") from None
+        return cls.from_zone(zone, {input_name: point})

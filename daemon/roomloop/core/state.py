@@ -1,0 +1,311 @@
+"""The controller's memory of one zone: a frozen value, replaced on every step, saved as JSON.
+
+The service persists :class:`ZoneState` between runs (``to_json``/``from_json``),
+so everything the control law needs to continue is here and nothing else:
+commands (mode, hold, level override), the anticipator and droop terms, the
+relay and its recent switchings (for short-cycle protection and the published
+cycle figures), fail-safe status, the learned-duty history and each input
+point's reliability memory. Every collection is bounded: a state never grows
+with uptime.
+
+JSON shape (version 1)::
+
+    {"schema": "roomloop.zone-state", "version": 1,
+     "mode": "auto", "hold_setpoint": null, "hold_level": null, "hold_until": null,
+     "level_override": null, "scheduled_level": "comfort",
+     "anticipator_k": 0.41, "droop_k": 0.12,
+     "relay_on": false, "switched_at": 1700000000.0, "protection_run": false,
+     "switches": [[1699999000.0, true], [1699999300.0, false]],
+     "started_at": 1699990000.0, "last_step_at": 1700000010.0,
+     "last_setpoint": 20.0, "recovering": 0,
+     "temperature": 19.9, "good_at": 1700000010.0, "good_since": 1699990000.0, "normal": true,
+     "fail_safe": false, "fail_safe_since": null, "fail_safe_duty": null, "fail_safe_reason": null,
+     "duty_buckets": [[1699996400.0, 310.0, 900.0]], "duty_current": [1700000000.0, 0.0, 10.0],
+     "points": [{"name": "t1", "reliability": "ok", "verdict": "ok", "value": 19.9,
+                 "value_at": 1700000010.0, "seen_at": 1700000010.0, "still_value": 19.9,
+                 "still_on_s": 0.0, "good_since": 1699990000.0, "faulted": false}],
+     "backup": null}
+
+Times are POSIX seconds as given to ``step``; temperatures Celsius.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, fields
+from typing import Any
+
+from roomloop.errors import RoomloopError
+
+from .types import RELIABILITY_VALUES, Reliability
+
+STATE_SCHEMA = "roomloop.zone-state"
+STATE_VERSION = 1
+
+
+class StateFormatError(RoomloopError, ValueError):
+    """A saved state that is not ours, is corrupt or comes from an unknown version."""
+
+
+@dataclass(frozen=True, slots=True)
+class PointState:
+    """Reliability memory of one input point (see :mod:`roomloop.core.reliability`)."""
+
+    name: str
+    reliability: Reliability = "stale"
+    """Published: ``ok`` only while trusted; otherwise the fault (kept while recovering)."""
+    verdict: Reliability = "stale"
+    """The latest reading's own verdict, before the recovery time is applied."""
+    value: float | None = None
+    """The last accepted reading (the reference for the rate-of-change check)."""
+    value_at: float | None = None
+    seen_at: float | None = None
+    """``received_at`` of the last reading judged, so a repeated sample is not judged twice."""
+    still_value: float | None = None
+    """The value the point has not moved away from (beyond its resolution) ..."""
+    still_on_s: float = 0.0
+    """... and the relay-on seconds since (stuck detection)."""
+    good_since: float | None = None
+    faulted: bool = False
+    """Had a fault and has not yet read good for the recovery time."""
+
+    @property
+    def trusted(self) -> bool:
+        return self.reliability == "ok"
+
+
+@dataclass(frozen=True, slots=True)
+class ZoneState:
+    """Everything the zone step carries from one tick to the next."""
+
+    # commands
+    mode: str
+    hold_setpoint: float | None
+    hold_level: str | None
+    hold_until: float | None
+    level_override: str | None
+    scheduled_level: str
+    # control terms
+    anticipator_k: float
+    droop_k: float
+    # relay
+    relay_on: bool
+    switched_at: float | None
+    protection_run: bool
+    """The current run was started by protection (it may end before ``min_on_s``)."""
+    switches: tuple[tuple[float, bool], ...]
+    """Switchings of the last hour, oldest first: (time, relay on after it)."""
+    # time and set point
+    started_at: float
+    last_step_at: float
+    last_setpoint: float | None
+    recovering: int
+    """+1 recovering up to a raised set point, -1 down to a lowered one, 0 cycling normally."""
+    # temperature
+    temperature: float | None
+    """The last trusted zone temperature (kept while readings are missing)."""
+    good_at: float
+    """When the zone last had a trusted temperature (the start time if never)."""
+    good_since: float | None
+    """Start of the current stretch with a trusted temperature (None while there is none)."""
+    normal: bool
+    """The last tick was ordinary control (counts toward the learned duty)."""
+    # fail-safe
+    fail_safe: bool
+    fail_safe_since: float | None
+    fail_safe_duty: float | None
+    fail_safe_reason: str | None
+    # learned duty: closed buckets (start, on seconds, seconds counted) and the open one
+    duty_buckets: tuple[tuple[float, float, float], ...]
+    duty_current: tuple[float, float, float]
+    # points
+    points: tuple[PointState, ...]
+    backup: PointState | None
+
+    # ------------------------------------------------------------------ JSON
+
+    def to_json(self) -> str:
+        """Serialise (compact, one line); :meth:`from_json` reads it back equal."""
+        data: dict[str, Any] = {"schema": STATE_SCHEMA, "version": STATE_VERSION}
+        for f in fields(self):
+            value = getattr(self, f.name)
+            if f.name == "points":
+                value = [_point_to_dict(p) for p in value]
+            elif f.name == "backup":
+                value = None if value is None else _point_to_dict(value)
+            elif isinstance(value, tuple):
+                value = _tuples_to_lists(value)
+            data[f.name] = value
+        return json.dumps(data, separators=(",", ":"), allow_nan=False)
+
+    @classmethod
+    def from_json(cls, text: str | bytes) -> ZoneState:
+        """Read a saved state; :class:`StateFormatError` if it is not a valid version-1 state."""
+        try:
+            data = json.loads(text)
+        except (ValueError, UnicodeDecodeError) as exc:
+            raise StateFormatError(f"zone state is not JSON: {exc}") from None
+        if not isinstance(data, dict):
+            raise StateFormatError("zone state is not a JSON object")
+        if data.get("schema") != STATE_SCHEMA:
+            raise StateFormatError(f"not a roomloop zone state (schema {data.get('schema')!r})")
+        if data.get("version") != STATE_VERSION:
+            raise StateFormatError(
+                f"zone state version {data.get('version')!r} is not supported "
+                f"(expected {STATE_VERSION})"
+            )
+        r = _Reader(data, "state")
+        switches = tuple(
+            (_num(item, 0, "switches"), _bool(item, 1, "switches"))
+            for item in r.items("switches")
+        )
+        buckets = tuple(_triple(item, "duty_buckets") for item in r.items("duty_buckets"))
+        points_raw = r.items("points")
+        backup_raw = r.get("backup")
+        known = {f.name for f in fields(cls)} | {"schema", "version"}
+        extra = sorted(set(data) - known)
+        if extra:
+            raise StateFormatError(f"zone state has unknown keys: {', '.join(extra)}")
+        return cls(
+            mode=r.choice("mode", ("auto", "hold", "off")),
+            hold_setpoint=r.opt_num("hold_setpoint"),
+            hold_level=r.opt_choice("hold_level", _LEVELS),
+            hold_until=r.opt_num("hold_until"),
+            level_override=r.opt_choice("level_override", _LEVELS),
+            scheduled_level=r.choice("scheduled_level", _LEVELS),
+            anticipator_k=r.num("anticipator_k"),
+            droop_k=r.num("droop_k"),
+            relay_on=r.flag("relay_on"),
+            switched_at=r.opt_num("switched_at"),
+            protection_run=r.flag("protection_run"),
+            switches=switches,
+            started_at=r.num("started_at"),
+            last_step_at=r.num("last_step_at"),
+            last_setpoint=r.opt_num("last_setpoint"),
+            recovering=int(r.choice("recovering", (-1, 0, 1))),
+            temperature=r.opt_num("temperature"),
+            good_at=r.num("good_at"),
+            good_since=r.opt_num("good_since"),
+            normal=r.flag("normal"),
+            fail_safe=r.flag("fail_safe"),
+            fail_safe_since=r.opt_num("fail_safe_since"),
+            fail_safe_duty=r.opt_num("fail_safe_duty"),
+            fail_safe_reason=r.opt_text("fail_safe_reason"),
+            duty_buckets=buckets,
+            duty_current=_triple(r.get("duty_current"), "duty_current"),
+            points=tuple(_point_from(item, f"points[{i}]") for i, item in enumerate(points_raw)),
+            backup=None if backup_raw is None else _point_from(backup_raw, "backup"),
+        )
+
+
+_LEVELS = ("comfort", "standby", "economy", "protection")
+
+
+def _tuples_to_lists(value: Any) -> Any:
+    if isinstance(value, tuple):
+        return [_tuples_to_lists(v) for v in value]
+    return value
+
+
+def _point_to_dict(point: PointState) -> dict[str, Any]:
+    return {f.name: getattr(point, f.name) for f in fields(point)}
+
+
+def _point_from(raw: Any, where: str) -> PointState:
+    if not isinstance(raw, dict):
+        raise StateFormatError(f"zone state: {where} is not an object")
+    r = _Reader(raw, where)
+    known = {f.name for f in fields(PointState)}
+    extra = sorted(set(raw) - known)
+    if extra:
+        raise StateFormatError(f"zone state: {where} has unknown keys: {', '.join(extra)}")
+    return PointState(
+        name=r.text("name"),
+        reliability=r.choice("reliability", RELIABILITY_VALUES),
+        verdict=r.choice("verdict", RELIABILITY_VALUES),
+        value=r.opt_num("value"),
+        value_at=r.opt_num("value_at"),
+        seen_at=r.opt_num("seen_at"),
+        still_value=r.opt_num("still_value"),
+        still_on_s=r.num("still_on_s"),
+        good_since=r.opt_num("good_since"),
+        faulted=r.flag("faulted"),
+    )
+
+
+def _is_num(value: Any) -> bool:
+    return isinstance(value, int | float) and not isinstance(value, bool) and math.isfinite(value)
+
+
+def _num(item: Any, index: int, where: str) -> float:
+    if not isinstance(item, list) or len(item) != 2 or not _is_num(item[index]):
+        raise StateFormatError(f"zone state: {where} entries are [time, on]")
+    return float(item[index])
+
+
+def _bool(item: Any, index: int, where: str) -> bool:
+    if not isinstance(item, list) or len(item) != 2 or not isinstance(item[index], bool):
+        raise StateFormatError(f"zone state: {where} entries are [time, on]")
+    return bool(item[index])
+
+
+def _triple(item: Any, where: str) -> tuple[float, float, float]:
+    if not isinstance(item, list) or len(item) != 3 or not all(_is_num(v) for v in item):
+        raise StateFormatError(f"zone state: {where} entries are [start, on_s, seen_s]")
+    return (float(item[0]), float(item[1]), float(item[2]))
+
+
+class _Reader:
+    """Typed access to one JSON object, with the key path in every error."""
+
+    def __init__(self, data: dict[str, Any], where: str) -> None:
+        self.data = data
+        self.where = where
+
+    def get(self, key: str) -> Any:
+        if key not in self.data:
+            raise StateFormatError(f"zone state: {self.where} lacks {key!r}")
+        return self.data[key]
+
+    def _bad(self, key: str, what: str) -> StateFormatError:
+        return StateFormatError(f"zone state: {self.where}.{key} must be {what}")
+
+    def num(self, key: str) -> float:
+        value = self.get(key)
+        if not _is_num(value):
+            raise self._bad(key, "a finite number")
+        return float(value)
+
+    def opt_num(self, key: str) -> float | None:
+        return None if self.get(key) is None else self.num(key)
+
+    def flag(self, key: str) -> bool:
+        value = self.get(key)
+        if not isinstance(value, bool):
+            raise self._bad(key, "true or false")
+        return value
+
+    def text(self, key: str) -> str:
+        value = self.get(key)
+        if not isinstance(value, str):
+            raise self._bad(key, "a string")
+        return value
+
+    def opt_text(self, key: str) -> str | None:
+        return None if self.get(key) is None else self.text(key)
+
+    def choice(self, key: str, allowed: tuple[Any, ...]) -> Any:
+        value = self.get(key)
+        if isinstance(value, bool) or value not in allowed:
+            raise self._bad(key, "one of " + ", ".join(repr(a) for a in allowed))
+        return value
+
+    def opt_choice(self, key: str, allowed: tuple[Any, ...]) -> Any:
+        return None if self.get(key) is None else self.choice(key, allowed)
+
+    def items(self, key: str) -> list[Any]:
+        value = self.get(key)
+        if not isinstance(value, list):
+            raise self._bad(key, "a list")
+        return value

@@ -1,0 +1,99 @@
+"""First checks of the public API: settings, a step, the state's JSON round trip, commands."""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+
+from roomloop.config.models import FailSafe, TuningInput
+from roomloop.core import (
+    CommandRejected,
+    SettingsError,
+    StateFormatError,
+    ZoneController,
+    ZoneSettings,
+    ZoneState,
+    apply_command,
+)
+from roomloop.core.types import Controller
+
+from .helpers import run, sample, settings
+
+
+def test_for_heating_type_uses_the_preset_and_derives_tau() -> None:
+    s = ZoneSettings.for_heating_type("hydronic")
+    assert s.cycle_rate_cph == 3.0
+    assert s.inputs[0].name == "temperature"
+    # DESIGN.md cycle-rate sizing: tau = 3600 / (2 cph ln((G + D)/(G - D)))
+    expected = 3600.0 / (2 * 3.0 * math.log((1.5 + 0.5) / (1.5 - 0.5)))
+    assert s.anticipator_time_constant_s == pytest.approx(expected)
+
+
+def test_for_heating_type_takes_overrides_and_refuses_bad_values() -> None:
+    s = ZoneSettings.for_heating_type(
+        "electric", tuning=TuningInput(min_on_s=0), fail_safe=FailSafe(policy="off")
+    )
+    assert s.min_on_s == 0.0 and s.fail_safe_policy == "off"
+    with pytest.raises(SettingsError, match="heating"):
+        ZoneSettings.for_heating_type("nuclear")
+
+
+def test_controller_conforms_to_the_protocol() -> None:
+    controller: Controller[ZoneState] = ZoneController(settings())
+    state = controller.initial_state(0.0)
+    state, out = controller.step(state, sample(18.0, 10.0), 10.0)
+    assert out.demand is True and out.reason == "cut-in"
+    assert out.temperature == 18.0 and out.setpoint == 20.0
+    assert out.reliability == {"temperature": "ok"}
+
+
+def test_cold_room_heats_and_warm_room_does_not() -> None:
+    controller = ZoneController(settings())
+    cold = run(controller, lambda now, on: 18.0, end=60.0, tick=10.0)
+    assert all(out.demand for _, out, _ in cold)
+    warm = run(controller, lambda now, on: 22.0, end=60.0, tick=10.0)
+    assert not any(out.demand for _, out, _ in warm)
+    assert warm[-1][1].reason == "in-band"
+
+
+def test_state_round_trips_through_json() -> None:
+    controller = ZoneController(settings())
+    trace = run(controller, lambda now, on: 19.0 + (0.3 if on else 0.0), end=3000.0, tick=10.0)
+    state = trace[-1][2]
+    text = state.to_json()
+    assert ZoneState.from_json(text) == state
+    assert '"schema":"roomloop.zone-state"' in text
+
+
+@pytest.mark.parametrize(
+    "text",
+    ["", "[]", '{"schema": "something-else", "version": 1}', "not json",
+     '{"schema": "roomloop.zone-state", "version": 99}'],
+)
+def test_foreign_state_is_refused_clearly(text: str) -> None:
+    with pytest.raises(StateFormatError):
+        ZoneState.from_json(text)
+
+
+def test_corrupt_field_is_named() -> None:
+    state = ZoneController(settings()).initial_state(0.0)
+    text = state.to_json().replace('"anticipator_k":0.0', '"anticipator_k":"hot"')
+    with pytest.raises(StateFormatError, match="anticipator_k"):
+        ZoneState.from_json(text)
+
+
+def test_setpoint_command_holds_and_limits_refuse() -> None:
+    s = settings()
+    controller = ZoneController(s)
+    state = controller.initial_state(0.0)
+    held = apply_command(s, state, "setpoint", "21.5", 0.0)
+    assert held.mode == "hold" and held.hold_setpoint == 21.5
+    _, out = controller.step(held, sample(20.0, 10.0), 10.0)
+    assert out.setpoint == 21.5 and out.mode == "hold"
+    with pytest.raises(CommandRejected, match="limits"):
+        apply_command(s, state, "setpoint", 40, 0.0)
+    with pytest.raises(CommandRejected, match="not a number"):
+        apply_command(s, state, "setpoint", "warm", 0.0)
+    with pytest.raises(CommandRejected, match="unknown field"):
+        apply_command(s, state, "colour", "red", 0.0)
