@@ -63,7 +63,9 @@ def test_bad_config_reports_each_problem_at_its_line(
 
 
 @pytest.mark.parametrize("name", ["syntax_error.yaml", "syntax_tab.yaml"])
-def test_yaml_syntax_error_has_line_and_column(capsys: pytest.CaptureFixture[str], name: str) -> None:
+def test_yaml_syntax_error_has_line_and_column(
+    capsys: pytest.CaptureFixture[str], name: str
+) -> None:
     path = BAD / name
     expected_line = int(SYNTAX.search(path.read_text(encoding="utf-8"))["line"])  # type: ignore[index]
     code, out, err = _run(capsys, path)
@@ -71,7 +73,9 @@ def test_yaml_syntax_error_has_line_and_column(capsys: pytest.CaptureFixture[str
     assert "Traceback" not in out + err
     lines = err.strip().splitlines()
     assert len(lines) == 1, err
-    assert re.match(rf"{re.escape(str(path))}:{expected_line}:\d+: YAML syntax error: ", lines[0]), lines[0]
+    assert re.match(
+        rf"{re.escape(str(path))}:{expected_line}:\d+: YAML syntax error: ", lines[0]
+    ), lines[0]
 
 
 def _one_line(capsys: pytest.CaptureFixture[str], path: Path | str, fragment: str) -> None:
@@ -108,7 +112,9 @@ def test_non_mapping_file(
 ) -> None:
     path = tmp_path / "list.yaml"
     path.write_text(text, encoding="utf-8")
-    _one_line(capsys, path, f"the top level must be a mapping of sections (key: value lines), {kind}")
+    _one_line(
+        capsys, path, f"the top level must be a mapping of sections (key: value lines), {kind}"
+    )
 
 
 def test_directory_instead_of_file(capsys: pytest.CaptureFixture[str], tmp_path: Path) -> None:

@@ -348,8 +348,7 @@ def _tuning(index: int, zone: Zone, units: str) -> list[Finding]:
     base: KeyPath = ("zones", index)
 
     def where(*keys: str) -> KeyPath:
-        """The first of ``keys`` the file gave, else the zone's heating type (the preset's "
-        "source)."""
+        """The first of ``keys`` the file gave, else the zone's heating (the preset's source)."""
         for key in keys:
             if origins.get(key) == "file":
                 return (*base, "tuning", key)

@@ -507,8 +507,7 @@ def expand_days(value: list[str] | str) -> list[str]:
 
 
 class Zone(Strict):
-    """A controlled space: inputs combined, one output, a heating type, set points, tuning, "
-    "fail-safe."""
+    """A controlled space: inputs, one output, a heating type, set points, tuning, fail-safe."""
 
     name: Name
     inputs: Annotated[list[Name], Field(min_length=1)]
