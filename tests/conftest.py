@@ -16,7 +16,8 @@ Fixtures
     server.set_registers("input", 10, [0x00D7])``, ``get_registers``,
     ``set_coils``, ``get_coils``; ``server.requests`` lists every request
     received; ``server.delay_s`` makes it answer slowly; ``server.exception_code``
-    makes it answer every request with that Modbus exception; ``await server.stop()``
+    makes it answer every request with that Modbus exception; ``server.write_filter``
+    may change written values (a device that ignores writes); ``await server.stop()``
     and ``await server.start()`` restart it on the same port with its values kept.
 ``modbus_rtu_server``
     A :class:`ModbusTestServer` speaking RTU on one end of a socat pty pair;
@@ -129,7 +130,7 @@ def mosquitto() -> Iterator[MosquittoBroker]:
 
 @dataclass(frozen=True)
 class ModbusRequest:
-    """One request a test server received (function code 1 coils, 3 holding, 4 input, 5/6 writes)."""
+    """One request a test server received (function 1 coils, 3 holding, 4 input, 5/6 writes)."""
 
     unit_id: int
     function_code: int
@@ -170,6 +171,9 @@ class ModbusTestServer:
         """Answer every request this much later (a slow device)."""
         self.exception_code: int | None = None
         """Answer every request with this Modbus exception code (e.g. 4, server device failure)."""
+        self.write_filter: Callable[[int, int, list[Any]], None] | None = None
+        """Called as ``(function_code, address, values)`` for every write; may change ``values``
+        in place (a device that ignores or garbles writes)."""
         self._tables: dict[int, dict[str, list[Any]]] = {
             unit: {
                 "holding": [0] * registers,
@@ -215,7 +219,9 @@ class ModbusTestServer:
             )
         return pdu
 
-    async def _action(self, *_args: Any) -> Any:
+    async def _action(
+        self, function_code: int, _start: int, address: int, _count: int, _regs: Any, values: Any
+    ) -> Any:
         if self._local:
             return None
         if self.delay_s:
@@ -224,6 +230,8 @@ class ModbusTestServer:
             from pymodbus.constants import ExcCodes
 
             return ExcCodes(self.exception_code)
+        if values is not None and self.write_filter is not None:
+            self.write_filter(function_code, address, values)
         return None
 
     async def start(self) -> None:
@@ -363,7 +371,7 @@ class PtyPair:
 
 @pytest.fixture
 async def modbus_rtu_server() -> AsyncIterator[ModbusTestServer]:
-    """An RTU test server (unit 1) on one end of a socat pty pair; ``server.device`` is the other."""
+    """An RTU test server (unit 1) on one end of a socat pty pair; the client opens ``.device``."""
     if shutil.which("socat") is None:
         pytest.skip("socat is not installed (apt install socat)")
     pair = PtyPair()

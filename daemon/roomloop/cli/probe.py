@@ -31,6 +31,7 @@ from roomloop.config.models import (
 )
 from roomloop.errors import BrokerError
 from roomloop.io.codec import order_name
+from roomloop.log import configure_logging
 
 if TYPE_CHECKING:
     import aiomqtt
@@ -47,6 +48,8 @@ Point = ModbusInput | MqttInput | ModbusOutput | MqttOutput
 
 
 def main(args: argparse.Namespace) -> int:
+    # probe prints its own findings on stdout; only real errors go to the log, on stderr.
+    configure_logging("error", "console", sys.stderr)
     site = load_site(args.config)
     try:
         point = site.point(args.point)

@@ -1,0 +1,298 @@
+"""Modbus TCP links against a real pymodbus server on loopback (tests/conftest.py)."""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import time
+from typing import Any
+
+import pytest
+from structlog.testing import capture_logs
+
+from roomloop.config.models import ModbusInput, ModbusOutput, ModbusTcpLink
+from roomloop.io.codec import encode_raw
+from roomloop.io.modbus import ModbusLink
+from roomloop.io.planner import plan_reads
+
+FAST = {"timeout_s": 0.2, "retries": 0, "request_gap_s": 0.0, "poll_interval_s": 0.1}
+
+
+def tcp_link(server: Any, name: str = "bench", **fields: Any) -> ModbusTcpLink:
+    values: dict[str, Any] = {**FAST, **fields}
+    return ModbusTcpLink(type="modbus-tcp", name=name, host=server.host, port=server.port, **values)
+
+
+def inp(name: str, address: int, link: str = "bench", **fields: Any) -> ModbusInput:
+    return ModbusInput(type="modbus-input", name=name, link=link, address=address, **fields)
+
+
+def out(name: str, address: int, link: str = "bench", **fields: Any) -> ModbusOutput:
+    return ModbusOutput(type="modbus-output", name=name, link=link, address=address, **fields)
+
+
+async def test_every_data_type_and_order_over_tcp(modbus_tcp_server: Any) -> None:
+    server = await modbus_tcp_server()
+    # REFERENCES.md: IEEE 754 21.5 = 0x41AC0000 as ABCD, CDAB, BADC, DCBA [published; computed]
+    await server.set_registers(
+        "input", 0, [0x41AC, 0x0000, 0x0000, 0x41AC, 0xAC41, 0x0000, 0x0000, 0xAC41]
+    )
+    # REFERENCES.md: int16 x 10 transmitters, 21.5 -> 0x00D7, -5.5 -> 0xFFC9 [trade]
+    await server.set_registers("input", 20, [0x00D7, 0xFFC9])
+    await server.set_registers("holding", 30, [0x00D7])  # uint16 x 10
+    await server.set_registers("holding", 40, encode_raw(-55, "int32", "little", "big"))  # x 0.1
+    await server.set_registers("holding", 50, encode_raw(2150, "uint32", "big", "little"))  # x 0.01
+    points = [
+        inp("abcd", 0, data_type="float32"),
+        inp("cdab", 2, data_type="float32", word_order="little"),
+        inp("badc", 4, data_type="float32", byte_order="little"),
+        inp("dcba", 6, data_type="float32", word_order="little", byte_order="little"),
+        inp("i16-pos", 20, scale=0.1),
+        inp("i16-neg", 21, scale=0.1),
+        inp("u16", 30, table="holding", data_type="uint16", scale=0.1),
+        inp("i32", 40, table="holding", data_type="int32", word_order="little", scale=0.1),
+        inp("u32", 50, table="holding", data_type="uint32", byte_order="little", scale=0.01),
+    ]
+    async with ModbusLink(tcp_link(server), points) as link:
+        samples = {s.name: s for s in await link.poll()}
+    expected = {
+        "abcd": 21.5,
+        "cdab": 21.5,
+        "badc": 21.5,
+        "dcba": 21.5,
+        "i16-pos": 21.5,
+        "i16-neg": -5.5,
+        "u16": 21.5,
+        "i32": -5.5,
+        "u32": 21.5,
+    }
+    assert {n: s.transport for n, s in samples.items()} == dict.fromkeys(expected, "ok")
+    for name, value in expected.items():
+        assert samples[name].value == pytest.approx(value), name
+
+
+async def test_scattered_points_are_coalesced_on_the_wire(modbus_tcp_server: Any) -> None:
+    server = await modbus_tcp_server(units=(1, 2))
+    # 24 points in three clusters on unit 1, 8 on unit 2: 4 reads instead of 32
+    addresses = [0, 2, 4, 6, 8, 10, 12, 14, 200, 203, 206, 209, 212, 215, 218, 221]
+    addresses += [500 + 5 * i for i in range(8)]
+    points = [inp(f"u1-{a}", a, scale=0.1) for a in addresses]
+    points += [inp(f"u2-{i}", 7 * i, unit_id=2, scale=0.1) for i in range(8)]
+    for a in addresses:
+        await server.set_registers("input", a, [a % 300])
+    link_config = tcp_link(server, max_gap_registers=8)
+    async with ModbusLink(link_config, points) as link:
+        server.requests.clear()
+        samples = await link.poll()
+    assert len(samples) == 32 and all(s.transport == "ok" for s in samples)
+    reads = server.reads()
+    assert len(reads) == len(link.plan) == 4
+    assert sorted((r.unit_id, r.address, r.count) for r in reads) == [
+        (1, 0, 15),
+        (1, 200, 22),
+        (1, 500, 36),
+        (2, 0, 50),
+    ]
+    by_name = {s.name: s.value for s in samples}
+    assert by_name["u1-221"] == pytest.approx(22.1)
+
+
+async def test_plan_respects_the_125_register_limit_on_the_wire(modbus_tcp_server: Any) -> None:
+    # REFERENCES.md: at most 125 registers per read (Modbus Application Protocol V1.1b3) [published]
+    server = await modbus_tcp_server()
+    points = [inp(f"p{i}", i, data_type="uint16", valid_range=(0, 1000)) for i in range(300)]
+    await server.set_registers("input", 0, list(range(300)))
+    async with ModbusLink(tcp_link(server, max_gap_registers=0), points) as link:
+        server.requests.clear()
+        samples = await link.poll()
+    assert [r.count for r in server.reads()] == [125, 125, 50]
+    assert [s.value for s in samples] == [float(i) for i in range(300)]
+
+
+async def test_server_stopped_and_restarted(modbus_tcp_server: Any) -> None:
+    server = await modbus_tcp_server()
+    await server.set_registers("input", 0, [0x00D7])
+    points = [inp("room", 0, scale=0.1)]
+    async with ModbusLink(
+        tcp_link(server), points, reconnect_min_s=0.05, reconnect_max_s=0.2
+    ) as link:
+        assert (await link.poll())[0].transport == "ok"
+        await server.stop()
+        failed = await link.poll()
+        assert failed[0].transport == "comm-failure" and failed[0].value is None
+        assert link.samples(time.time())["room"].transport == "comm-failure"
+        await server.start()
+        deadline = time.monotonic() + 5.0
+        while (await link.poll())[0].transport != "ok":
+            assert time.monotonic() < deadline, "no recovery after the server came back"
+            await asyncio.sleep(0.05)
+        assert link.samples(time.time())["room"].value == pytest.approx(21.5)
+
+
+async def test_exception_reply_marks_only_that_read(modbus_tcp_server: Any) -> None:
+    server = await modbus_tcp_server(units=(1, 2), registers=64)
+    await server.set_registers("input", 0, [0x00D7])
+    points = [
+        inp("good", 0, scale=0.1),
+        inp("past-the-table", 100, scale=0.1),  # the server answers: illegal data address
+        inp(
+            "no-such-unit", 0, unit_id=9, scale=0.1
+        ),  # pymodbus answers code 4 (a real one is silent)
+    ]
+    with capture_logs() as events:
+        async with ModbusLink(tcp_link(server, retries=2), points) as link:
+            server.requests.clear()
+            samples = {s.name: s for s in await link.poll()}
+    assert samples["good"].transport == "ok"
+    assert samples["past-the-table"].transport == "comm-failure"
+    assert samples["no-such-unit"].transport == "comm-failure"
+    assert len(server.reads()) == 3  # an exception reply is an answer: no retries
+    failed = [e for e in events if e["event"] == "modbus.read_failed"]
+    assert {tuple(e["points"]) for e in failed} == {("past-the-table",), ("no-such-unit",)}
+    assert all(e["link"] == "bench" and "exception reply" in e["reason"] for e in failed)
+
+
+async def test_device_failure_exception_code(modbus_tcp_server: Any) -> None:
+    server = await modbus_tcp_server()
+    server.exception_code = 4  # server device failure
+    async with ModbusLink(tcp_link(server), [inp("room", 0)]) as link:
+        sample = (await link.poll())[0]
+        assert sample.transport == "comm-failure"
+        server.exception_code = None
+        assert (await link.poll())[0].transport == "ok"
+
+
+async def test_slow_link_does_not_hold_up_another(modbus_tcp_server: Any) -> None:
+    slow_server = await modbus_tcp_server()
+    fast_server = await modbus_tcp_server()
+    slow_server.delay_s = 1.0  # far beyond the link's 0.15 s timeout
+    await fast_server.set_registers("input", 0, [0x00D7])
+    slow = ModbusLink(
+        tcp_link(slow_server, "slow", timeout_s=0.15, retries=1), [inp("s", 0, "slow")]
+    )
+    fast = ModbusLink(
+        tcp_link(fast_server, "fast", poll_interval_s=0.05), [inp("f", 0, "fast", scale=0.1)]
+    )
+    async with slow, fast:
+        tasks = [asyncio.create_task(slow.run()), asyncio.create_task(fast.run())]
+        try:
+            await asyncio.sleep(1.5)
+        finally:
+            for task in tasks:
+                task.cancel()
+            for task in tasks:
+                with contextlib.suppress(asyncio.CancelledError):
+                    await task
+        now = time.time()
+        assert slow.samples(now)["s"].transport == "comm-failure"
+        assert fast.samples(now)["f"].transport == "ok"
+    # one slow cycle costs (1 + retries) x timeout plus backoff, about 0.35 s: at most 5 in 1.5 s;
+    # the fast link at 0.05 s per cycle reaches far more (about 25 on an idle machine)
+    assert slow.cycles <= 5
+    assert fast.cycles >= 3 * max(slow.cycles, 1)
+
+
+async def test_output_write_read_back_mismatch_and_reassert(modbus_tcp_server: Any) -> None:
+    server = await modbus_tcp_server()
+    clock = [1000.0]
+    outputs = [
+        out("relay", 3, reassert_s=60),
+        out("valve", 7, table="holding", on_value=0x0100, off_value=0x0000),
+        out("blind", 4, read_back=False),
+    ]
+    link = ModbusLink(tcp_link(server), [], outputs, clock=lambda: clock[0])
+    async with link:
+        state = await link.set_output("relay", True)
+        assert (state.verdict, state.confirmed) == ("ok", True)
+        assert (await server.get_coils(3, 1)) == [True]
+        state = await link.set_output("valve", True)
+        assert state.verdict == "ok" and await server.get_registers("holding", 7, 1) == [0x0100]
+        assert (await link.read_output("valve")).on is True
+        assert (await link.set_output("blind", True)).verdict == "unverified"
+
+        # the relay module lost power: the coil dropped; re-assertion puts it back
+        await server.set_coils(3, [False])
+        assert await link.reassert_due(clock[0] + 30) == []  # not due yet
+        clock[0] += 61
+        again = await link.reassert_due(clock[0])
+        assert "relay" in [s.name for s in again]
+        assert (await server.get_coils(3, 1)) == [True]
+
+        # a device that ignores writes: read-back disagrees, reported once
+        def ignore(function_code: int, _address: int, values: list[Any]) -> None:
+            if function_code == 6:
+                values[:] = [0x0000] * len(values)
+
+        server.write_filter = ignore
+        with capture_logs() as events:
+            state = await link.set_output("valve", True)
+            await link.set_output("valve", True)
+        assert state.verdict == "mismatch" and "read back 0" in (state.detail or "")
+        assert link.output_state("valve").verdict == "mismatch"
+        mismatches = [e for e in events if e["event"] == "modbus.output_mismatch"]
+        assert len(mismatches) == 1
+        assert mismatches[0]["point"] == "valve" and mismatches[0]["raw"] == 0
+
+
+async def test_write_to_an_unreachable_device(modbus_tcp_server: Any) -> None:
+    server = await modbus_tcp_server()
+    link = ModbusLink(tcp_link(server), [], [out("relay", 0)], reconnect_min_s=0.0)
+    async with link:
+        await server.stop()
+        state = await link.set_output("relay", True)
+        assert state.verdict == "comm-failure" and state.wanted is True
+        await server.start()
+        # the failed write is retried on the next re-assertion, whatever reassert_s says
+        deadline = time.monotonic() + 5.0
+        while link.output_state("relay").verdict != "ok":
+            assert time.monotonic() < deadline
+            await link.reassert_due(time.time())
+            await asyncio.sleep(0.05)
+        assert await server.get_coils(0, 1) == [True]
+
+
+async def test_broken_sensor_logs_are_rate_limited(modbus_tcp_server: Any) -> None:
+    server = await modbus_tcp_server()
+    await server.set_registers("input", 0, [0x7FFF])
+    clock = [0.0]
+    point = inp("room", 0, scale=0.1, sentinels=(0x7FFF,))
+    link = ModbusLink(tcp_link(server), [point], clock=lambda: clock[0], log_interval_s=300)
+    with capture_logs() as events:
+        async with link:
+            for _ in range(20):
+                clock[0] += 5
+                sample = (await link.poll())[0]
+                assert (sample.value, sample.transport) == (None, "over-range")
+            clock[0] += 300
+            await link.poll()
+            await server.set_registers("input", 0, [0x00D7])
+            await link.poll()
+    bad = [e for e in events if e["event"] == "modbus.point_unreliable"]
+    assert len(bad) == 2
+    assert bad[0]["point"] == "room" and bad[0]["link"] == "bench" and bad[0]["raw"] == ["0x7FFF"]
+    assert bad[1]["suppressed"] == 19
+    assert [e["event"] for e in events].count("modbus.point_recovered") == 1
+
+
+async def test_stale_when_polls_stop(modbus_tcp_server: Any) -> None:
+    server = await modbus_tcp_server()
+    point = inp("room", 0, reliability={"stale_after_s": 30})
+    link = ModbusLink(tcp_link(server), [point], clock=lambda: 1000.0)
+    async with link:
+        await link.poll()
+    assert link.samples(1020.0)["room"].transport == "ok"
+    assert link.samples(1031.0)["room"].transport == "stale"
+
+
+def test_points_of_another_link_refused() -> None:
+    config = ModbusTcpLink(type="modbus-tcp", name="a", host="127.0.0.1")
+    with pytest.raises(ValueError, match="belongs to link b"):
+        ModbusLink(config, [inp("x", 0, link="b")])
+
+
+def test_plan_made_once_at_start() -> None:
+    config = ModbusTcpLink(type="modbus-tcp", name="a", host="127.0.0.1", max_gap_registers=3)
+    points = [inp("x", 0, link="a"), inp("y", 4, link="a"), inp("z", 9, link="a")]
+    link = ModbusLink(config, points)
+    assert link.plan == plan_reads(points, 3)
+    assert [r.point_names for r in link.plan] == [("x", "y"), ("z",)]
