@@ -34,7 +34,7 @@ def point(**fields: Any) -> ModbusInput:
     return ModbusInput(**base)
 
 
-# REFERENCES.md: IEEE 754 float32 21.5 = 0x41AC0000 in the four register orders [published; computed]
+# REFERENCES.md: IEEE 754 float32 21.5 = 0x41AC0000 in four register orders [published; computed]
 FLOAT_21_5 = {
     "ABCD": [0x41AC, 0x0000],
     "CDAB": [0x0000, 0x41AC],
@@ -56,7 +56,7 @@ def test_float32_21_5_in_every_order(name: str) -> None:
 
 
 def test_int16_times_ten_transmitter() -> None:
-    # REFERENCES.md: transmitters commonly send int16 x 10: 21.5 C -> 0x00D7, -5.5 C -> 0xFFC9 [trade]
+    # REFERENCES.md: transmitters send int16 x 10: 21.5 C -> 0x00D7, -5.5 C -> 0xFFC9 [trade]
     p = point(scale=0.1)
     assert decode_point(p, [0x00D7]).value == pytest.approx(21.5)
     assert decode_point(p, [0xFFC9]).value == pytest.approx(-5.5)

@@ -132,6 +132,20 @@ def judge_payload(point: MqttInput, payload: bytes | bytearray | str) -> Parsed:
     return Parsed(celsius, verdict, raw, detail)
 
 
+Payload = bytes | bytearray | str | int | float | None
+"""What ``aiomqtt.Message.payload`` may hold."""
+
+
+def _as_bytes(payload: Payload) -> bytes:
+    if payload is None:
+        return b""
+    if isinstance(payload, str):
+        return payload.encode("utf-8", "surrogatepass")
+    if isinstance(payload, bytes | bytearray):
+        return bytes(payload)
+    return str(payload).encode("ascii")
+
+
 def _show(payload: bytes | bytearray | str, limit: int = 80) -> str:
     text = repr(bytes(payload[:limit]) if not isinstance(payload, str) else payload[:limit])
     return text + ("..." if len(payload) > limit else "")
@@ -174,12 +188,13 @@ class MqttPoints:
         """Every topic to subscribe to: input topics and output state topics."""
         return tuple(sorted({*self._by_topic, *self._by_state_topic}))
 
-    def handle(self, topic: str, payload: bytes | bytearray | str, now: float) -> bool:
-        """Ingest one message; returns whether a point uses this topic. Bad payloads never raise."""
+    def handle(self, topic: str, payload: Payload, now: float) -> bool:
+        """Ingest one message; returns whether a point uses this topic. Bad payloads never raise.
+
+        ``payload`` may be what ``aiomqtt.Message.payload`` holds (bytes, str, a number, None).
+        """
         used = False
-        raw = (
-            payload.encode("utf-8", "surrogatepass") if isinstance(payload, str) else bytes(payload)
-        )
+        raw = _as_bytes(payload)
         for point in self._by_topic.get(topic, ()):
             used = True
             self._ingest(point, raw, now)

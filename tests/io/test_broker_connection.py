@@ -1,0 +1,93 @@
+"""Broker connection settings: password, TLS, last will; a refused connection keeps trying."""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import socket
+import ssl
+from pathlib import Path
+from typing import Any
+
+import aiomqtt
+import pytest
+
+from roomloop.config.models import Broker, Tls
+from roomloop.errors import BrokerError
+from roomloop.io.broker import BrokerConnection, LastWill, client_options, read_password
+
+
+def free_tcp_port() -> int:
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        return int(sock.getsockname()[1])
+
+
+def test_password_from_file_first_line(tmp_path: Path) -> None:
+    secret = tmp_path / "pw"
+    secret.write_text("s3cret\nignored\n", encoding="utf-8")
+    broker = Broker(host="127.0.0.1", username="roomloop", password_file=str(secret))
+    assert read_password(broker) == "s3cret"
+    assert client_options(broker)["password"] == "s3cret"
+
+
+def test_password_from_environment() -> None:
+    broker = Broker(host="127.0.0.1", username="roomloop", password_env="RL_TEST_PW")
+    assert read_password(broker, {"RL_TEST_PW": "x1"}) == "x1"
+    with pytest.raises(BrokerError, match="RL_TEST_PW"):
+        read_password(broker, {})
+
+
+def test_missing_password_file_is_a_clear_error(tmp_path: Path) -> None:
+    broker = Broker(host="127.0.0.1", username="u", password_file=str(tmp_path / "absent"))
+    with pytest.raises(BrokerError, match="cannot read password_file"):
+        read_password(broker)
+
+
+def test_tls_and_last_will_options(tmp_path: Path) -> None:
+    broker = Broker(
+        host="127.0.0.1",
+        port=8883,
+        client_id="rl-1",
+        keepalive_s=15,
+        tls=Tls(ca_file=str(tmp_path / "ca.pem"), insecure=True),
+    )
+    options = client_options(broker, LastWill("roomloop/x/status", "offline"))
+    assert options["tls_params"].ca_certs == str(tmp_path / "ca.pem")
+    assert options["tls_params"].cert_reqs == ssl.CERT_REQUIRED
+    assert options["tls_insecure"] is True
+    assert options["identifier"] == "rl-1" and options["keepalive"] == 15
+    will = options["will"]
+    assert isinstance(will, aiomqtt.Will)
+    assert (will.topic, will.payload, will.qos, will.retain) == (
+        "roomloop/x/status",
+        "offline",
+        1,
+        True,
+    )
+    assert "tls_params" not in client_options(Broker(host="127.0.0.1"))
+
+
+async def test_unreachable_broker_keeps_retrying_with_backoff() -> None:
+    broker = Broker(host="127.0.0.1", port=free_tcp_port())
+    conn = BrokerConnection(broker, backoff_min_s=0.05, backoff_max_s=0.1)
+    attempts = 0
+    original = conn.make_client
+
+    def counting() -> aiomqtt.Client:
+        nonlocal attempts
+        attempts += 1
+        return original()
+
+    conn.make_client = counting  # type: ignore[method-assign]
+
+    async def on_message(_message: Any) -> None:
+        raise AssertionError("no message can arrive")
+
+    task = asyncio.create_task(conn.run(on_message))
+    await asyncio.sleep(0.6)
+    assert not task.done(), "the loop must not end on a refused connection"
+    task.cancel()
+    with contextlib.suppress(asyncio.CancelledError):
+        await task
+    assert attempts >= 3 and conn.connections == 0
