@@ -10,6 +10,7 @@ CSD = mean(T) - S and CV = (max(T) - min(T)) / 2.
 from __future__ import annotations
 
 import dataclasses
+import itertools
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -106,7 +107,7 @@ def window_figures(
             if demand[k] and k < last:
                 switch_ons += 1
     shortest: dict[bool, float | None] = {True: None, False: None}
-    for a, b in zip(switches, switches[1:], strict=False):
+    for a, b in itertools.pairwise(switches):
         length = (b - a) * tick_s
         state = bool(demand[a])
         current = shortest[state]

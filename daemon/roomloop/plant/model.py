@@ -65,7 +65,9 @@ class PlantSimulation:
             if emitter is not None and emitter.conductance_w_per_k is not None
             else 0.0
         )
-        self._phi_n = emitter.rated_output_w if emitter is not None and emitter.rated_output_w else 0.0
+        self._phi_n = (
+            emitter.rated_output_w if emitter is not None and emitter.rated_output_w else 0.0
+        )
         self._n = emitter.exponent if emitter is not None and emitter.exponent else 1.0
         mass = spec.mass
         self._has_mass = mass is not None
@@ -101,7 +103,7 @@ class PlantSimulation:
     # ------------------------------------------------------------------ reading
 
     def read_sensor(self) -> float:
-        """The sensor's reading now: lagged room air, plus seeded noise, rounded to the resolution."""
+        """The sensor's reading: lagged room air, plus seeded noise, rounded to the resolution."""
         sensor = self.spec.sensor
         value = self.sensor_state_c if self._tau_s > 0 else self.room_c
         if sensor.noise_k > 0:
@@ -211,7 +213,12 @@ def _max_substep_s(spec: PlantSpec) -> float:
         else:
             assert emitter.rated_output_w is not None and emitter.exponent is not None
             top = 1.5 * spec.emitter_excess_for_output_k(spec.heater_w)
-            ke = emitter.exponent * emitter.rated_output_w / 50.0 * (top / 50.0) ** (emitter.exponent - 1.0)
+            ke = (
+                emitter.exponent
+                * emitter.rated_output_w
+                / 50.0
+                * (top / 50.0) ** (emitter.exponent - 1.0)
+            )
         rates.append(ke / emitter.capacity_j_per_k)
     km = spec.mass.conductance_w_per_k if spec.mass is not None else 0.0
     rates.append((ke + km + spec.room.loss_w_per_k) / spec.room.capacity_j_per_k)

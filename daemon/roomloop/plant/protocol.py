@@ -75,7 +75,9 @@ def protocol_settings(settings: ZoneSettings) -> ZoneSettings:
 
     Everything else (tuning, limits, reliability checks) stays the zone's own.
     """
-    return dataclasses.replace(settings, comfort_c=COMFORT_C, economy_c=ECONOMY_C, initial_mode="auto")
+    return dataclasses.replace(
+        settings, comfort_c=COMFORT_C, economy_c=ECONOMY_C, initial_mode="auto"
+    )
 
 
 @dataclass(slots=True)

@@ -104,7 +104,7 @@ class PlantSpec(_Strict):
         if emitter is None:
             raise ValueError("this plant has no emitter")
         if emitter.conductance_w_per_k is not None:
-            return emitter.conductance_w_per_k * excess_k
+            return float(emitter.conductance_w_per_k * excess_k)
         assert emitter.rated_output_w is not None and emitter.exponent is not None
         return en442_output_w(emitter.rated_output_w, emitter.exponent, excess_k)
 
@@ -118,10 +118,10 @@ class PlantSpec(_Strict):
         assert emitter.rated_output_w is not None and emitter.exponent is not None
         if output_w <= 0:
             return 0.0
-        return 50.0 * (output_w / emitter.rated_output_w) ** (1.0 / emitter.exponent)
+        return float(50.0 * (output_w / emitter.rated_output_w) ** (1.0 / emitter.exponent))
 
     def outdoor_for_load_c(self, load: float, room_c: float = 20.0) -> float:
-        """DESIGN.md: the outdoor temperature at which the heater must cover ``load`` of its output."""
+        """DESIGN.md: the outdoor temperature at which the heater covers ``load`` of its output."""
         return room_c - (load * self.heater_w + self.internal_gains_w) / self.room.loss_w_per_k
 
 

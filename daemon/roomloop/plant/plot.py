@@ -1,0 +1,71 @@
+"""A picture of one protocol run (matplotlib, imported only here and only when asked for)."""
+
+from __future__ import annotations
+
+import os
+
+from roomloop.plant.protocol import SCHEDULE, ProtocolResult
+
+
+class PlotUnavailable(Exception):
+    """matplotlib is not installed (the optional ``plot`` extra)."""
+
+
+def write_plot(result: ProtocolResult, path: str | os.PathLike[str]) -> None:
+    """Temperature and set point, relay, anticipator and droop terms; phases shaded; figures in
+    the title. Raises :class:`PlotUnavailable` without matplotlib, ``OSError`` if unwritable."""
+    try:
+        import matplotlib
+
+        matplotlib.use("Agg")
+        import matplotlib.pyplot as plt
+    except ImportError as exc:
+        raise PlotUnavailable(str(exc)) from None
+
+    trace = result.trace
+    hours = [t / 3600.0 for t in trace.time_s]
+    fig, (ax_t, ax_r, ax_a) = plt.subplots(
+        3, 1, figsize=(12, 8), sharex=True, gridspec_kw={"height_ratios": [3, 1, 1.5]}
+    )
+    for segment in SCHEDULE:
+        if segment.scored:
+            for ax in (ax_t, ax_r, ax_a):
+                ax.axvspan(
+                    segment.start_s / 3600, segment.end_s / 3600, color="tab:green", alpha=0.08
+                )
+            ax_t.text(
+                (segment.start_s + segment.end_s) / 7200,
+                1.01,
+                segment.name,
+                transform=ax_t.get_xaxis_transform(),
+                ha="center",
+                va="bottom",
+                fontsize=8,
+            )
+    ax_t.plot(hours, trace.sensor_c, color="tab:gray", lw=0.6, label="sensor reading")
+    ax_t.plot(hours, trace.room_c, color="tab:red", lw=1.0, label="room air (true)")
+    ax_t.plot(hours, trace.setpoint_c, color="black", lw=1.0, ls="--", label="set point")
+    ax_t.set_ylabel("C")
+    ax_t.legend(loc="lower left", fontsize=8)
+    ax_r.fill_between(
+        hours, [1.0 if d else 0.0 for d in trace.demand], step="post", color="tab:orange"
+    )
+    ax_r.set_ylabel("relay")
+    ax_r.set_yticks([0, 1], ["off", "on"])
+    ax_a.plot(hours, trace.anticipator_k, color="tab:blue", lw=0.8, label="anticipator a")
+    ax_a.plot(hours, trace.droop_k, color="tab:purple", lw=1.0, label="droop term b")
+    ax_a.set_ylabel("K")
+    ax_a.set_xlabel("hours")
+    ax_a.legend(loc="upper left", fontsize=8)
+    o = result.overall
+    fig.suptitle(
+        f"{result.controller} on {result.plant} (seed {result.seed}): control accuracy "
+        f"{o.control_accuracy_k:.2f} K, recovery overshoot {o.overshoot_k:+.2f} K, "
+        f"{o.cycles_per_hour:.1f} cycles/h, {o.energy_kwh:.1f} kWh",
+        fontsize=10,
+    )
+    fig.tight_layout()
+    try:
+        fig.savefig(os.fspath(path), dpi=100)
+    finally:
+        plt.close(fig)
