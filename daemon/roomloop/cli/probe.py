@@ -265,9 +265,7 @@ async def _wait_message(
 
     async def feed() -> None:
         async for message in client.messages:
-            payload = message.payload
-            raw = payload if isinstance(payload, bytes | bytearray) else str(payload).encode()
-            points.handle(message.topic.value, raw, time.time())
+            points.handle(message.topic.value, message.payload, time.time())
             if done():
                 return
 
