@@ -45,25 +45,34 @@ class RealClock:
 
 
 class SimulatedClock:
-    """A clock running ``speed`` times faster than real time, starting at ``start``.
+    """A clock running ``speed`` times faster than real time.
 
-    Its time is derived from the monotonic clock, so it advances steadily while
-    the event loop is busy, exactly like the real clock does, only faster.
+    Its time is ``start + (real time - origin) * speed``: at the real instant
+    ``origin`` (POSIX seconds, default: now) it reads ``start`` (default:
+    ``origin``). Two processes given the same ``origin`` share one simulated
+    timeline, so a service restarted in a test continues where it left off.
+    Real time advances on the monotonic clock, so the simulated clock advances
+    steadily while the event loop is busy, exactly like the real clock does.
     """
 
-    def __init__(self, speed: float, start: float | None = None) -> None:
+    def __init__(
+        self, speed: float, start: float | None = None, origin: float | None = None
+    ) -> None:
         if not speed > 0:
             raise ValueError("a clock speed must be positive")
         self._speed = float(speed)
-        self._start = time.time() if start is None else float(start)
-        self._origin = time.monotonic()
+        wall, mono = time.time(), time.monotonic()
+        self._origin = wall if origin is None else float(origin)
+        self._start = self._origin if start is None else float(start)
+        # real time now, expressed on the monotonic clock
+        self._mono_origin = mono - (wall - self._origin)
 
     @property
     def speed(self) -> float:
         return self._speed
 
     def now(self) -> float:
-        return self._start + (time.monotonic() - self._origin) * self._speed
+        return self._start + (time.monotonic() - self._mono_origin) * self._speed
 
     async def sleep(self, seconds: float) -> None:
         await asyncio.sleep(max(0.0, seconds) / self._speed)

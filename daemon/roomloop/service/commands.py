@@ -254,7 +254,13 @@ class CommandHandler:
                 )
                 self.apply(command)
             except self.refusals as exc:
-                answer.update(ok=False, reason=str(exc) or type(exc).__name__)
+                answer.update(ok=False, reason=_reason(exc))
             else:
                 answer.update(ok=True, value=shown_value(command, units=self.units, tz=self.tz))
         return Answer(result_topic(self.prefix, zone.name), json.dumps(answer))
+
+
+def _reason(exc: Exception) -> str:
+    """The words of a refusal (the core's ``CommandRejected`` keeps them in ``reason``)."""
+    reason = getattr(exc, "reason", None)
+    return str(reason) if reason else (str(exc) or type(exc).__name__)

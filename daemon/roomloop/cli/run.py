@@ -1,0 +1,101 @@
+"""``roomloop run -c SITE [--state-dir DIR]``: the service, in the foreground, under systemd or not.
+
+SIGTERM and SIGINT stop it cleanly (outputs to their safe state, ``offline``
+published, state saved, exit 0). The state directory is ``--state-dir``, else
+systemd's ``$STATE_DIRECTORY``, else the site's ``state_dir``.
+
+Test hook (not for users, see DEVELOPERS.md): ``ROOMLOOP_CLOCK_SPEED=N`` runs
+the service on a simulated clock N times faster than real time, so the
+end-to-end tests exercise the real process without waiting hours;
+``ROOMLOOP_CLOCK_ORIGIN=T`` (POSIX seconds) is the real instant at which that
+clock reads real time, so a restarted process continues the same timeline.
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import os
+import signal
+import sys
+
+import structlog
+
+from roomloop.config.loader import load_site
+from roomloop.service.clock import Clock, RealClock, SimulatedClock
+
+EXIT_OK = 0
+EXIT_RUNTIME = 1
+EXIT_USAGE = 2
+CLOCK_SPEED_ENV = "ROOMLOOP_CLOCK_SPEED"
+CLOCK_ORIGIN_ENV = "ROOMLOOP_CLOCK_ORIGIN"
+
+
+def _clock() -> Clock:
+    raw = os.environ.get(CLOCK_SPEED_ENV)
+    if not raw:
+        return RealClock()
+    try:
+        speed = float(raw)
+    except ValueError:
+        speed = 0.0
+    if not speed > 0:
+        raise ValueError(f"{CLOCK_SPEED_ENV}={raw!r} is not a positive number")
+    origin_raw = os.environ.get(CLOCK_ORIGIN_ENV)
+    try:
+        origin = float(origin_raw) if origin_raw else None
+    except ValueError:
+        raise ValueError(f"{CLOCK_ORIGIN_ENV}={origin_raw!r} is not POSIX seconds") from None
+    return SimulatedClock(speed, origin=origin)
+
+
+def _state_dir(args: argparse.Namespace, default: str) -> str:
+    if args.state_dir:
+        return str(args.state_dir)
+    systemd = os.environ.get("STATE_DIRECTORY")
+    if systemd:
+        return systemd.split(":")[0]
+    return default
+
+
+def _configure_logging(level: str, fmt: str) -> None:
+    try:
+        from roomloop.log import configure_logging
+    except ImportError:  # pragma: no cover - the log module ships with roomloop
+        structlog.configure()
+        return
+    configure_logging(level, fmt)
+
+
+async def _serve(site: object, state_dir: str, clock: Clock) -> None:
+    from roomloop.service.app import Service
+
+    stop = asyncio.Event()
+    loop = asyncio.get_running_loop()
+    for signum in (signal.SIGTERM, signal.SIGINT):
+        loop.add_signal_handler(signum, stop.set)
+    service = Service(site, clock=clock, state_dir=state_dir)  # type: ignore[arg-type]
+    await service.run(stop)
+
+
+def main(args: argparse.Namespace) -> int:
+    site = load_site(args.config)  # ConfigError: the CLI front prints it and exits 2
+    _configure_logging(site.logging.level, site.logging.format)
+    log = structlog.get_logger("roomloop.run")
+    try:
+        clock = _clock()
+    except ValueError as exc:
+        print(f"roomloop run: {exc}", file=sys.stderr)
+        return EXIT_USAGE
+    state_dir = _state_dir(args, site.site.state_dir)
+    try:
+        os.makedirs(state_dir, exist_ok=True)
+    except OSError as exc:
+        print(f"roomloop run: cannot use state directory {state_dir}: {exc}", file=sys.stderr)
+        return EXIT_RUNTIME
+    if not os.access(state_dir, os.W_OK | os.X_OK):
+        print(f"roomloop run: state directory {state_dir} is not writable", file=sys.stderr)
+        return EXIT_RUNTIME
+    log.info("run.start", config=str(args.config), state_dir=state_dir, pid=os.getpid())
+    asyncio.run(_serve(site, state_dir, clock))
+    return EXIT_OK

@@ -1,0 +1,657 @@
+"""The service: one TaskGroup owning the links, the zones' control loops, the outputs and the broker.
+
+Tasks (every one named, every one restarted with backoff if it fails):
+
+* ``modbus-poll:<link>`` polls a Modbus link and re-asserts its outputs;
+* ``zone:<name>`` runs one zone's control loop at its tick (woken early by a command);
+* ``outputs`` writes each zone's wanted output state to its link or topic;
+* ``broker``, ``publish`` and ``mqtt-points`` keep the broker session, publish
+  the retained state and serve MQTT points (only with a broker in the site);
+* ``persist`` saves the zone states when they change; ``watchdog`` feeds systemd.
+
+Control never waits on the broker: a zone loop only hands its decision to the
+publisher and wakes it. Until a zone's first decision its output is held at the
+zone's safe state; on stop every output goes to its safe state, ``offline`` is
+published and the states are saved.
+
+Embedding (the demo, the tests, the benchmark)::
+
+    service = Service(site, clock=SimulatedClock(60), state_dir=path, on_tick=show)
+    await service.run(stop_event)
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import json
+import time
+from collections.abc import Awaitable, Callable, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+from zoneinfo import ZoneInfo
+
+import structlog
+
+from roomloop.config.models import (
+    ModbusInput,
+    ModbusOutput,
+    MqttInput,
+    MqttOutput,
+    Site,
+    Zone,
+)
+from roomloop.core.commands import CommandRejected, apply_command
+from roomloop.core.controller import ZoneController
+from roomloop.core.settings import ZoneSettings
+from roomloop.core.state import StateFormatError, ZoneState
+from roomloop.core.types import PointSample, ZoneInputs, ZoneOutputs
+from roomloop.io.modbus import ModbusLink
+from roomloop.io.mqtt import MqttPoints
+from roomloop.io.ports import OutputState
+from roomloop.service.clock import Clock, RealClock
+from roomloop.service.commands import Command, CommandHandler
+from roomloop.service.notify import Progress, notify, watchdog_interval_s
+from roomloop.service.persist import StateStore
+from roomloop.service.program import level_at, next_change
+from roomloop.service.publisher import (
+    OFFLINE,
+    ONLINE,
+    Message,
+    StatePublisher,
+    ZoneView,
+    status_topic,
+)
+
+log = structlog.get_logger("roomloop.service")
+
+READY_WAIT_S = 15.0
+"""Real seconds to wait for the links before declaring READY=1 anyway."""
+STOP_OUTPUTS_S = 2.5
+"""Real seconds the safe-state writes at stop may take (the whole stop stays under 5 s)."""
+STOP_BROKER_S = 1.0
+PERIODIC_SAVE_S = 300.0
+"""Clock seconds between saves of the slowly drifting terms (droop, learned duty)."""
+RESTART_MIN_S = 0.5
+RESTART_MAX_S = 30.0
+
+
+@dataclass(frozen=True, slots=True)
+class TickReport:
+    """One zone's decision, handed to ``on_tick`` (the demo's live view, the benchmark)."""
+
+    zone: str
+    at: float
+    outputs: ZoneOutputs
+    state: ZoneState
+
+
+OnTick = Callable[[TickReport], None]
+
+
+class ZoneRuntime:
+    """One zone's settings, controller, state and wanted output, shared by its tasks."""
+
+    def __init__(self, zone: Zone, settings: ZoneSettings, state: ZoneState) -> None:
+        self.zone = zone
+        self.settings = settings
+        self.controller = ZoneController(settings)
+        self.state = state
+        self.outputs: ZoneOutputs | None = None
+        self.safe_on = zone.safe_state == "on"
+        self.wanted = self.safe_on
+        self.decided = False
+        self.wake = asyncio.Event()
+        self.steps = 0
+
+    @property
+    def name(self) -> str:
+        return self.zone.name
+
+
+def _persist_key(state: ZoneState) -> str:
+    """What must reach the disk at once: commands, the relay and its switch times, fail-safe."""
+    keep = (
+        "mode",
+        "hold_setpoint",
+        "hold_level",
+        "hold_until",
+        "level_override",
+        "relay_on",
+        "switched_at",
+        "switches",
+        "fail_safe",
+    )
+    return repr(tuple(getattr(state, k) for k in keep))
+
+
+class Service:
+    """The running service for one site; see the module docstring for the tasks it owns."""
+
+    def __init__(
+        self,
+        site: Site,
+        *,
+        clock: Clock | None = None,
+        state_dir: str | Path | None = None,
+        on_tick: OnTick | None = None,
+        ready_wait_s: float = READY_WAIT_S,
+    ) -> None:
+        self.site = site
+        self.clock: Clock = clock if clock is not None else RealClock()
+        self.tz = ZoneInfo(site.site.timezone)
+        self.units = site.site.units
+        self.prefix = site.topic_prefix
+        self.on_tick = on_tick
+        self.ready_wait_s = ready_wait_s
+        self.ready = asyncio.Event()
+        """Set once the links are up (or after ``ready_wait_s``): READY=1 under systemd."""
+        self.store = StateStore(
+            state_dir if state_dir is not None else site.site.state_dir, site.name
+        )
+        self.progress = Progress()
+        self.restarts: dict[str, int] = {}
+        """Restarts per task name (tests and status)."""
+        self.publisher = StatePublisher(
+            self.prefix,
+            units=self.units,
+            tz=self.tz,
+            interval_s=site.broker.publish_interval_s if site.broker else 60.0,
+        )
+        self._build_io()
+        self.zones: dict[str, ZoneRuntime] = {}
+        self._persist_dirty = asyncio.Event()
+        self._publish_wake = asyncio.Event()
+        self._outputs_wake = asyncio.Event()
+        self._inputs_ready = asyncio.Event()
+        self._written: dict[str, bool] = {}
+        self._last_saved_key: dict[str, str] = {}
+        self._last_periodic_save = 0.0
+        self._broker: Any = None
+        self.commands: CommandHandler | None = None
+
+    # ------------------------------------------------------------------ wiring
+
+    def _build_io(self) -> None:
+        site = self.site
+        modbus_inputs: dict[str, list[ModbusInput]] = {link.name: [] for link in site.links}
+        modbus_outputs: dict[str, list[ModbusOutput]] = {link.name: [] for link in site.links}
+        mqtt_inputs: list[MqttInput] = []
+        mqtt_outputs: list[MqttOutput] = []
+        for point in site.points:
+            if isinstance(point, ModbusInput):
+                modbus_inputs[point.link].append(point)
+            elif isinstance(point, ModbusOutput):
+                modbus_outputs[point.link].append(point)
+            elif isinstance(point, MqttInput):
+                mqtt_inputs.append(point)
+            else:
+                mqtt_outputs.append(point)
+        self.links: dict[str, ModbusLink] = {
+            link.name: ModbusLink(
+                link, modbus_inputs[link.name], modbus_outputs[link.name], clock=self.clock.now
+            )
+            for link in site.links
+            if modbus_inputs[link.name] or modbus_outputs[link.name]
+        }
+        self.mqtt_points = MqttPoints(mqtt_inputs, mqtt_outputs, clock=self.clock.now)
+        self._source: dict[str, ModbusLink | MqttPoints] = {}
+        self._sink: dict[str, ModbusLink | MqttPoints] = {}
+        for link in self.links.values():
+            for name in link.input_names():
+                self._source[name] = link
+            for name in link.output_names():
+                self._sink[name] = link
+        for name in self.mqtt_points.input_names():
+            self._source[name] = self.mqtt_points
+        for name in self.mqtt_points.output_names():
+            self._sink[name] = self.mqtt_points
+
+    def _load_zones(self, now: float) -> None:
+        saved = self.store.load()
+        for zone in self.site.zones:
+            settings = ZoneSettings.from_site(self.site, zone.name)
+            controller = ZoneController(settings)
+            state = controller.initial_state(now)
+            raw = saved.get(zone.name)
+            if raw is not None:
+                try:
+                    state = ZoneState.from_json(json.dumps(raw))
+                except StateFormatError as exc:
+                    log.warning("persist.zone_state_rejected", zone=zone.name, reason=str(exc))
+                else:
+                    log.info("persist.zone_restored", zone=zone.name, mode=state.mode)
+                    # The output was held at its safe state from the restart on.
+                    state = controller.resume(state, now, relay_on=zone.safe_state == "on")
+            runtime = ZoneRuntime(zone, settings, state)
+            self.zones[zone.name] = runtime
+            self._last_saved_key[zone.name] = _persist_key(state)
+
+    # ------------------------------------------------------------------ public
+
+    def apply_command(self, zone: str, field: str, value: Any) -> None:
+        """Apply a checked command to a zone now (the broker's handler and in-process callers).
+
+        Raises :class:`CommandRejected` when the control core refuses it; nothing changes then.
+        """
+        runtime = self.zones[zone]
+        now = self.clock.now()
+        runtime.state = apply_command(runtime.settings, runtime.state, field, value, now)
+        log.info("command.applied", zone=zone, field=field, value=value)
+        self._persist_dirty.set()
+        runtime.wake.set()
+
+    def snapshot(self) -> dict[str, ZoneOutputs | None]:
+        """The latest decision of every zone (None before its first)."""
+        return {name: z.outputs for name, z in self.zones.items()}
+
+    async def run(self, stop: asyncio.Event) -> None:
+        """Run until ``stop`` is set, then stop cleanly: outputs safe, ``offline``, state saved."""
+        now = self.clock.now()
+        self._load_zones(now)
+        log.info(
+            "service.starting",
+            site=self.site.name,
+            zones=len(self.zones),
+            links=len(self.links),
+            broker=None if self.site.broker is None else f"{self.site.broker.host}:{self.site.broker.port}",
+            clock_speed=self.clock.speed,
+        )
+        async with contextlib.AsyncExitStack() as stack:
+            for link in self.links.values():
+                await stack.enter_async_context(link)
+            control: list[asyncio.Task[None]] = []
+            others: list[asyncio.Task[None]] = []
+            async with asyncio.TaskGroup() as group:
+
+                def start(name: str, body: Callable[[], Awaitable[None]], into: list[Any]) -> None:
+                    into.append(group.create_task(self._supervised(name, body), name=name))
+
+                start("outputs", self._output_loop, control)
+                for name, link in self.links.items():
+                    start(f"modbus-poll:{name}", lambda link=link: self._poll_loop(link), control)
+                for runtime in self.zones.values():
+                    self.progress.register(f"zone:{runtime.name}", self._allowed_gap(runtime))
+                    start(f"zone:{runtime.name}", lambda r=runtime: self._zone_loop(r), control)
+                start("persist", self._persist_loop, others)
+                others.append(group.create_task(self._ready_once(), name="ready"))
+                if watchdog_interval_s() is not None:
+                    start("watchdog", self._watchdog_loop, others)
+                if self.site.broker is not None:
+                    start("broker", self._broker_loop, others)
+                    start("publish", self._publish_loop, others)
+                    start("mqtt-points", self._mqtt_points_loop, others)
+                await stop.wait()
+                log.info("service.stopping", site=self.site.name)
+                notify("STOPPING=1")
+                for task in control:
+                    task.cancel()
+                await asyncio.gather(*control, return_exceptions=True)
+                await self._stop_outputs()
+                await self._announce_offline()
+                for task in others:
+                    task.cancel()
+        self._save(self.clock.now(), force=True)
+        log.info("service.stopped", site=self.site.name)
+
+    # ------------------------------------------------------------------ supervision
+
+    async def _supervised(self, name: str, body: Callable[[], Awaitable[None]]) -> None:
+        """Run ``body``; if it fails or ends, log it and start it again after a growing pause."""
+        delay = RESTART_MIN_S
+        while True:
+            started = time.monotonic()
+            try:
+                await body()
+            except asyncio.CancelledError:
+                raise
+            except Exception as exc:
+                log.exception("service.task_failed", task=name, error=str(exc) or type(exc).__name__)
+            else:
+                log.error("service.task_ended", task=name)
+            if name.startswith("zone:"):
+                self._zone_failed(name[len("zone:") :])
+            if time.monotonic() - started > 60.0:
+                delay = RESTART_MIN_S
+            self.restarts[name] = self.restarts.get(name, 0) + 1
+            log.info("service.task_restarting", task=name, in_s=delay)
+            await asyncio.sleep(delay)
+            delay = min(delay * 2, RESTART_MAX_S)
+
+    def _zone_failed(self, zone: str) -> None:
+        """A zone whose loop broke holds its output at the safe state until it decides again."""
+        runtime = self.zones.get(zone)
+        if runtime is not None:
+            runtime.wanted = runtime.safe_on
+            runtime.decided = False
+            self._outputs_wake.set()
+
+    def _allowed_gap(self, runtime: ZoneRuntime) -> float:
+        """Real seconds a zone loop may go without progress before the watchdog starves."""
+        return runtime.zone.tick_s / self.clock.speed + self.ready_wait_s + 30.0
+
+    # ------------------------------------------------------------------ links
+
+    async def _poll_loop(self, link: ModbusLink) -> None:
+        first = True
+        while True:
+            await link.poll()
+            await link.reassert_due(self.clock.now())
+            link.cycles += 1
+            if first:
+                first = False
+                self._check_inputs_ready()
+            await self.clock.sleep(link.link.poll_interval_s)
+
+    def _check_inputs_ready(self) -> None:
+        if all(link.cycles > 0 for link in self.links.values()):
+            self._inputs_ready.set()
+
+    async def _ready_once(self) -> None:
+        if self.links:
+            with contextlib.suppress(TimeoutError):
+                async with asyncio.timeout(self.ready_wait_s):
+                    await self._inputs_ready.wait()
+        self._inputs_ready.set()
+        down = [name for name, link in self.links.items() if not link.connected]
+        self.ready.set()
+        notify("READY=1", f"STATUS=controlling {len(self.zones)} zone(s)")
+        log.info("service.ready", zones=len(self.zones), links_down=down)
+
+    # ------------------------------------------------------------------ zones
+
+    def _samples(self, names: Sequence[str], now: float) -> tuple[PointSample, ...]:
+        cache: dict[int, dict[str, PointSample]] = {}
+        out: list[PointSample] = []
+        for name in names:
+            source = self._source.get(name)
+            if source is None:
+                out.append(PointSample(name, None, None, "comm-failure"))
+                continue
+            samples = cache.get(id(source))
+            if samples is None:
+                samples = source.samples(now)
+                cache[id(source)] = samples
+            out.append(samples.get(name, PointSample(name, None, None, "comm-failure")))
+        return tuple(out)
+
+    async def _zone_loop(self, runtime: ZoneRuntime) -> None:
+        name = f"zone:{runtime.name}"
+        self.progress.beat(name)
+        await self._inputs_ready.wait()
+        zone = runtime.zone
+        backup_name = zone.fail_safe.backup_point
+        while True:
+            now = self.clock.now()
+            level = level_at(zone.program, now, self.tz, zone.default_level)
+            inputs = ZoneInputs(
+                samples=self._samples(zone.inputs, now),
+                scheduled_level=level,
+                backup=None if backup_name is None else self._samples([backup_name], now)[0],
+            )
+            runtime.state, outputs = runtime.controller.step(runtime.state, inputs, now)
+            runtime.outputs = outputs
+            runtime.steps += 1
+            if not runtime.decided or outputs.demand != runtime.wanted:
+                runtime.wanted = outputs.demand
+                runtime.decided = True
+                self._outputs_wake.set()
+            self._after_step(runtime, outputs, now)
+            self.progress.beat(name)
+            runtime.wake.clear()
+            await self._sleep_or_wake(zone.tick_s, runtime.wake)
+
+    async def _sleep_or_wake(self, seconds: float, wake: asyncio.Event) -> None:
+        if wake.is_set():
+            return
+        sleeper = asyncio.ensure_future(self.clock.sleep(seconds))
+        waiter = asyncio.ensure_future(wake.wait())
+        try:
+            await asyncio.wait((sleeper, waiter), return_when=asyncio.FIRST_COMPLETED)
+        finally:
+            sleeper.cancel()
+            waiter.cancel()
+
+    def _after_step(self, runtime: ZoneRuntime, outputs: ZoneOutputs, now: float) -> None:
+        zone = runtime.zone
+        sink = self._sink.get(zone.output)
+        out_state = sink.output_state(zone.output) if sink is not None else None
+        view = ZoneView(
+            zone=runtime.name,
+            outputs=outputs,
+            at=now,
+            output_point=zone.output,
+            output_verdict=None if out_state is None else out_state.verdict,
+            output_confirmed=None if out_state is None else out_state.confirmed,
+            hold_until=runtime.state.hold_until,
+            next_change=next_change(zone.program, now, self.tz, zone.default_level)
+            if runtime.state.mode == "auto"
+            else None,
+        )
+        self.publisher.update(view)
+        self._publish_wake.set()
+        key = _persist_key(runtime.state)
+        if key != self._last_saved_key.get(runtime.name):
+            self._persist_dirty.set()
+        if self.on_tick is not None:
+            try:
+                self.on_tick(TickReport(runtime.name, now, outputs, runtime.state))
+            except Exception:
+                log.exception("service.on_tick_failed", zone=runtime.name)
+
+    # ------------------------------------------------------------------ outputs
+
+    async def _output_loop(self) -> None:
+        """Write every zone's wanted output when it changes (safe state until the first decision)."""
+        while True:
+            self._outputs_wake.clear()
+            for runtime in self.zones.values():
+                point = runtime.zone.output
+                if self._written.get(point) == runtime.wanted:
+                    continue
+                sink = self._sink.get(point)
+                if sink is None:
+                    continue
+                wanted = runtime.wanted
+                state = await sink.set_output(point, wanted)
+                if state.verdict != "comm-failure":
+                    self._written[point] = wanted
+                log.info(
+                    "output.switched",
+                    zone=runtime.name,
+                    point=point,
+                    on=wanted,
+                    verdict=state.verdict,
+                    decided=runtime.decided,
+                )
+            if any(self._written.get(r.zone.output) != r.wanted for r in self.zones.values()):
+                # A write failed: the link re-asserts on its own; try again shortly.
+                with contextlib.suppress(TimeoutError):
+                    async with asyncio.timeout(1.0):
+                        await self._outputs_wake.wait()
+                continue
+            await self._outputs_wake.wait()
+
+    async def _stop_outputs(self) -> None:
+        """Every output to its zone's safe state, within a bounded time."""
+
+        async def one(runtime: ZoneRuntime) -> OutputState | None:
+            sink = self._sink.get(runtime.zone.output)
+            if sink is None:
+                return None
+            return await sink.set_output(runtime.zone.output, runtime.safe_on)
+
+        for runtime in self.zones.values():
+            runtime.wanted = runtime.safe_on
+        try:
+            async with asyncio.timeout(STOP_OUTPUTS_S):
+                results = await asyncio.gather(
+                    *(one(r) for r in self.zones.values()), return_exceptions=True
+                )
+        except TimeoutError:
+            log.error("service.stop_outputs_timeout", within_s=STOP_OUTPUTS_S)
+            return
+        for runtime, result in zip(self.zones.values(), results, strict=True):
+            verdict = result.verdict if isinstance(result, OutputState) else repr(result)
+            log.info("output.safe_state", zone=runtime.name, on=runtime.safe_on, verdict=verdict)
+
+    # ------------------------------------------------------------------ broker
+
+    async def _broker_loop(self) -> None:
+        from roomloop.io.broker import BrokerConnection, LastWill
+
+        assert self.site.broker is not None
+        self.commands = CommandHandler(
+            self.prefix,
+            {name: r.zone for name, r in self.zones.items()},
+            self._apply_checked,
+            units=self.units,
+            tz=self.tz,
+            rate_per_min=self.site.broker.command_rate_per_min,
+            refusals=(CommandRejected,),
+        )
+        self._broker = BrokerConnection(
+            self.site.broker,
+            will=LastWill(status_topic(self.prefix), OFFLINE),
+            backoff_min_s=0.5,
+            backoff_max_s=30.0,
+        )
+        await self._broker.run(
+            self._on_message, on_connect=self._on_connect, on_disconnect=self.mqtt_points.detach
+        )
+
+    def _apply_checked(self, command: Command) -> None:
+        self.apply_command(command.zone, command.field, command.value)
+
+    async def _on_connect(self, client: Any) -> None:
+        assert self.commands is not None
+        topics = [*self.commands.topics(), *self.mqtt_points.topics()]
+        for topic in topics:
+            await client.subscribe(topic, qos=1)
+        await client.publish(status_topic(self.prefix), ONLINE, qos=1, retain=True)
+        self.publisher.forget_sent()
+        self.mqtt_points.attach(client)
+        await self.mqtt_points.publish_commands(client)
+        self._publish_wake.set()
+        log.info("broker.online", prefix=self.prefix, subscriptions=len(topics))
+
+    async def _on_message(self, message: Any) -> None:
+        topic = str(message.topic)
+        payload = message.payload
+        if isinstance(payload, str):
+            payload = payload.encode()
+        elif not isinstance(payload, bytes | bytearray):
+            payload = b"" if payload is None else str(payload).encode()
+        now = self.clock.now()
+        if self.mqtt_points.handle(topic, payload, now):
+            return
+        assert self.commands is not None
+        answer = self.commands.handle(
+            topic, bytes(payload), retained=bool(message.retain), now=now, monotonic=time.monotonic()
+        )
+        if answer is None:
+            if message.retain and topic.startswith(f"{self.prefix}/zone/"):
+                log.info("command.retained_ignored", topic=topic)
+            return
+        log.info("command.answered", topic=topic, answer=answer.payload)
+        client = self._broker.client if self._broker is not None else None
+        if client is not None:
+            try:
+                async with asyncio.timeout(5.0):
+                    await client.publish(answer.topic, answer.payload, qos=1, retain=False)
+            except Exception as exc:
+                log.warning("command.answer_failed", topic=answer.topic, error=str(exc))
+
+    async def _publish_loop(self) -> None:
+        """Send due retained messages; never blocks a zone (they only set an event)."""
+        interval = self.publisher.interval_s
+        while True:
+            client = self._broker.client if self._broker is not None else None
+            if client is not None:
+                now = self.clock.now()
+                for message in self.publisher.due(now):
+                    await self._send(client, message)
+                    self.publisher.sent(message, now)
+            self._publish_wake.clear()
+            await self._sleep_or_wake(min(interval, 30.0), self._publish_wake)
+            await asyncio.sleep(0.05)  # coalesce a burst of zone updates into one round
+
+    async def _send(self, client: Any, message: Message) -> None:
+        async with asyncio.timeout(10.0):
+            await client.publish(message.topic, message.payload, qos=1, retain=message.retain)
+
+    async def _mqtt_points_loop(self) -> None:
+        if not (self.mqtt_points.inputs or self.mqtt_points.outputs):
+            return await asyncio.Event().wait()
+        while True:
+            await self.mqtt_points.tick(self.clock.now())
+            await asyncio.sleep(1.0)
+
+    async def _announce_offline(self) -> None:
+        client = self._broker.client if self._broker is not None else None
+        if client is None:
+            return
+        try:
+            async with asyncio.timeout(STOP_BROKER_S):
+                now = self.clock.now()
+                for message in self.publisher.due(now):
+                    await self._send(client, message)
+                await client.publish(status_topic(self.prefix), OFFLINE, qos=1, retain=True)
+        except Exception as exc:
+            log.warning("broker.offline_not_sent", error=str(exc) or type(exc).__name__)
+        else:
+            log.info("broker.offline", prefix=self.prefix)
+
+    # ------------------------------------------------------------------ persistence
+
+    def _save(self, now: float, *, force: bool = False) -> None:
+        zones = {name: json.loads(r.state.to_json()) for name, r in self.zones.items()}
+        try:
+            written = self.store.save(zones, now) if (force or zones) else False
+        except OSError as exc:
+            log.error("persist.save_failed", path=str(self.store.path), error=str(exc))
+            return
+        for name, runtime in self.zones.items():
+            self._last_saved_key[name] = _persist_key(runtime.state)
+        self._last_periodic_save = now
+        if written:
+            log.debug("persist.saved", path=str(self.store.path))
+
+    async def _persist_loop(self) -> None:
+        while True:
+            with contextlib.suppress(TimeoutError):
+                async with asyncio.timeout(PERIODIC_SAVE_S / self.clock.speed):
+                    await self._persist_dirty.wait()
+            self._persist_dirty.clear()
+            self._save(self.clock.now())
+            await asyncio.sleep(0.2)  # coalesce bursts (a command and the switch it causes)
+
+    # ------------------------------------------------------------------ systemd
+
+    async def _watchdog_loop(self) -> None:
+        interval = watchdog_interval_s()
+        if interval is None:
+            return
+        while True:
+            stuck = self.progress.stuck()
+            if stuck:
+                log.error("service.loops_stuck", loops=stuck)
+            else:
+                notify("WATCHDOG=1")
+            await asyncio.sleep(interval)
+
+
+async def run_service(
+    site: Site,
+    *,
+    state_dir: str | Path | None = None,
+    clock: Clock | None = None,
+    stop: asyncio.Event | None = None,
+    on_tick: OnTick | None = None,
+) -> Service:
+    """Run the service until ``stop`` is set (forever without one); returns the stopped service."""
+    service = Service(site, clock=clock, state_dir=state_dir, on_tick=on_tick)
+    await service.run(stop if stop is not None else asyncio.Event())
+    return service
+

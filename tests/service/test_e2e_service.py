@@ -1,0 +1,247 @@
+"""End to end: ``roomloop run`` as a subprocess, a Modbus TCP server playing rooms, a mosquitto broker.
+
+The service runs on a simulated clock ``SPEED`` times faster than real time
+(the ``ROOMLOOP_CLOCK_SPEED`` test hook of ``roomloop run``); the rooms step on
+the same speed in this process. Every wait is bounded.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import datetime as dt
+import json
+import signal
+import time
+from collections.abc import AsyncIterator
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import pytest
+import yaml
+
+from .rooms import RoomPlant, ServiceProcess, Watcher, site_yaml
+
+pytestmark = [pytest.mark.needs_mosquitto, pytest.mark.slow]
+
+SPEED = 60.0
+PREFIX = "roomloop/test-annex"
+
+
+@dataclass
+class Rig:
+    server: Any
+    plant: RoomPlant
+    broker: Any
+    watcher: Watcher
+    service: ServiceProcess
+    tmp: Path
+
+    def room(self, i: int = 0) -> Any:
+        return self.plant.rooms[i]
+
+    async def restart_service(self) -> None:
+        old = self.service
+        self.service = ServiceProcess(old.config, old.state_dir, SPEED, old.log_path, old.origin)
+        await self.service.start()
+
+
+async def _rig(
+    tmp_path: Path,
+    mosquitto: Any,
+    modbus_tcp_server: Any,
+    temperatures: list[float],
+    **site: Any,
+) -> AsyncIterator[Rig]:
+    server = await modbus_tcp_server(units=(1,))
+    config = tmp_path / "site.yaml"
+    config.write_text(
+        yaml.safe_dump(
+            site_yaml(
+                modbus_port=server.port,
+                broker_port=mosquitto.port,
+                zones=len(temperatures),
+                **site,
+            )
+        )
+    )
+    service = ServiceProcess(
+        config, tmp_path / "state", SPEED, tmp_path / "service.log", origin=time.time()
+    )
+    async with RoomPlant(server, temperatures, SPEED) as plant, Watcher(
+        mosquitto.host, mosquitto.port, PREFIX
+    ) as watcher:
+        rig = Rig(server, plant, mosquitto, watcher, service, tmp_path)
+        try:
+            yield rig
+        finally:
+            await rig.service.stop()
+
+
+@pytest.fixture
+async def rig(tmp_path: Path, mosquitto: Any, modbus_tcp_server: Any) -> AsyncIterator[Rig]:
+    async for value in _rig(tmp_path, mosquitto, modbus_tcp_server, [17.0]):
+        yield value
+
+
+async def test_demand_reaches_the_coil_commands_are_answered_and_checked(rig: Rig) -> None:
+    w = rig.watcher
+    # A stale retained command must not reprogram the zone at start.
+    await w.command("room0", "setpoint", "25", retain=True)
+    await w.wait_for(lambda: f"{PREFIX}/zone/room0/cmd/setpoint" in w.latest, 5)
+    await rig.service.start()
+
+    # Demand reaches the coil and the room warms.
+    await w.wait_for(lambda: rig.room().coil, 15)
+    await w.wait_for(lambda: w.text("status") == "online", 10)
+    await w.wait_for(lambda: (w.state() or {}).get("demand") is True, 10)
+    first = w.state()
+    assert first is not None and first["setpoint"] == 20.0 and first["mode"] == "auto"
+    await w.wait_for(lambda: (w.state() or {}).get("temperature", 0) >= 18.5, 20)
+    assert w.retained.get(f"{PREFIX}/zone/room0/state") is not None
+    assert w.text("zone/room0/setpoint") == "20.00"
+    assert w.text("zone/room0/demand") == "true"
+    assert not w.results, "the retained command was acted on"
+
+    # A set point below the room's temperature stops the heat, and is answered.
+    n = len(w.results)
+    await w.command("room0", "setpoint", "10")
+    answer = await w.answer(n)
+    assert answer == {"field": "setpoint", "ok": True, "value": 10.0}
+    await w.wait_for(lambda: not rig.room().coil, 15)
+    state = w.state()
+    await w.wait_for(lambda: (w.state() or {}).get("setpoint") == 10.0, 5)
+    state = w.state()
+    assert state is not None and state["mode"] == "hold" and state["demand"] is False
+
+    # Malformed, out of limits, unknown: refused with a reason, nothing changes.
+    for field, payload, words in [
+        ("setpoint", "warm", "number"),
+        ("setpoint", "40", "limits"),
+        ("mode", '{"value": "party"}', "auto, hold, off"),
+        ("colour", "blue", "unknown field"),
+        ("hold_until", "yesterday", "hold_until"),
+    ]:
+        n = len(w.results)
+        await w.command("room0", field, payload)
+        answer = await w.answer(n)
+        assert answer["ok"] is False and answer["field"] == field
+        assert words in answer["reason"], answer
+    await asyncio.sleep(0.5)
+    state = w.state()
+    assert state is not None
+    assert (state["setpoint"], state["mode"], state["demand"]) == (10.0, "hold", False)
+    assert not rig.room().coil
+
+    # A JSON command works as well as a plain one.
+    n = len(w.results)
+    await w.command("room0", "mode", '"auto"')
+    assert (await w.answer(n))["value"] == "auto"
+    await w.wait_for(lambda: (w.state() or {}).get("setpoint") == 20.0, 10)
+
+
+async def test_sigterm_leaves_the_coil_off_and_status_offline(rig: Rig) -> None:
+    w = rig.watcher
+    await rig.service.start()
+    await w.wait_for(lambda: rig.room().coil, 15)
+    await w.wait_for(lambda: w.text("status") == "online", 10)
+    started = time.monotonic()
+    code = await rig.service.signal(signal.SIGTERM)
+    assert code == 0
+    assert time.monotonic() - started < 5.0
+    assert (await rig.server.get_coils(0, 1)) == [False]
+    await w.wait_for(lambda: w.text("status") == "offline", 5)
+    saved = json.loads((rig.tmp / "state" / "test-annex.state.json").read_text())
+    assert set(saved["zones"]) == {"room0"}
+
+
+async def test_kill_and_restart_restores_the_hold_and_short_cycle_timing(rig: Rig) -> None:
+    w = rig.watcher
+    await rig.service.start()
+    await w.wait_for(lambda: w.text("status") == "online", 15)
+    n = len(w.results)
+    await w.command("room0", "setpoint", "24.5")
+    assert (await w.answer(n))["ok"] is True
+    await w.wait_for(lambda: rig.room().coil, 15)
+    state_file = rig.tmp / "state" / "test-annex.state.json"
+
+    def saved() -> dict[str, Any]:
+        if not state_file.exists():
+            return {}
+        return dict(json.loads(state_file.read_text())["zones"]["room0"])
+
+    await w.wait_for(lambda: saved().get("mode") == "hold" and saved().get("relay_on"), 10)
+    await rig.service.stop()  # kill -9: no safe state, no offline, no save
+    assert rig.room().coil is True
+    await w.wait_for(lambda: w.text("status") == "offline", 20)  # the broker's last will
+
+    w.latest.pop(f"{PREFIX}/zone/room0/state", None)
+    await rig.restart_service()
+    await w.wait_for(lambda: w.state() is not None, 15)
+    state = w.state()
+    assert state is not None
+    # The hold survived the crash ...
+    assert (state["mode"], state["setpoint"]) == ("hold", 24.5)
+    # ... and so did the switch times: the output was forced off (safe state) at the
+    # restart, so the minimum off time holds it off, and the last hour's cycle is counted.
+    assert state["demand"] is False and state["reason"] == "min-off", state
+    assert state["cycles_1h"] >= 1
+    await w.wait_for(lambda: rig.room().coil, 15)
+
+
+async def test_broker_restart_control_goes_on_and_state_is_republished(rig: Rig) -> None:
+    w = rig.watcher
+    await rig.service.start()
+    await w.wait_for(lambda: w.state() is not None and w.text("status") == "online", 15)
+    rig.broker.stop()
+    w.latest.clear()
+    changes_before = len(rig.room().coil_changes)
+    # The room keeps being controlled without the broker: the coil keeps cycling.
+    deadline = time.monotonic() + 20
+    while len(rig.room().coil_changes) < changes_before + 2 and time.monotonic() < deadline:
+        await asyncio.sleep(0.1)
+    assert len(rig.room().coil_changes) >= changes_before + 2
+    rig.broker.start()
+    await w.wait_for(lambda: w.text("status") == "online", 20)
+    await w.wait_for(lambda: w.state() is not None, 10)
+    for field in ("temperature", "setpoint", "demand", "mode", "level"):
+        await w.wait_for(lambda f=field: w.text(f"zone/room0/{f}") is not None, 5)
+
+
+async def test_sensor_server_stopped_engages_fail_safe_visibly(rig: Rig) -> None:
+    w = rig.watcher
+    await rig.service.start()
+    await w.wait_for(lambda: (w.state() or {}).get("reliability", {}).get("t0") == "ok", 15)
+    rig.plant.frozen = True
+    await rig.server.stop()
+    stopped = time.monotonic()
+    await w.wait_for(lambda: (w.state() or {}).get("fail_safe") is True, 20)
+    state = w.state()
+    assert state is not None
+    assert state["fail_safe_policy"] == "fixed-duty"
+    assert state["reliability"]["t0"] == "comm-failure"
+    # sensor_timeout_s is 300 simulated seconds: 5 s real at SPEED, plus polling and a tick.
+    assert time.monotonic() - stopped < 300 / SPEED + 5
+
+
+async def test_program_entry_switches_the_level_at_its_time(
+    tmp_path: Path, mosquitto: Any, modbus_tcp_server: Any
+) -> None:
+    now = dt.datetime.now(dt.UTC)
+    switch = (now + dt.timedelta(minutes=4)).replace(second=0, microsecond=0)
+    program = [
+        {"days": "all", "at": (now - dt.timedelta(hours=2)).strftime("%H:%M"), "level": "comfort"},
+        {"days": "all", "at": switch.strftime("%H:%M"), "level": "economy"},
+    ]
+    async for rig in _rig(tmp_path, mosquitto, modbus_tcp_server, [19.0], program=program):
+        w = rig.watcher
+        await rig.service.start()
+        await w.wait_for(lambda: (w.state() or {}).get("level") == "comfort", 15)
+        state = w.state()
+        assert state is not None and state["next_change"]["level"] == "economy"
+        assert dt.datetime.fromisoformat(state["next_change"]["at"]) == switch
+        await w.wait_for(lambda: (w.state() or {}).get("level") == "economy", 20)
+        state = w.state()
+        assert state is not None and state["setpoint"] == 16.0
+        assert dt.datetime.fromisoformat(state["timestamp"]) >= switch
+        assert w.text("zone/room0/level") == "economy"
