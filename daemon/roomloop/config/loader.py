@@ -147,7 +147,9 @@ class _Builder:
         self._problem(node, path, "unsupported YAML node")
         return None
 
-    def _mapping(self, node: MappingNode, path: KeyPath, depth: int) -> dict[str, Any]:
+    def _mapping(
+        self, node: MappingNode, path: KeyPath, depth: int, from_merge: bool = False
+    ) -> dict[str, Any]:
         out: dict[str, Any] = {}
         first_line: dict[str, int] = {}
         merged: list[tuple[Node, KeyPath]] = []
@@ -169,6 +171,8 @@ class _Builder:
                 )
                 continue
             first_line[key] = line
+            if from_merge and (*path, key) in self.lines.key_lines:
+                continue  # given directly in the mapping that merges this one: that wins
             self.lines.key_lines[(*path, key)] = line
             out[key] = self.build(value_node, (*path, key), depth + 1)
         # YAML merge keys (<<: *defaults): keys given directly win over merged ones.
@@ -178,7 +182,7 @@ class _Builder:
                 if not isinstance(source, MappingNode):
                     self._problem(source, at, "'<<' merges a mapping (or a list of mappings)")
                     continue
-                extra = self._mapping(source, at, depth + 1)
+                extra = self._mapping(source, at, depth + 1, from_merge=True)
                 for key, value in extra.items():
                     out.setdefault(key, value)
         return out
@@ -326,7 +330,7 @@ def _message(error: Mapping[str, Any], allowed: Iterable[str] = (), tags: str = 
         if kind == "union_tag_not_found":
             return f"missing 'type': say which kind this is ({tags or 'see the reference'})"
         return f"unknown type {found!r}; use one of {tags}"
-    if kind in {"model_type", "dict_type"}:
+    if kind in {"model_type", "dict_type", "model_attributes_type"}:
         return f"must be a mapping of keys, got {_show(error.get('input'))}"
     shown = error.get("input")
     if kind in ("value_error", "assertion_error"):
@@ -335,6 +339,31 @@ def _message(error: Mapping[str, Any], allowed: Iterable[str] = (), tags: str = 
     if isinstance(shown, dict | list):
         return msg
     return f"{msg} (got {_show(shown)})"
+
+
+_BOUNDS = {
+    "greater_than": ("gt", "greater than"),
+    "greater_than_equal": ("ge", "greater than or equal to"),
+    "less_than": ("lt", "less than"),
+    "less_than_equal": ("le", "less than or equal to"),
+}
+
+
+def _fahrenheit_bound(error: Mapping[str, Any], path: KeyPath, units: str) -> str | None:
+    """A bound on a temperature difference, in the °F degrees an F site writes (held in K)."""
+    kind = str(error.get("type", ""))
+    if units != "F" or kind not in _BOUNDS or not path or not isinstance(path[-1], str):
+        return None
+    if not (path[-1].endswith("_k") or path[-1].endswith("_k_per_min")):
+        return None
+    key, words = _BOUNDS[kind]
+    limit = error.get("ctx", {}).get(key)
+    if not isinstance(limit, int | float):
+        return None
+    return (
+        f"input should be {words} {round(limit * 1.8, 4):g} °F ({limit:g} K) "
+        f"(got {_show(error.get('input'))})"
+    )
 
 
 def _show(value: Any) -> str:
@@ -356,6 +385,7 @@ def problems_from_validation_error(
     *,
     data: Any = None,
     schema: Any = None,
+    units: str = "C",
 ) -> list[ConfigProblem]:
     """One :class:`ConfigProblem` per pydantic error, located at its key's line.
 
@@ -363,7 +393,9 @@ def problems_from_validation_error(
     when one zone was validated on its own); ``data`` is the object that was validated
     (used to drop union tags from ``loc``; without it the tags are guessed from the
     error's shape); ``schema`` is the model or type validated, used to suggest the
-    right spelling of an unknown key. Stable interface: the plant loader uses it.
+    right spelling of an unknown key; ``units`` (``"F"``) states the bounds of temperature
+    differences (keys ending in ``_k``) in °F degrees, as the file is written. Stable
+    interface: the plant loader uses it.
     """
     problems: list[ConfigProblem] = []
     seen: set[tuple[int | None, str, str]] = set()
@@ -377,7 +409,7 @@ def problems_from_validation_error(
             tags = _type_tags(schema)
             if error["type"] == "union_tag_invalid":
                 full = (*full, "type")  # point at the 'type' line itself
-        message = _message(error, allowed, tags)
+        message = _fahrenheit_bound(error, full, units) or _message(error, allowed, tags)
         line = linemap.line(full)
         key = (line, format_path(full), message)
         if key in seen:
@@ -535,7 +567,7 @@ def site_from_data(
         except ValidationError as exc:
             found.extend(
                 problems_from_validation_error(
-                    exc, file, lines, where, data=value, schema=_SECTIONS[section]
+                    exc, file, lines, where, data=value, schema=_SECTIONS[section], units=units
                 )
             )
             return None

@@ -247,11 +247,11 @@ class Reliability(Strict):
     """How an input point's readings are judged (BACnet-style reliability)."""
 
     stale_after_s: Seconds = 120.0
-    max_rate_k_per_min: Annotated[float, Field(gt=0, allow_inf_nan=False)] = 2.0
+    max_rate_k_per_min: Annotated[TemperatureDelta, Field(gt=0, allow_inf_nan=False)] = 2.0
     """A room does not change faster than this; a jump beyond it is ``implausible``."""
     stuck_after_s: Seconds | None = 10800.0
     """No movement beyond the resolution for this long while the relay is on: ``stuck``."""
-    resolution_k: Annotated[float, Field(ge=0, allow_inf_nan=False)] = 0.1
+    resolution_k: Annotated[TemperatureDelta, Field(ge=0, allow_inf_nan=False)] = 0.1
     recovery_s: Annotated[float, Field(ge=0, allow_inf_nan=False)] = 60.0
     """A point must read good this long before it is trusted again."""
 
