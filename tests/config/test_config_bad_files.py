@@ -173,3 +173,16 @@ def test_bundled_examples_pass(capsys: pytest.CaptureFixture[str]) -> None:
         assert code == 0, err
         assert err == ""
         assert "zones" in out and f"{root / name}: ok" in out
+
+
+def test_alias_expansion_is_bounded(capsys: pytest.CaptureFixture[str], tmp_path: Path) -> None:
+    """Nested aliases (9^8 values from a few lines) are refused, not expanded."""
+    lines = ['a0: &a0 ["x", "x", "x", "x", "x", "x", "x", "x", "x"]']
+    for i in range(1, 8):
+        lines.append(f"a{i}: &a{i} [" + ", ".join([f"*a{i - 1}"] * 9) + "]")
+    path = tmp_path / "aliases.yaml"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    code, out, err = _run(capsys, path)
+    assert code == 2
+    assert "Traceback" not in out + err
+    assert "values (aliases expanding?)" in err

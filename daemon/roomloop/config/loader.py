@@ -51,6 +51,9 @@ KeyPath = tuple[str | int, ...]
 MAX_FILE_BYTES = 4 * 1024 * 1024
 """A site or plant file is a few kilobytes; anything this big is the wrong file."""
 
+MAX_VALUES = 200_000
+"""Aliases can make a small file expand enormously; a real site has a few thousand values."""
+
 
 # --------------------------------------------------------------------------- key paths
 
@@ -132,11 +135,17 @@ class _Builder:
         self.lines = LineMap()
         self.problems: list[ConfigProblem] = []
         self._constructor = _Scalars()
+        self._built = 0
 
     def build(self, node: Node, path: KeyPath, depth: int = 0) -> Any:
         self.lines.value_lines.setdefault(path, node.start_mark.line + 1)
+        self._built += 1
         if depth > 64:
             self._problem(node, path, "nested too deeply (an alias that refers to itself?)")
+            return None
+        if self._built > MAX_VALUES:
+            if self._built == MAX_VALUES + 1:
+                self._problem(node, path, f"more than {MAX_VALUES} values (aliases expanding?)")
             return None
         if isinstance(node, ScalarNode):
             return _scalar(node, self._constructor)
