@@ -19,7 +19,7 @@ import asyncio
 import json
 import math
 import time
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 from typing import Any, Protocol
 
@@ -159,7 +159,7 @@ class MqttPoints:
         inputs: Sequence[MqttInput] = (),
         outputs: Sequence[MqttOutput] = (),
         *,
-        clock: Any = time.time,
+        clock: Callable[[], float] = time.time,
         log_interval_s: float = 300.0,
     ) -> None:
         self.inputs = {p.name: p for p in inputs}

@@ -9,7 +9,7 @@ the device confirmed it. The service never needs to know which one it has.
 from __future__ import annotations
 
 from dataclasses import dataclass
-from typing import Literal, Protocol
+from typing import Literal, Protocol, runtime_checkable
 
 from roomloop.core.types import PointSample
 
@@ -34,6 +34,7 @@ class OutputState:
     confirmed_at: float | None = None
 
 
+@runtime_checkable
 class InputSource(Protocol):
     """Something that delivers readings of input points."""
 
@@ -45,6 +46,7 @@ class InputSource(Protocol):
         ...
 
 
+@runtime_checkable
 class OutputSink(Protocol):
     """Something that switches output points and verifies them."""
 
