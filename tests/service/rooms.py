@@ -60,7 +60,7 @@ class RoomPlant:
                 await self._task
 
     async def _write(self) -> None:
-        regs = [int(round(r.temperature * 10)) & 0xFFFF for r in self.rooms]
+        regs = [round(r.temperature * 10) & 0xFFFF for r in self.rooms]
         await self.server.set_registers("input", 0, regs)
 
     async def _run(self) -> None:
@@ -244,7 +244,7 @@ class Watcher:
                     self.client = client
                     async for message in client.messages:
                         topic = str(message.topic)
-                        payload = bytes(message.payload)  # type: ignore[arg-type]
+                        payload = bytes(message.payload)
                         self.latest[topic] = payload
                         self.retained[topic] = bool(message.retain)
                         if topic.endswith("/cmd/result"):

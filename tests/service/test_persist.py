@@ -39,7 +39,7 @@ def test_missing_file_is_a_fresh_start(tmp_path: Path) -> None:
 @pytest.mark.parametrize(
     ("content", "reason_part"),
     [
-        (b"{\"format\": \"roomloop-state\", \"ver", "not JSON"),
+        (b'{"format": "roomloop-state", "ver', "not JSON"),
         (b"\xff\xfe garbage", "not UTF-8"),
         (b"[1, 2, 3]", "not a roomloop state file"),
         (b'{"some": "other program"}', "not a roomloop state file"),

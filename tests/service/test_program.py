@@ -23,7 +23,10 @@ UTC = dt.UTC
 
 
 def utc(*args: int) -> float:
-    return dt.datetime(*args, tzinfo=UTC).timestamp()
+    """POSIX seconds of a UTC time given as year, month, day[, hour[, minute[, second]]]."""
+    year, month, day, *rest = args
+    hour, minute, second = (*rest, 0, 0, 0)[:3]
+    return dt.datetime(year, month, day, hour, minute, second, tzinfo=UTC).timestamp()
 
 
 PROGRAM = [

@@ -1,4 +1,4 @@
-"""The shipped unit file: hardened to an exposure of 2.0 or less, serial adapters still reachable."""
+"""The shipped unit file: exposure 2.0 or less, serial adapters still reachable."""
 
 from __future__ import annotations
 
@@ -17,8 +17,8 @@ UNIT = Path(__file__).resolve().parents[2] / "systemd" / "roomloop.service"
 
 def _settings() -> dict[str, list[str]]:
     out: dict[str, list[str]] = {}
-    for line in UNIT.read_text().splitlines():
-        line = line.strip()
+    for raw in UNIT.read_text().splitlines():
+        line = raw.strip()
         if not line or line.startswith(("#", "[")):
             continue
         key, _, value = line.partition("=")

@@ -1,4 +1,4 @@
-"""The service: one TaskGroup owning the links, the zones' control loops, the outputs and the broker.
+"""The service: one TaskGroup owning the links, the zones' control loops, outputs and broker.
 
 Tasks (every one named, every one restarted with backoff if it fails):
 
@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import functools
 import json
 import time
 from collections.abc import Awaitable, Callable, Sequence
@@ -255,7 +256,9 @@ class Service:
             site=self.site.name,
             zones=len(self.zones),
             links=len(self.links),
-            broker=None if self.site.broker is None else f"{self.site.broker.host}:{self.site.broker.port}",
+            broker=None
+            if self.site.broker is None
+            else f"{self.site.broker.host}:{self.site.broker.port}",
             clock_speed=self.clock.speed,
         )
         async with contextlib.AsyncExitStack() as stack:
@@ -270,10 +273,12 @@ class Service:
 
                 start("outputs", self._output_loop, control)
                 for name, link in self.links.items():
-                    start(f"modbus-poll:{name}", lambda link=link: self._poll_loop(link), control)
+                    start(f"modbus-poll:{name}", functools.partial(self._poll_loop, link), control)
                 for runtime in self.zones.values():
                     self.progress.register(f"zone:{runtime.name}", self._allowed_gap(runtime))
-                    start(f"zone:{runtime.name}", lambda r=runtime: self._zone_loop(r), control)
+                    start(
+                        f"zone:{runtime.name}", functools.partial(self._zone_loop, runtime), control
+                    )
                 start("persist", self._persist_loop, others)
                 others.append(group.create_task(self._ready_once(), name="ready"))
                 if watchdog_interval_s() is not None:
@@ -307,7 +312,9 @@ class Service:
             except asyncio.CancelledError:
                 raise
             except Exception as exc:
-                log.exception("service.task_failed", task=name, error=str(exc) or type(exc).__name__)
+                log.exception(
+                    "service.task_failed", task=name, error=str(exc) or type(exc).__name__
+                )
             else:
                 log.error("service.task_ended", task=name)
             if name.startswith("zone:"):
@@ -443,7 +450,7 @@ class Service:
     # ------------------------------------------------------------------ outputs
 
     async def _output_loop(self) -> None:
-        """Write every zone's wanted output when it changes (safe state until the first decision)."""
+        """Write each zone's wanted output when it changes (safe state until its first decision)."""
         while True:
             self._outputs_wake.clear()
             for runtime in self.zones.values():
@@ -548,7 +555,11 @@ class Service:
             return
         assert self.commands is not None
         answer = self.commands.handle(
-            topic, bytes(payload), retained=bool(message.retain), now=now, monotonic=time.monotonic()
+            topic,
+            bytes(payload),
+            retained=bool(message.retain),
+            now=now,
+            monotonic=time.monotonic(),
         )
         if answer is None:
             if message.retain and topic.startswith(f"{self.prefix}/zone/"):
@@ -583,7 +594,8 @@ class Service:
 
     async def _mqtt_points_loop(self) -> None:
         if not (self.mqtt_points.inputs or self.mqtt_points.outputs):
-            return await asyncio.Event().wait()
+            await asyncio.Event().wait()  # nothing to serve; stay as a (sleeping) task
+            return
         while True:
             await self.mqtt_points.tick(self.clock.now())
             await asyncio.sleep(1.0)
@@ -654,4 +666,3 @@ async def run_service(
     service = Service(site, clock=clock, state_dir=state_dir, on_tick=on_tick)
     await service.run(stop if stop is not None else asyncio.Event())
     return service
-
