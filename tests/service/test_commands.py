@@ -1,0 +1,177 @@
+"""Command parsing and checking: plain and JSON payloads, limits, units, times, rate limit."""
+
+from __future__ import annotations
+
+import json
+import re
+from zoneinfo import ZoneInfo
+
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from roomloop.config.models import Limits, Zone
+from roomloop.service.commands import (
+    Command,
+    CommandHandler,
+    RateLimit,
+    Refused,
+    parse_command,
+    parse_topic,
+)
+
+VIENNA = ZoneInfo("Europe/Vienna")
+NOW = 1_800_000_000.0  # 2027-01-15T08:00:00Z
+ZONE = Zone(
+    name="studio",
+    inputs=["t"],
+    output="r",
+    heating="hydronic",
+    limits=Limits(min=5, max=26),
+)
+
+
+def parse(field: str, payload: bytes | str, units: str = "C") -> Command:
+    raw = payload.encode() if isinstance(payload, str) else payload
+    return parse_command(ZONE, field, raw, units=units, tz=VIENNA, now=NOW)
+
+
+@pytest.mark.parametrize("payload", ["21.5", " 21.5\n", '"21.5"', "21.5e0", '{"value": 21.5}'])
+def test_setpoint_plain_or_json(payload: str) -> None:
+    assert parse("setpoint", payload).value == 21.5
+
+
+def test_setpoint_in_fahrenheit_is_converted_and_checked_in_the_sites_units() -> None:
+    # 70.7 F = 21.5 C (F = C x 9/5 + 32)
+    assert parse("setpoint", "70.7", units="F").value == pytest.approx(21.5)
+    with pytest.raises(Refused, match=re.escape("outside the zone's limits 41 to 78.8 F")):
+        parse("setpoint", "80", units="F")
+
+
+@pytest.mark.parametrize(
+    ("field", "payload", "words"),
+    [
+        ("setpoint", "warm", "must be a number"),
+        ("setpoint", "true", "must be a number"),
+        ("setpoint", "NaN", "finite"),
+        ("setpoint", "[21]", "not a list"),
+        ("setpoint", "26.5", "outside the zone's limits 5 to 26 C"),
+        ("setpoint", "4.9", "outside"),
+        ("setpoint", '{"value": 21, "until": 3}', '{"value": ...}'),
+        ("setpoint", "", "empty payload"),
+        ("setpoint", b"\xff\xfe", "UTF-8"),
+        ("setpoint", "9" * 2000, "too large"),
+        ("mode", "party", "auto, hold, off"),
+        ("mode", "1", "auto, hold, off"),
+        ("level", "sleepy", "comfort, standby, economy, protection"),
+        ("hold_until", "next week", "ISO 8601"),
+        ("hold_until", "2020-01-01T00:00", "in the past"),
+        ("fan", "on", "unknown field"),
+    ],
+)
+def test_refusals_say_why(field: str, payload: str | bytes, words: str) -> None:
+    with pytest.raises(Refused) as caught:
+        parse(field, payload)
+    assert words in str(caught.value)
+
+
+def test_words_are_case_and_space_insensitive() -> None:
+    assert parse("mode", " Hold ").value == "hold"
+    assert parse("level", '"ECONOMY"').value == "economy"
+
+
+def test_hold_until_local_time_offset_and_clearing() -> None:
+    # 2027-01-20 18:00 in Vienna (UTC+1 in winter) = 17:00 UTC.
+    assert parse("hold_until", "2027-01-20T18:00").value == 1_800_000_000.0 + 5 * 86400 + 9 * 3600
+    assert (
+        parse("hold_until", "2027-01-20T17:00:00+00:00").value
+        == parse("hold_until", "2027-01-20T18:00").value
+    )
+    assert parse("hold_until", str(NOW + 60)).value == NOW + 60
+    assert parse("hold_until", "null").value is None
+    assert parse("hold_until", "none").value is None
+
+
+def test_topics() -> None:
+    p = "roomloop/annex"
+    assert parse_topic(p, "roomloop/annex/zone/studio/cmd/setpoint") is not None
+    assert parse_topic(p, "roomloop/annex/zone/studio/cmd/result") is None
+    assert parse_topic(p, "roomloop/annex/zone/studio/state") is None
+    assert parse_topic(p, "roomloop/other/zone/studio/cmd/setpoint") is None
+    assert parse_topic(p, "roomloop/annex/zone/studio/cmd/setpoint/x") is None
+
+
+def test_rate_limit_is_a_sliding_minute_per_zone() -> None:
+    limit = RateLimit(3)
+    assert [limit.allow("a", t) for t in (0.0, 1.0, 2.0, 3.0)] == [True, True, True, False]
+    assert limit.allow("b", 3.0)
+    assert not limit.allow("a", 59.9)
+    assert limit.allow("a", 60.0)
+
+
+class Recorder:
+    def __init__(self) -> None:
+        self.applied: list[Command] = []
+
+    def __call__(self, command: Command) -> None:
+        self.applied.append(command)
+
+
+def handler(recorder: Recorder, rate: int = 30) -> CommandHandler:
+    return CommandHandler(
+        "roomloop/annex", {"studio": ZONE}, recorder, units="C", tz=VIENNA, rate_per_min=rate
+    )
+
+
+def test_handler_applies_answers_and_ignores_retained_and_foreign() -> None:
+    rec = Recorder()
+    h = handler(rec)
+    topic = "roomloop/annex/zone/studio/cmd/setpoint"
+    answer = h.handle(topic, b"22", retained=False, now=NOW, monotonic=0.0)
+    assert answer is not None and answer.topic == "roomloop/annex/zone/studio/cmd/result"
+    assert json.loads(answer.payload) == {"field": "setpoint", "ok": True, "value": 22.0}
+    assert h.handle(topic, b"23", retained=True, now=NOW, monotonic=0.0) is None
+    assert (
+        h.handle(
+            "roomloop/annex/zone/attic/cmd/mode", b"off", retained=False, now=NOW, monotonic=0.0
+        )
+        is None
+    )
+    assert [c.value for c in rec.applied] == [22.0]
+
+
+def test_handler_refuses_when_the_zone_refuses_and_when_flooded() -> None:
+    class CoreSaysNo(Exception):
+        reason = "the zone is off"
+
+    def refuse(command: Command) -> None:
+        raise CoreSaysNo()
+
+    h = CommandHandler(
+        "p", {"studio": ZONE}, refuse, units="C", tz=VIENNA, rate_per_min=2, refusals=(CoreSaysNo,)
+    )
+    topic = "p/zone/studio/cmd/mode"
+    answers = [
+        json.loads(a.payload)
+        for a in (h.handle(topic, b"hold", retained=False, now=NOW, monotonic=t) for t in (0, 1, 2))
+        if a is not None
+    ]
+    assert answers[0] == {"field": "mode", "ok": False, "reason": "the zone is off"}
+    assert answers[2]["ok"] is False and "too many commands" in answers[2]["reason"]
+
+
+@settings(max_examples=300, deadline=None)
+@given(
+    field=st.sampled_from(["setpoint", "mode", "level", "hold_until", "x"]),
+    payload=st.binary(max_size=64),
+)
+def test_any_payload_is_applied_or_refused_never_crashes(field: str, payload: bytes) -> None:
+    rec = Recorder()
+    answer = handler(rec, rate=1000).handle(
+        f"roomloop/annex/zone/studio/cmd/{field}", payload, retained=False, now=NOW, monotonic=0.0
+    )
+    assert answer is not None
+    result = json.loads(answer.payload)
+    assert result["ok"] is bool(rec.applied)
+    if result["ok"] and field == "setpoint":
+        assert 5.0 <= rec.applied[0].value <= 26.0

@@ -1,0 +1,91 @@
+"""Published state: the JSON's content and units, and when messages are due."""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+from zoneinfo import ZoneInfo
+
+from roomloop.core.types import ZoneOutputs
+from roomloop.service.program import Switch
+from roomloop.service.publisher import StatePublisher, ZoneView, plain_fields, state_payload
+
+VIENNA = ZoneInfo("Europe/Vienna")
+AT = 1_800_000_000.0  # 2027-01-15T08:00:00Z = 09:00 in Vienna
+
+OUT = ZoneOutputs(
+    demand=True,
+    reason="cut-in",
+    temperature=19.5,
+    setpoint=20.0,
+    level="comfort",
+    mode="auto",
+    anticipator_k=0.5,
+    droop_k=0.1,
+    reliability={"t": "ok", "t2": "stale"},
+    fail_safe=False,
+    fail_safe_policy="learned-duty",
+    on_fraction_1h=0.4321,
+    cycles_1h=3,
+)
+VIEW = ZoneView("studio", OUT, AT, "relay", "ok", True, None, Switch(AT + 3600, "economy"))
+
+
+def test_state_json_carries_everything_a_dashboard_needs() -> None:
+    payload = state_payload(VIEW, units="C", tz=VIENNA)
+    assert payload["timestamp"] == "2027-01-15T09:00:00+01:00"
+    assert payload["temperature"] == 19.5 and payload["setpoint"] == 20.0
+    assert (payload["level"], payload["mode"], payload["demand"]) == ("comfort", "auto", True)
+    assert (payload["anticipator"], payload["droop"]) == (0.5, 0.1)
+    assert payload["reliability"] == {"t": "ok", "t2": "stale"}
+    assert payload["fail_safe"] is False and payload["fail_safe_policy"] == "learned-duty"
+    assert (payload["on_fraction_1h"], payload["cycles_1h"]) == (0.432, 3)
+    assert payload["reason"] == "cut-in"
+    assert payload["next_change"] == {"at": "2027-01-15T10:00:00+01:00", "level": "economy"}
+    assert payload["output"] == {"point": "relay", "verdict": "ok", "confirmed": True}
+    json.dumps(payload, allow_nan=False)
+
+
+def test_fahrenheit_sites_see_fahrenheit_absolute_and_difference_values() -> None:
+    payload = state_payload(VIEW, units="F", tz=VIENNA)
+    # 19.5 C = 67.1 F; 20 C = 68 F; a 0.5 K difference = 0.9 F degrees.
+    assert (payload["temperature"], payload["setpoint"]) == (67.1, 68.0)
+    assert (payload["anticipator"], payload["droop"]) == (0.9, 0.18)
+    assert plain_fields(VIEW, units="F")["setpoint"] == "68.00"
+
+
+def test_plain_fields() -> None:
+    assert plain_fields(VIEW, units="C") == {
+        "temperature": "19.50",
+        "setpoint": "20.00",
+        "demand": "true",
+        "mode": "auto",
+        "level": "comfort",
+    }
+    unknown = dataclasses.replace(VIEW, outputs=dataclasses.replace(OUT, temperature=None))
+    assert plain_fields(unknown, units="C")["temperature"] == "unknown"
+
+
+def _send_all(pub: StatePublisher, now: float) -> list[str]:
+    topics = []
+    for message in pub.due(now):
+        pub.sent(message, now)
+        topics.append(message.topic)
+    return topics
+
+
+def test_due_on_change_on_interval_and_after_reconnect() -> None:
+    pub = StatePublisher("p", units="C", tz=VIENNA, interval_s=60.0)
+    pub.update(VIEW)
+    assert len(_send_all(pub, AT)) == 6  # state and five plain fields
+    assert pub.due(AT + 1) == []
+    # A drifting anticipator alone is no change; a new demand is.
+    pub.update(dataclasses.replace(VIEW, outputs=dataclasses.replace(OUT, anticipator_k=0.6)))
+    assert pub.due(AT + 2) == []
+    pub.update(dataclasses.replace(VIEW, outputs=dataclasses.replace(OUT, demand=False)))
+    assert sorted(_send_all(pub, AT + 3)) == ["p/zone/studio/demand", "p/zone/studio/state"]
+    # At least every interval.
+    assert [m.topic for m in pub.due(AT + 3 + 60)] == ["p/zone/studio/state"]
+    # After a reconnect everything again.
+    pub.forget_sent()
+    assert len(pub.due(AT + 64)) == 6
