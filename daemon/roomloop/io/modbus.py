@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import asyncio
 import logging
+import os
 import time
 from collections.abc import Awaitable, Callable, Sequence
 from dataclasses import dataclass, replace
@@ -117,6 +118,8 @@ class ModbusLink:
         self._reconnect_delay = reconnect_min_s
         self._next_connect_at = 0.0
         self._client: Any = None
+        self.connect_error: str | None = None
+        """Why the last connection attempt failed (``None`` once connected)."""
         self._samples: dict[str, PointSample] = {
             name: PointSample(name, None, None, "comm-failure") for name in self.inputs
         }
@@ -188,14 +191,16 @@ class ModbusLink:
             ok = False
             reason = f"{type(exc).__name__}: {exc}"
         else:
-            reason = "refused or not reachable"
+            reason = self._why_not_connected()
         if ok:
             if self._reconnect_delay > self._reconnect_min_s or self.cycles:
                 self._events.recovered(
                     self.endpoint, "modbus.connected", link=self.name, endpoint=self.endpoint
                 )
             self._reconnect_delay = self._reconnect_min_s
+            self.connect_error = None
             return True
+        self.connect_error = reason
         self._events.problem(
             self.endpoint,
             "modbus.connect_failed",
@@ -208,6 +213,16 @@ class ModbusLink:
         self._next_connect_at = time.monotonic() + self._reconnect_delay
         self._reconnect_delay = min(self._reconnect_delay * 2, self._reconnect_max_s)
         return False
+
+    def _why_not_connected(self) -> str:
+        """pymodbus only says False; name the likely cause for the log and ``probe``."""
+        if isinstance(self.link, ModbusRtuLink):
+            if not os.path.exists(self.link.device):
+                return f"serial device {self.link.device} does not exist"
+            if not os.access(self.link.device, os.R_OK | os.W_OK):
+                return f"no permission to open {self.link.device}"
+            return f"cannot open {self.link.device}"
+        return "connection refused or host unreachable"
 
     # ------------------------------------------------------------------ requests
 
@@ -224,7 +239,8 @@ class ModbusLink:
                         min(RETRY_BACKOFF_S * 2 ** (attempt - 1), RETRY_BACKOFF_MAX_S)
                     )
                 if not await self._ensure_connected():
-                    raise _RequestFailed(f"not connected to {self.endpoint}")
+                    why = f": {self.connect_error}" if self.connect_error else ""
+                    raise _RequestFailed(f"not connected{why}")
                 gap = self._last_request_end + self.link.request_gap_s - time.monotonic()
                 if gap > 0:
                     await asyncio.sleep(gap)
