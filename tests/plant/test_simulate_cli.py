@@ -1,0 +1,158 @@
+"""``roomloop simulate``: JSON keys, exit codes, messages (DESIGN.md "CLI")."""
+
+from __future__ import annotations
+
+import json
+import sys
+from pathlib import Path
+
+import pytest
+
+from roomloop.cli import main
+
+REPO = Path(__file__).resolve().parents[2]
+EXAMPLE = REPO / "config" / "example.yaml"
+
+PHASE_KEYS = {
+    "setpoint_deviation_k",
+    "control_variation_k",
+    "control_accuracy_k",
+    "cycles_per_hour",
+    "on_fraction",
+    "shortest_on_s",
+    "shortest_off_s",
+    "energy_kwh",
+}
+
+
+def test_heating_type_run_writes_the_designed_json(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    out = tmp_path / "out.json"
+    code = main(["simulate", "--heating", "hydronic", "--plant", "hydronic", "--json", str(out)])
+    assert code == 0
+    doc = json.loads(out.read_text())
+    assert set(doc["phases"]) == {"low-load", "high-load", "recovery"}
+    assert set(doc["phases"]["low-load"]) == PHASE_KEYS
+    assert set(doc["phases"]["high-load"]) == PHASE_KEYS
+    assert set(doc["phases"]["recovery"]) == PHASE_KEYS | {"overshoot_k", "settle_s"}
+    assert set(doc["overall"]) == {
+        "control_accuracy_k",
+        "overshoot_k",
+        "cycles_per_hour",
+        "energy_kwh",
+    }
+    phases = doc["phases"]
+    assert doc["overall"]["control_accuracy_k"] == max(
+        phases["low-load"]["control_accuracy_k"], phases["high-load"]["control_accuracy_k"]
+    )
+    assert doc["overall"]["overshoot_k"] == phases["recovery"]["overshoot_k"]
+    printed = capsys.readouterr().out
+    assert "low-load" in printed and "overall: control accuracy" in printed
+
+
+def test_site_zone_run_and_seed_repeatability(tmp_path: Path) -> None:
+    first, second, other = tmp_path / "a.json", tmp_path / "b.json", tmp_path / "c.json"
+    base = ["simulate", "-c", str(EXAMPLE), "--zone", "office", "--plant", "hydronic"]
+    assert main([*base, "--seed", "5", "--json", str(first)]) == 0
+    assert main([*base, "--seed", "5", "--json", str(second)]) == 0
+    assert main([*base, "--seed", "6", "--controller", "plain", "--json", str(other)]) == 0
+    assert first.read_text() == second.read_text()
+    assert json.loads(other.read_text())["controller"] == "plain"
+
+
+def one_line_error(capsys: pytest.CaptureFixture[str]) -> str:
+    err = capsys.readouterr().err.strip().splitlines()
+    assert err, "expected a message on stderr"
+    assert not any("Traceback" in line for line in err)
+    return err[0]
+
+
+def test_unknown_plant_name_exits_2(capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["simulate", "--heating", "hydronic", "--plant", "radiator-9000"]) == 2
+    line = one_line_error(capsys)
+    assert line.startswith("radiator-9000: no such plant file, and not a built-in plant")
+
+
+def test_bad_plant_file_exits_2_with_file_line_key(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    bad = tmp_path / "bad-plant.yaml"
+    bad.write_text(
+        "name: bad\nheater_w: 0\nemitter: null\nmass: null\n"
+        "room: {capacity_j_per_k: 1.0e5, loss_w_per_k: 40}\n"
+    )
+    assert main(["simulate", "--heating", "electric", "--plant", str(bad)]) == 2
+    assert one_line_error(capsys).startswith(f"{bad}:2: heater_w: ")
+
+
+def test_plant_file_with_yaml_syntax_error_exits_2(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    bad = tmp_path / "broken.yaml"
+    bad.write_text("name: [unclosed\n")
+    assert main(["simulate", "--heating", "electric", "--plant", str(bad)]) == 2
+    assert one_line_error(capsys).startswith(str(bad))
+
+
+def test_unknown_zone_exits_2(capsys: pytest.CaptureFixture[str]) -> None:
+    code = main(["simulate", "-c", str(EXAMPLE), "--zone", "attic", "--plant", "hydronic"])
+    assert code == 2
+    assert "attic" in one_line_error(capsys)
+
+
+def test_site_without_zone_and_zone_without_site_exit_2(capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["simulate", "-c", str(EXAMPLE), "--plant", "hydronic"]) == 2
+    assert "--zone" in one_line_error(capsys)
+    assert (
+        main(["simulate", "--heating", "hydronic", "--zone", "office", "--plant", "hydronic"]) == 2
+    )
+    assert "--zone" in one_line_error(capsys)
+
+
+def test_missing_site_file_exits_2(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    code = main(
+        ["simulate", "-c", str(tmp_path / "none.yaml"), "--zone", "x", "--plant", "hydronic"]
+    )
+    assert code == 2
+    one_line_error(capsys)
+
+
+def test_unwritable_json_exits_1(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    target = tmp_path / "no-such-dir" / "out.json"
+    assert (
+        main(["simulate", "--heating", "electric", "--plant", "electric", "--json", str(target)])
+        == 1
+    )
+    assert "cannot write" in one_line_error(capsys)
+
+
+def test_plot_writes_a_png(tmp_path: Path) -> None:
+    pytest.importorskip("matplotlib")
+    png = tmp_path / "run.png"
+    assert (
+        main(["simulate", "--heating", "underfloor", "--plant", "underfloor", "--plot", str(png)])
+        == 0
+    )
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_plot_without_matplotlib_says_so_and_exits_1(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # A None entry in sys.modules makes `import matplotlib` raise ImportError, as if absent.
+    monkeypatch.setitem(sys.modules, "matplotlib", None)
+    code = main(
+        [
+            "simulate",
+            "--heating",
+            "electric",
+            "--plant",
+            "electric",
+            "--plot",
+            str(tmp_path / "x.png"),
+        ]
+    )
+    assert code == 1
+    assert "matplotlib" in one_line_error(capsys)
+    assert not (tmp_path / "x.png").exists()
