@@ -1,0 +1,241 @@
+"""The control-quality table: every controller on every built-in plant, heating-type defaults.
+
+Run from the repository root:
+
+    python tests/bench/control_quality.py              # plain-text table and target status
+    python tests/bench/control_quality.py --markdown   # the same as Markdown, for the README
+
+Each cell comes from the standard 49 h protocol (DESIGN.md) at seed 1: control accuracy
+(the worse load phase, EN 15500 CA = |CSD| + CV), recovery overshoot, cycles per hour (the
+higher load phase) and energy over the three scored windows. The targets of issue 4 are
+checked for roomloop's controller (``anticipator``) and printed, never asserted. The run
+time of each simulation is printed as well, with its ratio to the plant model alone
+(the same 17,640 ticks with a fixed relay pattern) measured in this process.
+"""
+
+from __future__ import annotations
+
+import argparse
+import dataclasses
+import sys
+import time
+from dataclasses import dataclass
+
+from roomloop.core.settings import ZoneSettings
+from roomloop.plant.controllers import CONTROLLER_NAMES, make_controller
+from roomloop.plant.loader import BUILTIN_PLANTS, load_plant
+from roomloop.plant.model import PlantSimulation
+from roomloop.plant.protocol import (
+    DURATION_S,
+    TICK_S,
+    ProtocolResult,
+    protocol_settings,
+    run_protocol,
+)
+
+OURS = "anticipator"
+ACCURACY_TARGET_K = {"forced-air": 0.5, "hydronic": 0.2, "underfloor": 0.2, "electric": 0.2}
+OVERSHOOT_TARGET_K = 0.3
+CLOSE_K = 0.1
+
+
+@dataclass(frozen=True)
+class Cell:
+    plant: str
+    controller: str
+    result: ProtocolResult
+    seconds: float
+
+
+@dataclass(frozen=True)
+class TargetCheck:
+    name: str
+    met: bool
+    detail: str
+
+
+def run_all(seed: int, tuning: dict[str, float]) -> list[Cell]:
+    cells: list[Cell] = []
+    for plant_name in BUILTIN_PLANTS:
+        plant = load_plant(plant_name)
+        settings = protocol_settings(ZoneSettings.for_heating_type(plant_name))
+        for controller_name in CONTROLLER_NAMES:
+            zone = dataclasses.replace(settings, **tuning) if controller_name == OURS else settings
+            controller = make_controller(controller_name, zone)
+            start = time.perf_counter()
+            result = run_protocol(
+                controller,
+                plant,
+                seed=seed,
+                sensor_name=zone.inputs[0].name,
+                controller_name=controller_name,
+            )
+            cells.append(Cell(plant_name, controller_name, result, time.perf_counter() - start))
+    return cells
+
+
+def plant_alone_seconds() -> float:
+    """The plant model over the protocol's ticks with a fixed relay pattern (the speed baseline)."""
+    sim = PlantSimulation.at_steady_state(load_plant("hydronic"), load=0.3)
+    start = time.perf_counter()
+    for k in range(round(DURATION_S / TICK_S)):
+        sim.read_sensor()
+        sim.advance(TICK_S, k % 90 < 30)
+    return time.perf_counter() - start
+
+
+def check_targets(plant: str, cells: list[Cell]) -> list[TargetCheck]:
+    """Issue 4's targets for our controller on one plant."""
+    ours = next(c for c in cells if c.controller == OURS).result
+    others = [c.result for c in cells if c.controller != OURS]
+    ca = ours.overall.control_accuracy_k
+    best_other = min(others, key=lambda r: r.overall.control_accuracy_k)
+    close = [r for r in others if r.overall.control_accuracy_k <= ca + CLOSE_K]
+    lower_overshoot = [r for r in close if r.overall.overshoot_k < ours.overall.overshoot_k]
+    settings = ZoneSettings.for_heating_type(plant)
+    cap = settings.cycle_rate_cph + 1
+    load_cph = [ours.phases[p].cycles_per_hour for p in ("low-load", "high-load")]
+    limit = ACCURACY_TARGET_K[plant]
+    return [
+        TargetCheck(
+            "lowest CA",
+            ca < best_other.overall.control_accuracy_k,
+            f"{ca:.2f} vs best baseline {best_other.controller} "
+            f"{best_other.overall.control_accuracy_k:.2f} K",
+        ),
+        TargetCheck(
+            "overshoot vs close baselines",
+            not lower_overshoot,
+            "no baseline within 0.1 K has a lower overshoot"
+            if not lower_overshoot
+            else "lower: "
+            + ", ".join(f"{r.controller} {r.overall.overshoot_k:+.2f} K" for r in lower_overshoot),
+        ),
+        TargetCheck(
+            f"cycles <= {cap:g}/h",
+            max(load_cph) <= cap,
+            f"{load_cph[0]:.1f} / {load_cph[1]:.1f} cycles/h in the load phases",
+        ),
+        TargetCheck(f"CA <= {limit:g} K", ca <= limit, f"{ca:.2f} K"),
+        TargetCheck(
+            f"overshoot <= {OVERSHOOT_TARGET_K:g} K",
+            ours.overall.overshoot_k <= OVERSHOOT_TARGET_K,
+            f"{ours.overall.overshoot_k:+.2f} K",
+        ),
+    ]
+
+
+HEADER = ("plant", "controller", "CA K", "overshoot K", "cycles/h", "energy kWh", "targets")
+
+
+def rows(cells: list[Cell]) -> list[tuple[str, ...]]:
+    out: list[tuple[str, ...]] = []
+    for plant in BUILTIN_PLANTS:
+        group = [c for c in cells if c.plant == plant]
+        checks = check_targets(plant, group)
+        met = sum(1 for t in checks if t.met)
+        for cell in group:
+            o = cell.result.overall
+            status = f"{met}/{len(checks)} met" if cell.controller == OURS else ""
+            out.append(
+                (
+                    plant,
+                    cell.controller,
+                    f"{o.control_accuracy_k:.2f}",
+                    f"{o.overshoot_k:+.2f}",
+                    f"{o.cycles_per_hour:.1f}",
+                    f"{o.energy_kwh:.2f}",
+                    status,
+                )
+            )
+    return out
+
+
+def target_lines(cells: list[Cell], mark: tuple[str, str]) -> list[str]:
+    lines: list[str] = []
+    for plant in BUILTIN_PLANTS:
+        checks = check_targets(plant, [c for c in cells if c.plant == plant])
+        lines.append(f"{plant}:")
+        for t in checks:
+            lines.append(f"  {mark[0] if t.met else mark[1]} {t.name}: {t.detail}")
+    return lines
+
+
+def print_text(cells: list[Cell]) -> None:
+    table = [HEADER, *rows(cells)]
+    widths = [max(len(r[i]) for r in table) for i in range(len(HEADER))]
+    for i, row in enumerate(table):
+        print(
+            "  ".join(
+                v.ljust(w) if j < 2 else v.rjust(w)
+                for j, (v, w) in enumerate(zip(row, widths, strict=True))
+            )
+        )
+        if i == 0:
+            print("  ".join("-" * w for w in widths))
+    print()
+    print("Targets for roomloop's controller (issue 4), printed, not asserted:")
+    for line in target_lines(cells, ("[met]   ", "[MISSED]")):
+        print(line)
+
+
+def print_markdown(cells: list[Cell]) -> None:
+    print("| " + " | ".join(HEADER) + " |")
+    print("|" + "|".join(["---", "---", "---:", "---:", "---:", "---:", "---"]) + "|")
+    for row in rows(cells):
+        print("| " + " | ".join(row) + " |")
+    print()
+    print("Targets for roomloop's controller (`anticipator`):")
+    print()
+    for line in target_lines(cells, ("met:", "**missed:**")):
+        print(f"- {line.strip()}" if not line.startswith("  ") else f"  - {line.strip()}")
+
+
+def parse_tuning(pairs: list[str]) -> dict[str, float]:
+    fields = {f.name: f.type for f in dataclasses.fields(ZoneSettings)}
+    out: dict[str, float] = {}
+    for pair in pairs:
+        key, sep, value = pair.partition("=")
+        if not sep or key not in fields:
+            raise SystemExit(f"--tuning {pair!r}: use KEY=VALUE with a ZoneSettings field")
+        if value in ("true", "false"):
+            out[key] = value == "true"
+        elif key == "max_cycles_per_hour":
+            out[key] = int(value)
+        else:
+            out[key] = float(value)
+    return out
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--markdown", action="store_true", help="print Markdown for the README")
+    parser.add_argument("--seed", type=int, default=1, help="sensor noise seed (default 1)")
+    parser.add_argument(
+        "--tuning",
+        action="append",
+        default=[],
+        metavar="KEY=VALUE",
+        help="override a ZoneSettings value of roomloop's controller (experiments)",
+    )
+    args = parser.parse_args(argv)
+    tuning = parse_tuning(args.tuning)
+    cells = run_all(args.seed, tuning)
+    if args.markdown:
+        print_markdown(cells)
+    else:
+        print_text(cells)
+        alone = plant_alone_seconds()
+        mean = sum(c.seconds for c in cells) / len(cells)
+        print()
+        print(
+            f"run time: {mean:.2f} s per 49 h protocol run on average ({len(cells)} runs); "
+            f"plant model alone {alone:.2f} s; ratio {mean / alone:.1f}x"
+        )
+        if tuning:
+            print(f"(roomloop's controller ran with overrides {tuning})")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
