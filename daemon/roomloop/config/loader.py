@@ -109,17 +109,21 @@ class _Scalars(SafeConstructor):
 
 
 _BOOL_WORDS = {"yes", "no", "on", "off", "y", "n"}
+_EXPONENT_FLOAT = re.compile(r"[-+]?(\d+\.?\d*|\.\d+)[eE][-+]?\d+")
 
 
 def _scalar(node: ScalarNode, constructor: _Scalars) -> Any:
-    """A scalar as the safe loader reads it, with two YAML 1.1 traps defused.
+    """A scalar as the safe loader reads it, with three YAML 1.1 traps defused.
 
     Plain ``06:30`` is a base-60 integer (390) in YAML 1.1 and plain ``on`` / ``off``
     are booleans; both keep their text here, so a time of day stays a time and an
     MQTT payload ``on`` stays a string. pydantic still reads ``"yes"`` or ``"off"``
-    as a boolean where a field wants one.
+    as a boolean where a field wants one. And ``3.0e5`` (no sign in the exponent) is a
+    string to YAML 1.1 but a number to everyone else: here it is a number.
     """
     if node.style is None:
+        if node.tag == "tag:yaml.org,2002:str" and _EXPONENT_FLOAT.fullmatch(node.value):
+            return float(node.value)
         if node.tag in ("tag:yaml.org,2002:int", "tag:yaml.org,2002:float") and ":" in node.value:
             return node.value
         if node.tag == "tag:yaml.org,2002:bool" and node.value.lower() in _BOOL_WORDS:
