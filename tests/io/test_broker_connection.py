@@ -91,3 +91,56 @@ async def test_unreachable_broker_keeps_retrying_with_backoff() -> None:
     with contextlib.suppress(asyncio.CancelledError):
         await task
     assert attempts >= 3 and conn.connections == 0
+
+
+WILL_CLIENT = """
+import asyncio, sys
+from roomloop.config.models import Broker
+from roomloop.io.broker import BrokerConnection, LastWill
+
+async def main():
+    conn = BrokerConnection(Broker(host="127.0.0.1", port=int(sys.argv[1])),
+                            will=LastWill("bench/status", "offline"))
+    async def on_connect(client):
+        await client.publish("bench/status", "online", qos=1, retain=True)
+        print("up", flush=True)
+    await conn.run(lambda message: None, on_connect=on_connect)
+
+asyncio.run(main())
+"""
+
+
+@pytest.mark.needs_mosquitto
+async def test_last_will_published_when_the_process_dies(mosquitto: Any) -> None:
+    import sys
+
+    host, port = mosquitto
+    process = await asyncio.create_subprocess_exec(
+        sys.executable, "-c", WILL_CLIENT, str(port), stdout=asyncio.subprocess.PIPE
+    )
+    try:
+        assert process.stdout is not None
+        lines: list[bytes] = []
+        while b"up\n" not in lines:  # structlog's default also writes to stdout
+            line = await asyncio.wait_for(process.stdout.readline(), 10)
+            assert line, "the client ended before connecting"
+            lines.append(line)
+        async with aiomqtt.Client(host, port) as watcher:
+            await watcher.subscribe("bench/status", qos=1)
+            seen: list[bytes] = []
+
+            async def collect() -> None:
+                async for message in watcher.messages:
+                    seen.append(bytes(message.payload))  # type: ignore[arg-type]
+                    if seen[-1] == b"offline":
+                        return
+
+            collector = asyncio.create_task(collect())
+            await asyncio.sleep(0.2)
+            process.kill()  # no clean disconnect: the broker publishes the will
+            await asyncio.wait_for(collector, 10)
+        assert seen == [b"online", b"offline"]
+    finally:
+        if process.returncode is None:
+            process.kill()
+        await process.wait()

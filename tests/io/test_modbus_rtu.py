@@ -57,5 +57,5 @@ async def test_missing_serial_device_is_a_comm_failure() -> None:
     async with ModbusLink(rtu_link("/dev/roomloop-no-such-adapter", retries=0), [point]) as link:
         sample = (await link.poll())[0]
         assert (sample.value, sample.transport) == (None, "comm-failure")
-        with pytest.raises(DeviceError, match="serial device .*no-such-adapter does not exist"):
+        with pytest.raises(DeviceError, match=r"serial device .*no-such-adapter does not exist"):
             await link.read_point("air")
