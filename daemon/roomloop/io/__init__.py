@@ -28,7 +28,9 @@ How the service wires it (every call here is public API)::
         samples = {}
         for source in input_sources(links, mqtt):
             samples.update(source.samples(now))
-        state = await output_sinks(links, mqtt)[zone.output].set_output(zone.output, demand)
+        sink = output_sinks(links, mqtt)[zone.output]
+        if demand != sink.output_state(zone.output).wanted:   # write on change only;
+            await sink.set_output(zone.output, demand)         # the links re-assert by themselves
         await mqtt.tick(now)                        # read-back timeouts, re-assertion
 
 Import the submodules directly; this package only re-exports the small shapes.
