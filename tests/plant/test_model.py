@@ -182,6 +182,7 @@ def test_sensor_is_seeded_lagged_and_quantised() -> None:
     delay_s=st.floats(min_value=0.0, max_value=600.0),
 )
 def test_any_plant_is_integrated_stably_and_accurately(
+    *,
     emitter_tau_s: float,
     room_capacity: float,
     mass_capacity: float,
