@@ -67,7 +67,7 @@ def run_all(seed: int, tuning: dict[str, float]) -> list[Cell]:
                 controller,
                 plant,
                 seed=seed,
-                sensor_name=zone.inputs[0].name,
+                sensor_names=[p.name for p in zone.inputs],
                 controller_name=controller_name,
             )
             cells.append(Cell(plant_name, controller_name, result, time.perf_counter() - start))

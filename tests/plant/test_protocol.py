@@ -167,7 +167,7 @@ def hydronic_run() -> object:
         ZoneController(settings),
         load_plant("hydronic"),
         seed=3,
-        sensor_name=settings.inputs[0].name,
+        sensor_names=[p.name for p in settings.inputs],
         controller_name="anticipator",
     )
 
@@ -192,7 +192,7 @@ def test_same_seed_same_figures_other_seed_other_noise(hydronic_run: object) -> 
         ZoneController(settings),
         load_plant("hydronic"),
         seed=3,
-        sensor_name=settings.inputs[0].name,
+        sensor_names=[p.name for p in settings.inputs],
         controller_name="anticipator",
     )
     assert again.to_dict() == hydronic_run.to_dict()  # type: ignore[attr-defined]
@@ -200,7 +200,7 @@ def test_same_seed_same_figures_other_seed_other_noise(hydronic_run: object) -> 
         ZoneController(settings),
         load_plant("hydronic"),
         seed=4,
-        sensor_name=settings.inputs[0].name,
+        sensor_names=[p.name for p in settings.inputs],
         controller_name="anticipator",
     )
     assert other.trace.sensor_c != again.trace.sensor_c

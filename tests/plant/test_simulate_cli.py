@@ -156,3 +156,26 @@ def test_plot_without_matplotlib_says_so_and_exits_1(
     assert code == 1
     assert "matplotlib" in one_line_error(capsys)
     assert not (tmp_path / "x.png").exists()
+
+
+def test_zone_with_two_inputs_reads_the_plant_sensor_on_both(tmp_path: Path) -> None:
+    # The example's workshop combines two input points; both get the plant's reading, so the
+    # zone never falls back to fail-safe and really controls.
+    out = tmp_path / "workshop.json"
+    code = main(
+        [
+            "simulate",
+            "-c",
+            str(EXAMPLE),
+            "--zone",
+            "workshop",
+            "--plant",
+            "forced-air",
+            "--json",
+            str(out),
+        ]
+    )
+    assert code == 0
+    low = json.loads(out.read_text())["phases"]["low-load"]
+    assert 0.1 < low["on_fraction"] < 0.6
+    assert abs(low["setpoint_deviation_k"]) < 0.5

@@ -52,7 +52,7 @@ def main(args: argparse.Namespace) -> int:
         controller,
         plant,
         seed=args.seed,
-        sensor_name=settings.inputs[0].name,
+        sensor_names=[p.name for p in settings.inputs],
         controller_name=args.controller,
     )
     print(format_summary(result, settings))

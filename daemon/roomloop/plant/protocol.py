@@ -15,6 +15,7 @@ Schedule (load = fraction of ``heater_w`` the heater must cover at 20 C):
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -129,14 +130,17 @@ def run_protocol(
     plant: PlantSpec,
     *,
     seed: int = 1,
-    sensor_name: str = "temperature",
+    sensor_names: Sequence[str] = ("temperature",),
     controller_name: str = "",
     tick_s: float = TICK_S,
 ) -> ProtocolResult:
     """Run ``controller`` against ``plant`` on the standard protocol; figures and trace.
 
     The controller must already hold the protocol's set points (see :func:`protocol_settings`).
+    ``sensor_names`` are the zone's input points in order; the plant has one sensor, so each
+    gets the same reading.
     """
+    names = tuple(sensor_names)
     sim = PlantSimulation.at_steady_state(plant, load=INITIAL_LOAD, room_c=COMFORT_C, seed=seed)
     trace = Trace()
     state = controller.initial_state(EPOCH)
@@ -152,7 +156,7 @@ def run_protocol(
         now = EPOCH + t
         reading = sim.read_sensor()
         inputs = ZoneInputs(
-            samples=(PointSample(name=sensor_name, value=reading, received_at=now),),
+            samples=tuple(PointSample(name=name, value=reading, received_at=now) for name in names),
             scheduled_level=segment.level,  # type: ignore[arg-type]
         )
         state, outputs = controller.step(state, inputs, now)
