@@ -14,19 +14,18 @@ set it up for the heating type, and none is tuned down.
   heat circuit's current) warms the element while the heat is on, a snap switch with
   its differential, no droop compensation.
 - :class:`TimeProportionalController`: PI control of the on-fraction over a fixed
-  cycle, with a minimum on-time and conditional-integration anti-windup.
+  cycle, with a minimum on-time and conditional-integration anti-windup. Its
+  published ``droop_k`` is the PI's integral term in K (what plays the droop
+  compensation's part there), so plots show it beside ours.
 """
 
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass, replace
-from typing import Literal
 
 from roomloop.core.settings import ZoneSettings
 from roomloop.core.types import PointSample, ZoneInputs, ZoneOutputs
-
-Level = Literal["comfort", "standby", "economy", "protection"]
 
 BASELINE_NAMES: tuple[str, ...] = ("plain", "electromechanical", "time-proportional")
 

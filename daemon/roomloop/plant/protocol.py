@@ -118,13 +118,6 @@ class ProtocolResult:
         }
 
 
-def segment_at(t_s: float) -> Segment:
-    for segment in SCHEDULE:
-        if segment.start_s <= t_s < segment.end_s:
-            return segment
-    return SCHEDULE[-1]
-
-
 def run_protocol(
     controller: Controller[Any],
     plant: PlantSpec,
