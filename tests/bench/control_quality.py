@@ -65,7 +65,7 @@ class Cell:
             plant=results[0].plant,
             controller=results[0].controller,
             control_accuracy_k=mean([r.overall.control_accuracy_k for r in results]),
-            overshoot_k=mean([r.overshoot_k for r in results]),
+            overshoot_k=mean([r.overall.overshoot_k for r in results]),
             cycles_per_hour=mean([r.overall.cycles_per_hour for r in results]),
             load_cycles_per_hour=(
                 mean([r.phases["low-load"].cycles_per_hour for r in results]),
@@ -132,8 +132,8 @@ def check_targets(plant: str, cells: list[Cell]) -> list[TargetCheck]:
         TargetCheck(
             "lowest CA",
             ca < best_other.control_accuracy_k,
-            f"{ca:.2f} vs best baseline {best_other.controller} "
-            f"{best_other.control_accuracy_k:.2f} K",
+            f"{ca:.3f} vs best baseline {best_other.controller} "
+            f"{best_other.control_accuracy_k:.3f} K",
         ),
         TargetCheck(
             "overshoot vs close baselines",
@@ -148,7 +148,7 @@ def check_targets(plant: str, cells: list[Cell]) -> list[TargetCheck]:
             max(load_cph) <= cap,
             f"{load_cph[0]:.1f} / {load_cph[1]:.1f} cycles/h in the load phases",
         ),
-        TargetCheck(f"CA <= {limit:g} K", ca <= limit, f"{ca:.2f} K"),
+        TargetCheck(f"CA <= {limit:g} K", ca <= limit, f"{ca:.3f} K"),
         TargetCheck(
             f"overshoot <= {OVERSHOOT_TARGET_K:g} K",
             ours.overshoot_k <= OVERSHOOT_TARGET_K,
