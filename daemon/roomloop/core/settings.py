@@ -13,6 +13,9 @@ Three ways to build one:
   with that type's defaults and one input point, no site file needed.
 
 Tests and tools may then adjust single values with :func:`dataclasses.replace`.
+
+Importing this module does not import the config models (pydantic): the core stays
+light to import, and pydantic is loaded only by a builder that needs it.
 """
 
 from __future__ import annotations
@@ -20,19 +23,21 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
-from roomloop.config.models import (
-    FailSafe,
-    InputPoint,
-    Limits,
-    MqttInput,
-    Reliability,
-    Setpoints,
-    Site,
-    TuningInput,
-    Zone,
-)
 from roomloop.errors import RoomloopError
+
+if TYPE_CHECKING:  # the config models (pydantic) are imported only where a builder needs them
+    from roomloop.config.models import (
+        FailSafe,
+        InputPoint,
+        Limits,
+        Reliability,
+        Setpoints,
+        Site,
+        TuningInput,
+        Zone,
+    )
 
 COMBINE_RULES = ("mean", "median", "min", "first-ok")
 FAIL_SAFE_POLICIES = ("off", "fixed-duty", "learned-duty")
@@ -262,6 +267,16 @@ class ZoneSettings:
         Raises :class:`SettingsError` for an unknown heating type or invalid values.
         """
         from pydantic import ValidationError
+
+        from roomloop.config.models import (
+            FailSafe,
+            Limits,
+            MqttInput,
+            Reliability,
+            Setpoints,
+            TuningInput,
+            Zone,
+        )
 
         try:
             point = MqttInput(

@@ -18,8 +18,6 @@ from __future__ import annotations
 
 import math
 
-from roomloop.config.presets import time_constant_for_cycle_rate
-
 __all__ = [
     "band_offset_for_on_fraction",
     "cycles_per_hour",
@@ -27,6 +25,19 @@ __all__ = [
     "on_off_times_at_offset",
     "time_constant_for_cycle_rate",
 ]
+
+
+def time_constant_for_cycle_rate(
+    cycle_rate_cph: float, gain_k: float, differential_k: float
+) -> float:
+    """Anticipator time constant (s) giving ``cycle_rate_cph`` at 50 % on-time.
+
+    The presets' own function (:func:`roomloop.config.presets.time_constant_for_cycle_rate`),
+    imported on first use so that importing the core does not import pydantic.
+    """
+    from roomloop.config.presets import time_constant_for_cycle_rate as presets_formula
+
+    return presets_formula(cycle_rate_cph, gain_k, differential_k)
 
 
 def _check(gain_k: float, differential_k: float, time_constant_s: float) -> None:
