@@ -53,10 +53,14 @@ import math
 
 from .failsafe import BUCKET_S as _BUCKET_S
 from .failsafe import choose_duty, duty_wants_on, record_duty
+from .fastbuild import positional_builder
 from .reliability import evaluate_point
 from .settings import ZoneSettings
 from .state import PointState, ZoneState
 from .types import Reliability, ZoneInputs, ZoneOutputs
+
+_new_state = positional_builder(ZoneState)
+_new_outputs = positional_builder(ZoneOutputs)
 
 HOUR_S = 3600.0
 MAX_SWITCH_LOG = 128
@@ -432,7 +436,7 @@ class ZoneController:
         span = now - window_start
         on_fraction = on_time / span if span > 0.0 else (1.0 if on else 0.0)
 
-        new_state = ZoneState(
+        new_state = _new_state(
             mode,
             hold_setpoint,
             hold_level,
@@ -462,7 +466,7 @@ class ZoneController:
             tuple(points),
             backup,
         )
-        outputs = ZoneOutputs(
+        outputs = _new_outputs(
             on,
             reason,
             temperature,

@@ -26,9 +26,12 @@ faulted, so start-up needs no recovery time.
 
 from __future__ import annotations
 
+from .fastbuild import positional_builder
 from .settings import PointSettings
 from .state import PointState
 from .types import PointSample, Reliability
+
+_new_point = positional_builder(PointState)
 
 
 def initial_point_state(name: str) -> PointState:
@@ -54,7 +57,7 @@ def evaluate_point(
         verdict = transport if transport != "ok" else "stale"
         if verdict == "stale" and value is None and not st.faulted:
             # Nothing delivered yet since start: not a fault.
-            return PointState(cfg.name, "stale", "stale", None, None, None, None, 0.0, None, False)
+            return _new_point(cfg.name, "stale", "stale", None, None, None, None, 0.0, None, False)
     else:
         received_at = sample.received_at
         reading = sample.value
@@ -102,10 +105,10 @@ def evaluate_point(
             reliability: Reliability = st.reliability if st.reliability != "ok" else "stale"
         else:
             reliability = "ok"
-        return PointState(
+        return _new_point(
             cfg.name, reliability, "ok", value, value_at, seen_at,
             still_value, still_on_s, good_since, faulted,
         )
-    return PointState(
+    return _new_point(
         cfg.name, verdict, verdict, value, value_at, seen_at, still_value, still_on_s, None, True
     )

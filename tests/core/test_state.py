@@ -1,0 +1,52 @@
+"""The zone state: JSON round trip from any point of a run, bounded size, fast builders."""
+
+from __future__ import annotations
+
+import dataclasses
+
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from roomloop.core import ZoneController, ZoneOutputs, ZoneState
+from roomloop.core.fastbuild import positional_builder
+from roomloop.core.state import PointState
+
+from .helpers import run
+from .helpers import settings as zone_settings
+
+
+@given(
+    readings=st.lists(st.one_of(st.none(), st.floats(5.0, 30.0)), min_size=1, max_size=300),
+    tick=st.sampled_from([1.0, 10.0, 60.0]),
+)
+@settings(max_examples=60, deadline=None)
+def test_any_state_round_trips(readings: list[float | None], tick: float) -> None:
+    controller = ZoneController(zone_settings(sensor_timeout_s=120.0))
+    trace = run(controller, lambda now, on: readings[int(now / tick) - 1], end=tick * len(readings),
+                tick=tick)
+    for _, _, state in [*trace[:: max(1, len(trace) // 10)], trace[-1]]:
+        text = state.to_json()
+        back = ZoneState.from_json(text)
+        assert back == state
+        assert back.to_json() == text
+
+
+def test_state_stays_bounded_over_days() -> None:
+    controller = ZoneController(zone_settings(min_on_s=0.0, min_off_s=0.0, max_cycles_per_hour=60))
+    trace = run(controller, lambda now, on: 19.0 + (0.4 if (now // 300) % 2 else 0.0),
+                end=3 * 86400.0, tick=30.0)
+    state = trace[-1][2]
+    assert len(state.switches) <= 2 * 60
+    assert len(state.duty_buckets) <= 4 * 4 + 2
+    assert len(state.to_json()) < 4000
+
+
+def test_fast_builders_equal_the_dataclass_init() -> None:
+    point = PointState("t", "ok", "ok", 20.0, 1.0, 1.0, 20.0, 3.0, 0.0, False)
+    assert positional_builder(PointState)(*dataclasses.astuple(point)) == point
+    out = ZoneOutputs(True, "cut-in", 19.0, 20.0, "comfort", "auto", 0.1, 0.2, {"t": "ok"})
+    values = [getattr(out, f.name) for f in dataclasses.fields(out)]
+    assert positional_builder(ZoneOutputs)(*values) == out
+    with pytest.raises(TypeError):
+        positional_builder(dict)  # type: ignore[arg-type]
