@@ -36,7 +36,9 @@ class PlainHysteresis:
     def initial_state(self, now: float) -> PlainState:
         return PlainState(False, now)
 
-    def step(self, state: PlainState, inputs: ZoneInputs, now: float) -> tuple[PlainState, ZoneOutputs]:
+    def step(
+        self, state: PlainState, inputs: ZoneInputs, now: float
+    ) -> tuple[PlainState, ZoneOutputs]:
         values = [s.value for s in inputs.samples if s.value is not None]
         t = sum(values) / len(values) if values else None
         on = state.relay_on
