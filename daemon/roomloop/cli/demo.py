@@ -1,0 +1,318 @@
+"""``roomloop demo [--hours H] [--speed X] [--broker HOST:PORT] [--plot OUT.png]``.
+
+An invented three-zone site (``roomloop/demo/site.yaml``) runs against
+simulated plants that an in-process pymodbus server exposes over real Modbus
+TCP on a free loopback port; the real service controls them on a simulated
+clock (default: 8 simulated hours at 480x, about a minute). On a terminal the
+zones are shown live, one line each, redrawn about once a second with plain
+ANSI cursor movement; otherwise plain lines are printed (events as they happen,
+the zones every 1/16 of the run). The service's own warnings go to the same
+place. At the end: a summary table per zone, and with ``--plot`` a PNG.
+
+Ctrl-C (SIGINT) or SIGTERM stops the demo cleanly: the service puts every
+output in its safe state (the coils are read back from the plant server and
+shown), the summary covers what ran, and the exit code is 0, like ``roomloop
+run`` stopping on a signal. Exit codes: 0 ran (to the end or until stopped);
+1 the demo could not run, an output was not in its safe state at the stop, or
+the plot could not be written; 2 a bad option.
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import logging
+import shutil
+import signal
+import sys
+import zoneinfo
+from collections.abc import MutableMapping, Sequence
+from typing import Any, TextIO
+
+import structlog
+
+from roomloop.demo.runner import (
+    DEFAULT_SPEED,
+    MAX_SPEED,
+    STATUS_HEADER,
+    DemoError,
+    DemoOptions,
+    DemoResult,
+    demo_site_timezone,
+    run_demo,
+)
+from roomloop.demo.summary import clock_text, format_summary
+from roomloop.demo.timeline import MAX_HOURS, MIN_HOURS
+from roomloop.log import ConsoleRenderer, configure_logging
+from roomloop.service.clock import Clock
+
+EXIT_OK = 0
+EXIT_RUNTIME = 1
+EXIT_USAGE = 2
+PLAIN_STATUS_BLOCKS = 16
+"""Plain output shows the zones this many times over a run (at least every 5 simulated min)."""
+
+CSI = "\x1b["
+
+
+def _fail(message: str, code: int) -> int:
+    print(f"roomloop demo: {message}", file=sys.stderr)
+    return code
+
+
+def parse_broker(text: str) -> tuple[str, int]:
+    """``HOST:PORT`` (``[::1]:1883`` for an IPv6 address); ``ValueError`` with the reason."""
+    host, sep, port_text = text.rpartition(":")
+    if not sep or not host or not port_text:
+        raise ValueError(f"--broker {text!r}: give HOST:PORT, e.g. 127.0.0.1:1883")
+    host = host.removeprefix("[").removesuffix("]")
+    try:
+        port = int(port_text)
+    except ValueError:
+        raise ValueError(f"--broker {text!r}: the port {port_text!r} is not a number") from None
+    if not 1 <= port <= 65535:
+        raise ValueError(f"--broker {text!r}: the port must be 1 to 65535")
+    return host, port
+
+
+class LogLines:
+    """A text stream for the service's log while the live view owns the terminal."""
+
+    def __init__(self) -> None:
+        self.lines: list[str] = []
+        self._partial = ""
+
+    def write(self, text: str) -> int:
+        self._partial += text
+        *done, self._partial = self._partial.split("\n")
+        self.lines.extend(line for line in done if line)
+        return len(text)
+
+    def flush(self) -> None:
+        return None
+
+    def isatty(self) -> bool:
+        return False
+
+    def take(self) -> list[str]:
+        lines, self.lines = self.lines, []
+        return lines
+
+
+class TerminalView:
+    """The zones as a block of lines kept at the bottom, events and warnings scrolling above."""
+
+    def __init__(self, out: TextIO, log_lines: LogLines) -> None:
+        self.out = out
+        self.log_lines = log_lines
+        self._block: list[str] = []
+        self._drawn = 0
+        self.out.write(f"{CSI}?25l")  # hide the cursor while redrawing
+
+    def _width(self) -> int:
+        return max(40, shutil.get_terminal_size((100, 24)).columns - 1)
+
+    def _erase(self) -> None:
+        if self._drawn:
+            self.out.write(f"{CSI}{self._drawn}F{CSI}J")
+            self._drawn = 0
+
+    def _draw(self) -> None:
+        width = self._width()
+        for line in self.log_lines.take():
+            self.out.write(line[:width] + "\n")
+        for line in self._block:
+            self.out.write(line[:width] + "\n")
+        self._drawn = len(self._block)
+        self.out.flush()
+
+    def event(self, at: float, text: str) -> None:
+        self._erase()
+        self.out.write(text + "\n")
+        self._draw()
+
+    def status(self, at: float, header: str, rows: Sequence[str]) -> None:
+        self._erase()
+        self._block = [*header.split("\n"), *rows]
+        self._draw()
+
+    def close(self) -> None:
+        self._erase()
+        self._draw()
+        self.out.write(f"{CSI}?25h")
+        self.out.flush()
+
+
+class PlainView:
+    """Plain lines for a pipe or a file: events as they come, the zones every ``interval_s``."""
+
+    def __init__(self, out: TextIO, interval_s: float) -> None:
+        self.out = out
+        self.interval_s = interval_s
+        self._due: float | None = None
+
+    def event(self, at: float, text: str) -> None:
+        self.out.write(text + "\n")
+        self.out.flush()
+
+    def status(self, at: float, header: str, rows: Sequence[str]) -> None:
+        if self._due is None:
+            self.out.write(f"{'':8}{STATUS_HEADER}\n")
+            self._due = at
+        if at < self._due:
+            return
+        stamp = header.split("simulated ", 1)[-1][:5]
+        for row in rows:
+            self.out.write(f"[{stamp}] {row}\n")
+        self.out.flush()
+        while self._due <= at:
+            self._due += self.interval_s
+
+    def close(self) -> None:
+        self.out.flush()
+
+
+class SimulatedStamp:
+    """A structlog processor: the service's events carry the demo's simulated clock time."""
+
+    def __init__(self, tz_name: str) -> None:
+        self.clock: Clock | None = None
+        self.tz = zoneinfo.ZoneInfo(tz_name)
+
+    def set_clock(self, clock: Clock) -> None:
+        self.clock = clock
+
+    def __call__(
+        self, _logger: Any, _name: str, event_dict: MutableMapping[str, Any]
+    ) -> MutableMapping[str, Any]:
+        if self.clock is not None:
+            event_dict["timestamp"] = f"[{clock_text(self.clock.now(), self.tz)}]"
+        return event_dict
+
+
+def configure_demo_logging(stream: Any, stamp: SimulatedStamp) -> None:
+    """The service's warnings and errors as readable lines stamped with simulated time.
+
+    (``roomloop.log.configure_logging`` stamps wall-clock time, which would contradict
+    the demo's simulated clock on every line.)
+    """
+    configure_logging("warning", "console", stream=stream)
+    structlog.configure(
+        processors=[
+            structlog.contextvars.merge_contextvars,
+            structlog.processors.add_log_level,
+            stamp,
+            structlog.processors.format_exc_info,
+            ConsoleRenderer(colors=False),
+        ],
+        wrapper_class=structlog.make_filtering_bound_logger(logging.WARNING),
+        logger_factory=structlog.WriteLoggerFactory(file=stream),
+        cache_logger_on_first_use=False,
+    )
+
+
+async def _run(options: DemoOptions, view: TerminalView | PlainView) -> DemoResult:
+    stop = asyncio.Event()
+    loop = asyncio.get_running_loop()
+
+    def on_signal(name: str) -> None:
+        if not stop.is_set():
+            view.event(0.0, f"{name}: stopping the demo (outputs to their safe state)")
+        stop.set()
+
+    loop.add_signal_handler(signal.SIGINT, on_signal, "Ctrl-C")
+    loop.add_signal_handler(signal.SIGTERM, on_signal, "SIGTERM")
+    try:
+        return await run_demo(options, view, stop)
+    finally:
+        loop.remove_signal_handler(signal.SIGINT)
+        loop.remove_signal_handler(signal.SIGTERM)
+
+
+def _report(result: DemoResult, out: TextIO) -> bool:
+    """Print how the run ended, the outputs at the stop and the summary; True if outputs safe."""
+    site = result.site
+    tz = zoneinfo.ZoneInfo(site.site.timezone)
+    hours = result.simulated_s / 3600
+    if result.completed:
+        out.write(
+            f"\ndemo finished: {hours:.1f} simulated h in {result.real_s:.0f} s "
+            f"({result.simulated_s / max(result.real_s, 1e-9):.0f}x)\n"
+        )
+    else:
+        out.write(
+            f"\ndemo stopped early: {hours:.1f} of {result.timeline.hours:g} simulated h "
+            f"in {result.real_s:.0f} s\n"
+        )
+    relays = ", ".join(
+        f"{zone} {'on' if on else 'off'}" for zone, on in result.relays_at_stop.items()
+    )
+    safe = result.outputs_safe
+    verdict = "every output in its safe state" if safe else "NOT every output in its safe state"
+    out.write(f"outputs at stop (coils read from the plant server): {relays}: {verdict}\n\n")
+    for zone in result.relays_at_stop:
+        off_s = result.relay_disagreement_s(zone)
+        if off_s > 0:
+            out.write(
+                f"WARNING: {zone}'s relay differed from the service's decision for "
+                f"{off_s / 60:.0f} simulated min (an output write lost or undone)\n"
+            )
+    comfort = result.site.zones[0].setpoints.comfort
+    out.write(format_summary(result.summaries, result.timeline, tz, comfort) + "\n")
+    out.flush()
+    return safe
+
+
+def main(args: argparse.Namespace) -> int:
+    hours = float(args.hours)
+    if not MIN_HOURS <= hours <= MAX_HOURS:
+        return _fail(f"--hours must be {MIN_HOURS:g} to {MAX_HOURS:g}", EXIT_USAGE)
+    speed = float(args.speed) if args.speed is not None else DEFAULT_SPEED
+    if not 0 < speed <= MAX_SPEED:
+        return _fail(f"--speed must be above 0 and at most {MAX_SPEED:g}", EXIT_USAGE)
+    broker = None
+    if args.broker:
+        try:
+            broker = parse_broker(args.broker)
+        except ValueError as exc:
+            return _fail(str(exc), EXIT_USAGE)
+    if args.plot:
+        from roomloop.demo.plot import matplotlib_available
+
+        if not matplotlib_available():
+            return _fail(
+                "--plot needs matplotlib, which is not installed; install the plot extra "
+                "(pip install 'roomloop[plot]') or leave out --plot",
+                EXIT_RUNTIME,
+            )
+    stamp = SimulatedStamp(demo_site_timezone())
+    options = DemoOptions(hours=hours, speed=speed, broker=broker, on_clock=stamp.set_clock)
+    out = sys.stdout
+    view: TerminalView | PlainView
+    if out.isatty():
+        log_lines = LogLines()
+        configure_demo_logging(log_lines, stamp)
+        view = TerminalView(out, log_lines)
+    else:
+        configure_demo_logging(out, stamp)
+        view = PlainView(out, max(300.0, hours * 3600 / PLAIN_STATUS_BLOCKS))
+    try:
+        result = asyncio.run(_run(options, view))
+    except DemoError as exc:
+        view.close()
+        return _fail(str(exc), EXIT_RUNTIME)
+    view.close()
+    configure_logging("warning", "console", stream=sys.stderr)
+    safe = _report(result, out)
+    code = EXIT_OK if safe else EXIT_RUNTIME
+    if args.plot:
+        from roomloop.demo.plot import PlotUnavailable, write_demo_plot
+
+        try:
+            write_demo_plot(result, args.plot)
+        except PlotUnavailable:
+            return _fail("--plot needs matplotlib, which is not installed", EXIT_RUNTIME)
+        except OSError as exc:
+            return _fail(f"cannot write {args.plot}: {exc.strerror or exc}", EXIT_RUNTIME)
+        out.write(f"plot written to {args.plot}\n")
+    return code

@@ -1,0 +1,150 @@
+"""``roomloop demo`` as a user runs it: a subprocess, real Modbus TCP on loopback, real signals.
+
+The demo's output goes to a pipe here, so it prints plain lines (no live view).
+Every wait is bounded; a run of one simulated hour at a high speed takes a few seconds.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import re
+import selectors
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pytest
+
+ZONES = ("small-hall", "meeting-room", "kitchen")
+HEATING = {"small-hall": "underfloor", "meeting-room": "hydronic", "kitchen": "electric"}
+RUN_TIMEOUT_S = 60.0
+
+
+def _demo(*args: str) -> list[str]:
+    return [sys.executable, "-m", "roomloop", "demo", *args]
+
+
+def _env() -> dict[str, str]:
+    env = dict(os.environ)
+    env["PYTHONUNBUFFERED"] = "1"
+    return env
+
+
+def _summary_rows(output: str) -> dict[str, list[str]]:
+    """The summary table's cells per zone: heating, CA, cyc/h, overshoot, reach, kWh, fail-safe."""
+    rows: dict[str, list[str]] = {}
+    lines = output.splitlines()
+    start = next(i for i, line in enumerate(lines) if line.startswith("zone ") and "CA K" in line)
+    for line in lines[start + 1 :]:
+        cells = line.split()
+        if cells and cells[0] in ZONES:
+            rows[cells[0]] = cells[1:]
+    return rows
+
+
+def test_short_demo_runs_to_its_summary(tmp_path: Path) -> None:
+    plot = tmp_path / "demo.png"
+    done = subprocess.run(
+        _demo("--hours", "1", "--speed", "1200", "--plot", str(plot)),
+        capture_output=True,
+        text=True,
+        timeout=RUN_TIMEOUT_S,
+        env=_env(),
+        check=False,
+    )
+    out = done.stdout
+    assert done.returncode == 0, out + done.stderr
+    assert "demo finished: 1.0 simulated h" in out
+    # The program's level switch, seen by every zone.
+    for zone in ZONES:
+        assert f"{zone}: program switches standby -> comfort, set point 18.0 -> 20.0 C" in out
+    # The silent sensor: comm-failure, fail-safe engaged, and recovered.
+    assert "meeting-room: its sensor (unit 12) goes silent" in out
+    assert "modbus.read_failed" in out and "code 11" in out
+    engaged = out.index("meeting-room: FAIL-SAFE engaged (learned-duty)")
+    ended = out.index("meeting-room: fail-safe ended")
+    assert out.index("meeting-room: its sensor answers again") < ended
+    assert engaged < ended
+    # Every output in its safe state at the end, read from the plant server's coils.
+    assert (
+        "outputs at stop (coils read from the plant server): small-hall off, meeting-room off, "
+        "kitchen off: every output in its safe state" in out
+    )
+    rows = _summary_rows(out)
+    assert set(rows) == set(ZONES)
+    for zone, cells in rows.items():
+        heating, ca, cph, overshoot, _reach, kwh, fail_safe = cells
+        assert heating == HEATING[zone]
+        figures = [float(ca), float(cph), float(overshoot), float(kwh), float(fail_safe)]
+        assert all(math.isfinite(f) for f in figures), (zone, cells)
+        assert float(ca) >= 0 and float(cph) >= 0 and float(kwh) > 0
+    assert float(rows["meeting-room"][6]) >= 5  # minutes in fail-safe: at least the episode's
+    assert float(rows["kitchen"][6]) == 0 and float(rows["small-hall"][6]) == 0
+    assert plot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert f"plot written to {plot}" in out
+
+
+def test_ctrl_c_stops_cleanly_with_outputs_safe() -> None:
+    process = subprocess.Popen(
+        _demo("--hours", "8"),
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        env=_env(),
+    )
+    assert process.stdout is not None
+    seen: list[str] = []
+    relay_on = re.compile(r"^\[\d\d:\d\d\] (small-hall|meeting-room|kitchen) .* ON ")
+    try:
+        # Wait (bounded) until the service has switched some relay on, then press Ctrl-C.
+        selector = selectors.DefaultSelector()
+        selector.register(process.stdout, selectors.EVENT_READ)
+        deadline = time.monotonic() + 30.0
+        while time.monotonic() < deadline:
+            if not selector.select(timeout=max(0.0, deadline - time.monotonic())):
+                break
+            line = process.stdout.readline()
+            if not line:
+                break
+            seen.append(line)
+            if relay_on.match(line):
+                break
+        assert any(relay_on.match(line) for line in seen), "".join(seen)
+        process.send_signal(signal.SIGINT)
+        rest, err = process.communicate(timeout=30.0)
+    finally:
+        if process.poll() is None:
+            process.kill()
+            process.communicate(timeout=10.0)
+    out = "".join(seen) + rest
+    assert process.returncode == 0, out + err
+    assert "Ctrl-C: stopping the demo" in out
+    assert "demo stopped early" in out
+    assert (
+        "outputs at stop (coils read from the plant server): small-hall off, meeting-room off, "
+        "kitchen off: every output in its safe state" in out
+    )
+    assert set(_summary_rows(out)) == set(ZONES)
+    assert "Traceback" not in err
+
+
+@pytest.mark.parametrize(
+    ("args", "message"),
+    [
+        (["--hours", "0.2"], "--hours must be 1 to 48"),
+        (["--speed", "0"], "--speed must be above 0"),
+        (["--broker", "localhost"], "give HOST:PORT"),
+        (["--broker", "localhost:99999"], "the port must be 1 to 65535"),
+    ],
+)
+def test_bad_options_exit_2_with_one_line(args: list[str], message: str) -> None:
+    done = subprocess.run(
+        _demo(*args), capture_output=True, text=True, timeout=30.0, env=_env(), check=False
+    )
+    assert done.returncode == 2
+    assert message in done.stderr
+    assert "Traceback" not in done.stderr
+    assert done.stdout == ""
