@@ -37,6 +37,8 @@ def _free_cycling(**changes: object) -> ZoneController:
         "min_off_s": 0.0,
         "max_cycles_per_hour": 60,
         "droop_compensation": False,
+        # the sizing model itself, not the controller's regulation of it on a real plant
+        "cycle_rate_regulation": False,
         # the test's temperatures jump on purpose: no rate-of-change check
         "inputs": (FAST_POINT,),
     }

@@ -37,6 +37,8 @@ def tunings(draw: st.DrawFn) -> ZoneSettings:
         min_off_s=draw(st.sampled_from([0.0, 60.0, 180.0, 600.0])),
         max_cycles_per_hour=draw(st.integers(1, 12)),
         droop_compensation=draw(st.booleans()),
+        cycle_rate_regulation=draw(st.booleans()),
+        cycle_rate_cph=draw(st.floats(1.0, 12.0)),
         droop_time_s=draw(st.floats(300.0, 7200.0)),
         fail_safe_policy=draw(st.sampled_from(["off", "fixed-duty", "learned-duty"])),
         fail_safe_duty=draw(st.floats(0.0, 1.0)),

@@ -19,8 +19,7 @@ Order of one step (``u`` = relay state held during the elapsed tick):
 5. **Fail-safe** (:mod:`roomloop.core.failsafe`) entered when no trusted ``T``
    for ``sensor_timeout_s``; left after a trusted ``T`` has lasted the recovery
    time. Until fail-safe starts the zone *coasts*: it keeps switching on the
-   last trusted temperature (the anticipator still cycles the relay at about the
-   cycle rate), reasons prefixed ``last-temperature:``.
+   last trusted temperature, reasons prefixed ``last-temperature:``.
 6. **Switching** on ``T + a - b`` across ``S -/+ D/2`` (``cut-in``,
    ``cut-out``, ``in-band``).
 7. **Short-cycle protection** holds the relay: ``min-on``, ``min-off``,
@@ -32,17 +31,32 @@ Order of one step (``u`` = relay state held during the elapsed tick):
    soon as the temperature is back at the protection set point, even inside
    ``min_on_s``: mode off never heats above it.
 9. **Droop compensation** ``b`` integrates ``(S - T) dt / droop_time_s`` and is
-   clamped to ``[0, G]``. With the anticipator's mean ``G x duty`` the room
-   would otherwise settle ``G x duty`` below ``S`` (REFERENCES.md [derived]);
-   ``b`` converges to that bias. Anti-windup: ``b`` is frozen while recovering
-   from a set-point change (from the change until ``T`` first enters the band on
-   the far side: ``T >= S - D/2`` after a rise, ``T <= S + D/2`` after a drop),
-   in fail-safe, while coasting, in mode ``off``, during protection and while
-   short-cycle protection holds the relay. Freezing during recovery keeps the
-   long warm-up of a set-back recovery out of the integral, which would
-   otherwise overshoot afterwards; the anticipator (saturated near ``G`` after
-   a long run) cuts out early and limits the overshoot of the recovery itself.
-   Start-up and leaving fail-safe count as a set-point change.
+   clamped to ``[0, G]``. The anticipator's mean over a steady cycle is
+   ``G x duty``, so without ``b`` the room would settle about that much below
+   ``S`` (REFERENCES.md [derived]); ``b`` converges to that bias.
+   Anti-windup: ``b`` is frozen while recovering from a set-point change, in
+   fail-safe, while coasting, in mode ``off``, during protection and while
+   short-cycle protection holds the relay.
+
+   *Recovery* starts with a set-point change (and at start-up and when leaving
+   fail-safe) when ``T`` is outside the band, and ends when ``T`` first enters
+   the band or the relay first switches by itself (the first ``cut-out`` after
+   a rise, the first ``cut-in`` after a drop): from then on the relay cycles
+   normally. Freezing ``b`` keeps the long run of a recovery out of the
+   integral. While the relay rests after a set-back, ``b`` fades with the
+   anticipator (same exponential): ``b`` cancels the anticipator's mean, and
+   after a long rest that mean is gone; a stale ``b`` from the old set point
+   would overshoot the next recovery. The anticipator, near ``G`` after a long
+   run, cuts the recovery out early and limits its overshoot.
+10. **Cycle-rate regulation** (``cycle_rate_regulation``, on when the time
+   constant was derived from the cycle rate): the sizing formula assumes a room
+   that stands still, but a real room moves with each burst of heat (shorter
+   cycles) and lags behind it (longer cycles). After every ordinary cycle (no
+   recovery, protection, fail-safe or short-cycle hold in it) the time constant
+   is scaled by ``(3600 / cycle_rate / period) ** 0.3``, within [0.2, 2], so the
+   plant settles at the configured cycle rate; faster cycles mean a smaller
+   swing of the room. The cycle rate is then held at every on-fraction (the
+   trade rates it at 50 %, where an unregulated anticipator peaks).
 
 Every output carries ``reason``: the rule that decided the relay this tick.
 """
@@ -63,6 +77,9 @@ _new_state = positional_builder(ZoneState)
 _new_outputs = positional_builder(ZoneOutputs)
 
 HOUR_S = 3600.0
+MIN_TAU_SCALE = 0.2
+MAX_TAU_SCALE = 2.0
+REGULATION_EXPONENT = 0.3
 MAX_SWITCH_LOG = 128
 """Bound of the switch log (the last hour's switchings; 60 cycles at most are allowed)."""
 
@@ -70,14 +87,23 @@ MAX_SWITCH_LOG = 128
 class ZoneController:
     """Our anticipating on/off controller for one zone (conforms to ``types.Controller``)."""
 
-    __slots__ = ("_cache_decay", "_cache_dt", "_half", "_learn_s", "settings")
+    __slots__ = (
+        "_cache_decay", "_cache_dt", "_cache_tau", "_half", "_learn_s", "_regulate",
+        "_target_period", "settings",
+    )
 
     def __init__(self, settings: ZoneSettings) -> None:
         self.settings = settings
         self._half = settings.differential_k / 2.0
         self._learn_s = settings.learn_hours * HOUR_S
         self._cache_dt = -1.0
+        self._cache_tau = -1.0
         self._cache_decay = 1.0
+        self._target_period = 3600.0 / settings.cycle_rate_cph
+        self._regulate = (
+            settings.cycle_rate_regulation
+            and settings.anticipator_gain_k > settings.differential_k
+        )
 
     # ------------------------------------------------------------------ state
 
@@ -93,6 +119,8 @@ class ZoneController:
             scheduled_level=s.default_level,
             anticipator_k=0.0,
             droop_k=0.0,
+            tau_scale=1.0,
+            cycle_clean=False,
             relay_on=False,
             switched_at=None,
             protection_run=False,
@@ -128,7 +156,11 @@ class ZoneController:
         gap = max(0.0, now - state.last_step_at)
         gain = s.anticipator_gain_k
         u = gain if relay_on else 0.0
-        anticipator = u + (state.anticipator_k - u) * math.exp(-gap / s.anticipator_time_constant_s)
+        tau_scale = (
+            min(max(state.tau_scale, MIN_TAU_SCALE), MAX_TAU_SCALE) if self._regulate else 1.0
+        )
+        tau = s.anticipator_time_constant_s * tau_scale
+        anticipator = u + (state.anticipator_k - u) * math.exp(-gap / tau)
         switched_at = state.switched_at
         switches = tuple(sw for sw in state.switches if sw[0] <= now)
         if relay_on != state.relay_on:
@@ -154,6 +186,8 @@ class ZoneController:
             scheduled_level=state.scheduled_level,
             anticipator_k=min(max(anticipator, 0.0), gain),
             droop_k=min(max(state.droop_k, 0.0), gain) if s.droop_compensation else 0.0,
+            tau_scale=tau_scale,
+            cycle_clean=False,
             relay_on=relay_on,
             switched_at=switched_at,
             protection_run=False,
@@ -195,10 +229,13 @@ class ZoneController:
         dt = now - state.last_step_at
         dt = max(dt, 0.0)
         a = state.anticipator_k
+        tau_scale = state.tau_scale
         if dt > 0.0:
-            if dt != self._cache_dt:
+            tau = s.anticipator_time_constant_s * tau_scale
+            if dt != self._cache_dt or tau != self._cache_tau:
                 self._cache_dt = dt
-                self._cache_decay = math.exp(-dt / s.anticipator_time_constant_s)
+                self._cache_tau = tau
+                self._cache_decay = math.exp(-dt / tau)
             decay = self._cache_decay
             a = gain + (a - gain) * decay if was_on else a * decay
         on_s = dt if was_on else 0.0
@@ -327,6 +364,9 @@ class ZoneController:
 
         # 6-8. the relay decision
         b = state.droop_k
+        if recovering < 0 and not was_on and dt > 0.0:
+            # Resting after a set-back: the bias b cancels fades with the anticipator.
+            b *= self._cache_decay
         protect_value = temperature if temperature is not None else backup_value
         forced = (
             protect_value is not None
@@ -379,7 +419,27 @@ class ZoneController:
             elif since < s.min_on_s:
                 on, held, reason = True, True, "min-on"
         protection_run = state.protection_run
+        ordinary = (
+            temperature is not None
+            and recovering == 0
+            and not fail_safe
+            and not held
+            and not forced
+            and mode != "off"
+        )
+        cycle_clean = state.cycle_clean and ordinary
         if on != was_on:
+            if on:
+                if (
+                    cycle_clean
+                    and self._regulate
+                    and reason == "cut-in"
+                    and len(switches) >= 2
+                    and not switches[-1][1]
+                    and switches[-2][1]
+                ):
+                    tau_scale = self._regulated(tau_scale, now - switches[-2][0])
+                cycle_clean = ordinary and reason == "cut-in"
             switched_at = now
             horizon = now - HOUR_S
             if switches and switches[0][0] <= horizon:
@@ -388,6 +448,9 @@ class ZoneController:
             if len(switches) > MAX_SWITCH_LOG:
                 switches = switches[-MAX_SWITCH_LOG:]
             protection_run = on and forced
+            # The relay cycles again on its own: recovery from the set-point change is over.
+            if (recovering > 0 and reason == "cut-out") or (recovering < 0 and reason == "cut-in"):
+                recovering = 0
 
         # 9. droop compensation with anti-windup
         if (
@@ -445,6 +508,8 @@ class ZoneController:
             scheduled,
             a,
             b,
+            tau_scale,
+            cycle_clean,
             on,
             switched_at,
             protection_run,
@@ -483,6 +548,17 @@ class ZoneController:
             cycles,
         )
         return new_state, outputs
+
+    def _regulated(self, scale: float, period: float) -> float:
+        """Cycle-rate regulation after one ordinary cycle of ``period`` seconds (on to on).
+
+        The time constant is scaled by ``(target period / measured period) ** 0.3`` per
+        cycle (a gentle integral action in log scale), within [MIN_TAU_SCALE, MAX_TAU_SCALE].
+        """
+        if period <= 0.0:
+            return scale
+        scale *= (self._target_period / period) ** REGULATION_EXPONENT
+        return min(max(scale, MIN_TAU_SCALE), MAX_TAU_SCALE)
 
 
 def _ons_since(switches: tuple[tuple[float, bool], ...], horizon: float) -> int:

@@ -98,6 +98,9 @@ class ZoneSettings:
     max_cycles_per_hour: int = 6
     droop_compensation: bool = True
     droop_time_s: float = 3600.0
+    cycle_rate_regulation: bool = True
+    """Adjust the anticipator's time constant so the plant really cycles at the cycle rate
+    (on when the time constant was derived from the cycle rate, off when it was given)."""
     # set points per level and the limits every set point is clamped to
     comfort_c: float = 20.0
     standby_c: float = 18.0
@@ -201,6 +204,9 @@ class ZoneSettings:
             max_cycles_per_hour=int(tuning.max_cycles_per_hour),
             droop_compensation=bool(tuning.droop_compensation),
             droop_time_s=float(tuning.droop_time_s),
+            cycle_rate_regulation=(
+                zone.origins.get("anticipator_time_constant_s") == "derived from cycle rate"
+            ),
             comfort_c=float(sp.comfort),
             standby_c=float(sp.standby),
             economy_c=float(sp.economy),

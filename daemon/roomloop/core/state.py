@@ -13,7 +13,7 @@ JSON shape (version 1)::
     {"schema": "roomloop.zone-state", "version": 1,
      "mode": "auto", "hold_setpoint": null, "hold_level": null, "hold_until": null,
      "level_override": null, "scheduled_level": "comfort",
-     "anticipator_k": 0.41, "droop_k": 0.12,
+     "anticipator_k": 0.41, "droop_k": 0.12, "tau_scale": 0.8, "cycle_clean": true,
      "relay_on": false, "switched_at": 1700000000.0, "protection_run": false,
      "switches": [[1699999000.0, true], [1699999300.0, false]],
      "started_at": 1699990000.0, "last_step_at": 1700000010.0,
@@ -89,6 +89,10 @@ class ZoneState:
     # control terms
     anticipator_k: float
     droop_k: float
+    tau_scale: float
+    """Cycle-rate regulation: the anticipator runs with ``time_constant x tau_scale``."""
+    cycle_clean: bool
+    """The running cycle has been ordinary control so far (it may adjust ``tau_scale``)."""
     # relay
     relay_on: bool
     switched_at: float | None
@@ -176,6 +180,8 @@ class ZoneState:
             scheduled_level=r.choice("scheduled_level", _LEVELS),
             anticipator_k=r.num("anticipator_k"),
             droop_k=r.num("droop_k"),
+            tau_scale=r.num("tau_scale"),
+            cycle_clean=r.flag("cycle_clean"),
             relay_on=r.flag("relay_on"),
             switched_at=r.opt_num("switched_at"),
             protection_run=r.flag("protection_run"),
