@@ -83,7 +83,7 @@ def evaluate_point(
                 value is not None
                 and value_at is not None
                 and abs(reading - value) * 60.0
-                > cfg.max_rate_k_per_min * max(received_at - value_at, 1e-9)
+                > cfg.max_rate_k_per_min * (received_at - value_at)
             ):
                 verdict = "implausible"
             else:
