@@ -1,0 +1,178 @@
+"""Modes, levels, holds and commands; input combination; protection and the backup point;
+settings from a real site file; resuming a saved state."""
+
+from __future__ import annotations
+
+from dataclasses import replace
+from pathlib import Path
+
+import pytest
+
+from roomloop.config.loader import load_site
+from roomloop.core import (
+    CommandRejected,
+    PointSample,
+    SettingsError,
+    ZoneController,
+    ZoneInputs,
+    ZoneSettings,
+    ZoneState,
+    apply_command,
+)
+from roomloop.core.settings import PointSettings
+
+from .helpers import sample, settings
+
+EXAMPLE = Path(__file__).resolve().parents[2] / "config" / "example.yaml"
+
+
+def test_settings_from_the_example_site() -> None:
+    site = load_site(EXAMPLE)
+    for zone in site.zones:
+        s = ZoneSettings.from_site(site, zone.name)
+        assert [p.name for p in s.inputs] == list(zone.inputs)
+        assert s.anticipator_time_constant_s == zone.effective.anticipator_time_constant_s
+        assert s.comfort_c == zone.setpoints.comfort
+        assert (s.backup is None) == (zone.fail_safe.backup_point is None)
+    with pytest.raises(SettingsError, match="no zone"):
+        ZoneSettings.from_site(site, "attic")
+
+
+def step_at(controller: ZoneController, state: ZoneState, now: float, value: float = 20.0,
+            level: str = "comfort"):  # type: ignore[no-untyped-def]
+    inputs = ZoneInputs((PointSample("temperature", value, now),), level)  # type: ignore[arg-type]
+    return controller.step(state, inputs, now)
+
+
+def test_auto_follows_the_program_level_and_an_override_lasts_until_it_changes() -> None:
+    s = settings()
+    c = ZoneController(s)
+    st, out = step_at(c, c.initial_state(0.0), 10.0, level="economy")
+    assert (out.level, out.setpoint, out.mode) == ("economy", s.economy_c, "auto")
+    st = apply_command(s, st, "level", "comfort", 15.0)
+    st, out = step_at(c, st, 20.0, level="economy")
+    assert (out.level, out.setpoint) == ("comfort", s.comfort_c)
+    st, out = step_at(c, st, 30.0, level="standby")  # the program moved on
+    assert (out.level, out.setpoint) == ("standby", s.standby_c)
+    st, out = step_at(c, st, 40.0, level="economy")
+    assert out.level == "economy"
+
+
+def test_hold_until_returns_to_auto() -> None:
+    s = settings()
+    c = ZoneController(s)
+    st, _ = step_at(c, c.initial_state(0.0), 10.0, level="economy")
+    st = apply_command(s, st, "setpoint", 22.5, 10.0)
+    st = apply_command(s, st, "hold_until", "3600", 10.0)
+    st, out = step_at(c, st, 3590.0, level="economy")
+    assert (out.mode, out.setpoint) == ("hold", 22.5)
+    st, out = step_at(c, st, 3600.0, level="economy")
+    assert (out.mode, out.setpoint, out.level) == ("auto", s.economy_c, "economy")
+    with pytest.raises(CommandRejected, match="future"):
+        apply_command(s, st, "hold_until", 100.0, 3600.0)
+    off = apply_command(s, st, "mode", "off", 3600.0)
+    with pytest.raises(CommandRejected, match="off"):
+        apply_command(s, off, "hold_until", 9000.0, 3600.0)
+
+
+def test_mode_and_level_commands() -> None:
+    s = settings()
+    c = ZoneController(s)
+    st, _ = step_at(c, c.initial_state(0.0), 10.0, level="standby")
+    held = apply_command(s, st, "mode", '"hold"', 10.0)
+    assert held.mode == "hold" and held.hold_setpoint == s.standby_c
+    held = apply_command(s, held, "level", "economy", 10.0)
+    _, out = step_at(c, held, 20.0, level="comfort")
+    assert (out.mode, out.level, out.setpoint) == ("hold", "economy", s.economy_c)
+    auto = apply_command(s, held, "mode", "AUTO ", 20.0)
+    assert auto.mode == "auto" and auto.hold_level is None and auto.hold_setpoint is None
+    for field, value in [("mode", "away"), ("level", "party"), ("setpoint", float("nan")),
+                         ("setpoint", True), ("hold_until", "soon"), ("mode", 3)]:
+        with pytest.raises(CommandRejected) as caught:
+            apply_command(s, st, field, value, 20.0)
+        assert caught.value.field == field and caught.value.reason
+
+
+def test_set_points_are_clamped_to_the_limits() -> None:
+    s = settings(comfort_c=30.0, limit_max_c=24.0)
+    c = ZoneController(s)
+    _, out = step_at(c, c.initial_state(0.0), 10.0)
+    assert out.setpoint == 24.0
+
+
+@pytest.mark.parametrize(
+    ("combine", "expected"),
+    [("mean", 20.0), ("median", 19.5), ("min", 18.0), ("first-ok", 22.5)],
+)
+def test_combining_reliable_inputs(combine: str, expected: float) -> None:
+    points = tuple(PointSettings(n) for n in ("a", "b", "c", "d"))
+    s = settings(inputs=points, combine=combine)
+    c = ZoneController(s)
+    # d is over its range: it is left out
+    values = {"a": 22.5, "b": 18.0, "c": 19.5, "d": 99.0}
+    inputs = ZoneInputs(tuple(PointSample(n, v, 10.0) for n, v in values.items()))
+    _, out = c.step(c.initial_state(0.0), inputs, 10.0)
+    assert out.reliability == {"a": "ok", "b": "ok", "c": "ok", "d": "over-range"}
+    assert out.temperature == pytest.approx(expected if combine != "mean" else 20.0)
+
+
+def test_protection_overrides_mode_off_only_below_its_set_point() -> None:
+    s = settings(initial_mode="off")
+    c = ZoneController(s)
+    st, out = step_at(c, c.initial_state(0.0), 10.0, value=6.0)
+    assert out.demand and out.reason == "protection"
+    st, out = step_at(c, st, 20.0, value=7.0)  # back at the protection set point: off at once
+    assert not out.demand and out.reason == "mode-off"
+    no_protection = ZoneController(replace(s, protection_in_off=False))
+    _, out = step_at(no_protection, no_protection.initial_state(0.0), 10.0, value=3.0)
+    assert not out.demand
+
+
+def test_backup_point_protects_in_fail_safe() -> None:
+    slab = PointSettings("slab", max_rate_k_per_min=1e6)  # the test steps it on purpose
+    s = settings(backup=slab, fail_safe_policy="off", sensor_timeout_s=60.0)
+    c = ZoneController(s)
+    st = c.initial_state(0.0)
+    for now in range(10, 200, 10):
+        backup = PointSample("slab", 5.0 if now > 100 else 12.0, float(now))
+        inputs = ZoneInputs((PointSample("temperature", None, None, "comm-failure"),),
+                            backup=backup)
+        st, out = c.step(st, inputs, float(now))
+        assert out.reliability["slab"] == "ok"
+        if now >= 60:
+            assert out.fail_safe
+        if now > 100:
+            assert out.demand and out.reason == "protection"
+        elif now >= 60:
+            assert not out.demand and out.reason == "fail-safe:off"
+
+
+def test_resume_after_a_restart() -> None:
+    s = settings()
+    c = ZoneController(s)
+    st = c.initial_state(0.0)
+    for now in range(10, 610, 10):
+        st, out = step_at(c, st, float(now), value=18.0)
+    assert st.relay_on and st.anticipator_k > 0.5
+    saved = ZoneState.from_json(st.to_json())
+    resumed = c.resume(saved, 1800.0, relay_on=False)
+    assert not resumed.relay_on and resumed.switched_at == 600.0
+    assert resumed.anticipator_k < st.anticipator_k  # decayed over the gap
+    assert resumed.last_step_at == 1800.0
+    # a point that is no longer configured is dropped; a new one starts fresh
+    other = ZoneController(replace(s, inputs=(PointSettings("new-probe"),)))
+    fresh = other.resume(saved, 1800.0)
+    assert [p.name for p in fresh.points] == ["new-probe"]
+    st, out = other.step(fresh, ZoneInputs((PointSample("new-probe", 19.0, 1810.0),)), 1810.0)
+    assert out.temperature == 19.0
+
+
+def test_no_reading_yet_is_not_a_fault() -> None:
+    """Before the I/O layer's first reading the point is stale, but needs no recovery time."""
+    c = ZoneController(settings())
+    nothing = ZoneInputs((PointSample("temperature", None, None, "ok"),))
+    st, out = c.step(c.initial_state(0.0), nothing, 10.0)
+    assert out.reason == "no-temperature" and not out.demand
+    assert out.reliability == {"temperature": "stale"}
+    _, out = c.step(st, sample(18.0, 20.0), 20.0)
+    assert out.temperature == 18.0 and out.demand
