@@ -68,3 +68,14 @@ def test_progress_reports_a_loop_that_stopped_beating() -> None:
     progress.beat("zone:bath", now=106.5)
     assert progress.stuck(now=108.0) == []
     assert progress.stuck(now=111.0) == ["zone:living"]
+
+
+def test_a_listener_that_does_not_read_never_blocks_us(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    path = str(tmp_path / "full.sock")
+    with _receiver(path):
+        monkeypatch.setenv("NOTIFY_SOCKET", path)
+        # The kernel queues only a few datagrams for a unix socket; the rest are dropped.
+        results = [notify("WATCHDOG=1") for _ in range(200)]
+    assert results[0] is True and results[-1] is False

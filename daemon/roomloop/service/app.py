@@ -74,6 +74,8 @@ STOP_OUTPUTS_S = 2.5
 STOP_BROKER_S = 1.0
 PERIODIC_SAVE_S = 300.0
 """Clock seconds between saves of the slowly drifting terms (droop, learned duty)."""
+WATCHDOG_GRACE_S = 30.0
+"""Real seconds a zone loop may be late (a slow link, a busy board) before the watchdog starves."""
 RESTART_MIN_S = 0.5
 RESTART_MAX_S = 30.0
 
@@ -138,6 +140,7 @@ class Service:
         state_dir: str | Path | None = None,
         on_tick: OnTick | None = None,
         ready_wait_s: float = READY_WAIT_S,
+        watchdog_grace_s: float = WATCHDOG_GRACE_S,
     ) -> None:
         self.site = site
         self.clock: Clock = clock if clock is not None else RealClock()
@@ -146,6 +149,7 @@ class Service:
         self.prefix = site.topic_prefix
         self.on_tick = on_tick
         self.ready_wait_s = ready_wait_s
+        self.watchdog_grace_s = watchdog_grace_s
         self.ready = asyncio.Event()
         """Set once the links are up (or after ``ready_wait_s``): READY=1 under systemd."""
         self.store = StateStore(
@@ -336,7 +340,7 @@ class Service:
 
     def _allowed_gap(self, runtime: ZoneRuntime) -> float:
         """Real seconds a zone loop may go without progress before the watchdog starves."""
-        return runtime.zone.tick_s / self.clock.speed + self.ready_wait_s + 30.0
+        return runtime.zone.tick_s / self.clock.speed + self.ready_wait_s + self.watchdog_grace_s
 
     # ------------------------------------------------------------------ links
 
@@ -385,7 +389,6 @@ class Service:
 
     async def _zone_loop(self, runtime: ZoneRuntime) -> None:
         name = f"zone:{runtime.name}"
-        self.progress.beat(name)
         await self._inputs_ready.wait()
         zone = runtime.zone
         backup_name = zone.fail_safe.backup_point
@@ -460,7 +463,7 @@ class Service:
                 sink = self._sink.get(point)
                 if sink is None:
                     continue
-                wanted = runtime.wanted
+                wanted, decided = runtime.wanted, runtime.decided
                 state = await sink.set_output(point, wanted)
                 if state.verdict != "comm-failure":
                     self._written[point] = wanted
@@ -470,7 +473,7 @@ class Service:
                     point=point,
                     on=wanted,
                     verdict=state.verdict,
-                    decided=runtime.decided,
+                    decided=decided,
                 )
             if any(self._written.get(r.zone.output) != r.wanted for r in self.zones.values()):
                 # A write failed: the link re-asserts on its own; try again shortly.

@@ -27,6 +27,8 @@ def notify(*fields: str) -> bool:
         address = "\0" + address[1:]
     try:
         with socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM | socket.SOCK_CLOEXEC) as sock:
+            # Never block the event loop: a listener that does not read drops the message.
+            sock.setblocking(False)
             sock.sendto("\n".join(fields).encode(), address)
     except OSError as exc:
         log.warning("notify.send_failed", error=str(exc))

@@ -1,0 +1,191 @@
+"""The service in-process (as the demo embeds it): safe state first, restarts, stop, watchdog.
+
+Real parts: a pymodbus TCP server playing a room (``rooms.RoomPlant``), a real
+datagram socket standing in for systemd's notify socket. The clock is simulated.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import socket
+import time
+from collections.abc import AsyncIterator
+from pathlib import Path
+from typing import Any
+
+import pytest
+import yaml
+from structlog.testing import capture_logs
+
+from roomloop.config.loader import load_site
+from roomloop.config.models import Site
+from roomloop.core.commands import CommandRejected
+from roomloop.core.controller import ZoneController
+from roomloop.service.app import Service, TickReport
+from roomloop.service.clock import SimulatedClock
+
+from .rooms import RoomPlant, site_yaml
+
+SPEED = 60.0
+
+
+def make_site(tmp_path: Path, port: int, **zone: Any) -> Site:
+    data = site_yaml(modbus_port=port, broker_port=1, extra_zone=zone or None)
+    del data["broker"]
+    path = tmp_path / "site.yaml"
+    path.write_text(yaml.safe_dump(data))
+    return load_site(path)
+
+
+@contextlib.asynccontextmanager
+async def running(service: Service, timeout_s: float = 30.0) -> AsyncIterator[asyncio.Event]:
+    stop = asyncio.Event()
+    task = asyncio.create_task(service.run(stop))
+    try:
+        yield stop
+    finally:
+        stop.set()
+        await asyncio.wait_for(task, timeout_s)
+
+
+async def until(condition: Any, timeout_s: float = 10.0) -> None:
+    deadline = time.monotonic() + timeout_s
+    while not condition():
+        assert time.monotonic() < deadline, "condition not met in time"
+        await asyncio.sleep(0.02)
+
+
+async def test_embedded_service_holds_the_safe_state_until_its_first_decision(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    server = await modbus_tcp_server()
+    site = make_site(tmp_path, server.port, safe_state="on")
+    ticks: list[TickReport] = []
+    service = Service(
+        site, clock=SimulatedClock(SPEED), state_dir=tmp_path / "state", on_tick=ticks.append
+    )
+    # A warm room: the controller wants the heat off, the safe state is on.
+    with capture_logs() as events:
+        async with RoomPlant(server, [23.0], SPEED) as plant, running(service):
+            await until(lambda: len(ticks) >= 3)
+            await until(lambda: not plant.rooms[0].coil)
+            assert ticks[0].outputs.demand is False
+            # The embedding API: a command applied in-process wakes the zone at once.
+            service.apply_command("room0", "setpoint", 26.0)
+            await until(lambda: plant.rooms[0].coil)
+            with pytest.raises(CommandRejected):
+                service.apply_command("room0", "setpoint", 40.0)
+            assert service.zones["room0"].state.hold_setpoint == 26.0
+    switched = [(e["on"], e["decided"]) for e in events if e["event"] == "output.switched"]
+    assert switched[0] == (True, False)  # the safe state, before any decision
+    assert (False, True) in switched
+    safe = [e for e in events if e["event"] == "output.safe_state"]
+    assert safe and safe[-1]["on"] is True  # and the safe state again at the stop
+    assert (await server.get_coils(0, 1)) == [True]
+
+
+class FlakyController(ZoneController):
+    """Our controller, failing on its 3rd step (a bug the service must survive)."""
+
+    __slots__ = ("calls",)
+
+    def __init__(self, settings: Any) -> None:
+        super().__init__(settings)
+        self.calls = 0
+
+    def step(self, state: Any, inputs: Any, now: float) -> Any:
+        self.calls += 1
+        if self.calls == 3:
+            raise ZeroDivisionError("injected")
+        return super().step(state, inputs, now)
+
+
+async def test_a_failing_zone_loop_is_logged_and_restarted(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    server = await modbus_tcp_server()
+    site = make_site(tmp_path, server.port)
+    service = Service(site, clock=SimulatedClock(SPEED), state_dir=tmp_path / "state")
+    with capture_logs() as events:
+        async with RoomPlant(server, [17.0], SPEED), running(service):
+            await until(lambda: "room0" in service.zones)
+            runtime = service.zones["room0"]
+            runtime.controller = FlakyController(runtime.settings)
+            await until(lambda: service.restarts.get("zone:room0") == 1)
+            steps = runtime.steps
+            await until(lambda: runtime.steps > steps + 3)
+    failed = [e for e in events if e["event"] == "service.task_failed"]
+    assert [e["task"] for e in failed] == ["zone:room0"]
+    assert any(e["event"] == "service.task_restarting" for e in events)
+
+
+async def test_stop_within_5_s_even_with_the_device_gone(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    server = await modbus_tcp_server()
+    site = make_site(tmp_path, server.port)
+    service = Service(site, clock=SimulatedClock(SPEED), state_dir=tmp_path / "state")
+    stop = asyncio.Event()
+    async with RoomPlant(server, [17.0], SPEED) as plant:
+        task = asyncio.create_task(service.run(stop))
+        await until(lambda: plant.rooms[0].coil)
+        plant.frozen = True
+        await server.stop()
+        started = time.monotonic()
+        stop.set()
+        await asyncio.wait_for(task, 10)
+    assert time.monotonic() - started < 5.0
+    assert service.store.path.exists()
+
+
+async def test_watchdog_is_fed_only_while_every_zone_loop_progresses(
+    tmp_path: Path, modbus_tcp_server: Any, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    path = str(tmp_path / "notify.sock")
+    sock = socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM)
+    sock.bind(path)
+    sock.setblocking(False)
+    monkeypatch.setenv("NOTIFY_SOCKET", path)
+    monkeypatch.setenv("WATCHDOG_USEC", "200000")  # fed every 0.1 s
+    monkeypatch.delenv("WATCHDOG_PID", raising=False)
+    server = await modbus_tcp_server()
+    site = make_site(tmp_path, server.port)
+    service = Service(
+        site,
+        clock=SimulatedClock(SPEED),
+        state_dir=tmp_path / "state",
+        ready_wait_s=1.0,
+        watchdog_grace_s=0.5,
+    )
+
+    def received() -> list[str]:
+        out = []
+        with contextlib.suppress(BlockingIOError):
+            while True:
+                out.extend(sock.recv(4096).decode().split("\n"))
+        return out
+
+    try:
+        async with RoomPlant(server, [17.0], SPEED), running(service):
+            seen: list[str] = []
+            await until(lambda: seen.extend(received()) or {"READY=1", "WATCHDOG=1"} <= set(seen))
+            # A zone loop that cannot step any more (every step fails) starves the watchdog.
+            runtime = service.zones["room0"]
+            runtime.controller = StuckController(runtime.settings)
+            await until(lambda: bool(service.progress.stuck()), 10)
+            received()
+            await asyncio.sleep(0.5)
+            assert "WATCHDOG=1" not in received()
+        assert "STOPPING=1" in received()
+    finally:
+        sock.close()
+
+
+class StuckController(ZoneController):
+    """A controller that can no longer step."""
+
+    __slots__ = ()
+
+    def step(self, state: Any, inputs: Any, now: float) -> Any:
+        raise RuntimeError("stuck")
