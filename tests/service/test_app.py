@@ -169,7 +169,12 @@ async def test_watchdog_is_fed_only_while_every_zone_loop_progresses(
     try:
         async with RoomPlant(server, [17.0], SPEED), running(service):
             seen: list[str] = []
-            await until(lambda: seen.extend(received()) or {"READY=1", "WATCHDOG=1"} <= set(seen))
+
+            def ready_and_fed() -> bool:
+                seen.extend(received())
+                return {"READY=1", "WATCHDOG=1"} <= set(seen)
+
+            await until(ready_and_fed)
             # A zone loop that cannot step any more (every step fails) starves the watchdog.
             runtime = service.zones["room0"]
             runtime.controller = StuckController(runtime.settings)
