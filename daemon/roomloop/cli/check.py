@@ -83,7 +83,7 @@ def _broker_text(broker: Broker | None, site: Site) -> str:
         return "(none: no publishing, no commands, no MQTT points)"
     parts = [
         f"{broker.host}:{broker.port}",
-        f"client id {broker.client_id or 'roomloop-' + site.name}",
+        f"client id {broker.client_id or '(random)'}",
     ]
     parts.append(f"keepalive {broker.keepalive_s} s")
     if broker.username:
