@@ -186,3 +186,23 @@ def test_alias_expansion_is_bounded(capsys: pytest.CaptureFixture[str], tmp_path
     assert code == 2
     assert "Traceback" not in out + err
     assert "values (aliases expanding?)" in err
+
+
+def test_check_into_a_closed_pipe_is_quiet() -> None:
+    """``roomloop check -c site.yaml | head``: the reader may leave early; no traceback."""
+    read_end, write_end = os.pipe()
+    os.close(read_end)  # every write now fails with EPIPE
+    try:
+        done = subprocess.run(
+            [sys.executable, "-m", "roomloop", "check", "-c", "config/example.yaml"],
+            cwd=Path(__file__).resolve().parents[2],
+            stdout=write_end,
+            stderr=subprocess.PIPE,
+            text=True,
+            timeout=60,
+            check=False,
+        )
+    finally:
+        os.close(write_end)
+    assert "Traceback" not in done.stderr, done.stderr
+    assert done.returncode == 0

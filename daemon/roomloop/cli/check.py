@@ -9,6 +9,7 @@ each zone with its effective tuning and where every value came from.
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from collections.abc import Callable
 from typing import TextIO
@@ -31,8 +32,14 @@ from roomloop.config.models import (
 
 def main(args: argparse.Namespace) -> int:
     site = load_site(args.config)
-    print_site(site, sys.stdout)
-    print(f"\n{args.config}: ok", file=sys.stdout)
+    try:
+        print_site(site, sys.stdout)
+        print(f"\n{args.config}: ok", file=sys.stdout)
+        sys.stdout.flush()
+    except BrokenPipeError:
+        # `roomloop check -c site.yaml | head`: the reader left; that is no error.
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
     return 0
 
 
