@@ -53,10 +53,13 @@ Order of one step (``u`` = relay state held during the elapsed tick):
    that stands still, but a real room moves with each burst of heat (shorter
    cycles) and lags behind it (longer cycles). After every ordinary cycle (no
    recovery, protection, fail-safe or short-cycle hold in it) the time constant
-   is scaled by ``(3600 / cycle_rate / period) ** 0.3``, within [0.2, 2], so the
+   is scaled by ``(3600 / cycle_rate / period) ** 0.3``, within [0.5, 2], so the
    plant settles at the configured cycle rate; faster cycles mean a smaller
    swing of the room. The cycle rate is then held at every on-fraction (the
-   trade rates it at 50 %, where an unregulated anticipator peaks).
+   trade rates it at 50 %, where an unregulated anticipator peaks); the floor
+   of 0.5 keeps the anticipator from racing at very low on-fractions, where
+   holding the rate would need a tiny time constant that is wrong the moment the
+   load rises (a recovery would then run into the cycle limit).
 
 Every output carries ``reason``: the rule that decided the relay this tick.
 """
@@ -77,7 +80,7 @@ _new_state = positional_builder(ZoneState)
 _new_outputs = positional_builder(ZoneOutputs)
 
 HOUR_S = 3600.0
-MIN_TAU_SCALE = 0.2
+MIN_TAU_SCALE = 0.5
 MAX_TAU_SCALE = 2.0
 REGULATION_EXPONENT = 0.3
 MAX_SWITCH_LOG = 128
