@@ -162,13 +162,14 @@ class ServiceProcess:
         self.process: asyncio.subprocess.Process | None = None
         self._log: Any = None
 
-    async def start(self) -> None:
+    async def start(self, extra_env: dict[str, str] | None = None) -> None:
         env = dict(
             os.environ,
             ROOMLOOP_CLOCK_SPEED=str(self.speed),
             ROOMLOOP_CLOCK_ORIGIN=repr(self.origin),
         )
         env.pop("NOTIFY_SOCKET", None)
+        env.update(extra_env or {})
         self._log = self.log_path.open("ab")
         self.process = await asyncio.create_subprocess_exec(
             sys.executable,

@@ -11,7 +11,11 @@ import asyncio
 import contextlib
 import datetime as dt
 import json
+import os
 import signal
+import socket
+import subprocess
+import sys
 import time
 from collections.abc import AsyncIterator
 from dataclasses import dataclass
@@ -145,13 +149,23 @@ async def test_demand_reaches_the_coil_commands_are_answered_and_checked(rig: Ri
 
 async def test_sigterm_leaves_the_coil_off_and_status_offline(rig: Rig) -> None:
     w = rig.watcher
-    await rig.service.start()
-    await w.wait_for(lambda: rig.room().coil, 15)
-    await w.wait_for(lambda: w.text("status") == "online", 10)
-    started = time.monotonic()
-    code = await rig.service.signal(signal.SIGTERM)
-    assert code == 0
-    assert time.monotonic() - started < 5.0
+    # systemd's side of Type=notify: a datagram socket named in NOTIFY_SOCKET.
+    notify_path = str(rig.tmp / "notify.sock")
+    with socket.socket(socket.AF_UNIX, socket.SOCK_DGRAM) as notify_sock:
+        notify_sock.bind(notify_path)
+        notify_sock.setblocking(False)
+        await rig.service.start({"NOTIFY_SOCKET": notify_path})
+        await w.wait_for(lambda: rig.room().coil, 15)
+        await w.wait_for(lambda: w.text("status") == "online", 10)
+        started = time.monotonic()
+        code = await rig.service.signal(signal.SIGTERM)
+        assert code == 0
+        assert time.monotonic() - started < 5.0
+        notes: list[str] = []
+        with contextlib.suppress(BlockingIOError):
+            while True:
+                notes.extend(notify_sock.recv(4096).decode().split("\n"))
+    assert notes.index("READY=1") < notes.index("STOPPING=1")
     assert (await rig.server.get_coils(0, 1)) == [False]
     await w.wait_for(lambda: w.text("status") == "offline", 5)
     saved = json.loads((rig.tmp / "state" / "test-annex.state.json").read_text())
@@ -245,3 +259,29 @@ async def test_program_entry_switches_the_level_at_its_time(
         assert state is not None and state["setpoint"] == 16.0
         assert dt.datetime.fromisoformat(state["timestamp"]) >= switch
         assert w.text("zone/room0/level") == "economy"
+
+
+@pytest.mark.parametrize(
+    ("config", "env", "words"),
+    [
+        ("missing.yaml", {}, "missing.yaml"),
+        ("site.yaml", {"ROOMLOOP_CLOCK_SPEED": "fast"}, "ROOMLOOP_CLOCK_SPEED"),
+    ],
+)
+def test_run_refuses_bad_input_with_one_line_and_exit_2(
+    tmp_path: Path, config: str, env: dict[str, str], words: str
+) -> None:
+    (tmp_path / "site.yaml").write_text(
+        yaml.safe_dump(site_yaml(modbus_port=1502, broker_port=1883))
+    )
+    result = subprocess.run(
+        [sys.executable, "-m", "roomloop", "run", "-c", str(tmp_path / config)],
+        capture_output=True,
+        text=True,
+        timeout=60,
+        env={**os.environ, **env},
+        check=False,
+    )
+    assert result.returncode == 2
+    assert words in result.stderr
+    assert "Traceback" not in result.stderr + result.stdout

@@ -453,20 +453,21 @@ class Service:
     # ------------------------------------------------------------------ outputs
 
     async def _output_loop(self) -> None:
-        """Write each zone's wanted output when it changes (safe state until its first decision)."""
+        """Write each zone's wanted output when it changes (safe state until its first decision).
+
+        A write that fails is not retried here: the link (or the MQTT points)
+        re-asserts every commanded output whose last write failed, on its poll.
+        """
         while True:
             self._outputs_wake.clear()
             for runtime in self.zones.values():
                 point = runtime.zone.output
-                if self._written.get(point) == runtime.wanted:
-                    continue
                 sink = self._sink.get(point)
-                if sink is None:
+                if sink is None or self._written.get(point) == runtime.wanted:
                     continue
                 wanted, decided = runtime.wanted, runtime.decided
+                self._written[point] = wanted
                 state = await sink.set_output(point, wanted)
-                if state.verdict != "comm-failure":
-                    self._written[point] = wanted
                 log.info(
                     "output.switched",
                     zone=runtime.name,
@@ -475,12 +476,6 @@ class Service:
                     verdict=state.verdict,
                     decided=decided,
                 )
-            if any(self._written.get(r.zone.output) != r.wanted for r in self.zones.values()):
-                # A write failed: the link re-asserts on its own; try again shortly.
-                with contextlib.suppress(TimeoutError):
-                    async with asyncio.timeout(1.0):
-                        await self._outputs_wake.wait()
-                continue
             await self._outputs_wake.wait()
 
     async def _stop_outputs(self) -> None:
