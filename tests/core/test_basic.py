@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import itertools
 import math
 
 import pytest
@@ -76,11 +77,38 @@ def test_foreign_state_is_refused_clearly(text: str) -> None:
         ZoneState.from_json(text)
 
 
-def test_corrupt_field_is_named() -> None:
+@pytest.mark.parametrize(
+    ("old", "new", "key"),
+    [
+        ('"anticipator_k":0.0', '"anticipator_k":"hot"', "anticipator_k"),
+        ('"tau_scale":1.0', '"tau_scale":-1', "tau_scale"),
+        ('"mode":"auto"', '"mode":"party"', "mode"),
+        ('"points":[', '"surprise":1,"points":[', "unknown keys"),
+        ('"relay_on":false', '"relay_on":0', "relay_on"),
+    ],
+)
+def test_corrupt_field_is_named(old: str, new: str, key: str) -> None:
     state = ZoneController(settings()).initial_state(0.0)
-    text = state.to_json().replace('"anticipator_k":0.0', '"anticipator_k":"hot"')
-    with pytest.raises(StateFormatError, match="anticipator_k"):
-        ZoneState.from_json(text)
+    text = state.to_json()
+    assert old in text
+    with pytest.raises(StateFormatError, match=key):
+        ZoneState.from_json(text.replace(old, new))
+
+
+def test_last_hour_figures() -> None:
+    """cycles_1h and on_fraction_1h against a count over the relay trace itself."""
+    controller = ZoneController(
+        settings(min_on_s=0.0, min_off_s=0.0, max_cycles_per_hour=60, droop_compensation=False)
+    )
+    trace = run(controller, lambda now, on: 19.0, end=3 * 3600.0, tick=10.0)
+    last_hour = [out for now, out, _ in trace if now > trace[-1][0] - 3600.0]
+    ons = sum(1 for a, b in itertools.pairwise(trace)
+              if b[0] > trace[-1][0] - 3600.0 and b[1].demand and not a[1].demand)
+    out = trace[-1][1]
+    assert out.cycles_1h == ons > 0
+    # each tick's relay state holds until the next tick
+    on_fraction = sum(o.demand for o in last_hour[:-1]) / (len(last_hour) - 1)
+    assert out.on_fraction_1h == pytest.approx(on_fraction, abs=2 * 10.0 / 3600.0)
 
 
 def test_setpoint_command_holds_and_limits_refuse() -> None:

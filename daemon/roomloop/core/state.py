@@ -180,7 +180,7 @@ class ZoneState:
             scheduled_level=r.choice("scheduled_level", _LEVELS),
             anticipator_k=r.num("anticipator_k"),
             droop_k=r.num("droop_k"),
-            tau_scale=r.num("tau_scale"),
+            tau_scale=r.positive("tau_scale"),
             cycle_clean=r.flag("cycle_clean"),
             relay_on=r.flag("relay_on"),
             switched_at=r.opt_num("switched_at"),
@@ -282,6 +282,12 @@ class _Reader:
         if not _is_num(value):
             raise self._bad(key, "a finite number")
         return float(value)
+
+    def positive(self, key: str) -> float:
+        value = self.num(key)
+        if value <= 0:
+            raise self._bad(key, "a positive number")
+        return value
 
     def opt_num(self, key: str) -> float | None:
         return None if self.get(key) is None else self.num(key)
