@@ -9,12 +9,14 @@ from pathlib import Path
 import pytest
 
 from roomloop.config.loader import load_site
+from roomloop.config.models import Level
 from roomloop.core import (
     CommandRejected,
     PointSample,
     SettingsError,
     ZoneController,
     ZoneInputs,
+    ZoneOutputs,
     ZoneSettings,
     ZoneState,
     apply_command,
@@ -38,9 +40,11 @@ def test_settings_from_the_example_site() -> None:
         ZoneSettings.from_site(site, "attic")
 
 
-def step_at(controller: ZoneController, state: ZoneState, now: float, value: float = 20.0,
-            level: str = "comfort"):  # type: ignore[no-untyped-def]
-    inputs = ZoneInputs((PointSample("temperature", value, now),), level)  # type: ignore[arg-type]
+def step_at(
+    controller: ZoneController, state: ZoneState, now: float, value: float = 20.0,
+    level: Level = "comfort",
+) -> tuple[ZoneState, ZoneOutputs]:
+    inputs = ZoneInputs((PointSample("temperature", value, now),), level)
     return controller.step(state, inputs, now)
 
 

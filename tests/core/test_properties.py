@@ -12,12 +12,20 @@ from __future__ import annotations
 
 import itertools
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, replace
 
 from hypothesis import event, given, settings
 from hypothesis import strategies as st
 
-from roomloop.core import PointSample, ZoneController, ZoneInputs, ZoneOutputs, ZoneSettings
+from roomloop.core import (
+    PointSample,
+    ZoneController,
+    ZoneInputs,
+    ZoneOutputs,
+    ZoneSettings,
+    ZoneState,
+)
 from roomloop.core.settings import PointSettings
 
 from .helpers import FAST_POINT
@@ -74,7 +82,7 @@ def scenarios(draw: st.DrawFn) -> list[tuple[float, float | None]]:
     return steps
 
 
-def drive(s: ZoneSettings, steps: list[tuple[float, float | None]]) -> list[Tick]:
+def drive(s: ZoneSettings, steps: Sequence[tuple[float, float | None]]) -> list[Tick]:
     controller = ZoneController(s)
     state = controller.initial_state(0.0)
     now = 0.0
@@ -174,7 +182,7 @@ def test_one_second_and_ten_second_ticks_switch_within_one_tick(
     def temperature(now: float) -> float:
         return base + amplitude * math.sin(2 * math.pi * now / period) + drift * now
 
-    def step(state, now):  # type: ignore[no-untyped-def]
+    def step(state: ZoneState, now: float) -> tuple[ZoneState, ZoneOutputs]:
         return controller.step(
             state, ZoneInputs((PointSample("temperature", temperature(now), now),)), now
         )

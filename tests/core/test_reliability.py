@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 from roomloop.core.reliability import evaluate_point
 from roomloop.core.settings import PointSettings
 from roomloop.core.state import PointState
@@ -13,7 +15,7 @@ CFG = PointSettings(
 )
 
 
-def feed(readings: list[tuple[float, float | None]], relay_on_s: float = 0.0,
+def feed(readings: Sequence[tuple[float, float | None]], relay_on_s: float = 0.0,
          cfg: PointSettings = CFG) -> list[PointState]:
     """Judge a reading per tick (time, value); ``None`` is a failed poll."""
     st = PointState("t1")

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import replace
+from typing import Any
 
 import pytest
 
@@ -22,7 +23,7 @@ TICK = 10.0
 Reading = Callable[[float, float], float | None]
 
 
-def zone(policy: str, **changes: object) -> ZoneSettings:
+def zone(policy: str, **changes: Any) -> ZoneSettings:
     return replace(
         settings(fail_safe_policy=policy, sensor_timeout_s=600.0, fail_safe_recovery_s=120.0,
                  fail_safe_duty=0.25, fail_safe_period_s=1200.0, learn_hours=4.0,

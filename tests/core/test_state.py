@@ -49,4 +49,4 @@ def test_fast_builders_equal_the_dataclass_init() -> None:
     values = [getattr(out, f.name) for f in dataclasses.fields(out)]
     assert positional_builder(ZoneOutputs)(*values) == out
     with pytest.raises(TypeError):
-        positional_builder(dict)  # type: ignore[arg-type]
+        positional_builder(dict)
