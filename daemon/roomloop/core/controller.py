@@ -53,7 +53,7 @@ Order of one step (``u`` = relay state held during the elapsed tick):
    that stands still, but a real room moves with each burst of heat (shorter
    cycles) and lags behind it (longer cycles). After every ordinary cycle (no
    recovery, protection, fail-safe or short-cycle hold in it) the time constant
-   is scaled by ``(3600 / cycle_rate / period) ** 0.3``, within [0.5, 2], so the
+   is scaled by ``(3600 / cycle_rate / period) ** 0.2``, within [0.5, 2], so the
    plant settles at the configured cycle rate; faster cycles mean a smaller
    swing of the room. The cycle rate is then held at every on-fraction (the
    trade rates it at 50 %, where an unregulated anticipator peaks); the floor
@@ -82,7 +82,7 @@ _new_outputs = positional_builder(ZoneOutputs)
 HOUR_S = 3600.0
 MIN_TAU_SCALE = 0.5
 MAX_TAU_SCALE = 2.0
-REGULATION_EXPONENT = 0.3
+REGULATION_EXPONENT = 0.2
 MAX_SWITCH_LOG = 128
 """Bound of the switch log (the last hour's switchings; 60 cycles at most are allowed)."""
 
@@ -557,7 +557,7 @@ class ZoneController:
     def _regulated(self, scale: float, period: float) -> float:
         """Cycle-rate regulation after one ordinary cycle of ``period`` seconds (on to on).
 
-        The time constant is scaled by ``(target period / measured period) ** 0.3`` per
+        The time constant is scaled by ``(target period / measured period) ** 0.2`` per
         cycle (a gentle integral action in log scale), within [MIN_TAU_SCALE, MAX_TAU_SCALE].
         """
         if period <= 0.0:
