@@ -51,6 +51,7 @@ START_ROOM_C = 18.0
 SILENT_ZONE = "meeting-room"
 SERVICE_STOP_S = 15.0
 FIRST_DECISION_WAIT_S = 10.0
+SERVICE_CANCEL_S = 5.0
 PORT_ATTEMPTS = 3
 
 
@@ -218,9 +219,12 @@ class _Demo:
         self.tz = ZoneInfo("UTC")
         self.timeline: Timeline | None = None
         self.all_decided = asyncio.Event()
+        self._server: PlantServer | None = None
 
     def say(self, at: float, text: str) -> None:
         self.observer.event(at, f"[{clock_text(at, self.tz)}] {text}")
+        if self._server is not None and self.all_decided.is_set():
+            self._emit_status(self._server)
 
     def on_tick(self, report: TickReport) -> None:
         """The service's decision for a zone: note fail-safe time and tell what changed."""
@@ -279,6 +283,7 @@ class _Demo:
     async def run(self, stop: asyncio.Event) -> DemoResult:
         with tempfile.TemporaryDirectory(prefix="roomloop-demo-") as state_dir:
             server, site = await self._start_server(state_dir)
+            self._server = server
             try:
                 return await self._run_with(server, site, state_dir, stop)
             finally:
@@ -371,9 +376,9 @@ class _Demo:
             if not service_task.done():
                 service_stop.set()
                 service_task.cancel()
-                with contextlib.suppress(BaseException):
-                    await service_task
-        self._final_status(server, ended_at)
+                # Bounded: a service that ignores cancellation must not hang the demo.
+                await asyncio.wait({service_task}, timeout=SERVICE_CANCEL_S)
+        self._emit_status(server, ended_at)
         assert server.started_at is not None
         summaries = [
             summarize_zone(
@@ -435,12 +440,12 @@ class _Demo:
         with contextlib.suppress(TimeoutError):
             await asyncio.wait_for(self.all_decided.wait(), FIRST_DECISION_WAIT_S)
         while True:
-            now = server.clock.now()
-            self.observer.status(now, self._header(now), self._rows(server))
+            self._emit_status(server)
             await asyncio.sleep(self.options.refresh_s)
 
-    def _final_status(self, server: PlantServer, at: float) -> None:
-        self.observer.status(at, self._header(at), self._rows(server))
+    def _emit_status(self, server: PlantServer, at: float | None = None) -> None:
+        now = server.clock.now() if at is None else at
+        self.observer.status(now, self._header(now), self._rows(server))
 
 
 def options_speed(options: DemoOptions) -> str:

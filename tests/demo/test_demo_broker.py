@@ -1,0 +1,54 @@
+"""``roomloop demo --broker HOST:PORT`` publishes like ``roomloop run``: a real mosquitto."""
+
+from __future__ import annotations
+
+import asyncio
+import json
+import os
+import subprocess
+import sys
+from typing import Any
+
+import aiomqtt
+import pytest
+
+pytestmark = [pytest.mark.needs_mosquitto]
+
+PREFIX = "roomloop/quillby-green-hall"
+ZONES = ("small-hall", "meeting-room", "kitchen")
+
+
+async def _retained(host: str, port: int) -> dict[str, bytes]:
+    """Every retained message under the demo's prefix (collected for a bounded time)."""
+    got: dict[str, bytes] = {}
+    async with aiomqtt.Client(host, port) as client:
+        await client.subscribe(f"{PREFIX}/#", qos=1)
+        try:
+            async with asyncio.timeout(1.5):
+                async for message in client.messages:
+                    payload = message.payload
+                    got[str(message.topic)] = (
+                        payload if isinstance(payload, bytes) else str(payload).encode()
+                    )
+        except TimeoutError:
+            pass
+    return got
+
+
+async def test_demo_publishes_to_the_broker(mosquitto: Any) -> None:
+    host, port = mosquitto
+    env = dict(os.environ, PYTHONUNBUFFERED="1")
+    process = await asyncio.create_subprocess_exec(
+        sys.executable, "-m", "roomloop", "demo", "--hours", "1", "--speed", "600",
+        "--broker", f"{host}:{port}",
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env,
+    )
+    out, err = await asyncio.wait_for(process.communicate(), 60.0)
+    assert process.returncode == 0, out.decode() + err.decode()
+    assert f"publishing to the broker at {host}:{port}" in out.decode()
+    retained = await _retained(host, port)
+    assert retained.get(f"{PREFIX}/status") == b"offline"  # the clean stop said so
+    for zone in ZONES:
+        state = json.loads(retained[f"{PREFIX}/zone/{zone}/state"])
+        assert state["setpoint"] == pytest.approx(20.0)  # comfort after the program's switch
+        assert state["level"] == "comfort"
