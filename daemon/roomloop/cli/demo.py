@@ -12,7 +12,10 @@ place. At the end: a summary table per zone, and with ``--plot`` a PNG.
 Ctrl-C (SIGINT) or SIGTERM stops the demo cleanly: the service puts every
 output in its safe state (the coils are read back from the plant server and
 shown), the summary covers what ran, and the exit code is 0, like ``roomloop
-run`` stopping on a signal. Exit codes: 0 ran (to the end or until stopped);
+run`` stopping on a signal (a Ctrl-C while Python is still starting, before
+anything runs, is the command line's plain ``interrupted``, 130). At the end
+the demo also checks end to end that each coil followed the service's
+decisions and warns when it did not. Exit codes: 0 ran (to the end or until stopped);
 1 the demo could not run, an output was not in its safe state at the stop, or
 the plot could not be written; 2 a bad option.
 """
@@ -258,7 +261,10 @@ def _report(result: DemoResult, out: TextIO) -> bool:
                 f"{off_s / 60:.0f} simulated min (an output write lost or undone)\n"
             )
     comfort = result.site.zones[0].setpoints.comfort
-    out.write(format_summary(result.summaries, result.timeline, tz, comfort) + "\n")
+    stopped_at = None if result.completed else result.timeline.start + result.simulated_s
+    out.write(
+        format_summary(result.summaries, result.timeline, tz, comfort, stopped_at) + "\n"
+    )
     out.flush()
     return safe
 

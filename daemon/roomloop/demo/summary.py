@@ -115,7 +115,11 @@ def clock_text(at: float, tz: ZoneInfo) -> str:
 
 
 def format_summary(
-    rows: list[ZoneSummary], timeline: Timeline, tz: ZoneInfo, comfort_c: float
+    rows: list[ZoneSummary],
+    timeline: Timeline,
+    tz: ZoneInfo,
+    comfort_c: float,
+    stopped_at: float | None = None,
 ) -> str:
     """The closing table and a legend that says which window each figure covers."""
     lines = [
@@ -139,4 +143,9 @@ def format_summary(
         "energy = heater power x relay-on time over the run. T is the simulated room air "
         "(true value, not the sensor).",
     ]
+    if stopped_at is not None:
+        lines.append(
+            f"The run stopped at {clock_text(stopped_at, tz)}: figures of a window it did not "
+            "reach show '-', those of a window it cut short cover what ran."
+        )
     return "\n".join(lines)
