@@ -39,9 +39,19 @@ async def test_demo_publishes_to_the_broker(mosquitto: Any) -> None:
     host, port = mosquitto
     env = dict(os.environ, PYTHONUNBUFFERED="1")
     process = await asyncio.create_subprocess_exec(
-        sys.executable, "-m", "roomloop", "demo", "--hours", "1", "--speed", "600",
-        "--broker", f"{host}:{port}",
-        stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env,
+        sys.executable,
+        "-m",
+        "roomloop",
+        "demo",
+        "--hours",
+        "1",
+        "--speed",
+        "600",
+        "--broker",
+        f"{host}:{port}",
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        env=env,
     )
     out, err = await asyncio.wait_for(process.communicate(), 60.0)
     assert process.returncode == 0, out.decode() + err.decode()

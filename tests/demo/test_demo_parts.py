@@ -96,4 +96,3 @@ async def test_plant_server_serves_sensors_and_silences_one_unit() -> None:
         stepping.cancel()
         await asyncio.gather(stepping, return_exceptions=True)
         await server.stop()
-

@@ -262,9 +262,7 @@ def _report(result: DemoResult, out: TextIO) -> bool:
             )
     comfort = result.site.zones[0].setpoints.comfort
     stopped_at = None if result.completed else result.timeline.start + result.simulated_s
-    out.write(
-        format_summary(result.summaries, result.timeline, tz, comfort, stopped_at) + "\n"
-    )
+    out.write(format_summary(result.summaries, result.timeline, tz, comfort, stopped_at) + "\n")
     out.flush()
     return safe
 

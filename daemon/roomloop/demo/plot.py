@@ -48,8 +48,13 @@ def write_demo_plot(result: DemoResult, path: str | os.PathLike[str]) -> None:
         t = [hours(result.started_at + s) for s in trace.time_s]
         relay_ax = ax.twinx()
         relay_ax.fill_between(
-            t, [1.0 if on else 0.0 for on in trace.relay], step="post", color="tab:orange",
-            alpha=0.25, lw=0, label="relay on",
+            t,
+            [1.0 if on else 0.0 for on in trace.relay],
+            step="post",
+            color="tab:orange",
+            alpha=0.25,
+            lw=0,
+            label="relay on",
         )
         relay_ax.set_ylim(0, 4)
         relay_ax.set_yticks([])
@@ -57,8 +62,13 @@ def write_demo_plot(result: DemoResult, path: str | os.PathLike[str]) -> None:
         ax.plot(t, trace.room_c, color="tab:red", lw=1.0, label="room air (true)")
         ht = [hours(at) for at, _, _, _ in record.history]
         ax.plot(
-            ht, [sp for _, sp, _, _ in record.history], color="black", lw=1.0, ls="--",
-            drawstyle="steps-post", label="set point",
+            ht,
+            [sp for _, sp, _, _ in record.history],
+            color="black",
+            lw=1.0,
+            ls="--",
+            drawstyle="steps-post",
+            label="set point",
         )
         in_fs = False
         fs_from = 0.0

@@ -116,9 +116,7 @@ class DemoResult:
     def relay_disagreement_s(self, zone: str) -> float:
         """Simulated seconds the zone's coil differed from the service's decision (see
         :func:`disagreement_s`)."""
-        return disagreement_s(
-            self.traces[zone], self.started_at, self.records[zone].decisions
-        )
+        return disagreement_s(self.traces[zone], self.started_at, self.records[zone].decisions)
 
     @property
     def outputs_safe(self) -> bool:
@@ -306,7 +304,11 @@ class _Demo:
             if options.on_clock is not None:
                 options.on_clock(clock)
             server = PlantServer(
-                site, _plants(site), clock, outdoor_c=OUTDOOR_C, start_room_c=START_ROOM_C,
+                site,
+                _plants(site),
+                clock,
+                outdoor_c=OUTDOOR_C,
+                start_room_c=START_ROOM_C,
                 port=port,
             )
             try:
@@ -349,6 +351,13 @@ class _Demo:
         service_stop = asyncio.Event()
         plants = asyncio.create_task(server.run(), name="demo-plants")
         service_task = asyncio.create_task(service.run(service_stop), name="demo-service")
+        log.info(
+            "demo.started",
+            site=site.name,
+            port=server.port,
+            hours=timeline.hours,
+            speed=self.options.speed,
+        )
         scenario = asyncio.create_task(self._scenario(server, silent.sensor.unit_id))
         refresh = asyncio.create_task(self._refresh(server))
         stopper = asyncio.create_task(stop.wait())
@@ -379,6 +388,9 @@ class _Demo:
                 # Bounded: a service that ignores cancellation must not hang the demo.
                 await asyncio.wait({service_task}, timeout=SERVICE_CANCEL_S)
         self._emit_status(server, ended_at)
+        log.info(
+            "demo.stopped", completed=completed, simulated_h=(ended_at - timeline.start) / 3600
+        )
         assert server.started_at is not None
         summaries = [
             summarize_zone(
@@ -479,9 +491,7 @@ async def _sleep_until(clock: Clock, when: float) -> None:
         await clock.sleep(left)
 
 
-async def run_demo(
-    options: DemoOptions, observer: DemoObserver, stop: asyncio.Event
-) -> DemoResult:
+async def run_demo(options: DemoOptions, observer: DemoObserver, stop: asyncio.Event) -> DemoResult:
     """Run the demo until its end or until ``stop`` is set; the service stops cleanly either way.
 
     Raises :class:`DemoError` when the demo cannot run.
