@@ -4,7 +4,7 @@ Run: ``python tests/bench/service_footprint.py`` (needs mosquitto). Prints figur
 
 Set-up (all real, all on loopback): ``roomloop run`` as a subprocess; a pymodbus
 TCP server in this process whose rooms step a first-order model
-(``tests/service/rooms.py``); a mosquitto broker.
+(``tests/service/service_rooms.py``); a mosquitto broker.
 
 1. Footprint: the service runs on a simulated clock (``ROOMLOOP_CLOCK_SPEED``) for a
    fixed simulated time; we read its peak RSS (``VmHWM``) and CPU time from ``/proc``.
@@ -38,15 +38,17 @@ import yaml
 
 TESTS = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(TESTS))
+sys.path.insert(0, str(TESTS / "service"))
+
+from service_rooms import (  # type: ignore[import-not-found]  # noqa: E402
+    RoomPlant,
+    ServiceProcess,
+    site_yaml,
+)
 
 from conftest import (  # type: ignore[import-not-found]  # noqa: E402
     ModbusTestServer,
     MosquittoBroker,
-)
-from service.rooms import (  # type: ignore[import-not-found]  # noqa: E402
-    RoomPlant,
-    ServiceProcess,
-    site_yaml,
 )
 
 PREFIX = "roomloop/test-annex"

@@ -24,8 +24,7 @@ from typing import Any
 
 import pytest
 import yaml
-
-from .rooms import RoomPlant, ServiceProcess, Watcher, site_yaml
+from service_rooms import RoomPlant, ServiceProcess, Watcher, site_yaml
 
 pytestmark = [pytest.mark.needs_mosquitto, pytest.mark.slow]
 

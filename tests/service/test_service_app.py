@@ -16,6 +16,7 @@ from typing import Any
 
 import pytest
 import yaml
+from service_rooms import RoomPlant, site_yaml
 from structlog.testing import capture_logs
 
 from roomloop.config.loader import load_site
@@ -24,8 +25,6 @@ from roomloop.core.commands import CommandRejected
 from roomloop.core.controller import ZoneController
 from roomloop.service.app import Service, TickReport
 from roomloop.service.clock import SimulatedClock
-
-from .rooms import RoomPlant, site_yaml
 
 SPEED = 60.0
 
