@@ -159,3 +159,18 @@ def test_bad_options_exit_2_with_one_line(args: list[str], message: str) -> None
     assert message in done.stderr
     assert "Traceback" not in done.stderr
     assert done.stdout == ""
+
+
+def test_plot_into_a_missing_folder_is_refused_before_the_run(tmp_path: Path) -> None:
+    target = tmp_path / "no-such-folder" / "demo.png"
+    done = subprocess.run(
+        _demo("--plot", str(target)),
+        capture_output=True,
+        text=True,
+        timeout=30.0,
+        env=_env(),
+        check=False,
+    )
+    assert done.returncode == 1
+    assert f"cannot write {target}" in done.stderr
+    assert done.stdout == ""  # refused at once, not after a minute of demo

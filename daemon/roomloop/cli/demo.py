@@ -25,6 +25,7 @@ from __future__ import annotations
 import argparse
 import asyncio
 import logging
+import os
 import shutil
 import signal
 import sys
@@ -288,6 +289,12 @@ def main(args: argparse.Namespace) -> int:
                 "--plot needs matplotlib, which is not installed; install the plot extra "
                 "(pip install 'roomloop[plot]') or leave out --plot",
                 EXIT_RUNTIME,
+            )
+    if args.plot:
+        folder = os.path.dirname(os.path.abspath(args.plot))
+        if not os.path.isdir(folder) or not os.access(folder, os.W_OK):
+            return _fail(
+                f"cannot write {args.plot}: {folder} is not a writable folder", EXIT_RUNTIME
             )
     stamp = SimulatedStamp(demo_site_timezone())
     options = DemoOptions(hours=hours, speed=speed, broker=broker, on_clock=stamp.set_clock)
