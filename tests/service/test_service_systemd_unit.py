@@ -63,5 +63,18 @@ def test_exec_start_is_a_valid_run_command_line() -> None:
     assert argv[0].endswith("/roomloop")
     args = build_parser().parse_args(argv[1:])
     assert args.command == "run"
-    assert args.config == "${CONFIGURATION_DIRECTORY}/site.yaml"
-    assert args.state_dir == "${STATE_DIRECTORY}"
+    assert args.config == "%E/roomloop/site.yaml"  # %E: /etc for a system unit
+    # No --state-dir: `roomloop run` takes $STATE_DIRECTORY, which StateDirectory= sets.
+    assert args.state_dir is None
+
+
+def test_run_takes_the_state_directory_systemd_gives(monkeypatch: pytest.MonkeyPatch) -> None:
+    from roomloop.cli.run import _state_dir
+
+    args = build_parser().parse_args(["run", "-c", "site.yaml"])
+    monkeypatch.setenv("STATE_DIRECTORY", "/var/lib/roomloop")
+    assert _state_dir(args, "/elsewhere") == "/var/lib/roomloop"
+    monkeypatch.delenv("STATE_DIRECTORY")
+    assert _state_dir(args, "/elsewhere") == "/elsewhere"
+    explicit = build_parser().parse_args(["run", "-c", "site.yaml", "--state-dir", "/tmp/x"])
+    assert _state_dir(explicit, "/elsewhere") == "/tmp/x"
