@@ -193,3 +193,29 @@ class StuckController(ZoneController):
 
     def step(self, state: Any, inputs: Any, now: float) -> Any:
         raise RuntimeError("stuck")
+
+
+async def test_a_hold_ends_at_hold_until_and_a_corrupt_state_file_does_not_block_start(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    server = await modbus_tcp_server()
+    site = make_site(tmp_path, server.port)
+    state_dir = tmp_path / "state"
+    state_dir.mkdir()
+    (state_dir / "test-annex.state.json").write_text('{"format": "roomloop-state", "zon')
+    clock = SimulatedClock(SPEED)
+    service = Service(site, clock=clock, state_dir=state_dir)
+    with capture_logs() as events:
+        async with RoomPlant(server, [19.0], SPEED), running(service):
+            await until(lambda: service.zones.get("room0") is not None)
+            await until(lambda: service.zones["room0"].outputs is not None)
+            service.apply_command("room0", "setpoint", 23.0)
+            service.apply_command("room0", "hold_until", clock.now() + 120.0)
+            runtime = service.zones["room0"]
+            assert runtime.state.mode == "hold"
+            # 120 simulated seconds are 2 s here; then the zone is back on its program.
+            await until(lambda: runtime.state.mode == "auto", 10)
+            assert runtime.outputs is not None and runtime.outputs.setpoint == 20.0
+    moved = [e for e in events if e["event"] == "persist.moved_aside"]
+    assert len(moved) == 1 and "not JSON" in moved[0]["reason"]
+    assert len(list(state_dir.glob("test-annex.state.json.bad-*"))) == 1

@@ -22,6 +22,7 @@ import sys
 import structlog
 
 from roomloop.config.loader import load_site
+from roomloop.config.models import Site
 from roomloop.service.clock import Clock, RealClock, SimulatedClock
 
 EXIT_OK = 0
@@ -67,14 +68,14 @@ def _configure_logging(level: str, fmt: str) -> None:
     configure_logging(level, fmt)
 
 
-async def _serve(site: object, state_dir: str, clock: Clock) -> None:
+async def _serve(site: Site, state_dir: str, clock: Clock) -> None:
     from roomloop.service.app import Service
 
     stop = asyncio.Event()
     loop = asyncio.get_running_loop()
     for signum in (signal.SIGTERM, signal.SIGINT):
         loop.add_signal_handler(signum, stop.set)
-    service = Service(site, clock=clock, state_dir=state_dir)  # type: ignore[arg-type]
+    service = Service(site, clock=clock, state_dir=state_dir)
     await service.run(stop)
 
 

@@ -33,6 +33,7 @@ from pathlib import Path
 from typing import Any
 from zoneinfo import ZoneInfo
 
+import aiomqtt
 import structlog
 
 from roomloop.config.models import (
@@ -579,9 +580,13 @@ class Service:
             client = self._broker.client if self._broker is not None else None
             if client is not None:
                 now = self.clock.now()
-                for message in self.publisher.due(now):
-                    await self._send(client, message)
-                    self.publisher.sent(message, now)
+                try:
+                    for message in self.publisher.due(now):
+                        await self._send(client, message)
+                        self.publisher.sent(message, now)
+                except (aiomqtt.MqttError, TimeoutError, OSError) as exc:
+                    # The broker went away mid-round; after the reconnect everything is resent.
+                    log.debug("broker.publish_interrupted", error=str(exc) or type(exc).__name__)
             self._publish_wake.clear()
             await self._sleep_or_wake(min(interval, 30.0), self._publish_wake)
             await asyncio.sleep(0.05)  # coalesce a burst of zone updates into one round
