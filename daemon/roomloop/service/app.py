@@ -173,7 +173,6 @@ class Service:
         self._inputs_ready = asyncio.Event()
         self._written: dict[str, bool] = {}
         self._last_saved_key: dict[str, str] = {}
-        self._last_periodic_save = 0.0
         self._broker: Any = None
         self.commands: CommandHandler | None = None
 
@@ -302,7 +301,7 @@ class Service:
                 await self._announce_offline()
                 for task in others:
                     task.cancel()
-        self._save(self.clock.now(), force=True)
+        self._save(self.clock.now())
         log.info("service.stopped", site=self.site.name)
 
     # ------------------------------------------------------------------ supervision
@@ -620,16 +619,16 @@ class Service:
 
     # ------------------------------------------------------------------ persistence
 
-    def _save(self, now: float, *, force: bool = False) -> None:
+    def _save(self, now: float) -> None:
+        """Write the zone states if they changed since the last write (the store compares)."""
         zones = {name: json.loads(r.state.to_json()) for name, r in self.zones.items()}
         try:
-            written = self.store.save(zones, now) if (force or zones) else False
+            written = self.store.save(zones, now)
         except OSError as exc:
             log.error("persist.save_failed", path=str(self.store.path), error=str(exc))
             return
         for name, runtime in self.zones.items():
             self._last_saved_key[name] = _persist_key(runtime.state)
-        self._last_periodic_save = now
         if written:
             log.debug("persist.saved", path=str(self.store.path))
 
@@ -638,9 +637,9 @@ class Service:
             with contextlib.suppress(TimeoutError):
                 async with asyncio.timeout(PERIODIC_SAVE_S / self.clock.speed):
                     await self._persist_dirty.wait()
+            await asyncio.sleep(0.05)  # one write for a burst (a command and the switch it causes)
             self._persist_dirty.clear()
             self._save(self.clock.now())
-            await asyncio.sleep(0.2)  # coalesce bursts (a command and the switch it causes)
 
     # ------------------------------------------------------------------ systemd
 
