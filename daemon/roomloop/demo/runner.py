@@ -21,7 +21,7 @@ from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from importlib import resources
 from pathlib import Path
-from typing import Protocol
+from typing import Any, Protocol
 from zoneinfo import ZoneInfo
 
 import structlog
@@ -372,16 +372,21 @@ class _Demo:
             if not completed:
                 self.say(ended_at, "demo: stopping early (interrupted)")
             await server.catch_up()
+            # The plants and the view stop with the run; only the service's stop is left.
+            await _cancel(plants, scenario, refresh, stopper)
             service_stop.set()
             try:
                 await asyncio.wait_for(asyncio.shield(service_task), SERVICE_STOP_S)
             except TimeoutError:
-                raise DemoError("the service did not stop within its time") from None
+                waiting = _pending_tasks({plants, scenario, refresh, stopper, service_task})
+                log.error("demo.service_stop_stuck", within_s=SERVICE_STOP_S, tasks=waiting)
+                raise DemoError(
+                    f"the service did not stop within {SERVICE_STOP_S:g} s; still running: "
+                    + "; ".join(waiting)
+                ) from None
             relays = await server.relays()
         finally:
-            for task in (plants, scenario, refresh, stopper):
-                task.cancel()
-            await asyncio.gather(plants, scenario, refresh, stopper, return_exceptions=True)
+            await _cancel(plants, scenario, refresh, stopper)
             if not service_task.done():
                 service_stop.set()
                 service_task.cancel()
@@ -474,6 +479,29 @@ def _clipped(timeline: Timeline, ended_at: float) -> Timeline:
         timeline.silence_start,
         timeline.silence_end,
     )
+
+
+async def _cancel(*tasks: asyncio.Task[Any]) -> None:
+    for task in tasks:
+        task.cancel()
+    await asyncio.gather(*tasks, return_exceptions=True)
+
+
+def _pending_tasks(ours: set[asyncio.Task[Any]]) -> list[str]:
+    """The service's tasks that have not ended, each with where it waits (for the error)."""
+    out: list[str] = []
+    for task in asyncio.all_tasks():
+        if task.done() or task in ours or task is asyncio.current_task():
+            continue
+        frames = task.get_stack()
+        where = (
+            f"{frames[-1].f_code.co_name} ({Path(frames[-1].f_code.co_filename).name}:"
+            f"{frames[-1].f_lineno})"
+            if frames
+            else "?"
+        )
+        out.append(f"{task.get_name()} at {where}")
+    return out
 
 
 def _task_error(task: asyncio.Task[None]) -> str:
