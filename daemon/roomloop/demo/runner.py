@@ -380,8 +380,11 @@ class _Demo:
             except TimeoutError:
                 waiting = _pending_tasks({plants, scenario, refresh, stopper, service_task})
                 log.error("demo.service_stop_stuck", within_s=SERVICE_STOP_S, tasks=waiting)
+                coils = await server.relays()
                 raise DemoError(
-                    f"the service did not stop within {SERVICE_STOP_S:g} s; still running: "
+                    f"the service did not stop within {SERVICE_STOP_S:g} s (outputs now: "
+                    + ", ".join(f"{z} {'on' if on else 'off'}" for z, on in coils.items())
+                    + "); still running: "
                     + "; ".join(waiting)
                 ) from None
             relays = await server.relays()
