@@ -160,6 +160,8 @@ class ServiceProcess:
         self.speed = speed
         self.log_path = log_path
         self.process: asyncio.subprocess.Process | None = None
+        self.stopping = False
+        """Set when the test itself ends the process (a signal), so its exit is expected."""
         self._log: Any = None
 
     async def start(self, extra_env: dict[str, str] | None = None) -> None:
@@ -185,8 +187,16 @@ class ServiceProcess:
             env=env,
         )
 
+    def died(self) -> str | None:
+        """Why the service ended on its own (the tail of its log), or None while all is well."""
+        if self.process is None or self.stopping or self.process.returncode is None:
+            return None
+        tail = self.log_path.read_text(errors="replace").splitlines()[-5:]
+        return f"the service exited with {self.process.returncode}: " + " | ".join(tail)
+
     async def signal(self, signum: int, timeout_s: float = 10.0) -> int:
         assert self.process is not None
+        self.stopping = True
         self.process.send_signal(signum)
         try:
             return await asyncio.wait_for(self.process.wait(), timeout_s)
@@ -194,6 +204,7 @@ class ServiceProcess:
             self._close()
 
     async def stop(self) -> None:
+        self.stopping = True
         if self.process is not None and self.process.returncode is None:
             self.process.send_signal(signal.SIGKILL)
             await asyncio.wait_for(self.process.wait(), 10)
@@ -225,6 +236,8 @@ class Watcher:
         self.client: aiomqtt.Client | None = None
         self._task: asyncio.Task[None] | None = None
         self.changed = asyncio.Event()
+        self.guard: Callable[[], str | None] = lambda: None
+        """Checked while waiting: a message when the service died, to fail at once and say why."""
 
     async def __aenter__(self) -> Watcher:
         self._task = asyncio.create_task(self._run(), name="watcher")
@@ -277,6 +290,9 @@ class Watcher:
         """Wait until ``condition()`` holds; fail the test after ``timeout_s`` real seconds."""
         deadline = time.monotonic() + timeout_s
         while not condition():
+            died = self.guard()
+            if died is not None:
+                raise AssertionError(died)
             if time.monotonic() > deadline:
                 raise AssertionError(f"condition not met within {timeout_s} s")
             await asyncio.sleep(0.02)

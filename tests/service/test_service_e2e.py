@@ -47,6 +47,7 @@ class Rig:
     async def restart_service(self) -> None:
         old = self.service
         self.service = ServiceProcess(old.config, old.state_dir, SPEED, old.log_path, old.origin)
+        self.watcher.guard = self.service.died
         await self.service.start()
 
 
@@ -78,6 +79,7 @@ async def _rig(
         Watcher(mosquitto.host, mosquitto.port, PREFIX) as watcher,
     ):
         rig = Rig(server, plant, mosquitto, watcher, service, tmp_path)
+        watcher.guard = service.died
         try:
             yield rig
         finally:
