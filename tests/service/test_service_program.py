@@ -16,7 +16,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from roomloop.config.models import ProgramEntry
-from roomloop.service.program import level_at, next_change, switch_instant
+from roomloop.service.program import ProgramCursor, level_at, next_change, switch_instant
 
 VIENNA = ZoneInfo("Europe/Vienna")
 UTC = dt.UTC
@@ -105,3 +105,20 @@ def test_next_change_is_where_the_level_really_changes(when: int) -> None:
     assert level_at(PROGRAM, change.at - 1, VIENNA) == current
     assert level_at(PROGRAM, change.at, VIENNA) == change.level
     assert 0 < change.at - when <= 24 * 3600
+
+
+@settings(max_examples=100, deadline=None)
+@given(
+    st.lists(st.integers(min_value=0, max_value=400), min_size=1, max_size=40).map(sorted),
+    st.sampled_from([60, 600, 86400]),
+    st.booleans(),
+)
+def test_cursor_answers_like_the_functions(steps: list[int], scale: int, backwards: bool) -> None:
+    start = int(utc(2026, 3, 27))  # runs across the spring-forward change at scale 600
+    times = [start + k * scale for k in steps]
+    if backwards:
+        times = times[::-1]  # time running backwards: the cursor must recompute
+    cursor = ProgramCursor(PROGRAM, VIENNA)
+    for when in times:
+        expected = (level_at(PROGRAM, when, VIENNA), next_change(PROGRAM, when, VIENNA))
+        assert cursor.at(when) == expected

@@ -56,7 +56,7 @@ from roomloop.service.clock import Clock, RealClock
 from roomloop.service.commands import Command, CommandHandler
 from roomloop.service.notify import Progress, notify, watchdog_interval_s
 from roomloop.service.persist import StateStore
-from roomloop.service.program import level_at, next_change
+from roomloop.service.program import ProgramCursor
 from roomloop.service.publisher import (
     OFFLINE,
     ONLINE,
@@ -97,7 +97,7 @@ OnTick = Callable[[TickReport], None]
 class ZoneRuntime:
     """One zone's settings, controller, state and wanted output, shared by its tasks."""
 
-    def __init__(self, zone: Zone, settings: ZoneSettings, state: ZoneState) -> None:
+    def __init__(self, zone: Zone, settings: ZoneSettings, state: ZoneState, tz: ZoneInfo) -> None:
         self.zone = zone
         self.settings = settings
         self.controller = ZoneController(settings)
@@ -108,6 +108,7 @@ class ZoneRuntime:
         self.decided = False
         self.wake = asyncio.Event()
         self.steps = 0
+        self.program = ProgramCursor(zone.program, tz, zone.default_level)
 
     @property
     def name(self) -> str:
@@ -229,7 +230,7 @@ class Service:
                     log.info("persist.zone_restored", zone=zone.name, mode=state.mode)
                     # The output was held at its safe state from the restart on.
                     state = controller.resume(state, now, relay_on=zone.safe_state == "on")
-            runtime = ZoneRuntime(zone, settings, state)
+            runtime = ZoneRuntime(zone, settings, state, self.tz)
             self.zones[zone.name] = runtime
             self._last_saved_key[zone.name] = _persist_key(state)
 
@@ -394,7 +395,7 @@ class Service:
         backup_name = zone.fail_safe.backup_point
         while True:
             now = self.clock.now()
-            level = level_at(zone.program, now, self.tz, zone.default_level)
+            level, _ = runtime.program.at(now)
             inputs = ZoneInputs(
                 samples=self._samples(zone.inputs, now),
                 scheduled_level=level,
@@ -435,9 +436,7 @@ class Service:
             output_verdict=None if out_state is None else out_state.verdict,
             output_confirmed=None if out_state is None else out_state.confirmed,
             hold_until=runtime.state.hold_until,
-            next_change=next_change(zone.program, now, self.tz, zone.default_level)
-            if runtime.state.mode == "auto"
-            else None,
+            next_change=runtime.program.at(now)[1] if runtime.state.mode == "auto" else None,
         )
         self.publisher.update(view)
         self._publish_wake.set()

@@ -17,6 +17,7 @@ Pure functions: time comes in as POSIX seconds, nothing reads a clock.
 from __future__ import annotations
 
 import datetime as dt
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 from zoneinfo import ZoneInfo
@@ -106,3 +107,32 @@ def next_change(
         if switch.at > when and switch.level != current:
             return switch
     return None
+
+
+class ProgramCursor:
+    """:func:`level_at` and :func:`next_change` for a zone's ticks, computed once per change.
+
+    Between two switch points the answer cannot change, so a zone ticking every
+    few seconds recomputes only when it passes the next change (or when time
+    jumps back, e.g. a clock set back).
+    """
+
+    def __init__(
+        self, entries: Sequence[ProgramEntry], tz: ZoneInfo, default: Level = "comfort"
+    ) -> None:
+        self.entries = tuple(entries)
+        self.tz = tz
+        self.default = default
+        self._since = math.inf
+        self._until = -math.inf
+        self._level: Level = default
+        self._next: Switch | None = None
+
+    def at(self, when: float) -> tuple[Level, Switch | None]:
+        """The level in force at ``when`` and the next change after it (None: never)."""
+        if not self._since <= when < self._until:
+            self._level = level_at(self.entries, when, self.tz, self.default)
+            self._next = next_change(self.entries, when, self.tz, self.default)
+            self._since = when
+            self._until = math.inf if self._next is None else self._next.at
+        return self._level, self._next
