@@ -172,6 +172,7 @@ class Service:
         self._publish_wake = asyncio.Event()
         self._outputs_wake = asyncio.Event()
         self._inputs_ready = asyncio.Event()
+        self._links_up = asyncio.Event()
         self._written: dict[str, bool] = {}
         self._last_saved_key: dict[str, str] = {}
         self._broker: Any = None
@@ -346,25 +347,27 @@ class Service:
     # ------------------------------------------------------------------ links
 
     async def _poll_loop(self, link: ModbusLink) -> None:
-        first = True
         while True:
             await link.poll()
             await link.reassert_due(self.clock.now())
             link.cycles += 1
-            if first:
-                first = False
-                self._check_inputs_ready()
+            self._check_links()
             await self.clock.sleep(link.link.poll_interval_s)
 
-    def _check_inputs_ready(self) -> None:
-        if all(link.cycles > 0 for link in self.links.values()):
+    def _check_links(self) -> None:
+        """Zones start once every link was polled once (answered or not); READY once all answer."""
+        links = self.links.values()
+        if all(link.cycles > 0 for link in links):
             self._inputs_ready.set()
+            if all(link.connected for link in links):
+                self._links_up.set()
 
     async def _ready_once(self) -> None:
+        """READY=1 once every link answers, or after ``ready_wait_s`` (a dead link blocks none)."""
         if self.links:
             with contextlib.suppress(TimeoutError):
                 async with asyncio.timeout(self.ready_wait_s):
-                    await self._inputs_ready.wait()
+                    await self._links_up.wait()
         self._inputs_ready.set()
         down = [name for name, link in self.links.items() if not link.connected]
         self.ready.set()
