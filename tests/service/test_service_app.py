@@ -219,3 +219,25 @@ async def test_a_hold_ends_at_hold_until_and_a_corrupt_state_file_does_not_block
     moved = [e for e in events if e["event"] == "persist.moved_aside"]
     assert len(moved) == 1 and "not JSON" in moved[0]["reason"]
     assert len(list(state_dir.glob("test-annex.state.json.bad-*"))) == 1
+
+
+async def test_ready_waits_for_the_links_but_only_so_long(tmp_path: Path) -> None:
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        port = sock.getsockname()[1]
+    site = make_site(tmp_path, port)  # nothing listens there: the link stays down
+    service = Service(
+        site, clock=SimulatedClock(SPEED), state_dir=tmp_path / "state", ready_wait_s=1.5
+    )
+    with capture_logs() as events:
+        async with running(service):
+            started = time.monotonic()
+            await until(lambda: service.zones.get("room0") is not None)
+            # The zone runs (on no reading) while READY still waits for the link ...
+            await until(lambda: service.zones["room0"].steps > 0, 5)
+            assert not service.ready.is_set()
+            # ... until the bounded wait is over.
+            await until(service.ready.is_set, 5)
+            assert time.monotonic() - started >= 1.0
+    ready = [e for e in events if e["event"] == "service.ready"]
+    assert ready and ready[0]["links_down"] == ["rooms"]
