@@ -234,6 +234,27 @@ async def test_output_write_read_back_mismatch_and_reassert(modbus_tcp_server: A
         assert mismatches[0]["point"] == "valve" and mismatches[0]["raw"] == 0
 
 
+async def test_a_new_decision_is_never_overtaken_by_a_reassert(modbus_tcp_server: Any) -> None:
+    """The poll loop's re-assert of the old state and the output writer's new decision race.
+
+    The new decision is queued first and the re-assert of the old wanted state comes while
+    it is in flight; the coil must end at the new decision and the link must want it.
+    """
+    server = await modbus_tcp_server()
+    clock = [1000.0]
+    link = ModbusLink(tcp_link(server), [], [out("relay", 3, reassert_s=60)], clock=lambda: clock[0])
+    async with link:
+        assert (await link.set_output("relay", True)).verdict == "ok"
+        clock[0] += 61  # a re-assert of "on" is now due
+        switch_off = asyncio.create_task(link.set_output("relay", False))
+        await asyncio.sleep(0)  # the off write is under way
+        await link.reassert_due(clock[0])
+        state = await asyncio.wait_for(switch_off, 5)
+        assert await server.get_coils(3, 1) == [False]
+        assert (state.wanted, state.verdict) == (False, "ok")
+        assert link.output_state("relay").wanted is False
+
+
 async def test_write_to_an_unreachable_device(modbus_tcp_server: Any) -> None:
     server = await modbus_tcp_server()
     link = ModbusLink(tcp_link(server), [], [out("relay", 0)], reconnect_min_s=0.0)

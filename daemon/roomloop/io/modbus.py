@@ -124,6 +124,11 @@ class ModbusLink:
             name: PointSample(name, None, None, "comm-failure") for name in self.inputs
         }
         self._outputs: dict[str, OutputState] = {name: OutputState(name) for name in self.outputs}
+        self._wanted: dict[str, bool] = {}
+        """The latest wanted state per output, set before any write queues for the lock."""
+        self._output_locks = {name: asyncio.Lock() for name in self.outputs}
+        """One write-and-read-back at a time per output, so a re-assert of the old state
+        can never interleave with the write of a new decision."""
         self.cycles = 0
         """Completed poll cycles (tests and status use it)."""
         self.requests = 0
@@ -425,7 +430,17 @@ class ModbusLink:
         return (await self._read_registers(point.unit_id, "holding", point.address, 1))[0]
 
     async def set_output(self, name: str, on: bool) -> OutputState:
-        """Write the on or off value, read it back if configured; the state says what happened."""
+        """Write the on or off value, read it back if configured; the state says what happened.
+
+        The wanted state is recorded at once; the write itself waits for the output's lock
+        and then writes whatever is wanted by then, so the newest decision always wins.
+        """
+        self._wanted[name] = on
+        async with self._output_locks[name]:
+            return await self._write_output(name, self._wanted[name])
+
+    async def _write_output(self, name: str, on: bool) -> OutputState:
+        """Write and read back one output; the caller holds the output's lock."""
         point = self.outputs[name]
         value = point.on_value if on else point.off_value
         now = self._clock()
@@ -490,12 +505,14 @@ class ModbusLink:
         """Write again each commanded output due (``reassert_s``) or whose last write failed."""
         done: list[OutputState] = []
         for name, point in self.outputs.items():
-            state = self._outputs[name]
-            if state.wanted is None:
-                continue
-            overdue = state.written_at is None or now - state.written_at >= point.reassert_s
-            if overdue or state.verdict in ("comm-failure", "mismatch"):
-                done.append(await self.set_output(name, state.wanted))
+            async with self._output_locks[name]:
+                wanted = self._wanted.get(name)
+                if wanted is None:
+                    continue
+                state = self._outputs[name]
+                overdue = state.written_at is None or now - state.written_at >= point.reassert_s
+                if overdue or state.verdict in ("comm-failure", "mismatch"):
+                    done.append(await self._write_output(name, wanted))
         return done
 
     # ------------------------------------------------------------------ loop
