@@ -242,7 +242,8 @@ async def test_a_new_decision_is_never_overtaken_by_a_reassert(modbus_tcp_server
     """
     server = await modbus_tcp_server()
     clock = [1000.0]
-    link = ModbusLink(tcp_link(server), [], [out("relay", 3, reassert_s=60)], clock=lambda: clock[0])
+    relay = out("relay", 3, reassert_s=60)
+    link = ModbusLink(tcp_link(server), [], [relay], clock=lambda: clock[0])
     async with link:
         assert (await link.set_output("relay", True)).verdict == "ok"
         clock[0] += 61  # a re-assert of "on" is now due
