@@ -62,9 +62,13 @@ def build_parser() -> argparse.ArgumentParser:
     check = add("check", "validate a site file and print the resolved zones, points and links")
     check.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help="the site file")
 
-    sim = add("simulate", "run one zone's controller against a plant model on the standard protocol")
+    sim = add(
+        "simulate", "run one zone's controller against a plant model on the standard protocol"
+    )
     who = sim.add_mutually_exclusive_group(required=True)
-    who.add_argument("-c", "--config", metavar="SITE.yaml", help="take the zone from this site file")
+    who.add_argument(
+        "-c", "--config", metavar="SITE.yaml", help="take the zone from this site file"
+    )
     who.add_argument(
         "--heating",
         metavar="TYPE",
@@ -88,7 +92,10 @@ def build_parser() -> argparse.ArgumentParser:
     sim.add_argument("--json", metavar="OUT.json", help="write the figures as JSON")
     sim.add_argument("--plot", metavar="OUT.png", help="write a plot (needs the 'plot' extra)")
 
-    probe = add("probe", "commissioning: read one point (or switch an output) and show raw and decoded values")
+    probe = add(
+        "probe",
+        "commissioning: read one point (or switch an output) and show raw and decoded values",
+    )
     probe.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help="the site file")
     probe.add_argument("point", metavar="POINT", help="the point's name")
     probe.add_argument("--set", choices=["on", "off"], help="switch an output, then read it back")
@@ -99,14 +106,28 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument(
         "--state-dir",
         metavar="DIR",
-        help="where runtime state is kept (default: the site's state_dir, or $STATE_DIRECTORY under systemd)",
+        help=(
+            "where runtime state is kept "
+            "(default: the site's state_dir, or $STATE_DIRECTORY under systemd)"
+        ),
     )
 
-    demo = add("demo", "run an invented three-zone site against simulated plants over real Modbus TCP")
+    demo = add(
+        "demo", "run an invented three-zone site against simulated plants over real Modbus TCP"
+    )
     demo.add_argument("--hours", type=float, default=8.0, help="simulated hours (default 8)")
-    demo.add_argument("--speed", type=float, default=None, help="simulated seconds per real second (default: 8 h in about a minute)")
-    demo.add_argument("--broker", metavar="HOST:PORT", help="also publish to this MQTT broker, as 'run' does")
-    demo.add_argument("--plot", metavar="OUT.png", help="write a plot of every zone (needs the 'plot' extra)")
+    demo.add_argument(
+        "--speed",
+        type=float,
+        default=None,
+        help="simulated seconds per real second (default: 8 h in about a minute)",
+    )
+    demo.add_argument(
+        "--broker", metavar="HOST:PORT", help="also publish to this MQTT broker, as 'run' does"
+    )
+    demo.add_argument(
+        "--plot", metavar="OUT.png", help="write a plot of every zone (needs the 'plot' extra)"
+    )
     return parser
 
 
