@@ -73,6 +73,8 @@ READY_WAIT_S = 15.0
 STOP_OUTPUTS_S = 2.5
 """Real seconds the safe-state writes at stop may take (the whole stop stays under 5 s)."""
 STOP_BROKER_S = 1.0
+STOP_TASKS_S = 1.5
+"""Real seconds the control tasks get to end once cancelled, before the outputs go safe."""
 PERIODIC_SAVE_S = 300.0
 """Clock seconds between saves of the slowly drifting terms (droop, learned duty)."""
 WATCHDOG_GRACE_S = 30.0
@@ -296,9 +298,7 @@ class Service:
                 await stop.wait()
                 log.info("service.stopping", site=self.site.name)
                 notify("STOPPING=1")
-                for task in control:
-                    task.cancel()
-                await asyncio.gather(*control, return_exceptions=True)
+                await _cancel_and_wait(control, STOP_TASKS_S)
                 await self._stop_outputs()
                 await self._announce_offline()
                 for task in others:
@@ -670,3 +670,27 @@ async def run_service(
     service = Service(site, clock=clock, state_dir=state_dir, on_tick=on_tick)
     await service.run(stop if stop is not None else asyncio.Event())
     return service
+
+
+async def _cancel_and_wait(tasks: Sequence[asyncio.Task[None]], within_s: float) -> None:
+    """Cancel ``tasks`` and wait for them, cancelling again any that swallowed the request.
+
+    A library's own ``wait_for`` can lose a cancellation that arrives just as its reply
+    does (seen with pymodbus on Python 3.11), which left a poll task running and the
+    stop waiting forever. Here the wait is bounded and the request repeated; whatever
+    still runs after ``within_s`` is named in the log, and the stop goes on regardless.
+    """
+    deadline = time.monotonic() + within_s
+    pending = {task for task in tasks if not task.done()}
+    while pending:
+        for task in pending:
+            task.cancel()
+        left = deadline - time.monotonic()
+        if left <= 0:
+            log.error(
+                "service.tasks_not_stopping",
+                tasks=sorted(task.get_name() for task in pending),
+                within_s=within_s,
+            )
+            return
+        _, pending = await asyncio.wait(pending, timeout=min(0.25, left))
