@@ -101,6 +101,19 @@ def test_sentinels_common_transmitter_values() -> None:
     assert decode_point(p, [0x7FFE]).value == pytest.approx(3276.6)
 
 
+def test_sentinels_with_a_verdict_each() -> None:
+    # REFERENCES.md: 0x7FFF over range, 0x8000 not available, 0x8001 under range [trade]:
+    # "not available" is no range verdict, so the site file can name it per value.
+    p = point(
+        scale=0.1, sentinels={0x7FFF: "over-range", 0x8000: "comm-failure", 0x8001: "under-range"}
+    )
+    assert decode_point(p, [0x7FFF]).transport == "over-range"
+    assert decode_point(p, [0x8000]).transport == "comm-failure"
+    assert decode_point(p, [0x8001]).transport == "under-range"
+    assert all(decode_point(p, [r]).value is None for r in (0x7FFF, 0x8000, 0x8001))
+    assert decode_point(p, [0x00D7]).value == pytest.approx(21.5)
+
+
 def test_32_bit_sentinel_compared_in_value_order() -> None:
     p = point(data_type="uint32", word_order="little", sentinels=(0xFFFFFFFF,))
     assert decode_point(p, [0xFFFF, 0xFFFF]).value is None

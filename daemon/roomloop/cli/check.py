@@ -142,7 +142,9 @@ def _point_text(point: ModbusInput | MqttInput | ModbusOutput | MqttOutput, unit
             )
             if point.sentinels:
                 text += ", no reading when raw is " + " or ".join(
-                    f"0x{s & 0xFFFFFFFF:04X}" for s in point.sentinels
+                    f"0x{s & 0xFFFFFFFF:04X}"
+                    + (f" ({verdict})" if (verdict := point.sentinel_verdict(s)) else "")
+                    for s in point.sentinel_values
                 )
             return text
         field = f", field {point.field}" if point.field else ", plain number"

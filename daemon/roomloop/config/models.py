@@ -240,6 +240,32 @@ class Broker(Strict):
 # --------------------------------------------------------------------------- points
 
 MODBUS_MAX_ADDRESS = 0xFFFF
+SentinelVerdict = Literal["over-range", "under-range", "comm-failure"]
+
+
+def _sentinel_map(value: Any) -> Any:
+    """A list of raw values, or a mapping raw value -> verdict, as one mapping.
+
+    Keys may be written in hex (``0x8000``); YAML may hand them over as text.
+    """
+    if isinstance(value, list | tuple):
+        value = {item: None for item in value}
+    if not isinstance(value, dict):
+        return value
+    out: dict[Any, Any] = {}
+    for written, verdict in value.items():
+        key = written
+        if isinstance(written, str):
+            try:
+                key = int(written.strip(), 0)
+            except ValueError:
+                raise ValueError(
+                    f"{key!r} is not a raw register value (e.g. 32768 or 0x8000)"
+                ) from None
+        out[key] = verdict
+    return out
+
+
 DATA_TYPE_REGISTERS = {"int16": 1, "uint16": 1, "int32": 2, "uint32": 2, "float32": 2}
 
 
@@ -295,8 +321,21 @@ class ModbusInput(InputBase):
     """Registers the value spans; implied by data_type, checked against it if given."""
     word_order: Literal["big", "little"] = "big"
     byte_order: Literal["big", "little"] = "big"
-    sentinels: tuple[int, ...] = ()
-    """Raw register values the device sends for 'no reading' (e.g. 0x7FFF, 0x8000)."""
+    sentinels: Annotated[dict[int, SentinelVerdict | None], BeforeValidator(_sentinel_map)] = {}
+    """Raw register values the device sends instead of a reading (e.g. 0x7FFF, 0x8000).
+
+    A list lets roomloop judge each by which half of the valid range it would fall in
+    (0x7FFF ``over-range``, 0x8001 ``under-range``); a mapping names the verdict per
+    value, e.g. ``{0x7FFF: over-range, 0x8000: comm-failure, 0x8001: under-range}``.
+    """
+
+    def sentinel_verdict(self, value: int) -> SentinelVerdict | None:
+        """The configured verdict of a sentinel value (None: judge it by the valid range)."""
+        return self.sentinels.get(value)
+
+    @property
+    def sentinel_values(self) -> tuple[int, ...]:
+        return tuple(self.sentinels)
 
     @model_validator(mode="after")
     def _fits(self) -> ModbusInput:

@@ -141,40 +141,54 @@ def range_verdict(celsius: float, valid_range: tuple[float, float]) -> Reliabili
     return "ok"
 
 
-def is_sentinel(registers: Sequence[int], point: ModbusInput) -> bool:
-    """True when the raw value is one of the point's configured 'no reading' values.
+def matched_sentinel(registers: Sequence[int], point: ModbusInput) -> int | None:
+    """The configured 'no reading' value the raw registers match, or None.
 
     A sentinel matches the unsigned raw value (``0x8000``) or, for signed types,
     the signed one (``-32768``), so either spelling in the site file works.
     """
     if not point.sentinels:
-        return False
+        return None
     unsigned = unsigned_raw(registers, point.word_order, point.byte_order)
     candidates = {unsigned}
     if point.data_type in ("int16", "int32"):
         candidates.add(
             int(decode_raw(registers, point.data_type, point.word_order, point.byte_order))
         )
-    return any(s in candidates for s in point.sentinels)
+    for sentinel in point.sentinel_values:
+        if sentinel in candidates:
+            return sentinel
+    return None
+
+
+def is_sentinel(registers: Sequence[int], point: ModbusInput) -> bool:
+    """True when the raw value is one of the point's configured 'no reading' values."""
+    return matched_sentinel(registers, point) is not None
 
 
 def decode_point(point: ModbusInput, registers: Sequence[int]) -> Decoded:
     """Decode one input point's registers into Celsius and a verdict; never raises for bad data.
 
-    Verdicts: a sentinel gives no value and ``over-range`` or ``under-range`` by
-    which half of the valid range its scaled value falls in (0x7FFF above,
-    0x8000/0x8001 below); NaN gives no value and ``comm-failure``; +-inf gives
-    no value and over/under-range; a finite value outside ``valid_range`` keeps
-    the value with the range verdict.
+    Verdicts: a sentinel gives no value and the verdict configured for it, or
+    else ``over-range`` or ``under-range`` by which half of the valid range its
+    scaled value falls in (0x7FFF above, 0x8000/0x8001 below); NaN gives no value
+    and ``comm-failure``; +-inf gives no value and over/under-range; a finite
+    value outside ``valid_range`` keeps the value with the range verdict.
     """
     try:
         raw = decode_raw(registers, point.data_type, point.word_order, point.byte_order)
     except CodecError as exc:
         return Decoded(None, "comm-failure", 0, f"undecodable: {exc}")
-    if is_sentinel(registers, point):
-        scaled = to_celsius(raw * point.scale + point.offset, point.unit)
-        low, high = point.valid_range
-        verdict: Reliability = "over-range" if scaled >= (low + high) / 2 else "under-range"
+    sentinel = matched_sentinel(registers, point)
+    if sentinel is not None:
+        configured = point.sentinel_verdict(sentinel)
+        verdict: Reliability
+        if configured is not None:
+            verdict = configured
+        else:
+            scaled = to_celsius(raw * point.scale + point.offset, point.unit)
+            low, high = point.valid_range
+            verdict = "over-range" if scaled >= (low + high) / 2 else "under-range"
         unsigned = unsigned_raw(registers, point.word_order, point.byte_order)
         hex_raw = f"0x{unsigned:0{4 * len(registers)}X}"
         return Decoded(None, verdict, raw, f"sentinel {hex_raw}")
