@@ -114,8 +114,9 @@ def test_origins_of_each_value() -> None:
     assert origins["differential_k"] == "preset hydronic"
     assert origins["anticipator_time_constant_s"] == "derived from cycle rate"
     assert tuning.min_on_s == 240 and tuning.min_off_s == PRESETS["hydronic"].min_off_s
-    # 2 cph, the preset's G = 1.5, D = 0.5: tau = 3600 / (4 ln 2) = 1298.43 s (hand computation).
-    assert tuning.anticipator_time_constant_s == pytest.approx(1298.43, abs=0.01)
+    # 2 cph, the preset's G = 2.5, D = 0.5: tau = 3600 / (4 ln 1.5) = 2219.67 s (hand computation).
+    assert PRESETS["hydronic"].anticipator_gain_k == 2.5
+    assert tuning.anticipator_time_constant_s == pytest.approx(2219.67, abs=0.01)
 
 
 def test_given_time_constant_wins() -> None:

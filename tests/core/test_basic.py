@@ -27,7 +27,8 @@ def test_for_heating_type_uses_the_preset_and_derives_tau() -> None:
     assert s.cycle_rate_cph == 3.0
     assert s.inputs[0].name == "temperature"
     # DESIGN.md cycle-rate sizing: tau = 3600 / (2 cph ln((G + D)/(G - D)))
-    expected = 3600.0 / (2 * 3.0 * math.log((1.5 + 0.5) / (1.5 - 0.5)))
+    assert (s.anticipator_gain_k, s.differential_k) == (2.5, 0.5)  # the hydronic preset
+    expected = 3600.0 / (2 * 3.0 * math.log((2.5 + 0.5) / (2.5 - 0.5)))
     assert s.anticipator_time_constant_s == pytest.approx(expected)
 
 

@@ -173,7 +173,14 @@ def test_stuck_sensor_is_detected() -> None:
     # an honest sensor in a cycling room is never called stuck
     assert all(out.reliability["temperature"] == "ok" for _, out, _ in trace[10:])
     t, _, state = trace[-1]
+    # A reading frozen above the set point keeps the relay off for good, and the check counts
+    # relay-on time only (issue 3): freeze the sensor at a moment it reads the set point or less.
+    for _ in range(360):  # bounded: the room crosses the set point every cycle
+        if round(plant.temperature, 1) <= 20.0:
+            break
+        t, _, state = simulate(controller, plant, state, start=t, end=t + TICK)[-1]
     frozen = round(plant.temperature, 1)
+    assert frozen <= 20.0
     stuck = simulate(
         controller, plant, state, start=t, end=t + 6 * 3600.0, reading=lambda now, v: frozen
     )

@@ -88,12 +88,13 @@ def test_anticipator_cycle_rate_matches_its_sizing_on_a_slow_plant() -> None:
     # at the rate the anticipator time constant was derived from (REFERENCES.md [derived]).
     # A room of 200 MJ/K barely moves within a cycle; tolerance 5 %.
     spec = single_node(2.0e8)
-    base = ZoneSettings.for_heating_type("hydronic")  # 3 cph, G 1.5 K, D 0.5 K
+    base = ZoneSettings.for_heating_type("hydronic")  # 3 cph, the preset's G, D 0.5 K
     settings = dataclasses.replace(
         base, min_on_s=0.0, min_off_s=0.0, max_cycles_per_hour=60, droop_compensation=False
     )
     # Start where the anticipator's mean bias G x 0.5 puts the room, so it cycles at once.
-    sim = PlantSimulation(spec, outdoor_c=spec.outdoor_for_load_c(0.5), room_c=19.25)
+    room = 20.0 - base.anticipator_gain_k * 0.5
+    sim = PlantSimulation(spec, outdoor_c=spec.outdoor_for_load_c(0.5), room_c=room)
     _, relay = drive(
         ZoneController(settings), sim, hours=12, skip_hours=2, name=settings.inputs[0].name
     )

@@ -4,10 +4,19 @@ Sources (../shared/REFERENCES.md):
 - cycle rates: forced-air gas/oil 5-6, hot water / radiant 3, steam or gravity 1,
   electric 9 cycles per hour [trade, common practice, no single source];
 - differential about 0.5 K [trade, common practice, no source];
-- minimum on/off times and the anticipator gain are common practice, no source:
-  minimum times keep a burner or pump from short runs without eating much of the
-  cycle; the gain is a few times the differential so that the anticipator, not
-  the room's slow response, sets the cycle.
+- minimum on/off times are common practice, no source: they keep a burner or pump
+  from short runs without eating much of the cycle;
+- the maximum cycles per hour is the cycle rate + 1, a backstop above the rate the
+  anticipator is sized and regulated for [common practice, no source];
+- the anticipator gain and the droop time have no outside source: the gain is a few
+  times the differential so that the anticipator, not the room's slow response, sets
+  the cycle (it also sets how hard the relay's on-fraction answers a deviation: about
+  100 % per (G - D) kelvin), and the droop time is how fast the droop term follows a
+  change of load. Both were picked by a sweep on the heating type's built-in plant
+  (gains 1-6 K, droop times 40 min-3 h; tests/bench/control_quality.py, seeds 1-3,
+  lowest worst-phase control accuracy, then lowest recovery overshoot), as the
+  baselines' PI tuning was (roomloop/plant/baselines.py). Steam has no built-in
+  plant: it keeps the plain choices (gain 1.5 K, droop time 3 h).
 
 The anticipator time constant is derived from the cycle rate with the formula of
 ../shared/DESIGN.md ("Cycle-rate sizing"): at 50 % on-time the relay oscillates
@@ -35,14 +44,20 @@ class Preset:
 
 
 PRESETS: dict[str, Preset] = {
-    # A fast air heater: 5 cph (gas/oil forced air 5-6 [trade]).
-    "forced-air": Preset(5.0, 0.5, 1.5, 120.0, 120.0, 6, 3600.0),
-    # Panel radiators on a boiler: 3 cph (hot water [trade]).
-    "hydronic": Preset(3.0, 0.5, 1.5, 180.0, 180.0, 4, 5400.0),
+    # A fast air heater: 5 cph (gas/oil forced air 5-6 [trade]); gain 2.5 K and droop
+    # time 1 h from the sweep on the forced-air plant [no source].
+    "forced-air": Preset(5.0, 0.5, 2.5, 120.0, 120.0, 6, 3600.0),
+    # Panel radiators on a boiler: 3 cph (hot water [trade]); gain 2.5 K and droop time
+    # 1 h from the sweep on the hydronic plant [no source].
+    "hydronic": Preset(3.0, 0.5, 2.5, 180.0, 180.0, 4, 3600.0),
     # Radiant floor: 3 cph (radiant [trade]); longer minimum times for the slow loop.
-    "underfloor": Preset(3.0, 0.5, 1.5, 300.0, 300.0, 4, 7200.0),
-    # Convector or panel heater: 9 cph (electric [trade]).
-    "electric": Preset(9.0, 0.5, 1.5, 60.0, 60.0, 10, 2700.0),
+    # Gain 1.5 K (a higher gain lets the slow screed drift) and droop time 3 h (a few
+    # hours, like the screed's own time constant) from the sweep on the underfloor plant
+    # [no source].
+    "underfloor": Preset(3.0, 0.5, 1.5, 300.0, 300.0, 4, 10800.0),
+    # Convector or panel heater: 9 cph (electric [trade]); gain 2.5 K and droop time 1 h
+    # from the sweep on the electric plant [no source].
+    "electric": Preset(9.0, 0.5, 2.5, 60.0, 60.0, 10, 3600.0),
     # Steam or gravity: 1 cph [trade]; a steam boiler needs long runs.
     "steam": Preset(1.0, 0.5, 1.5, 600.0, 600.0, 2, 10800.0),
 }

@@ -101,6 +101,9 @@ class ZoneSettings:
     cycle_rate_regulation: bool = True
     """Adjust the anticipator's time constant so the plant really cycles at the cycle rate
     (on when the time constant was derived from the cycle rate, off when it was given)."""
+    smoothing_s: float | None = None
+    """Time constant (s) of the smoothing of the zone temperature the relay switches on;
+    ``None``: one cycle period, ``3600 / cycle_rate_cph``; 0: no smoothing."""
     # set points per level and the limits every set point is clamped to
     comfort_c: float = 20.0
     standby_c: float = 18.0
@@ -146,6 +149,10 @@ class ZoneSettings:
         for key, value in positive.items():
             if not (math.isfinite(value) and value > 0):
                 problems.append(f"{key} must be a positive number, not {value!r}")
+        if self.smoothing_s is not None and not (
+            math.isfinite(self.smoothing_s) and self.smoothing_s >= 0
+        ):
+            problems.append(f"smoothing_s must be zero or positive, not {self.smoothing_s!r}")
         if not (math.isfinite(self.anticipator_gain_k) and self.anticipator_gain_k >= 0):
             problems.append("anticipator_gain_k must be zero or positive")
         if self.max_cycles_per_hour < 1:

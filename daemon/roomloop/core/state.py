@@ -24,9 +24,12 @@ JSON shape (version 1)::
      "points": [{"name": "t1", "reliability": "ok", "verdict": "ok", "value": 19.9,
                  "value_at": 1700000010.0, "seen_at": 1700000010.0, "still_value": 19.9,
                  "still_on_s": 0.0, "good_since": 1699990000.0, "faulted": false}],
-     "backup": null}
+     "backup": null, "smoothed_c": 19.96}
 
 Times are POSIX seconds as given to ``step``; temperatures Celsius.
+``smoothed_c`` (the switching temperature, see :mod:`roomloop.core.controller`)
+came later within version 1: a state saved without it loads with ``None``, and
+the controller then restarts the smoothing from the next reading.
 """
 
 from __future__ import annotations
@@ -126,6 +129,8 @@ class ZoneState:
     # points
     points: tuple[PointState, ...]
     backup: PointState | None
+    smoothed_c: float | None = None
+    """The zone temperature smoothed for switching (None until the first trusted reading)."""
 
     # ------------------------------------------------------------------ JSON
 
@@ -202,6 +207,7 @@ class ZoneState:
             duty_current=_triple(r.get("duty_current"), "duty_current"),
             points=tuple(_point_from(item, f"points[{i}]") for i, item in enumerate(points_raw)),
             backup=None if backup_raw is None else _point_from(backup_raw, "backup"),
+            smoothed_c=r.opt_num("smoothed_c") if "smoothed_c" in data else None,
         )
 
 
