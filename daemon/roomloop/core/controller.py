@@ -39,7 +39,10 @@ Order of one step (``u`` = relay state held during the elapsed tick):
    within ``D`` of ``T`` (a real departure from the band is no ripple and passes
    at once); only when ``G > D`` (a plain hysteresis needs the room's ripple to
    switch at all). Measured on the built-in plants (tests/bench/control_quality.py,
-   seeds 1-3) it lowers the worst-phase control accuracy by 0.04-0.08 K.
+   seeds 1-3), it and the presets' gains and droop times picked with it lower the
+   worst-phase control accuracy by 0.04-0.08 K. A limit: after a large real
+   departure (a window opened) ``Ts`` catches up over about ``smoothing_s`` and
+   the relay switches up to ``D`` away from the reading meanwhile.
 7. **Short-cycle protection** holds the relay: ``min-on``, ``min-off``,
    ``max-cycles`` (switch-ons in the sliding hour ``(now - 3600, now]``).
 8. **Protection** overrides everything: below the protection set point
