@@ -11,8 +11,9 @@ import pytest
 from structlog.testing import capture_logs
 
 from roomloop.config.models import ModbusInput, ModbusOutput, ModbusTcpLink
+from roomloop.errors import DeviceError
 from roomloop.io.codec import encode_raw
-from roomloop.io.modbus import ModbusLink
+from roomloop.io.modbus import ModbusLink, endpoint_of
 from roomloop.io.planner import plan_reads
 
 FAST = {"timeout_s": 0.2, "retries": 0, "request_gap_s": 0.0, "poll_interval_s": 0.1}
@@ -150,6 +151,10 @@ async def test_exception_reply_marks_only_that_read(modbus_tcp_server: Any) -> N
     failed = [e for e in events if e["event"] == "modbus.read_failed"]
     assert {tuple(e["points"]) for e in failed} == {("past-the-table",), ("no-such-unit",)}
     assert all(e["link"] == "bench" and "exception reply" in e["reason"] for e in failed)
+    reasons = {e["points"][0]: e["reason"] for e in failed}
+    # REFERENCES.md: Modbus Application Protocol V1.1b3, section 7: 2 = illegal data address
+    # [published]
+    assert reasons["past-the-table"] == "exception reply 2 (illegal data address)"
 
 
 async def test_device_failure_exception_code(modbus_tcp_server: Any) -> None:
@@ -158,8 +163,43 @@ async def test_device_failure_exception_code(modbus_tcp_server: Any) -> None:
     async with ModbusLink(tcp_link(server), [inp("room", 0)]) as link:
         sample = (await link.poll())[0]
         assert sample.transport == "comm-failure"
+        # REFERENCES.md: Modbus Application Protocol V1.1b3, section 7: 4 = server device failure,
+        # 6 = server device busy, 11 = gateway target device failed to respond [published]
+        with pytest.raises(DeviceError, match=r"exception reply 4 \(server device failure\)"):
+            await link.read_point("room")
+        server.exception_code = 6
+        with pytest.raises(DeviceError, match=r"exception reply 6 \(server device busy\)"):
+            await link.read_point("room")
+        server.exception_code = 11
+        with pytest.raises(
+            DeviceError, match=r"exception reply 11 \(gateway target device failed to respond\)"
+        ):
+            await link.read_point("room")
         server.exception_code = None
         assert (await link.poll())[0].transport == "ok"
+
+
+def test_exception_codes_outside_the_standard_list_say_so() -> None:
+    from roomloop.io.modbus import exception_reply_text
+
+    # REFERENCES.md: Modbus Application Protocol V1.1b3, section 7 lists 1-6, 8, 10, 11
+    # [published]
+    assert exception_reply_text(1) == "exception reply 1 (illegal function)"
+    assert exception_reply_text(3) == "exception reply 3 (illegal data value)"
+    assert exception_reply_text(8) == "exception reply 8 (memory parity error)"
+    assert exception_reply_text(10) == "exception reply 10 (gateway path unavailable)"
+    assert exception_reply_text(7) == "exception reply 7 (not standard)"
+
+
+def test_endpoint_names_baud_and_frame_apart() -> None:
+    from roomloop.config.models import ModbusRtuLink
+
+    rtu = ModbusRtuLink(
+        type="modbus-rtu", name="bus", device="/dev/ttyUSB0", baud=19200, parity="E"
+    )
+    assert endpoint_of(rtu) == "modbus-rtu:/dev/ttyUSB0@19200/8E1"
+    tcp = ModbusTcpLink(type="modbus-tcp", name="gw", host="127.0.0.1", port=1502)
+    assert endpoint_of(tcp) == "modbus-tcp://127.0.0.1:1502"
 
 
 async def test_slow_link_does_not_hold_up_another(modbus_tcp_server: Any) -> None:

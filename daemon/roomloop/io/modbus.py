@@ -69,7 +69,30 @@ def endpoint_of(link: ModbusTcpLink | ModbusRtuLink) -> str:
     """How logs and errors name a link's far end."""
     if isinstance(link, ModbusTcpLink):
         return f"modbus-tcp://{link.host}:{link.port}"
-    return f"modbus-rtu:{link.device}@{link.baud}{link.data_bits}{link.parity}{link.stop_bits}"
+    frame = f"{link.data_bits}{link.parity}{link.stop_bits}"
+    return f"modbus-rtu:{link.device}@{link.baud}/{frame}"
+
+
+EXCEPTION_NAMES = {
+    1: "illegal function",
+    2: "illegal data address",
+    3: "illegal data value",
+    4: "server device failure",
+    5: "acknowledge",
+    6: "server device busy",
+    8: "memory parity error",
+    10: "gateway path unavailable",
+    11: "gateway target device failed to respond",
+}
+"""Modbus exception codes by name (Modbus Application Protocol V1.1b3, section 7)."""
+
+
+def exception_reply_text(code: int | None) -> str:
+    """``exception reply 2 (illegal data address)``: the number a manual lists, and its meaning."""
+    if code is None:
+        return "exception reply (no code)"
+    name = EXCEPTION_NAMES.get(code)
+    return f"exception reply {code} ({name})" if name else f"exception reply {code} (not standard)"
 
 
 def _quiet_pymodbus() -> None:
@@ -264,7 +287,7 @@ class ModbusLink:
                     self._last_request_end = time.monotonic()
                 if response.isError():
                     code = getattr(response, "exception_code", None)
-                    raise _RequestFailed(f"exception reply, code {code}", code)
+                    raise _RequestFailed(exception_reply_text(code), code)
                 problem = check(response)
                 if problem is None:
                     return response
