@@ -236,6 +236,10 @@ async def test_sensor_server_stopped_engages_fail_safe_visibly(rig: Rig) -> None
     w = rig.watcher
     await rig.service.start()
     await w.wait_for(lambda: (w.state() or {}).get("reliability", {}).get("t0") == "ok", 15)
+    # The configured policy is published before it runs, so a dashboard can show it.
+    before = w.state()
+    assert before is not None and before["fail_safe"] is False
+    assert before["fail_safe_policy"] == "fixed-duty" and before["fail_safe_reason"] is None
     rig.plant.frozen = True
     await rig.server.stop()
     stopped = time.monotonic()

@@ -24,11 +24,12 @@ OUT = ZoneOutputs(
     droop_k=0.1,
     reliability={"t": "ok", "t2": "stale"},
     fail_safe=False,
-    fail_safe_policy="learned-duty",
     on_fraction_1h=0.4321,
     cycles_1h=3,
 )
-VIEW = ZoneView("studio", OUT, AT, "relay", "ok", True, None, Switch(AT + 3600, "economy"))
+VIEW = ZoneView(
+    "studio", OUT, AT, "relay", "ok", True, None, Switch(AT + 3600, "economy"), "learned-duty"
+)
 
 
 def test_state_json_carries_everything_a_dashboard_needs() -> None:
@@ -38,12 +39,27 @@ def test_state_json_carries_everything_a_dashboard_needs() -> None:
     assert (payload["level"], payload["mode"], payload["demand"]) == ("comfort", "auto", True)
     assert (payload["anticipator"], payload["droop"]) == (0.5, 0.1)
     assert payload["reliability"] == {"t": "ok", "t2": "stale"}
+    # The configured policy is published while the zone is not in fail-safe (the core's
+    # outputs name it only while it runs).
     assert payload["fail_safe"] is False and payload["fail_safe_policy"] == "learned-duty"
+    assert payload["fail_safe_reason"] is None
     assert (payload["on_fraction_1h"], payload["cycles_1h"]) == (0.432, 3)
     assert payload["reason"] == "cut-in"
     assert payload["next_change"] == {"at": "2027-01-15T10:00:00+01:00", "level": "economy"}
     assert payload["output"] == {"point": "relay", "verdict": "ok", "confirmed": True}
     json.dumps(payload, allow_nan=False)
+
+
+def test_fail_safe_running_names_its_policy_and_reason() -> None:
+    running = dataclasses.replace(
+        OUT,
+        fail_safe=True,
+        fail_safe_policy="learned-duty",
+        fail_safe_reason="no reliable temperature for 303 s",
+    )
+    payload = state_payload(dataclasses.replace(VIEW, outputs=running), units="C", tz=VIENNA)
+    assert payload["fail_safe"] is True and payload["fail_safe_policy"] == "learned-duty"
+    assert payload["fail_safe_reason"] == "no reliable temperature for 303 s"
 
 
 def test_fahrenheit_sites_see_fahrenheit_absolute_and_difference_values() -> None:

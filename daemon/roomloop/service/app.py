@@ -440,6 +440,7 @@ class Service:
             output_confirmed=None if out_state is None else out_state.confirmed,
             hold_until=runtime.state.hold_until,
             next_change=runtime.program.at(now)[1] if runtime.state.mode == "auto" else None,
+            fail_safe_policy=runtime.settings.fail_safe_policy,
         )
         self.publisher.update(view)
         self._publish_wake.set()

@@ -64,6 +64,9 @@ class ZoneView:
     output_confirmed: bool | None = None
     hold_until: float | None = None
     next_change: Switch | None = None
+    fail_safe_policy: str | None = None
+    """The zone's configured fail-safe policy, published whether or not it runs, so a
+    dashboard can show what the zone will do before a sensor fails."""
 
 
 def state_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, Any]:
@@ -84,7 +87,7 @@ def state_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, Any]
         "droop": _delta(out.droop_k, units),
         "reliability": dict(out.reliability),
         "fail_safe": out.fail_safe,
-        "fail_safe_policy": out.fail_safe_policy,
+        "fail_safe_policy": out.fail_safe_policy or view.fail_safe_policy,
         "fail_safe_reason": out.fail_safe_reason,
         "on_fraction_1h": round(out.on_fraction_1h, 3),
         "cycles_1h": out.cycles_1h,
