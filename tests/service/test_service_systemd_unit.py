@@ -78,3 +78,10 @@ def test_run_takes_the_state_directory_systemd_gives(monkeypatch: pytest.MonkeyP
     assert _state_dir(args, "/elsewhere") == "/elsewhere"
     explicit = build_parser().parse_args(["run", "-c", "site.yaml", "--state-dir", "/tmp/x"])
     assert _state_dir(explicit, "/elsewhere") == "/tmp/x"
+
+
+def test_documentation_names_no_file_an_install_step_does_not_create() -> None:
+    # No install step copies the README onto the board (README, "Installing on a Pi-class
+    # board"), so a file:// Documentation= would point at nothing.
+    local = [v for v in _settings().get("Documentation", []) if "file:" in v]
+    assert local == []
