@@ -106,7 +106,11 @@ def _assert_short_run(out: str, plot: Path) -> None:
     assert f"plot written to {plot}" in out
 
 
-def test_ctrl_c_stops_cleanly_with_outputs_safe() -> None:
+@pytest.mark.parametrize(
+    ("signum", "said"),
+    [(signal.SIGINT, "Ctrl-C"), (signal.SIGHUP, "SIGHUP")],  # SIGHUP: the terminal closed
+)
+def test_a_signal_stops_cleanly_with_outputs_safe(signum: signal.Signals, said: str) -> None:
     process = subprocess.Popen(
         _demo("--hours", "8"),
         stdout=subprocess.PIPE,
@@ -132,7 +136,7 @@ def test_ctrl_c_stops_cleanly_with_outputs_safe() -> None:
             if relay_on.match(line):
                 break
         assert any(relay_on.match(line) for line in seen), "".join(seen)
-        process.send_signal(signal.SIGINT)
+        process.send_signal(signum)
         rest, err = process.communicate(timeout=30.0)
     finally:
         if process.poll() is None:
@@ -140,7 +144,7 @@ def test_ctrl_c_stops_cleanly_with_outputs_safe() -> None:
             process.communicate(timeout=10.0)
     out = "".join(seen) + rest
     assert process.returncode == 0, out + err
-    assert "Ctrl-C: stopping the demo" in out
+    assert f"{said}: stopping the demo" in out
     assert "demo stopped early" in out
     assert (
         "outputs at stop (coils read from the plant server): small-hall off, meeting-room off, "
@@ -157,6 +161,8 @@ def test_ctrl_c_stops_cleanly_with_outputs_safe() -> None:
         (["--speed", "0"], "--speed must be above 0"),
         (["--broker", "localhost"], "give HOST:PORT"),
         (["--broker", "localhost:99999"], "the port must be 1 to 65535"),
+        (["--plot", "/tmp/roomloop-demo.txt"], "--plot /tmp/roomloop-demo.txt: the file name"),
+        (["--plot", "/nonexistent/demo.png"], "the folder /nonexistent does not exist"),
     ],
 )
 def test_bad_options_exit_2_with_one_line(args: list[str], message: str) -> None:
@@ -179,6 +185,21 @@ def test_plot_into_a_missing_folder_is_refused_before_the_run(tmp_path: Path) ->
         env=_env(),
         check=False,
     )
-    assert done.returncode == 1
-    assert f"cannot write {target}" in done.stderr
+    assert done.returncode == 2
+    assert f"--plot {target}: the folder {target.parent} does not exist" in done.stderr
+    assert "Traceback" not in done.stderr
     assert done.stdout == ""  # refused at once, not after a minute of demo
+
+
+def test_plot_without_matplotlib_is_refused_before_the_run(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from roomloop.cli import main
+
+    # A None entry in sys.modules makes `import matplotlib` fail, as if it were not installed.
+    monkeypatch.setitem(sys.modules, "matplotlib", None)
+    assert main(["demo", "--hours", "1", "--plot", str(tmp_path / "demo.png")]) == 1
+    captured = capsys.readouterr()
+    assert captured.out == ""  # nothing ran
+    assert "pip install matplotlib" in captured.err and "pip install '.[plot]'" in captured.err
+    assert "roomloop[plot]" not in captured.err and "Traceback" not in captured.err

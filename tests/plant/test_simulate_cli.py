@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import os
 import sys
 from pathlib import Path
 
@@ -118,13 +119,59 @@ def test_missing_site_file_exits_2(tmp_path: Path, capsys: pytest.CaptureFixture
     one_line_error(capsys)
 
 
-def test_unwritable_json_exits_1(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+ELECTRIC = ["simulate", "--heating", "electric", "--plant", "electric"]
+
+
+def refused_before_the_run(capsys: pytest.CaptureFixture[str]) -> str:
+    """The one error line, after checking that no figures were printed (nothing ran)."""
+    captured = capsys.readouterr()
+    assert "low-load" not in captured.out and captured.out == ""
+    err = captured.err.strip().splitlines()
+    assert len(err) == 1 and "Traceback" not in captured.err
+    return err[0]
+
+
+def test_json_into_a_missing_folder_is_refused_before_the_run(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     target = tmp_path / "no-such-dir" / "out.json"
-    assert (
-        main(["simulate", "--heating", "electric", "--plant", "electric", "--json", str(target)])
-        == 1
-    )
-    assert "cannot write" in one_line_error(capsys)
+    assert main([*ELECTRIC, "--json", str(target)]) == 2
+    line = refused_before_the_run(capsys)
+    assert f"--json {target}" in line and "does not exist" in line
+
+
+def test_json_into_an_unwritable_folder_is_refused_before_the_run(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    if os.geteuid() == 0:
+        pytest.skip("root may write into any folder")
+    locked = tmp_path / "locked"
+    locked.mkdir(mode=0o500)
+    assert main([*ELECTRIC, "--json", str(locked / "out.json")]) == 2
+    assert "not writable" in refused_before_the_run(capsys)
+
+
+@pytest.mark.parametrize("name", ["x.txt", "x.pdf", "x", "x.png.bak"])
+def test_plot_not_named_png_is_refused_before_the_run(
+    name: str, tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    assert main([*ELECTRIC, "--plot", str(tmp_path / name)]) == 2
+    assert "must end in .png" in refused_before_the_run(capsys)
+    assert not (tmp_path / name).exists()
+
+
+def test_plot_into_a_missing_folder_is_refused_before_the_run(
+    capsys: pytest.CaptureFixture[str],
+) -> None:
+    assert main([*ELECTRIC, "--plot", "/nonexistent/roomloop/x.png"]) == 2
+    assert "the folder /nonexistent/roomloop does not exist" in refused_before_the_run(capsys)
+
+
+def test_plot_name_in_capitals_is_accepted(tmp_path: Path) -> None:
+    pytest.importorskip("matplotlib")
+    png = tmp_path / "RUN.PNG"
+    assert main([*ELECTRIC, "--plot", str(png)]) == 0
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
 
 def test_plot_writes_a_png(tmp_path: Path) -> None:
@@ -154,8 +201,39 @@ def test_plot_without_matplotlib_says_so_and_exits_1(
         ]
     )
     assert code == 1
-    assert "matplotlib" in one_line_error(capsys)
+    line = refused_before_the_run(capsys)  # asked before the run, not after it
+    assert "pip install matplotlib" in line and "pip install '.[plot]'" in line
+    assert "roomloop[plot]" not in line  # roomloop is installed from a checkout, not an index
     assert not (tmp_path / "x.png").exists()
+
+
+def test_summary_names_a_heating_type_zone_and_a_recovery_that_never_settles() -> None:
+    from dataclasses import replace
+
+    from roomloop.cli.simulate import format_summary
+    from roomloop.core.settings import ZoneSettings
+    from roomloop.plant.controllers import make_controller
+    from roomloop.plant.loader import load_plant
+    from roomloop.plant.protocol import protocol_settings, run_protocol
+
+    settings = protocol_settings(ZoneSettings.for_heating_type("electric"))
+    result = run_protocol(
+        make_controller("plain", settings),
+        load_plant("electric"),
+        seed=1,
+        sensor_names=[p.name for p in settings.inputs],
+        controller_name="plain",
+    )
+    text = format_summary(result, settings, from_site=False)
+    assert "zone zone" not in text
+    assert "an electric zone with the heating type's defaults" in text.splitlines()[0]
+    assert "within 0.5 K of the set point after " in text
+    phases = dict(result.phases)
+    phases["recovery"] = replace(phases["recovery"], settle_s=None)
+    never = format_summary(replace(result, phases=phases), settings, from_site=True)
+    assert "after never" not in never
+    assert "never within 0.5 K of the set point" in never
+    assert f"zone {settings.name} (electric)" in never.splitlines()[0]
 
 
 def test_zone_with_two_inputs_reads_the_plant_sensor_on_both(tmp_path: Path) -> None:

@@ -9,15 +9,17 @@ ANSI cursor movement; otherwise plain lines are printed (events as they happen,
 the zones every 1/16 of the run). The service's own warnings go to the same
 place. At the end: a summary table per zone, and with ``--plot`` a PNG.
 
-Ctrl-C (SIGINT) or SIGTERM stops the demo cleanly: the service puts every
+Ctrl-C (SIGINT), SIGTERM or SIGHUP stops the demo cleanly: the service puts every
 output in its safe state (the coils are read back from the plant server and
 shown), the summary covers what ran, and the exit code is 0, like ``roomloop
 run`` stopping on a signal (a Ctrl-C while Python is still starting, before
 anything runs, is the command line's plain ``interrupted``, 130). At the end
 the demo also checks end to end that each coil followed the service's
 decisions and warns when it did not. Exit codes: 0 ran (to the end or until stopped);
-1 the demo could not run, an output was not in its safe state at the stop, or
-the plot could not be written; 2 a bad option.
+1 the demo could not run, an output was not in its safe state at the stop,
+matplotlib is missing for --plot, or the plot could not be written after all;
+2 a bad option (a --plot path whose folder is missing or not writable, or not .png:
+refused before the run).
 """
 
 from __future__ import annotations
@@ -25,7 +27,6 @@ from __future__ import annotations
 import argparse
 import asyncio
 import logging
-import os
 import shutil
 import signal
 import sys
@@ -35,6 +36,7 @@ from typing import Any, TextIO
 
 import structlog
 
+from roomloop.cli.outputs import MATPLOTLIB_MISSING, matplotlib_available, output_path_problem
 from roomloop.demo.runner import (
     DEFAULT_SPEED,
     MAX_SPEED,
@@ -224,13 +226,15 @@ async def _run(options: DemoOptions, view: TerminalView | PlainView) -> DemoResu
             view.event(0.0, f"{name}: stopping the demo (outputs to their safe state)")
         stop.set()
 
-    loop.add_signal_handler(signal.SIGINT, on_signal, "Ctrl-C")
-    loop.add_signal_handler(signal.SIGTERM, on_signal, "SIGTERM")
+    # SIGHUP (the terminal closed) stops it the same careful way as Ctrl-C and SIGTERM.
+    signals = {signal.SIGINT: "Ctrl-C", signal.SIGTERM: "SIGTERM", signal.SIGHUP: "SIGHUP"}
+    for signum, name in signals.items():
+        loop.add_signal_handler(signum, on_signal, name)
     try:
         return await run_demo(options, view, stop)
     finally:
-        loop.remove_signal_handler(signal.SIGINT)
-        loop.remove_signal_handler(signal.SIGTERM)
+        for signum in signals:
+            loop.remove_signal_handler(signum)
 
 
 def _report(result: DemoResult, out: TextIO) -> bool:
@@ -282,20 +286,11 @@ def main(args: argparse.Namespace) -> int:
         except ValueError as exc:
             return _fail(str(exc), EXIT_USAGE)
     if args.plot:
-        from roomloop.demo.plot import matplotlib_available
-
+        problem = output_path_problem("--plot", args.plot, ".png")
+        if problem:
+            return _fail(problem, EXIT_USAGE)
         if not matplotlib_available():
-            return _fail(
-                "--plot needs matplotlib, which is not installed; install the plot extra "
-                "(pip install 'roomloop[plot]') or leave out --plot",
-                EXIT_RUNTIME,
-            )
-    if args.plot:
-        folder = os.path.dirname(os.path.abspath(args.plot))
-        if not os.path.isdir(folder) or not os.access(folder, os.W_OK):
-            return _fail(
-                f"cannot write {args.plot}: {folder} is not a writable folder", EXIT_RUNTIME
-            )
+            return _fail(MATPLOTLIB_MISSING, EXIT_RUNTIME)
     stamp = SimulatedStamp(demo_site_timezone())
     options = DemoOptions(hours=hours, speed=speed, broker=broker, on_clock=stamp.set_clock)
     out = sys.stdout
@@ -322,8 +317,10 @@ def main(args: argparse.Namespace) -> int:
         try:
             write_demo_plot(result, args.plot)
         except PlotUnavailable:
-            return _fail("--plot needs matplotlib, which is not installed", EXIT_RUNTIME)
+            return _fail(MATPLOTLIB_MISSING, EXIT_RUNTIME)
         except OSError as exc:
             return _fail(f"cannot write {args.plot}: {exc.strerror or exc}", EXIT_RUNTIME)
+        except ValueError as exc:  # matplotlib refusing the file, should the check miss a case
+            return _fail(f"cannot write {args.plot}: {exc}", EXIT_RUNTIME)
         out.write(f"plot written to {args.plot}\n")
     return code

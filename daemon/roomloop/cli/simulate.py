@@ -3,8 +3,11 @@
 The zone comes from a site file (``-c SITE --zone NAME``) or from a heating type's
 defaults (``--heating TYPE``); the plant is a built-in name or a plant file. The
 figures are printed as a table, and optionally written as JSON and drawn as a PNG.
-Exit codes: 0 ok; 1 the JSON or the plot could not be written (or matplotlib is
-missing); 2 a bad plant file, an unknown plant or zone, a bad site file.
+The output paths (and matplotlib, for ``--plot``) are checked before the run.
+Exit codes: 0 ok; 1 matplotlib is missing, or the JSON or the plot could not be
+written after all; 2 a bad plant file, an unknown plant or zone, a bad site file,
+an output path that cannot be written (no such folder, not writable, a plot not
+named .png).
 """
 
 from __future__ import annotations
@@ -13,6 +16,7 @@ import argparse
 import json
 import sys
 
+from roomloop.cli.outputs import MATPLOTLIB_MISSING, matplotlib_available, output_path_problem
 from roomloop.config.loader import load_site
 from roomloop.core.settings import SettingsError, ZoneSettings
 from roomloop.plant.controllers import make_controller
@@ -37,11 +41,29 @@ def _zone_settings(args: argparse.Namespace) -> ZoneSettings:
     return ZoneSettings.for_heating_type(args.heating)
 
 
+def _check_outputs(args: argparse.Namespace) -> int | None:
+    """Refuse before the run what would only fail after it; the exit code, or None if fine."""
+    if args.json:
+        problem = output_path_problem("--json", args.json)
+        if problem:
+            return _fail(problem, EXIT_USAGE)
+    if args.plot:
+        problem = output_path_problem("--plot", args.plot, ".png")
+        if problem:
+            return _fail(problem, EXIT_USAGE)
+        if not matplotlib_available():
+            return _fail(MATPLOTLIB_MISSING, EXIT_RUNTIME)
+    return None
+
+
 def main(args: argparse.Namespace) -> int:
     if args.config is not None and not args.zone:
         return _fail("-c SITE needs --zone NAME (the zone to simulate)", EXIT_USAGE)
     if args.config is None and args.zone:
         return _fail("--zone goes with -c SITE; with --heating there is no site", EXIT_USAGE)
+    refused = _check_outputs(args)
+    if refused is not None:
+        return refused
     plant = load_plant(args.plant)  # ConfigError: the CLI front prints it, exit 2
     try:
         settings = protocol_settings(_zone_settings(args))
@@ -55,28 +77,30 @@ def main(args: argparse.Namespace) -> int:
         sensor_names=[p.name for p in settings.inputs],
         controller_name=args.controller,
     )
-    print(format_summary(result, settings))
+    print(format_summary(result, settings, from_site=args.config is not None))
     if args.json:
         try:
             with open(args.json, "w", encoding="utf-8") as out:
                 json.dump(result.to_dict(), out, indent=2)
                 out.write("\n")
-        except OSError as exc:
-            return _fail(f"cannot write {args.json}: {exc.strerror or exc}", EXIT_RUNTIME)
+        except (OSError, ValueError) as exc:
+            return _fail(f"cannot write {args.json}: {_reason(exc)}", EXIT_RUNTIME)
     if args.plot:
         from roomloop.plant.plot import PlotUnavailable, write_plot
 
         try:
             write_plot(result, args.plot)
         except PlotUnavailable:
-            return _fail(
-                "--plot needs matplotlib, which is not installed; install the plot extra "
-                "(pip install 'roomloop[plot]') or leave out --plot",
-                EXIT_RUNTIME,
-            )
-        except OSError as exc:
-            return _fail(f"cannot write {args.plot}: {exc.strerror or exc}", EXIT_RUNTIME)
+            return _fail(MATPLOTLIB_MISSING, EXIT_RUNTIME)
+        except (OSError, ValueError) as exc:
+            return _fail(f"cannot write {args.plot}: {_reason(exc)}", EXIT_RUNTIME)
     return EXIT_OK
+
+
+def _reason(exc: OSError | ValueError) -> str:
+    if isinstance(exc, OSError) and exc.strerror:
+        return exc.strerror.lower() if exc.strerror[:1].isupper() else exc.strerror
+    return str(exc) or type(exc).__name__
 
 
 def _seconds(value: float | None) -> str:
@@ -91,11 +115,24 @@ def _row(name: str, f: PhaseFigures) -> str:
     )
 
 
-def format_summary(result: ProtocolResult, settings: ZoneSettings) -> str:
+def _zone_text(settings: ZoneSettings, from_site: bool) -> str:
+    if from_site:
+        return f"zone {settings.name} ({settings.heating})"
+    article = "an" if settings.heating[:1] in "aeiou" else "a"
+    return f"{article} {settings.heating} zone with the heating type's defaults"
+
+
+def _settle_text(settle_s: float | None) -> str:
+    if settle_s is None:
+        return "never within 0.5 K of the set point in the phase"
+    return f"within 0.5 K of the set point after {settle_s / 60:.0f} min"
+
+
+def format_summary(result: ProtocolResult, settings: ZoneSettings, *, from_site: bool) -> str:
     """A readable table of the run's figures (temperatures of the true room air)."""
     lines = [
-        f"controller {result.controller} on plant {result.plant}, zone {settings.name} "
-        f"({settings.heating}), seed {result.seed}",
+        f"controller {result.controller} on plant {result.plant}, "
+        f"{_zone_text(settings, from_site)}, seed {result.seed}",
         f"{'phase':<10} {'CSD K':>7} {'CV K':>7} {'CA K':>7} {'cyc/h':>6} {'on %':>5} "
         f"{'min on':>7} {'min off':>7} {'kWh':>7}",
     ]
@@ -104,8 +141,7 @@ def format_summary(result: ProtocolResult, settings: ZoneSettings) -> str:
     recovery = result.phases["recovery"]
     o = result.overall
     lines.append(
-        f"recovery: overshoot {recovery.overshoot_k:+.2f} K, within 0.5 K after "
-        + ("never" if recovery.settle_s is None else f"{recovery.settle_s / 60:.0f} min")
+        f"recovery: overshoot {recovery.overshoot_k:+.2f} K, {_settle_text(recovery.settle_s)}"
     )
     lines.append(
         f"overall: control accuracy {o.control_accuracy_k:.2f} K (worse load phase), "
