@@ -10,6 +10,7 @@ from __future__ import annotations
 import argparse
 import importlib
 import sys
+import textwrap
 from collections.abc import Sequence
 
 from roomloop import __version__
@@ -18,12 +19,14 @@ from roomloop.errors import ConfigError, RoomloopError
 EXIT_OK = 0
 EXIT_RUNTIME = 1
 EXIT_USAGE = 2
+HELP_WIDTH = 79
+"""The raw (hand-wrapped) help texts stay within this many columns."""
 
 SAFETY = """\
-safety: roomloop switches heating plant. Mains wiring is for qualified people only.
-The plant's own limit and safety controls (boiler high-limit, overheat cut-outs,
-frost thermostats) stay in place and wired as the maker says; roomloop is not a
-safety device. Local codes and licensed practice prevail."""
+safety: roomloop switches heating plant. Mains wiring is for qualified people
+only. The plant's own limit and safety controls (boiler high-limit, overheat
+cut-outs, frost thermostats) stay in place and wired as the maker says;
+roomloop is not a safety device. Local codes and licensed practice prevail."""
 
 
 class _Parser(argparse.ArgumentParser):
@@ -38,9 +41,10 @@ class _Parser(argparse.ArgumentParser):
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="roomloop",
+        # Wrapped by hand: RawDescriptionHelpFormatter (kept for the safety text) does not wrap.
         description=(
-            "An anticipating on/off controller for heating zones: reads temperatures and "
-            "switches relays over Modbus or MQTT, publishes to an MQTT broker, and predicts "
+            "An anticipating on/off controller for heating zones: reads temperatures and\n"
+            "switches relays over Modbus or MQTT, publishes to an MQTT broker, and predicts\n"
             "and tunes zones with a plant simulator."
         ),
         epilog=SAFETY,
@@ -54,7 +58,7 @@ def build_parser() -> argparse.ArgumentParser:
         return sub.add_parser(
             name,
             help=help_text,
-            description=help_text,
+            description=textwrap.fill(help_text, HELP_WIDTH),
             epilog=SAFETY,
             formatter_class=argparse.RawDescriptionHelpFormatter,
         )

@@ -1,0 +1,37 @@
+"""``roomloop --help`` and each sub-command's help read well in an 80-column terminal."""
+
+from __future__ import annotations
+
+import pytest
+
+from roomloop.cli import main
+
+COMMANDS = ["check", "simulate", "probe", "run", "demo"]
+
+
+def _help(capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch, *argv: str) -> str:
+    monkeypatch.setenv("COLUMNS", "80")  # argparse wraps its own parts to this
+    with pytest.raises(SystemExit) as done:
+        main([*argv, "--help"])
+    assert done.value.code == 0
+    return capsys.readouterr().out
+
+
+def test_top_level_description_is_wrapped_at_80_columns(
+    capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    text = _help(capsys, monkeypatch)
+    assert "An anticipating on/off controller for heating zones" in text
+    assert "safety: roomloop switches heating plant" in text
+    assert [line for line in text.splitlines() if len(line) > 80] == []
+
+
+@pytest.mark.parametrize("command", COMMANDS)
+def test_sub_command_descriptions_are_wrapped_at_80_columns(
+    command: str, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    text = _help(capsys, monkeypatch, command)
+    # argparse's own usage line lists every choice of an option; only our texts are checked
+    usage_end = text.index("\n\n")
+    ours = text[usage_end:].splitlines()
+    assert [line for line in ours if len(line) > 80] == []
