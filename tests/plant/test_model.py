@@ -27,6 +27,21 @@ def single_node(**sensor: float) -> PlantSpec:
     )
 
 
+def test_a_spec_too_stiff_to_simulate_is_refused_not_sub_stepped_for_minutes() -> None:
+    # Built without the loader (which refuses it first): the model's own last guard.
+    stiff = PlantSpec.model_validate(
+        {
+            "name": "stiff",
+            "heater_w": 2000,
+            "emitter": None,
+            "room": {"capacity_j_per_k": 1.0, "loss_w_per_k": 50},
+            "mass": None,
+        }
+    )
+    with pytest.raises(ValueError, match="too short to simulate"):
+        PlantSimulation(stiff, outdoor_c=0.0)
+
+
 def test_single_node_cools_by_newtons_law() -> None:
     # REFERENCES.md: a lumped first-order room cools as T(t) = T_a + (T0 - T_a) e^(-t/tau)
     # (Newton's law of cooling) [published]; tau = C / H = 2e6 / 50 = 40000 s.

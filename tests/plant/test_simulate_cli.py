@@ -87,6 +87,23 @@ def test_bad_plant_file_exits_2_with_file_line_key(
     assert one_line_error(capsys).startswith(f"{bad}:2: heater_w: ")
 
 
+def test_physically_absurd_plant_is_refused_at_once_naming_the_key(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    # The built-in hydronic room with its air capacity typed as 1 J/K instead of 2.0e5: a
+    # room time constant of milliseconds, which once made simulate sub-step for minutes.
+    builtin = REPO / "daemon" / "roomloop" / "plant" / "builtin" / "hydronic.yaml"
+    lines = builtin.read_text().splitlines(keepends=True)
+    (at,) = [i for i, line in enumerate(lines) if line.startswith("  capacity_j_per_k: 2.0e5")]
+    lines[at] = "  capacity_j_per_k: 1\n"
+    absurd = tmp_path / "absurd.yaml"
+    absurd.write_text("".join(lines))
+    assert main(["simulate", "--heating", "hydronic", "--plant", str(absurd)]) == 2
+    line = one_line_error(capsys)
+    assert line.startswith(f"{absurd}:{at + 1}: room.capacity_j_per_k: "), line
+    assert "time constant" in line and "10 s" in line
+
+
 def test_plant_file_with_yaml_syntax_error_exits_2(
     tmp_path: Path, capsys: pytest.CaptureFixture[str]
 ) -> None:

@@ -13,7 +13,11 @@ from pathlib import Path
 
 from pydantic import ValidationError
 
-from roomloop.config.loader import load_yaml_document, problems_from_validation_error
+from roomloop.config.loader import (
+    format_path,
+    load_yaml_document,
+    problems_from_validation_error,
+)
 from roomloop.errors import ConfigError, ConfigProblem
 from roomloop.plant.spec import PlantSpec
 
@@ -34,11 +38,20 @@ def load_plant_file(path: str | os.PathLike[str]) -> PlantSpec:
     """Read and validate one plant file; :class:`ConfigError` with every problem located."""
     data, lines = load_yaml_document(path)
     try:
-        return PlantSpec.model_validate(data)
+        spec = PlantSpec.model_validate(data)
     except ValidationError as err:
         raise ConfigError(
             problems_from_validation_error(err, str(path), lines, data=data, schema=PlantSpec)
         ) from None
+    too_fast = spec.time_constant_problems()
+    if too_fast:
+        raise ConfigError(
+            [
+                ConfigProblem(str(path), lines.line(key_path), format_path(key_path), message)
+                for key_path, message in too_fast
+            ]
+        )
+    return spec
 
 
 def load_plant(name_or_path: str | os.PathLike[str]) -> PlantSpec:

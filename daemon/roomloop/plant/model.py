@@ -28,6 +28,8 @@ from roomloop.plant.spec import PlantSpec
 
 STABILITY_FACTOR = 0.5
 """Largest h * lambda_max of a Runge-Kutta sub-step (RK4 is stable up to about 2.8)."""
+MIN_SUBSTEP_S = 0.05
+"""Smallest sub-step the model takes: at most 20 RK4 steps per simulated second."""
 
 
 class PlantSimulation:
@@ -200,31 +202,19 @@ def _max_substep_s(spec: PlantSpec) -> float:
     """Largest RK4 step with ``h * lambda_max <= STABILITY_FACTOR`` for this plant.
 
     ``lambda_max`` is bounded by Gershgorin's theorem: twice the largest row sum of the
-    conductances over the capacity. An EN 442 emitter is linearised at its steepest
-    point in use: the excess it reaches with the heater on at full output for good
-    (times 1.5 for margin).
+    conductances over the capacity, i.e. twice the inverse of the fastest node's time
+    constant (an EN 442 emitter linearised at its steepest point in use, see
+    :meth:`PlantSpec.emitter_slope_w_per_k`).
+
+    Last guard: a spec so stiff that the step would fall below ``MIN_SUBSTEP_S`` (the
+    plant file loader refuses such files first) is refused here, so the number of
+    sub-steps per simulated second stays bounded.
     """
-    emitter = spec.emitter
-    ke = 0.0
-    rates: list[float] = []
-    if emitter is not None:
-        if emitter.conductance_w_per_k is not None:
-            ke = emitter.conductance_w_per_k
-        else:
-            assert emitter.rated_output_w is not None and emitter.exponent is not None
-            top = 1.5 * spec.emitter_excess_for_output_k(spec.heater_w)
-            ke = (
-                emitter.exponent
-                * emitter.rated_output_w
-                / 50.0
-                * (top / 50.0) ** (emitter.exponent - 1.0)
-            )
-        rates.append(ke / emitter.capacity_j_per_k)
-    km = spec.mass.conductance_w_per_k if spec.mass is not None else 0.0
-    rates.append((ke + km + spec.room.loss_w_per_k) / spec.room.capacity_j_per_k)
-    if spec.mass is not None:
-        rates.append(km / spec.mass.capacity_j_per_k)
-    if spec.sensor.time_constant_s > 0:
-        rates.append(1.0 / spec.sensor.time_constant_s)
-    lam = 2.0 * max(rates)
-    return STABILITY_FACTOR / lam
+    fastest = min(spec.node_time_constants_s().values())
+    h = STABILITY_FACTOR * fastest / 2.0
+    if h < MIN_SUBSTEP_S:
+        raise ValueError(
+            f"plant {spec.name!r}: a node time constant of {fastest:.3g} s is too short to "
+            f"simulate (stable step {h:.3g} s < {MIN_SUBSTEP_S:g} s)"
+        )
+    return h

@@ -17,6 +17,15 @@ from typing import Annotated, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+MIN_NODE_TIME_CONSTANT_S = 10.0
+"""Shortest physical time constant (capacity over the sum of the node's conductances) a
+plant file may give a node. The fastest real node, a bare electric element or the air of
+a small room without furnishings, takes minutes; a few seconds or less means a capacity or
+conductance off by orders of magnitude (a unit slip), and the simulation's stable step would
+shrink with it until a run takes hours."""
+MIN_SENSOR_TIME_CONSTANT_S = 1.0
+"""A sensor lag is 0 (none) or at least this long; a bare thermistor takes tens of seconds."""
+
 Positive = Annotated[float, Field(gt=0, allow_inf_nan=False)]
 NonNegative = Annotated[float, Field(ge=0, allow_inf_nan=False)]
 
@@ -97,6 +106,72 @@ class PlantSpec(_Strict):
     internal_gains_w: NonNegative = 0.0
     floor_area_m2: Positive | None = None
     mass_class: Literal["very-light", "light", "medium", "heavy", "very-heavy"] | None = None
+
+    def emitter_slope_w_per_k(self) -> float:
+        """The emitter's steepest conductance in use (0 without an emitter).
+
+        Linear: its conductance. EN 442: the law's slope at the excess reached with the
+        heater on at full output for good, times 1.5 for margin.
+        """
+        emitter = self.emitter
+        if emitter is None:
+            return 0.0
+        if emitter.conductance_w_per_k is not None:
+            return float(emitter.conductance_w_per_k)
+        assert emitter.rated_output_w is not None and emitter.exponent is not None
+        top = 1.5 * self.emitter_excess_for_output_k(self.heater_w)
+        return float(
+            emitter.exponent
+            * emitter.rated_output_w
+            / 50.0
+            * (top / 50.0) ** (emitter.exponent - 1.0)
+        )
+
+    def node_time_constants_s(self) -> dict[tuple[str, ...], float]:
+        """Each node's time constant (capacity / sum of its conductances), keyed by the path
+        of the capacity that sets it; the sensor's lag under its own key when it has one."""
+        ke = self.emitter_slope_w_per_k()
+        km = self.mass.conductance_w_per_k if self.mass is not None else 0.0
+        out: dict[tuple[str, ...], float] = {}
+        if self.emitter is not None:
+            out[("emitter", "capacity_j_per_k")] = self.emitter.capacity_j_per_k / ke
+        out[("room", "capacity_j_per_k")] = self.room.capacity_j_per_k / (
+            ke + km + self.room.loss_w_per_k
+        )
+        if self.mass is not None:
+            out[("mass", "capacity_j_per_k")] = self.mass.capacity_j_per_k / km
+        if self.sensor.time_constant_s > 0:
+            out[("sensor", "time_constant_s")] = self.sensor.time_constant_s
+        return out
+
+    def time_constant_problems(self) -> list[tuple[tuple[str, ...], str]]:
+        """Nodes faster than physics allows, as (key path, message); empty when all is well.
+
+        The loader turns these into ``FILE:LINE: key.path: message`` problems.
+        """
+        problems: list[tuple[tuple[str, ...], str]] = []
+        for path, tau in self.node_time_constants_s().items():
+            if path[0] == "sensor":
+                if tau < MIN_SENSOR_TIME_CONSTANT_S:
+                    problems.append(
+                        (
+                            path,
+                            f"a sensor lag of {tau:.3g} s is not physical: give 0 (no lag) "
+                            f"or at least {MIN_SENSOR_TIME_CONSTANT_S:g} s",
+                        )
+                    )
+            elif tau < MIN_NODE_TIME_CONSTANT_S:
+                node = path[0]
+                problems.append(
+                    (
+                        path,
+                        f"the {node} node's time constant (capacity / sum of its "
+                        f"conductances) is {tau:.3g} s, below the physical bound of "
+                        f"{MIN_NODE_TIME_CONSTANT_S:g} s: check the {node}'s capacity and "
+                        "conductances (J/K and W/K) for a unit slip",
+                    )
+                )
+        return problems
 
     def emitter_output_w(self, excess_k: float) -> float:
         """Heat from the emitter to the room at an emitter-to-room excess of ``excess_k``."""
