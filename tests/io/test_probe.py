@@ -100,6 +100,37 @@ async def test_probe_switches_an_output_and_reads_it_back(
     assert "result       ok" in out and await server.get_coils(3, 1) == [True]
 
 
+async def test_probe_says_a_refused_write_failed(modbus_tcp_server: Any, tmp_path: Path) -> None:
+    server = await modbus_tcp_server()
+    # REFERENCES.md: Modbus Application Protocol V1.1b3, section 7: 4 = server device failure
+    # [published]
+    server.exception_code = 4
+    code, out, err = await probe(
+        "-c", str(site_file(tmp_path, server.port)), "relay", "--set", "on", "--yes"
+    )
+    assert code == 1, out + err
+    assert "wrote" not in out
+    assert "write        FAILED: 1 (on) not written: " in out
+    assert "exception reply 4 (server device failure)" in out
+    assert "Traceback" not in err
+    server.exception_code = None
+    assert await server.get_coils(3, 1) == [False]
+
+
+async def test_probe_says_a_write_to_an_unreachable_device_failed(
+    modbus_tcp_server: Any, tmp_path: Path
+) -> None:
+    server = await modbus_tcp_server()
+    await server.stop()
+    code, out, err = await probe(
+        "-c", str(site_file(tmp_path, server.port)), "relay", "--set", "on", "--yes"
+    )
+    assert code == 1, out + err
+    assert "wrote" not in out
+    assert "write        FAILED: 1 (on) not written: not connected" in out
+    assert "Traceback" not in err
+
+
 async def test_probe_refuses_to_switch_without_a_terminal(
     modbus_tcp_server: Any, tmp_path: Path
 ) -> None:

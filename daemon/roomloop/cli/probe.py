@@ -147,10 +147,18 @@ async def _probe_modbus(
             print(f"state        {_on_off(back.on)}", file=out)
             return EXIT_OK
         state = await modbus.set_output(point.name, want)
-        print(
-            f"wrote        {point.on_value if want else point.off_value} ({_on_off(want)})",
-            file=out,
-        )
+        value = point.on_value if want else point.off_value
+        detail = state.detail or ""
+        if state.verdict == "comm-failure" and detail.startswith("write failed"):
+            reason = detail.removeprefix("write failed: ")
+            print(f"write        FAILED: {value} ({_on_off(want)}) not written: {reason}", file=out)
+            print("result       comm-failure (the output was not switched)", file=out)
+            return EXIT_RUNTIME
+        print(f"wrote        {value} ({_on_off(want)})", file=out)
+        if state.verdict == "comm-failure":
+            print(f"read back    FAILED: {detail.removeprefix('read back failed: ')}", file=out)
+            print("result       comm-failure (written, but not confirmed)", file=out)
+            return EXIT_RUNTIME
         if state.verdict == "unverified":
             print("read back    not configured (read_back: false)", file=out)
             return EXIT_OK
@@ -236,10 +244,12 @@ async def _probe_mqtt_output(
         print(f"state        {_on_off(points.output_state(point.name).confirmed)}", file=out)
         return EXIT_OK
     state = await points.set_output(point.name, want)
-    print(f"published    {point.on_payload if want else point.off_payload!r} (QoS 1)", file=out)
+    payload = point.on_payload if want else point.off_payload
     if state.verdict == "comm-failure":
-        print(f"result       comm-failure ({state.detail})", file=out)
+        print(f"publish      FAILED: {payload!r} not published: {state.detail}", file=out)
+        print("result       comm-failure (the output was not switched)", file=out)
         return EXIT_RUNTIME
+    print(f"published    {payload!r} (QoS 1)", file=out)
     if point.state_topic is None:
         print("read back    not configured (no state topic)", file=out)
         return EXIT_OK

@@ -478,12 +478,16 @@ class ModbusLink:
             async def write(client: Any) -> Any:
                 return await client.write_register(point.address, value, device_id=point.unit_id)
 
+        step = "write"
         try:
             await self._request(write, lambda _response: None)
+            step = "read back"
             if point.read_back:
                 raw = await self._read_output_raw(point)
         except _RequestFailed as exc:
-            state = replace(state, verdict="comm-failure", detail=exc.reason)
+            # The detail says which step failed: a written output whose read-back failed
+            # is not the same as a write that never arrived (probe tells the user which).
+            state = replace(state, verdict="comm-failure", detail=f"{step} failed: {exc.reason}")
             self._events.problem(
                 name,
                 "modbus.write_failed",
