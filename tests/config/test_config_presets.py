@@ -125,6 +125,32 @@ def test_given_time_constant_wins() -> None:
     assert origins["anticipator_time_constant_s"] == "file"
 
 
+def test_smoothing_from_the_file_reaches_the_controller_settings() -> None:
+    from roomloop.config.models import ModbusInput
+    from roomloop.core.settings import ZoneSettings
+
+    sensor = ModbusInput(type="modbus-input", name="t", link="bus", address=0)
+
+    def zone(tuning: dict[str, float]) -> Zone:
+        return Zone.model_validate(
+            {
+                "name": "hall",
+                "inputs": ["t"],
+                "output": "r",
+                "heating": "hydronic",
+                "tuning": tuning,
+            }
+        )
+
+    derived = zone({})
+    assert derived.origins["smoothing_s"] == "derived from cycle rate"
+    assert ZoneSettings.from_zone(derived, {"t": sensor}).smoothing_s is None  # one cycle
+    off = zone({"smoothing_s": 0})
+    assert off.origins["smoothing_s"] == "file"
+    assert ZoneSettings.from_zone(off, {"t": sensor}).smoothing_s == 0.0
+    assert ZoneSettings.from_zone(zone({"smoothing_s": 300}), {"t": sensor}).smoothing_s == 300.0
+
+
 def test_fahrenheit_tuning_is_held_in_kelvin() -> None:
     zone = Zone.model_validate(
         {

@@ -200,6 +200,13 @@ def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:
         ("most cycles per hour", str(tuning.max_cycles_per_hour), "max_cycles_per_hour"),
         ("droop compensation", "on" if tuning.droop_compensation else "off", "droop_compensation"),
         ("droop time", f"{_n(tuning.droop_time_s)} s", "droop_time_s"),
+        (
+            "smoothing",
+            f"{_n(3600.0 / tuning.cycle_rate_cph)} s"
+            if tuning.smoothing_s is None
+            else ("off" if tuning.smoothing_s == 0 else f"{_n(tuning.smoothing_s)} s"),
+            "smoothing_s",
+        ),
     ]
     write("    tuning:\n")
     for label, value, key in rows:

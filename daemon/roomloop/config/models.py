@@ -451,6 +451,9 @@ class TuningInput(Strict):
     max_cycles_per_hour: Annotated[int, Field(ge=1, le=60)] | None = None
     droop_compensation: bool | None = None
     droop_time_s: Seconds | None = None
+    smoothing_s: Annotated[float, Field(ge=0, le=14400, allow_inf_nan=False)] | None = None
+    """Time constant of the smoothing of the temperature the relay switches on; left out:
+    one cycle period (3600 / cycle rate); 0: none."""
 
 
 class Tuning(BaseModel):
@@ -467,6 +470,8 @@ class Tuning(BaseModel):
     max_cycles_per_hour: int
     droop_compensation: bool
     droop_time_s: float
+    smoothing_s: float | None = None
+    """``None``: one cycle period (the controller derives it from the cycle rate)."""
 
 
 class FailSafe(Strict):

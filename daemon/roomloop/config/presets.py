@@ -116,6 +116,8 @@ def resolve_tuning(heating: HeatingType, given: TuningInput) -> tuple[Tuning, di
     origins["droop_compensation"] = (
         f"preset {heating}" if given.droop_compensation is None else "file"
     )
+    values["smoothing_s"] = given.smoothing_s
+    origins["smoothing_s"] = "derived from cycle rate" if given.smoothing_s is None else "file"
     if given.anticipator_time_constant_s is not None:
         values["anticipator_time_constant_s"] = given.anticipator_time_constant_s
         origins["anticipator_time_constant_s"] = "file"

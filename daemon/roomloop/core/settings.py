@@ -211,6 +211,7 @@ class ZoneSettings:
             max_cycles_per_hour=int(tuning.max_cycles_per_hour),
             droop_compensation=bool(tuning.droop_compensation),
             droop_time_s=float(tuning.droop_time_s),
+            smoothing_s=None if tuning.smoothing_s is None else float(tuning.smoothing_s),
             cycle_rate_regulation=(
                 zone.origins.get("anticipator_time_constant_s") == "derived from cycle rate"
             ),
