@@ -56,7 +56,7 @@ def test_cold_room_heats_and_warm_room_does_not() -> None:
     assert all(out.demand for _, out, _ in cold)
     warm = run(controller, lambda now, on: 22.0, end=60.0, tick=10.0)
     assert not any(out.demand for _, out, _ in warm)
-    assert warm[-1][1].reason == "in-band"
+    assert warm[-1][1].reason == "off-to-cut-in"
 
 
 def test_state_round_trips_through_json() -> None:

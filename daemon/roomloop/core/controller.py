@@ -21,8 +21,8 @@ Order of one step (``u`` = relay state held during the elapsed tick):
    time. Until fail-safe starts the zone *coasts*: it keeps switching on the
    last trusted temperature, reasons prefixed ``last-temperature:``.
 6. **Switching** on ``Ts + a - b`` across ``S -/+ D/2`` (``cut-in``,
-   ``cut-out``, ``in-band``), where ``Ts`` is ``T`` smoothed over about one
-   cycle (below). While recovering from a set-point change the relay switches on
+   ``cut-out``, ``on-to-cut-out``, ``off-to-cut-in``), where ``Ts`` is ``T``
+   smoothed over about one cycle (below). While recovering from a set-point change the relay switches on
    ``T`` itself and ``Ts`` restarts from ``T``.
 
    *Why smooth.* The anticipator stands in for the room's response within a
@@ -89,7 +89,12 @@ Order of one step (``u`` = relay state held during the elapsed tick):
    level returns), and it never shortens the time constant after a switch-on that
    brings the sliding hour to ``cycle_rate + 1`` switch-ons.
 
-Every output carries ``reason``: the rule that decided the relay this tick.
+Every output carries ``reason``: the rule that decided the relay this tick:
+``cut-in`` / ``cut-out`` (the switching band switched it), ``on-to-cut-out`` /
+``off-to-cut-in`` (the band holds the relay where it is until the other edge),
+``min-on``, ``min-off``, ``max-cycles`` (short-cycle protection held it),
+``protection``, ``mode-off``, ``fail-safe:<policy>``, ``no-temperature``, and
+``last-temperature:<rule>`` while the zone rides on its last trusted reading.
 """
 
 from __future__ import annotations
@@ -476,13 +481,13 @@ class ZoneController:
                     reason = "cut-out"
                 else:
                     want = True
-                    reason = "in-band"
+                    reason = "on-to-cut-out"
             elif sensed <= setpoint - half:
                 want = True
                 reason = "cut-in"
             else:
                 want = False
-                reason = "in-band"
+                reason = "off-to-cut-in"
             if temperature is None:
                 reason = "last-temperature:" + reason
 
