@@ -22,8 +22,8 @@ Order of one step (``u`` = relay state held during the elapsed tick):
    last trusted temperature, reasons prefixed ``last-temperature:``.
 6. **Switching** on ``Ts + a - b`` across ``S -/+ D/2`` (``cut-in``,
    ``cut-out``, ``on-to-cut-out``, ``off-to-cut-in``), where ``Ts`` is ``T``
-   smoothed over about one cycle (below). While recovering from a set-point change the relay switches on
-   ``T`` itself and ``Ts`` restarts from ``T``.
+   smoothed over about one cycle (below). While recovering from a set-point
+   change the relay switches on ``T`` itself and ``Ts`` restarts from ``T``.
 
    *Why smooth.* The anticipator stands in for the room's response within a
    cycle; the room's own ripple, seen through a lagging sensor with 0.1 K steps,
