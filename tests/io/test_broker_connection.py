@@ -11,10 +11,18 @@ from typing import Any
 
 import aiomqtt
 import pytest
+from structlog.testing import capture_logs
 
 from roomloop.config.models import Broker, Tls
 from roomloop.errors import BrokerError
-from roomloop.io.broker import BrokerConnection, LastWill, client_options, read_password
+from roomloop.io.broker import (
+    BrokerConnection,
+    BrokerSetupError,
+    LastWill,
+    check_broker_files,
+    client_options,
+    read_password,
+)
 
 
 def free_tcp_port() -> int:
@@ -40,8 +48,60 @@ def test_password_from_environment() -> None:
 
 def test_missing_password_file_is_a_clear_error(tmp_path: Path) -> None:
     broker = Broker(host="127.0.0.1", username="u", password_file=str(tmp_path / "absent"))
-    with pytest.raises(BrokerError, match="cannot read password_file"):
+    with pytest.raises(BrokerSetupError, match=r"broker.password_file .*absent: no such file"):
         read_password(broker)
+
+
+def test_empty_password_variable_names_the_key() -> None:
+    broker = Broker(host="127.0.0.1", username="u", password_env="RL_TEST_PW")
+    with pytest.raises(BrokerSetupError) as caught:
+        check_broker_files(broker, {"RL_TEST_PW": ""})
+    assert "broker.password_env RL_TEST_PW: the environment variable is not set" in str(
+        caught.value
+    )
+
+
+@pytest.mark.parametrize("key", ["ca_file", "cert_file", "key_file"])
+def test_missing_tls_file_names_the_key_and_the_file(tmp_path: Path, key: str) -> None:
+    files = {name: tmp_path / f"{name}.pem" for name in ("ca_file", "cert_file", "key_file")}
+    for name, path in files.items():
+        if name != key:
+            path.write_text("not checked for content here\n")
+    broker = Broker(
+        host="192.0.2.10", port=8883, tls=Tls(**{name: str(p) for name, p in files.items()})
+    )
+    with pytest.raises(BrokerSetupError) as caught:
+        check_broker_files(broker)
+    assert str(caught.value) == (
+        f"mqtts://192.0.2.10:8883: broker.tls.{key} {files[key]}: no such file"
+    )
+    with pytest.raises(BrokerSetupError):
+        client_options(broker)  # nothing is handed to the TLS library without its files
+
+
+def test_tls_folder_instead_of_a_file_is_named(tmp_path: Path) -> None:
+    broker = Broker(host="127.0.0.1", tls=Tls(ca_file=str(tmp_path)))
+    with pytest.raises(BrokerSetupError, match=r"broker.tls.ca_file .*: is a folder, not a file"):
+        check_broker_files(broker)
+
+
+async def test_the_connection_loop_logs_the_missing_file_by_name(tmp_path: Path) -> None:
+    # The loop itself goes on retrying (a file being rotated may come back); the reason it logs
+    # names the key and the file, not a bare "[Errno 2]".
+    missing = tmp_path / "broker-ca.pem"
+    broker = Broker(host="127.0.0.1", port=free_tcp_port(), tls=Tls(ca_file=str(missing)))
+    conn = BrokerConnection(broker, backoff_min_s=0.05, backoff_max_s=0.1)
+    with capture_logs() as events:
+        task = asyncio.create_task(conn.run(lambda _message: None))
+        await asyncio.sleep(0.3)
+        task.cancel()
+        with contextlib.suppress(asyncio.CancelledError):
+            await task
+    reasons = [e["reason"] for e in events if e["event"] == "broker.disconnected"]
+    assert reasons, "the loop logged no failed connection"
+    assert reasons[0] == (
+        f"mqtts://127.0.0.1:{broker.port}: broker.tls.ca_file {missing}: no such file"
+    )
 
 
 def test_tls_and_last_will_options(tmp_path: Path) -> None:
@@ -52,6 +112,7 @@ def test_tls_and_last_will_options(tmp_path: Path) -> None:
         keepalive_s=15,
         tls=Tls(ca_file=str(tmp_path / "ca.pem"), insecure=True),
     )
+    (tmp_path / "ca.pem").write_text("checked to exist, read by the TLS library\n")
     options = client_options(broker, LastWill("roomloop/x/status", "offline"))
     assert options["tls_params"].ca_certs == str(tmp_path / "ca.pem")
     assert options["tls_params"].cert_reqs == ssl.CERT_REQUIRED

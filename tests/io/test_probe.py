@@ -204,3 +204,32 @@ async def test_probe_broker_unreachable(tmp_path: Path) -> None:
         free = sock.getsockname()[1]
     code, _, err = await probe("-c", str(site_file(tmp_path, 1, broker_port=free)), "hall")
     assert code == 1 and f"mqtt://127.0.0.1:{free}" in err and "Traceback" not in err
+
+
+@pytest.mark.parametrize(
+    ("broker_extra", "words"),
+    [
+        (
+            "tls: {ca_file: %(dir)s/broker-ca.pem}",
+            "mqtts://127.0.0.1:8883: broker.tls.ca_file %(dir)s/broker-ca.pem: no such file",
+        ),
+        (
+            "username: roomloop\n  password_file: %(dir)s/absent-secret",
+            "broker.password_file %(dir)s/absent-secret: no such file",
+        ),
+    ],
+)
+async def test_probe_of_an_mqtt_point_with_a_missing_broker_file_exits_2(
+    tmp_path: Path, broker_extra: str, words: str
+) -> None:
+    site = site_file(tmp_path, 1, broker_port=8883)
+    text = site.read_text(encoding="utf-8").replace(
+        "  port: 8883\n", "  port: 8883\n  " + broker_extra % {"dir": tmp_path} + "\n"
+    )
+    site.write_text(text, encoding="utf-8")
+    code, out, err = await probe("-c", str(site), "hall")
+    assert code == 2, out + err
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("roomloop probe: "), err
+    assert words % {"dir": tmp_path} in lines[0]
+    assert out == ""  # refused before connecting

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import re
 import socket
 import time
 from collections.abc import AsyncIterator
@@ -241,3 +242,20 @@ async def test_ready_waits_for_the_links_but_only_so_long(tmp_path: Path) -> Non
             assert time.monotonic() - started >= 1.0
     ready = [e for e in events if e["event"] == "service.ready"]
     assert ready and ready[0]["links_down"] == ["rooms"]
+
+
+async def test_a_missing_broker_tls_file_stops_the_start_before_any_output_moves(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    from roomloop.io.broker import BrokerSetupError
+
+    server = await modbus_tcp_server()
+    data = site_yaml(modbus_port=server.port, broker_port=1)
+    ca = tmp_path / "broker-ca.pem"
+    data["broker"]["tls"] = {"ca_file": str(ca)}
+    path = tmp_path / "site.yaml"
+    path.write_text(yaml.safe_dump(data))
+    service = Service(load_site(path), clock=SimulatedClock(SPEED), state_dir=tmp_path / "state")
+    with pytest.raises(BrokerSetupError, match=re.escape(f"broker.tls.ca_file {ca}: no such file")):
+        await asyncio.wait_for(service.run(asyncio.Event()), 10.0)
+    assert server.requests == []  # no output written, not even the safe state

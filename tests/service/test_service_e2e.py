@@ -148,7 +148,10 @@ async def test_demand_reaches_the_coil_commands_are_answered_and_checked(rig: Ri
     await w.wait_for(lambda: (w.state() or {}).get("setpoint") == 20.0, 10)
 
 
-async def test_sigterm_leaves_the_coil_off_and_status_offline(rig: Rig) -> None:
+@pytest.mark.parametrize("signum", [signal.SIGTERM, signal.SIGHUP])  # SIGHUP: as SIGTERM
+async def test_a_stop_signal_leaves_the_coil_off_and_status_offline(
+    rig: Rig, signum: signal.Signals
+) -> None:
     w = rig.watcher
     # systemd's side of Type=notify: a datagram socket named in NOTIFY_SOCKET.
     notify_path = str(rig.tmp / "notify.sock")
@@ -159,8 +162,8 @@ async def test_sigterm_leaves_the_coil_off_and_status_offline(rig: Rig) -> None:
         await w.wait_for(lambda: rig.room().coil, 15)
         await w.wait_for(lambda: w.text("status") == "online", 10)
         started = time.monotonic()
-        code = await rig.service.signal(signal.SIGTERM)
-        assert code == 0
+        code = await rig.service.signal(signum)
+        assert code == 0  # not 129 (SIGHUP's default: killed with the outputs as they were)
         assert time.monotonic() - started < 5.0
         notes: list[str] = []
         with contextlib.suppress(BlockingIOError):
@@ -300,3 +303,68 @@ def test_run_refuses_bad_input_with_one_line_and_exit_2(
     assert result.returncode == 2
     assert words in result.stderr
     assert "Traceback" not in result.stderr + result.stdout
+
+
+def _run_refused(tmp_path: Path, *extra: str, **broker: Any) -> subprocess.CompletedProcess[str]:
+    """``roomloop run`` on the test site (broker section amended); it must refuse at start."""
+    data = site_yaml(modbus_port=1502, broker_port=1883)
+    data["broker"].update(broker)
+    (tmp_path / "site.yaml").write_text(yaml.safe_dump(data))
+    env = {k: v for k, v in os.environ.items() if k != "RL_TEST_BROKER_PW"}
+    return subprocess.run(
+        [sys.executable, "-m", "roomloop", "run", "-c", str(tmp_path / "site.yaml"), *extra],
+        capture_output=True,
+        text=True,
+        timeout=60,
+        env=env,
+        check=False,
+    )
+
+
+def _one_line(result: subprocess.CompletedProcess[str]) -> str:
+    assert "Traceback" not in result.stderr + result.stdout
+    lines = [line for line in result.stderr.splitlines() if line.startswith("roomloop run: ")]
+    assert len(lines) == 1, result.stderr
+    assert "Errno" not in lines[0]
+    return lines[0]
+
+
+def test_run_with_a_missing_broker_file_or_variable_exits_2_at_start(tmp_path: Path) -> None:
+    state = tmp_path / "state"
+    ca = tmp_path / "broker-ca.pem"
+    done = _run_refused(tmp_path, "--state-dir", str(state), tls={"ca_file": str(ca)})
+    assert done.returncode == 2
+    assert f"broker.tls.ca_file {ca}: no such file" in _one_line(done)
+    done = _run_refused(
+        tmp_path, "--state-dir", str(state), username="rl", password_env="RL_TEST_BROKER_PW"
+    )
+    assert done.returncode == 2
+    assert "broker.password_env RL_TEST_BROKER_PW" in _one_line(done)
+    secret = tmp_path / "absent-secret"
+    done = _run_refused(
+        tmp_path, "--state-dir", str(state), username="rl", password_file=str(secret)
+    )
+    assert done.returncode == 2
+    assert f"broker.password_file {secret}: no such file" in _one_line(done)
+    assert not state.exists()  # refused before anything was set up
+
+
+def test_run_with_a_state_dir_that_is_a_file_exits_2_naming_it(tmp_path: Path) -> None:
+    blocker = tmp_path / "state"
+    blocker.write_text("a file\n")
+    done = _run_refused(tmp_path, "--state-dir", str(blocker))
+    assert done.returncode == 2
+    assert _one_line(done) == f"roomloop run: state directory {blocker} is a file, not a directory"
+    done = _run_refused(tmp_path, "--state-dir", str(blocker / "inner"))
+    assert done.returncode == 2
+    assert f"state directory {blocker / 'inner'} cannot be created" in _one_line(done)
+
+
+def test_run_with_an_unwritable_state_dir_exits_1_naming_it(tmp_path: Path) -> None:
+    if os.geteuid() == 0:
+        pytest.skip("root may write into any directory")
+    locked = tmp_path / "locked"
+    locked.mkdir(mode=0o500)
+    done = _run_refused(tmp_path, "--state-dir", str(locked))
+    assert done.returncode == 1
+    assert f"state directory {locked} is not writable" in _one_line(done)

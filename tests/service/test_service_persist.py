@@ -3,12 +3,13 @@
 from __future__ import annotations
 
 import json
+import os
 from pathlib import Path
 
 import pytest
 from structlog.testing import capture_logs
 
-from roomloop.service.persist import StateStore
+from roomloop.service.persist import StateDirError, StateStore, prepare_state_dir
 
 
 def test_round_trip_and_no_temporary_files_left(tmp_path: Path) -> None:
@@ -87,3 +88,38 @@ def test_a_failed_write_leaves_the_old_file_intact(
     monkeypatch.undo()
     assert StateStore(tmp_path, "s").load() == {"z": {"v": 1}}
     assert [p.name for p in tmp_path.iterdir()] == ["s.state.json"]
+
+
+def test_state_dir_is_created_when_missing(tmp_path: Path) -> None:
+    target = tmp_path / "a" / "b"
+    assert prepare_state_dir(target) == target
+    assert target.is_dir()
+
+
+def test_state_dir_that_is_a_file_is_a_usage_error_naming_it(tmp_path: Path) -> None:
+    blocker = tmp_path / "state"
+    blocker.write_text("not a directory\n")
+    with pytest.raises(StateDirError) as caught:
+        prepare_state_dir(blocker)
+    assert caught.value.usage is True
+    assert str(caught.value) == f"state directory {blocker} is a file, not a directory"
+    with pytest.raises(StateDirError) as below:
+        prepare_state_dir(blocker / "inner")
+    assert below.value.usage is True
+    assert str(below.value) == (
+        f"state directory {blocker / 'inner'} cannot be created ({blocker} is a file)"
+    )
+    assert "Errno" not in str(below.value)
+
+
+def test_unwritable_state_dir_is_a_runtime_error_naming_it(tmp_path: Path) -> None:
+    if os.geteuid() == 0:
+        pytest.skip("root may write into any directory")
+    locked = tmp_path / "locked"
+    locked.mkdir(mode=0o500)
+    with pytest.raises(StateDirError) as caught:
+        prepare_state_dir(locked)
+    assert caught.value.usage is False
+    assert f"state directory {locked} is not writable" in str(caught.value)
+    with pytest.raises(StateDirError, match="cannot be created: permission denied"):
+        prepare_state_dir(locked / "inner")

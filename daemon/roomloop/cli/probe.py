@@ -7,7 +7,8 @@ question; without a terminal and without ``--yes`` it refuses), then reads it ba
 
 Exit codes (DESIGN.md): 0 read or switched and confirmed; 1 the device or broker
 did not answer, or the read-back disagrees; 2 usage or config (an unknown point,
-``--set`` on an input, no broker for an MQTT point).
+``--set`` on an input, no broker for an MQTT point, a TLS or password file or
+variable the broker section names that is missing).
 """
 
 from __future__ import annotations
@@ -72,6 +73,14 @@ def main(args: argparse.Namespace) -> int:
             file=sys.stderr,
         )
         return EXIT_USAGE
+    if isinstance(point, MqttInput | MqttOutput) and site.broker is not None:
+        from roomloop.io.broker import BrokerSetupError, check_broker_files
+
+        try:
+            check_broker_files(site.broker)
+        except BrokerSetupError as exc:  # a missing TLS or password file: the site's mistake
+            print(f"roomloop probe: {exc}", file=sys.stderr)
+            return EXIT_USAGE
     return asyncio.run(_probe(site, point, want, sys.stdout))
 
 

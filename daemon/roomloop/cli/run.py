@@ -1,8 +1,15 @@
 """``roomloop run -c SITE [--state-dir DIR]``: the service, in the foreground, under systemd or not.
 
-SIGTERM and SIGINT stop it cleanly (outputs to their safe state, ``offline``
-published, state saved, exit 0). The state directory is ``--state-dir``, else
-systemd's ``$STATE_DIRECTORY``, else the site's ``state_dir``.
+SIGTERM, SIGINT and SIGHUP stop it cleanly (outputs to their safe state,
+``offline`` published, state saved, exit 0); SIGHUP too, because its default
+would end the process at once with the outputs as they were. The state
+directory is ``--state-dir``, else systemd's ``$STATE_DIRECTORY``, else the
+site's ``state_dir``.
+
+Exit codes: 0 stopped on a signal; 1 the state directory is not writable;
+2 a bad site file, a state directory that is a file, or a TLS or password
+file or variable the broker section names that is missing (checked at start,
+before any output is touched, rather than retried for ever).
 
 Test hook (not for users, see DEVELOPERS.md): ``ROOMLOOP_CLOCK_SPEED=N`` runs
 the service on a simulated clock N times faster than real time, so the
@@ -24,6 +31,7 @@ import structlog
 from roomloop.config.loader import load_site
 from roomloop.config.models import Site
 from roomloop.service.clock import Clock, RealClock, SimulatedClock
+from roomloop.service.persist import StateDirError, prepare_state_dir
 
 EXIT_OK = 0
 EXIT_RUNTIME = 1
@@ -73,7 +81,7 @@ async def _serve(site: Site, state_dir: str, clock: Clock) -> None:
 
     stop = asyncio.Event()
     loop = asyncio.get_running_loop()
-    for signum in (signal.SIGTERM, signal.SIGINT):
+    for signum in (signal.SIGTERM, signal.SIGINT, signal.SIGHUP):
         loop.add_signal_handler(signum, stop.set)
     service = Service(site, clock=clock, state_dir=state_dir)
     await service.run(stop)
@@ -88,15 +96,20 @@ def main(args: argparse.Namespace) -> int:
     except ValueError as exc:
         print(f"roomloop run: {exc}", file=sys.stderr)
         return EXIT_USAGE
+    if site.broker is not None:
+        from roomloop.io.broker import BrokerSetupError, check_broker_files
+
+        try:
+            check_broker_files(site.broker)
+        except BrokerSetupError as exc:
+            print(f"roomloop run: {exc}", file=sys.stderr)
+            return EXIT_USAGE
     state_dir = _state_dir(args, site.site.state_dir)
     try:
-        os.makedirs(state_dir, exist_ok=True)
-    except OSError as exc:
-        print(f"roomloop run: cannot use state directory {state_dir}: {exc}", file=sys.stderr)
-        return EXIT_RUNTIME
-    if not os.access(state_dir, os.W_OK | os.X_OK):
-        print(f"roomloop run: state directory {state_dir} is not writable", file=sys.stderr)
-        return EXIT_RUNTIME
+        prepare_state_dir(state_dir)
+    except StateDirError as exc:
+        print(f"roomloop run: {exc}", file=sys.stderr)
+        return EXIT_USAGE if exc.usage else EXIT_RUNTIME
     log.info("run.start", config=str(args.config), state_dir=state_dir, pid=os.getpid())
     asyncio.run(_serve(site, state_dir, clock))
     return EXIT_OK

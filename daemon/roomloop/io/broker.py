@@ -46,29 +46,73 @@ def endpoint_of(broker: Broker) -> str:
     return f"{scheme}://{broker.host}:{broker.port}"
 
 
+class BrokerSetupError(BrokerError):
+    """A file or variable the site's broker section names is missing or unreadable.
+
+    The user's configuration mistake, not the broker's: ``roomloop run`` and ``probe``
+    stop at once with exit 2 instead of retrying a connection that cannot work.
+    """
+
+
+def _file_problem(path: str) -> str | None:
+    """Why ``path`` cannot be read as a file (``no such file`` ...), or ``None``."""
+    if not os.path.exists(path):
+        return "no such file"
+    if os.path.isdir(path):
+        return "is a folder, not a file"
+    if not os.access(path, os.R_OK):
+        return "not readable (permission denied)"
+    return None
+
+
+def check_broker_files(broker: Broker, env: Mapping[str, str] | None = None) -> None:
+    """Check every file and variable ``broker`` names before a connection is tried.
+
+    Raises :class:`BrokerSetupError` naming the key and the file, e.g.
+    ``broker.tls.ca_file /etc/roomloop/broker-ca.pem: no such file`` (the TLS
+    library's own error names neither).
+    """
+    where = endpoint_of(broker)
+    if broker.tls is not None:
+        for key in ("ca_file", "cert_file", "key_file"):
+            path = getattr(broker.tls, key)
+            problem = None if path is None else _file_problem(path)
+            if problem is not None:
+                raise BrokerSetupError(f"broker.tls.{key} {path}: {problem}", endpoint=where)
+    read_password(broker, env)
+
+
 def read_password(broker: Broker, env: Mapping[str, str] | None = None) -> str | None:
     """The password from ``password_file`` (first line) or ``password_env``.
 
-    Raises :class:`BrokerError` when the file or variable is missing or empty.
+    Raises :class:`BrokerSetupError` when the file or variable is missing or empty.
     """
     env = os.environ if env is None else env
     where = endpoint_of(broker)
     if broker.password_file is not None:
+        path = broker.password_file
+        problem = _file_problem(path)
+        if problem is not None:
+            raise BrokerSetupError(f"broker.password_file {path}: {problem}", endpoint=where)
         try:
-            text = Path(broker.password_file).read_text(encoding="utf-8")
+            text = Path(path).read_text(encoding="utf-8")
         except (OSError, UnicodeDecodeError) as exc:
-            raise BrokerError(
-                f"cannot read password_file {broker.password_file}: {exc}", endpoint=where
+            reason = exc.strerror if isinstance(exc, OSError) and exc.strerror else str(exc)
+            raise BrokerSetupError(
+                f"broker.password_file {path}: cannot read it: {reason}", endpoint=where
             ) from None
         lines = text.splitlines()
         if not lines or not lines[0]:
-            raise BrokerError(f"password_file {broker.password_file} is empty", endpoint=where)
+            raise BrokerSetupError(
+                f"broker.password_file {path}: the first line is empty", endpoint=where
+            )
         return lines[0]
     if broker.password_env is not None:
         value = env.get(broker.password_env)
         if not value:
-            raise BrokerError(
-                f"environment variable {broker.password_env} (password_env) is not set",
+            raise BrokerSetupError(
+                f"broker.password_env {broker.password_env}: "
+                "the environment variable is not set or empty",
                 endpoint=where,
             )
         return value
@@ -78,7 +122,11 @@ def read_password(broker: Broker, env: Mapping[str, str] | None = None) -> str |
 def client_options(
     broker: Broker, will: LastWill | None = None, env: Mapping[str, str] | None = None
 ) -> dict[str, Any]:
-    """Keyword arguments for ``aiomqtt.Client`` from the site's broker section."""
+    """Keyword arguments for ``aiomqtt.Client`` from the site's broker section.
+
+    Raises :class:`BrokerSetupError` for a missing TLS or password file or variable.
+    """
+    check_broker_files(broker, env)
     options: dict[str, Any] = {
         "hostname": broker.host,
         "port": broker.port,

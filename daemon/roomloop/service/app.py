@@ -256,7 +256,16 @@ class Service:
         return {name: z.outputs for name, z in self.zones.items()}
 
     async def run(self, stop: asyncio.Event) -> None:
-        """Run until ``stop`` is set, then stop cleanly: outputs safe, ``offline``, state saved."""
+        """Run until ``stop`` is set, then stop cleanly: outputs safe, ``offline``, state saved.
+
+        Raises :class:`~roomloop.io.broker.BrokerSetupError` at once, before any output is
+        touched, when a TLS or password file or variable of the broker section is missing
+        (the site's mistake: retrying could never connect).
+        """
+        if self.site.broker is not None:
+            from roomloop.io.broker import check_broker_files
+
+            check_broker_files(self.site.broker)
         now = self.clock.now()
         self._load_zones(now)
         log.info(

@@ -26,6 +26,49 @@ FORMAT = "roomloop-state"
 VERSION = 1
 
 
+class StateDirError(Exception):
+    """The state directory cannot be used; ``usage`` when the path itself is wrong (a file)."""
+
+    def __init__(self, message: str, *, usage: bool) -> None:
+        super().__init__(message)
+        self.usage = usage
+
+
+def prepare_state_dir(state_dir: str | os.PathLike[str]) -> Path:
+    """Create the state directory if needed and check it is writable, before the service starts.
+
+    Raises :class:`StateDirError` with one line naming the directory: ``usage`` for a
+    path that is (or goes through) a file, not ``usage`` for missing permissions.
+    """
+    directory = Path(state_dir)
+    if directory.exists() and not directory.is_dir():
+        raise StateDirError(
+            f"state directory {directory} is a file, not a directory", usage=True
+        )
+    try:
+        directory.mkdir(parents=True, exist_ok=True)
+    except (FileExistsError, NotADirectoryError):
+        blocker = next((p for p in directory.parents if p.exists() and not p.is_dir()), None)
+        where = f" ({blocker} is a file)" if blocker is not None else ""
+        raise StateDirError(
+            f"state directory {directory} cannot be created{where}", usage=True
+        ) from None
+    except PermissionError:
+        raise StateDirError(
+            f"state directory {directory} cannot be created: permission denied", usage=False
+        ) from None
+    except OSError as exc:
+        raise StateDirError(
+            f"state directory {directory} cannot be created: {exc.strerror or exc}", usage=False
+        ) from None
+    if not os.access(directory, os.W_OK | os.X_OK):
+        raise StateDirError(
+            f"state directory {directory} is not writable by this user: permission denied",
+            usage=False,
+        )
+    return directory
+
+
 class StateStore:
     """Reads and atomically writes ``<state_dir>/<site>.state.json``."""
 
