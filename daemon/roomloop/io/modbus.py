@@ -29,7 +29,7 @@ from roomloop.errors import DeviceError
 from roomloop.io.codec import Decoded, decode_point
 from roomloop.io.eventlog import RateLimitedLog, get_logger
 from roomloop.io.planner import Read, plan_reads
-from roomloop.io.ports import OutputState
+from roomloop.io.ports import OutputState, aged
 
 log = get_logger("modbus")
 
@@ -323,18 +323,10 @@ class ModbusLink:
 
     def samples(self, now: float) -> dict[str, PointSample]:
         """Latest sample per input point; ``ok`` older than ``stale_after_s`` becomes ``stale``."""
-        out: dict[str, PointSample] = {}
-        for name, latest in self._samples.items():
-            sample = latest
-            limit = self.inputs[name].reliability.stale_after_s
-            if (
-                sample.transport == "ok"
-                and sample.received_at is not None
-                and now - sample.received_at > limit
-            ):
-                sample = replace(sample, transport="stale")
-            out[name] = sample
-        return out
+        return {
+            name: aged(sample, self.inputs[name].reliability.stale_after_s, now)
+            for name, sample in self._samples.items()
+        }
 
     async def poll(self) -> list[PointSample]:
         """One cycle: every planned read once; returns the new sample of every input point.

@@ -27,7 +27,7 @@ from roomloop.config.models import MqttInput, MqttOutput
 from roomloop.core.types import PointSample, Reliability
 from roomloop.io.codec import range_verdict, to_celsius
 from roomloop.io.eventlog import RateLimitedLog, get_logger
-from roomloop.io.ports import OutputState, OutputVerdict
+from roomloop.io.ports import OutputState, OutputVerdict, aged
 
 log = get_logger("mqtt")
 
@@ -232,16 +232,10 @@ class MqttPoints:
 
     def samples(self, now: float) -> dict[str, PointSample]:
         """Latest sample per input point; none yet or older than ``stale_after_s``: ``stale``."""
-        out: dict[str, PointSample] = {}
-        for name, latest in self._samples.items():
-            sample = latest
-            limit = self.inputs[name].reliability.stale_after_s
-            if sample.transport == "ok" and (
-                sample.received_at is None or now - sample.received_at > limit
-            ):
-                sample = replace(sample, transport="stale")
-            out[name] = sample
-        return out
+        return {
+            name: aged(sample, self.inputs[name].reliability.stale_after_s, now)
+            for name, sample in self._samples.items()
+        }
 
     # ------------------------------------------------------------------ outputs
 

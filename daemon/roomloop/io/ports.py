@@ -8,7 +8,7 @@ the device confirmed it. The service never needs to know which one it has.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Literal, Protocol, runtime_checkable
 
 from roomloop.core.types import PointSample
@@ -57,3 +57,13 @@ class OutputSink(Protocol):
         ...
 
     def output_state(self, name: str) -> OutputState: ...
+
+
+def aged(sample: PointSample, stale_after_s: float, now: float) -> PointSample:
+    """The sample as of ``now``: an ``ok`` one older than ``stale_after_s``, or one that
+    never arrived, reads ``stale``; any other verdict stands as the device gave it."""
+    if sample.transport == "ok" and (
+        sample.received_at is None or now - sample.received_at > stale_after_s
+    ):
+        return replace(sample, transport="stale")
+    return sample
