@@ -126,3 +126,26 @@ def test_setpoint_command_holds_and_limits_refuse() -> None:
         apply_command(s, state, "setpoint", "warm", 0.0)
     with pytest.raises(CommandRejected, match="unknown field"):
         apply_command(s, state, "colour", "red", 0.0)
+
+
+@pytest.mark.parametrize(
+    ("old", "new", "key"),
+    [
+        ('"hold_until":null', '"hold_until":1e300', "hold_until"),
+        ('"hold_until":null', '"hold_until":253402300800', "hold_until"),
+        ('"hold_until":null', '"hold_until":1' + "0" * 400, "hold_until"),
+        ('"last_step_at":0.0', '"last_step_at":1e20', "last_step_at"),
+        ('"anticipator_k":0.0', '"anticipator_k":1' + "0" * 400, "anticipator_k"),
+        ('"duty_current":[0.0,', '"duty_current":[1e300,', "duty_current"),
+    ],
+)
+def test_a_time_beyond_year_9999_or_a_huge_number_is_refused(
+    old: str, new: str, key: str
+) -> None:
+    """A saved time must stay displayable as a date; a huge integer is no traceback."""
+    text = ZoneController(settings()).initial_state(0.0).to_json()
+    assert old in text
+    with pytest.raises(StateFormatError, match=key):
+        ZoneState.from_json(text.replace(old, new))
+    last_second = text.replace('"hold_until":null', '"hold_until":253402300799')
+    assert ZoneState.from_json(last_second).hold_until == 253402300799.0

@@ -180,3 +180,22 @@ def test_no_reading_yet_is_not_a_fault() -> None:
     assert out.reliability == {"temperature": "stale"}
     _, out = c.step(st, sample(18.0, 20.0), 20.0)
     assert out.temperature == 18.0 and out.demand
+
+
+@pytest.mark.parametrize("field", ["setpoint", "hold_until"])
+def test_a_huge_number_is_refused_not_a_traceback(field: str) -> None:
+    s = settings()
+    held = apply_command(s, ZoneController(s).initial_state(0.0), "setpoint", 21.0, 0.0)
+    with pytest.raises(CommandRejected, match="too large") as caught:
+        apply_command(s, held, field, "1" + "0" * 400, 0.0)
+    assert caught.value.field == field
+
+
+def test_hold_until_at_most_366_days_ahead() -> None:
+    s = settings()
+    held = apply_command(s, ZoneController(s).initial_state(0.0), "setpoint", 21.0, 1000.0)
+    year = 366 * 86400.0
+    assert apply_command(s, held, "hold_until", 1000.0 + year, 1000.0).hold_until == 1000.0 + year
+    for far in (1000.0 + year + 1.0, 1e300):
+        with pytest.raises(CommandRejected, match="366 days"):
+            apply_command(s, held, "hold_until", far, 1000.0)

@@ -16,9 +16,10 @@ Fields:
   ``auto`` it overrides the program's level until the program's level next
   changes; in ``hold`` it becomes a hold at that level's set point; in ``off``
   it starts a hold at that level.
-- ``hold_until``: POSIX seconds in the future, or ``null``/empty for an
-  indefinite hold. In ``auto`` it starts a hold at the set point in force now;
-  in ``off`` it is refused (there is nothing to hold).
+- ``hold_until``: POSIX seconds in the future (at most :data:`MAX_HOLD_S`, 366
+  days, ahead), or ``null``/empty for an indefinite hold. In ``auto`` it starts
+  a hold at the set point in force now; in ``off`` it is refused (there is
+  nothing to hold).
 
 The next :meth:`ZoneController.step` clamps and applies the result, so a
 command never has to wait for a tick to be validated.
@@ -37,6 +38,8 @@ from .settings import LEVEL_NAMES, MODE_NAMES, ZoneSettings
 from .state import ZoneState
 
 COMMAND_FIELDS = ("setpoint", "mode", "level", "hold_until")
+MAX_HOLD_S = 366 * 86400.0
+"""Farthest ``hold_until`` ahead of now: a year is a real plan; 1e300 breaks every date display."""
 
 
 class CommandRejected(RoomloopError):
@@ -128,6 +131,12 @@ def apply_command(
         until = _optional_number(field, value)
         if until is not None and until <= now:
             raise CommandRejected(field, f"{until:.0f} is not in the future (now is {now:.0f})")
+        if until is not None and until > now + MAX_HOLD_S:
+            raise CommandRejected(
+                field,
+                f"{until:.0f} is more than 366 days ahead (latest {now + MAX_HOLD_S:.0f}); "
+                "use null for an indefinite hold",
+            )
         if state.mode == "off":
             raise CommandRejected(field, "the zone is off; set a mode, set point or level first")
         if state.mode == "auto":
@@ -166,7 +175,10 @@ def _number(field: str, value: object) -> float:
     raw = _unwrap(value)
     if isinstance(raw, bool) or not isinstance(raw, int | float):
         raise CommandRejected(field, f"{value!r} is not a number")
-    number = float(raw)
+    try:
+        number = float(raw)
+    except OverflowError:
+        raise CommandRejected(field, "the number is too large") from None
     if not math.isfinite(number):
         raise CommandRejected(field, f"{value!r} is not a finite number")
     return number

@@ -26,7 +26,8 @@ JSON shape (version 1)::
                  "still_on_s": 0.0, "good_since": 1699990000.0, "faulted": false}],
      "backup": null, "smoothed_c": 19.96}
 
-Times are POSIX seconds as given to ``step``; temperatures Celsius.
+Times are POSIX seconds as given to ``step``, within +/- :data:`MAX_TIME_S` (the end of
+year 9999: a time beyond breaks every date display); temperatures Celsius.
 ``smoothed_c`` (the switching temperature, see :mod:`roomloop.core.controller`)
 came later within version 1: a state saved without it loads with ``None``, and
 the controller then restarts the smoothing from the next reading.
@@ -45,6 +46,8 @@ from .types import RELIABILITY_VALUES, Reliability
 
 STATE_SCHEMA = "roomloop.zone-state"
 STATE_VERSION = 1
+MAX_TIME_S = 253402300799.0
+"""The last second of year 9999 (POSIX): the bound of every time field in a saved state."""
 
 
 class StateFormatError(RoomloopError, ValueError):
@@ -180,7 +183,7 @@ class ZoneState:
             mode=r.choice("mode", ("auto", "hold", "off")),
             hold_setpoint=r.opt_num("hold_setpoint"),
             hold_level=r.opt_choice("hold_level", _LEVELS),
-            hold_until=r.opt_num("hold_until"),
+            hold_until=r.opt_time("hold_until"),
             level_override=r.opt_choice("level_override", _LEVELS),
             scheduled_level=r.choice("scheduled_level", _LEVELS),
             anticipator_k=r.num("anticipator_k"),
@@ -188,19 +191,19 @@ class ZoneState:
             tau_scale=r.positive("tau_scale"),
             cycle_clean=r.flag("cycle_clean"),
             relay_on=r.flag("relay_on"),
-            switched_at=r.opt_num("switched_at"),
+            switched_at=r.opt_time("switched_at"),
             protection_run=r.flag("protection_run"),
             switches=switches,
-            started_at=r.num("started_at"),
-            last_step_at=r.num("last_step_at"),
+            started_at=r.time("started_at"),
+            last_step_at=r.time("last_step_at"),
             last_setpoint=r.opt_num("last_setpoint"),
             recovering=int(r.choice("recovering", (-1, 0, 1))),
             temperature=r.opt_num("temperature"),
-            good_at=r.num("good_at"),
-            good_since=r.opt_num("good_since"),
+            good_at=r.time("good_at"),
+            good_since=r.opt_time("good_since"),
             normal=r.flag("normal"),
             fail_safe=r.flag("fail_safe"),
-            fail_safe_since=r.opt_num("fail_safe_since"),
+            fail_safe_since=r.opt_time("fail_safe_since"),
             fail_safe_duty=r.opt_num("fail_safe_duty"),
             fail_safe_reason=r.opt_text("fail_safe_reason"),
             duty_buckets=buckets,
@@ -237,21 +240,30 @@ def _point_from(raw: Any, where: str) -> PointState:
         reliability=r.choice("reliability", RELIABILITY_VALUES),
         verdict=r.choice("verdict", RELIABILITY_VALUES),
         value=r.opt_num("value"),
-        value_at=r.opt_num("value_at"),
-        seen_at=r.opt_num("seen_at"),
+        value_at=r.opt_time("value_at"),
+        seen_at=r.opt_time("seen_at"),
         still_value=r.opt_num("still_value"),
         still_on_s=r.num("still_on_s"),
-        good_since=r.opt_num("good_since"),
+        good_since=r.opt_time("good_since"),
         faulted=r.flag("faulted"),
     )
 
 
 def _is_num(value: Any) -> bool:
-    return isinstance(value, int | float) and not isinstance(value, bool) and math.isfinite(value)
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        return False
+    try:
+        return math.isfinite(value)
+    except OverflowError:  # an integer too large for a float
+        return False
+
+
+def _is_time(value: Any) -> bool:
+    return _is_num(value) and -MAX_TIME_S <= value <= MAX_TIME_S
 
 
 def _num(item: Any, index: int, where: str) -> float:
-    if not isinstance(item, list) or len(item) != 2 or not _is_num(item[index]):
+    if not isinstance(item, list) or len(item) != 2 or not _is_time(item[index]):
         raise StateFormatError(f"zone state: {where} entries are [time, on]")
     return float(item[index])
 
@@ -263,7 +275,12 @@ def _bool(item: Any, index: int, where: str) -> bool:
 
 
 def _triple(item: Any, where: str) -> tuple[float, float, float]:
-    if not isinstance(item, list) or len(item) != 3 or not all(_is_num(v) for v in item):
+    if (
+        not isinstance(item, list)
+        or len(item) != 3
+        or not all(_is_num(v) for v in item)
+        or not _is_time(item[0])
+    ):
         raise StateFormatError(f"zone state: {where} entries are [start, on_s, seen_s]")
     return (float(item[0]), float(item[1]), float(item[2]))
 
@@ -288,6 +305,15 @@ class _Reader:
         if not _is_num(value):
             raise self._bad(key, "a finite number")
         return float(value)
+
+    def time(self, key: str) -> float:
+        value = self.get(key)
+        if not _is_time(value):
+            raise self._bad(key, f"POSIX seconds within +/-{MAX_TIME_S:.0f} (year 9999)")
+        return float(value)
+
+    def opt_time(self, key: str) -> float | None:
+        return None if self.get(key) is None else self.time(key)
 
     def positive(self, key: str) -> float:
         value = self.num(key)
