@@ -175,3 +175,46 @@ def test_any_payload_is_applied_or_refused_never_crashes(field: str, payload: by
     assert result["ok"] is bool(rec.applied)
     if result["ok"] and field == "setpoint":
         assert 5.0 <= rec.applied[0].value <= 26.0
+
+
+@pytest.mark.parametrize(
+    ("field", "payload", "words"),
+    [
+        ("hold_until", "1e300", "366 days"),
+        ("hold_until", '{"value": 1e300}', "366 days"),
+        ("hold_until", str(NOW + 367 * 86400), "366 days"),
+        ("hold_until", "9999-12-31T23:59", "366 days"),
+        ("setpoint", "1" + "0" * 400, "too large"),
+        ("hold_until", "1" + "0" * 400, "too large"),
+    ],
+)
+def test_absurd_numbers_and_far_times_are_refused_with_a_reason(
+    field: str, payload: str, words: str
+) -> None:
+    rec = Recorder()
+    answer = handler(rec).handle(
+        f"roomloop/annex/zone/studio/cmd/{field}",
+        payload.encode(),
+        retained=False,
+        now=NOW,
+        monotonic=0.0,
+    )
+    assert answer is not None
+    result = json.loads(answer.payload)
+    assert result["ok"] is False and words in result["reason"], result
+    assert rec.applied == []
+
+
+def test_a_hold_within_a_year_is_accepted() -> None:
+    command = parse("hold_until", str(NOW + 365 * 86400))
+    assert command.value == NOW + 365 * 86400
+
+
+def test_an_unexpected_error_while_applying_is_answered_as_refused() -> None:
+    def broken(command: Command) -> None:
+        raise KeyError("a bug of ours")
+
+    h = CommandHandler("p", {"studio": ZONE}, broken, units="C", tz=VIENNA, rate_per_min=30)
+    answer = h.handle("p/zone/studio/cmd/mode", b"hold", retained=False, now=NOW, monotonic=0.0)
+    assert answer is not None
+    assert json.loads(answer.payload) == {"field": "mode", "ok": False, "reason": "internal error"}

@@ -105,3 +105,12 @@ def test_due_on_change_on_interval_and_after_reconnect() -> None:
     # After a reconnect everything again.
     pub.forget_sent()
     assert len(pub.due(AT + 64)) == 6
+
+
+def test_a_view_that_cannot_render_is_skipped_and_the_others_still_go_out() -> None:
+    pub = StatePublisher("p", units="C", tz=VIENNA, interval_s=60.0)
+    pub.update(dataclasses.replace(VIEW, zone="broken", hold_until=1e300))
+    pub.update(VIEW)
+    topics = [m.topic for m in pub.due(AT)]
+    assert "p/zone/studio/state" in topics and len(topics) == 6
+    assert not any("/broken/" in t for t in topics)

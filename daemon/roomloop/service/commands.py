@@ -23,11 +23,19 @@ from dataclasses import dataclass
 from typing import Any
 from zoneinfo import ZoneInfo
 
+import structlog
+
 from roomloop.config.models import LEVELS, Zone
+from roomloop.service.publisher import iso
+
+log = structlog.get_logger("roomloop.service")
 
 FIELDS = ("setpoint", "mode", "level", "hold_until")
 MODES = ("auto", "hold", "off")
 MAX_PAYLOAD_BYTES = 1024
+MAX_HOLD_AHEAD_S = 366 * 86400.0
+"""How far ahead ``hold_until`` may be: a year and a day covers every real hold, and keeps
+the time inside what the clock and the state file can represent."""
 RESULT = "result"
 
 
@@ -100,7 +108,10 @@ def _number(value: Any, what: str) -> float:
             raise Refused(f"{what} must be a number, not {value[:40]!r}") from None
     if not isinstance(value, int | float):
         raise Refused(f"{what} must be a number, not a {type(value).__name__}")
-    number = float(value)
+    try:
+        number = float(value)
+    except OverflowError:  # a JSON integer of hundreds of digits
+        raise Refused(f"{what} is far too large") from None
     if not math.isfinite(number):
         raise Refused(f"{what} must be a finite number")
     return number
@@ -130,7 +141,10 @@ def parse_time(value: Any, tz: ZoneInfo) -> float | None:
                 ) from None
         if when.tzinfo is None:
             when = when.replace(tzinfo=tz)
-        return when.timestamp()
+        try:
+            return when.timestamp()
+        except (OverflowError, ValueError, OSError):
+            raise Refused(f"hold_until {value[:40]!r} is out of range") from None
     return _number(value, "hold_until")
 
 
@@ -166,6 +180,8 @@ def parse_command(
     when = parse_time(value, tz)
     if when is not None and when <= now:
         raise Refused("hold_until is in the past")
+    if when is not None and when > now + MAX_HOLD_AHEAD_S:
+        raise Refused("hold_until is more than 366 days ahead")
     return Command(zone.name, field, when)
 
 
@@ -176,7 +192,7 @@ def shown_value(command: Command, *, units: str, tz: ZoneInfo) -> Any:
     if command.field == "hold_until":
         if command.value is None:
             return None
-        return dt.datetime.fromtimestamp(float(command.value), tz).isoformat(timespec="seconds")
+        return iso(float(command.value), tz)
     return command.value
 
 
@@ -208,7 +224,7 @@ Apply = Callable[[Command], Any]
 
 
 class CommandHandler:
-    """Turns one inbound message into at most one answer; never raises for what a client sends."""
+    """Turns one inbound message into at most one answer; never raises, whatever arrives."""
 
     def __init__(
         self,
@@ -252,11 +268,21 @@ class CommandHandler:
                 command = parse_command(
                     zone, where.field, payload, units=self.units, tz=self.tz, now=now
                 )
+                # Shown before it is applied: a value that cannot be shown is not applied.
+                shown = shown_value(command, units=self.units, tz=self.tz)
                 self.apply(command)
             except self.refusals as exc:
                 answer.update(ok=False, reason=_reason(exc))
+            except Exception as exc:  # a bug of ours: answered, logged, never fatal to the session
+                log.exception(
+                    "command.internal_error",
+                    zone=zone.name,
+                    field=where.field,
+                    error=str(exc) or type(exc).__name__,
+                )
+                answer.update(ok=False, reason="internal error")
             else:
-                answer.update(ok=True, value=shown_value(command, units=self.units, tz=self.tz))
+                answer.update(ok=True, value=shown)
         return Answer(result_topic(self.prefix, zone.name), json.dumps(answer))
 
 

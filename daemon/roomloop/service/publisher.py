@@ -12,17 +12,24 @@ from __future__ import annotations
 
 import datetime as dt
 import json
+import time
 from collections.abc import Iterable
 from dataclasses import dataclass
 from typing import Any
 from zoneinfo import ZoneInfo
 
+import structlog
+
 from roomloop.core.types import ZoneOutputs
 from roomloop.service.program import Switch
+
+log = structlog.get_logger("roomloop.service")
 
 ONLINE = "online"
 OFFLINE = "offline"
 PLAIN_FIELDS = ("temperature", "setpoint", "demand", "mode", "level")
+RENDER_LOG_EVERY_S = 300.0
+"""Real seconds between two log events about the same zone's view that fails to render."""
 
 
 def status_topic(prefix: str) -> str:
@@ -146,6 +153,7 @@ class StatePublisher:
         self._views: dict[str, ZoneView] = {}
         self._sent_state: dict[str, tuple[str, float]] = {}
         self._sent_fields: dict[tuple[str, str], str] = {}
+        self._render_logged: dict[str, float] = {}
 
     def update(self, view: ZoneView) -> None:
         self._views[view.zone] = view
@@ -162,15 +170,30 @@ class StatePublisher:
         """Messages to send now; call :meth:`sent` for each one the broker acknowledged."""
         messages: list[Message] = []
         for zone, view in self._views.items():
-            payload = state_payload(view, units=self.units, tz=self.tz)
+            try:
+                payload = state_payload(view, units=self.units, tz=self.tz)
+                fields = plain_fields(view, units=self.units)
+                state = json.dumps(payload)
+            except Exception as exc:  # one zone's bad view must not silence the others
+                self._render_failed(zone, exc)
+                continue
             key = _significant(payload)
             last = self._sent_state.get(zone)
             if last is None or last[0] != key or now - last[1] >= self.interval_s:
-                messages.append(Message(state_topic(self.prefix, zone), json.dumps(payload)))
-            for field, text in plain_fields(view, units=self.units).items():
+                messages.append(Message(state_topic(self.prefix, zone), state))
+            for field, text in fields.items():
                 if self._sent_fields.get((zone, field)) != text:
                     messages.append(Message(field_topic(self.prefix, zone, field), text))
         return messages
+
+    def _render_failed(self, zone: str, exc: Exception) -> None:
+        """Log a view that cannot be rendered, at most once per ``RENDER_LOG_EVERY_S``."""
+        real = time.monotonic()
+        last = self._render_logged.get(zone)
+        if last is not None and real - last < RENDER_LOG_EVERY_S:
+            return
+        self._render_logged[zone] = real
+        log.error("publish.view_failed", zone=zone, error=str(exc) or type(exc).__name__)
 
     def sent(self, message: Message, now: float) -> None:
         parts = message.topic[len(self.prefix) + 1 :].split("/")
