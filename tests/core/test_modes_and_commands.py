@@ -3,6 +3,7 @@ settings from a real site file; resuming a saved state."""
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import replace
 from pathlib import Path
 
@@ -23,7 +24,7 @@ from roomloop.core import (
 )
 from roomloop.core.settings import PointSettings
 
-from .helpers import sample, settings
+from .helpers import run, sample, settings, switch_times
 
 EXAMPLE = Path(__file__).resolve().parents[2] / "config" / "example.yaml"
 
@@ -199,3 +200,53 @@ def test_hold_until_at_most_366_days_ahead() -> None:
     for far in (1000.0 + year + 1.0, 1e300):
         with pytest.raises(CommandRejected, match="366 days"):
             apply_command(s, held, "hold_until", far, 1000.0)
+
+
+def alternating(low: float, high: float, tick: float = 10.0) -> Callable[[float, bool], float]:
+    """A 0.1 K sensor flickering across the protection set point, one step per tick."""
+    return lambda now, on: low if round(now / tick) % 2 else high
+
+
+def ons_per_sliding_hour(trace: list[tuple[float, ZoneOutputs, ZoneState]]) -> int:
+    ons = switch_times(trace, True)
+    return max((sum(1 for t in ons if start <= t < start + 3600.0) for start in ons), default=0)
+
+
+def test_a_sensor_flickering_at_the_protection_set_point_does_not_short_cycle_in_mode_off() -> None:
+    s = settings(initial_mode="off", protection_c=7.0)
+    trace = run(ZoneController(s), alternating(6.9, 7.0), end=3 * 3600.0, tick=10.0)
+    assert switch_times(trace, True), "protection still heats below its set point"
+    assert ons_per_sliding_hour(trace) <= s.max_cycles_per_hour
+    # mode off never heats at or above the protection set point
+    assert all(not out.demand for _, out, _ in trace if out.temperature == 7.0)
+
+
+def test_a_protection_run_lasts_to_the_top_of_its_band_at_the_protection_level() -> None:
+    s = settings(protection_c=7.0, differential_k=0.5, anticipator_gain_k=0.0)
+    c = ZoneController(s)
+    st = c.initial_state(0.0)
+    trace = []
+    for i in range(1, 361):
+        now = 10.0 * i
+        inputs = ZoneInputs((PointSample("temperature", 6.9 if i % 2 else 7.0, now),),
+                            "protection")
+        st, out = c.step(st, inputs, now)
+        trace.append((now, out, st))
+    assert len(switch_times(trace, True)) == 1 and trace[-1][1].demand
+    st, out = step_at(c, st, 3610.0, value=7.2, level="protection")
+    assert out.demand and out.reason == "protection" and st.protection_run
+    st, out = step_at(c, st, 3620.0, value=7.25, level="protection")  # P + D/2: the run ends
+    assert not st.protection_run and out.reason != "protection"
+
+
+def test_protection_overrides_short_cycle_protection_only_well_below_its_set_point() -> None:
+    s = settings(initial_mode="off", protection_c=7.0, differential_k=0.5, min_off_s=600.0)
+    c = ZoneController(s)
+    st, out = step_at(c, c.initial_state(0.0), 10.0, value=6.9)
+    assert out.demand and out.reason == "protection"
+    st, out = step_at(c, st, 20.0, value=7.0)
+    assert not out.demand
+    st, out = step_at(c, st, 30.0, value=6.9)  # just below P: the minimum off time holds
+    assert not out.demand and out.reason == "min-off"
+    st, out = step_at(c, st, 40.0, value=6.7)  # below P - D/2: protection goes first
+    assert out.demand and out.reason == "protection"

@@ -45,12 +45,17 @@ Order of one step (``u`` = relay state held during the elapsed tick):
    the relay switches up to ``D`` away from the reading meanwhile.
 7. **Short-cycle protection** holds the relay: ``min-on``, ``min-off``,
    ``max-cycles`` (switch-ons in the sliding hour ``(now - 3600, now]``).
-8. **Protection** overrides everything: below the protection set point
-   (zone temperature, or the backup point while the zone has none) the relay is
-   on, whatever the mode (in ``off`` only with ``protection_in_off``), the
-   minimum off time and the cycle limit. In mode ``off`` the relay goes off as
-   soon as the temperature is back at the protection set point, even inside
-   ``min_on_s``: mode off never heats above it.
+8. **Protection** ``P`` (zone temperature, or the backup point while the zone
+   has none; in ``off`` only with ``protection_in_off``) starts a protection
+   run below ``P`` and holds the relay on, whatever the mode, until the run
+   ends at ``P + D/2`` (``protection_run`` marks the run). It overrides the
+   minimum off time and the cycle limit only below ``P - D/2``; between
+   ``P - D/2`` and ``P`` they still hold the relay off, so a sensor flickering
+   across ``P`` cannot short-cycle the plant (a 0.1 K sensor alternating at
+   ``P`` once switched 59 times in 10 minutes). In mode ``off`` the run ends
+   at ``P`` itself, even inside ``min_on_s``: mode off never heats above the
+   protection set point (tests/core/test_properties.py); there the minimum off
+   time and the cycle limit alone bound the cycling.
 9. **Droop compensation** ``b`` integrates ``(S - T) dt / droop_time_s`` (the
    raw ``T``: the same mean, and no smoothing lag winding it up after a
    recovery) and is
@@ -446,11 +451,14 @@ class ZoneController:
             # Resting after a set-back: the bias b cancels fades with the anticipator.
             b *= self._cache_decay
         protect_value = temperature if temperature is not None else backup_value
-        forced = (
-            protect_value is not None
-            and protect_value < s.protection_c
-            and (mode != "off" or s.protection_in_off)
-        )
+        forced = False
+        deep = False  # so far below P that short-cycle protection must give way
+        if protect_value is not None and (mode != "off" or s.protection_in_off):
+            run_ends_at = s.protection_c if mode == "off" else s.protection_c + half
+            forced = protect_value < s.protection_c or (
+                was_on and state.protection_run and protect_value < run_ends_at
+            )
+            deep = forced and protect_value < s.protection_c - half
         want: bool
         if forced:
             want = True
@@ -495,7 +503,7 @@ class ZoneController:
         held = False
         switches = state.switches
         switched_at = state.switched_at
-        if want != was_on and not forced and mode != "off":
+        if want != was_on and not deep and (forced or mode != "off"):
             since = HOUR_S * 1e6 if switched_at is None else now - switched_at
             if want:
                 if since < s.min_off_s:
@@ -504,7 +512,7 @@ class ZoneController:
                     on, held, reason = False, True, "max-cycles"
             elif since < s.min_on_s:
                 on, held, reason = True, True, "min-on"
-        protection_run = state.protection_run
+        protection_run = on and forced
         ordinary = (
             temperature is not None
             and recovering == 0
@@ -536,7 +544,6 @@ class ZoneController:
             switches = (*switches, (now, on))
             if len(switches) > MAX_SWITCH_LOG:
                 switches = switches[-MAX_SWITCH_LOG:]
-            protection_run = on and forced
             # The relay cycles again on its own: recovery from the set-point change is over.
             if (recovering > 0 and reason == "cut-out") or (recovering < 0 and reason == "cut-in"):
                 recovering = 0

@@ -103,7 +103,7 @@ class ZoneState:
     relay_on: bool
     switched_at: float | None
     protection_run: bool
-    """The current run was started by protection (it may end before ``min_on_s``)."""
+    """Protection holds the relay on: the run lasts up to ``P + D/2`` (``P`` in mode off)."""
     switches: tuple[tuple[float, bool], ...]
     """Switchings of the last hour, oldest first: (time, relay on after it)."""
     # time and set point
