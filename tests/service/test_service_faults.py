@@ -90,3 +90,41 @@ async def test_absurd_numbers_are_refused_and_state_is_still_published(
         assert (await w.answer(n))["ok"] is True
         await w.wait_for(lambda: (w.state() or {}).get("setpoint") == 21.0, 10)
     assert not service.restarts, service.restarts
+
+
+def two_link_site(tmp_path: Path, slow_port: int, fast_port: int) -> Site:
+    """room0 behind a device that may turn slow (1 s timeout, 2 retries), room1 on its own link."""
+    data = site_yaml(modbus_port=slow_port, broker_port=1, zones=2)
+    del data["broker"]
+    data["links"][0].update(timeout_s=1.0, retries=2)
+    data["links"].append(dict(data["links"][0], name="rooms-b", port=fast_port, timeout_s=0.5))
+    data["links"][1]["retries"] = 0
+    for point in data["points"]:
+        if point["name"] in ("t1", "relay1"):
+            point.update(link="rooms-b", address=0)
+    return write_site(tmp_path, data)
+
+
+async def test_a_slow_device_does_not_hold_up_another_zones_output(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    slow = await modbus_tcp_server()
+    fast = await modbus_tcp_server()
+    site = two_link_site(tmp_path, slow.port, fast.port)
+    service = Service(site, clock=SimulatedClock(SPEED), state_dir=tmp_path / "state")
+    async with (
+        RoomPlant(slow, [23.0], SPEED),
+        RoomPlant(fast, [23.0], SPEED) as plant_b,
+        running(service),
+    ):
+        await until(lambda: all(z.decided for z in service.zones.values()), 20)
+        await until(lambda: service._written == {"relay0": False, "relay1": False}, 10)
+        await asyncio.sleep(0.5)  # let the start-up writes finish
+        slow.delay_s = 5.0  # every request to room0's device now times out (3 attempts each)
+        # Both zones want heat at once; room0 comes first in the output round.
+        service.apply_command("room0", "setpoint", 26.0)
+        service.apply_command("room1", "setpoint", 26.0)
+        await until(lambda: service.zones["room1"].wanted, 5)
+        # A serial round would wait out room0's write and read-back (over 6 s) first.
+        await until(lambda: plant_b.rooms[0].coil, 3.0)
+        slow.delay_s = 0.0

@@ -467,28 +467,53 @@ class Service:
     async def _output_loop(self) -> None:
         """Write each zone's wanted output when it changes (safe state until its first decision).
 
+        Every write runs in its own task, so a slow device holds up only its own
+        outputs (and, through the link's lock, the others on its link), never another
+        zone's. Two writes of one output queue on the output's lock, the newest wins.
         A write that fails is not retried here: the link (or the MQTT points)
         re-asserts every commanded output whose last write failed, on its poll.
         """
-        while True:
-            self._outputs_wake.clear()
-            for runtime in self.zones.values():
-                point = runtime.zone.output
-                sink = self._sink.get(point)
-                if sink is None or self._written.get(point) == runtime.wanted:
-                    continue
-                wanted, decided = runtime.wanted, runtime.decided
-                self._written[point] = wanted
-                state = await sink.set_output(point, wanted)
-                log.info(
-                    "output.switched",
-                    zone=runtime.name,
-                    point=point,
-                    on=wanted,
-                    verdict=state.verdict,
-                    decided=decided,
-                )
-            await self._outputs_wake.wait()
+        writers: set[asyncio.Task[None]] = set()
+        try:
+            while True:
+                self._outputs_wake.clear()
+                for runtime in self.zones.values():
+                    point = runtime.zone.output
+                    sink = self._sink.get(point)
+                    if sink is None or self._written.get(point) == runtime.wanted:
+                        continue
+                    wanted = runtime.wanted
+                    self._written[point] = wanted
+                    task = asyncio.create_task(
+                        self._write_output(runtime, sink, wanted, runtime.decided),
+                        name=f"output:{point}",
+                    )
+                    writers.add(task)
+                    task.add_done_callback(writers.discard)
+                await self._outputs_wake.wait()
+        finally:
+            for task in writers:
+                task.cancel()
+
+    async def _write_output(
+        self, runtime: ZoneRuntime, sink: ModbusLink | MqttPoints, on: bool, decided: bool
+    ) -> None:
+        point = runtime.zone.output
+        try:
+            state = await sink.set_output(point, on)
+        except Exception as exc:  # a bug below us: the poll's re-assert still retries the write
+            log.exception(
+                "output.write_crashed", zone=runtime.name, point=point, error=str(exc) or repr(exc)
+            )
+            return
+        log.info(
+            "output.switched",
+            zone=runtime.name,
+            point=point,
+            on=on,
+            verdict=state.verdict,
+            decided=decided,
+        )
 
     async def _stop_outputs(self) -> None:
         """Every output to its zone's safe state, within a bounded time."""
