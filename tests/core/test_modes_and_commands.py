@@ -250,3 +250,34 @@ def test_protection_overrides_short_cycle_protection_only_well_below_its_set_poi
     assert not out.demand and out.reason == "min-off"
     st, out = step_at(c, st, 40.0, value=6.7)  # below P - D/2: protection goes first
     assert out.demand and out.reason == "protection"
+
+
+def test_a_restart_after_a_long_downtime_is_a_cold_start_for_the_sensor_timeout() -> None:
+    s = settings(sensor_timeout_s=300.0, fail_safe_policy="fixed-duty")
+    c = ZoneController(s)
+    st = c.initial_state(0.0)
+    for now in range(10, 610, 10):
+        st, _ = step_at(c, st, float(now), value=19.0)
+    nothing = ZoneInputs((PointSample("temperature", None, None, "ok"),))
+    st, out = c.step(st, nothing, 700.0)  # the I/O went quiet just before the stop
+    assert st.points[0].verdict == "stale" and st.points[0].faulted
+    resumed = c.resume(ZoneState.from_json(st.to_json()), 600.0 + 1800.0)
+    assert resumed.good_at == 2400.0 and not resumed.points[0].faulted
+    st, out = c.step(resumed, nothing, 2410.0)  # no reading yet after the restart
+    assert not out.fail_safe and out.fail_safe_reason is None
+    st, out = c.step(st, sample(19.0, 2420.0), 2420.0)  # the first reading is trusted at once
+    assert out.reliability == {"temperature": "ok"} and out.temperature == 19.0
+    # without readings the timeout still runs, counted from the restart
+    for now in range(2430, 2730, 10):
+        st, out = c.step(st, nothing, float(now))
+    assert out.fail_safe
+
+
+def test_resume_keeps_a_real_fault() -> None:
+    c = ZoneController(settings())
+    st = c.initial_state(0.0)
+    st, _ = step_at(c, st, 10.0, value=19.0)
+    st, out = step_at(c, st, 20.0, value=85.0)  # beyond the point's valid range
+    assert out.reliability == {"temperature": "over-range"} and st.points[0].faulted
+    resumed = c.resume(st, 100.0)
+    assert resumed.points[0] == st.points[0] and resumed.points[0].faulted

@@ -208,6 +208,12 @@ class ZoneController:
         point memories are kept only for points still configured under the same
         name, times in the future (a clock set back) are pulled to ``now``, and
         the gap does not count toward the learned duty.
+
+        The sensor timeout restarts at ``now`` and a point whose last verdict was
+        ``stale`` starts afresh: the readings stopped because roomloop stopped, so
+        after a downtime longer than ``sensor_timeout_s`` the first tick without a
+        reading must not enter fail-safe, nor the first reading wait out a recovery
+        time. A restart is a cold start for the sensor timeout.
         """
         s = self.settings
         gap = max(0.0, now - state.last_step_at)
@@ -226,13 +232,14 @@ class ZoneController:
         elif switched_at is not None:
             switched_at = min(switched_at, now)
         old_points = {p.name: p for p in state.points}
-        points = tuple(old_points.get(p.name, PointState(p.name)) for p in s.inputs)
+        points = tuple(_resumed_point(old_points.get(p.name), p.name) for p in s.inputs)
         backup: PointState | None = None
         if s.backup is not None:
-            backup = (
+            backup = _resumed_point(
                 state.backup
                 if state.backup is not None and state.backup.name == s.backup.name
-                else PointState(s.backup.name)
+                else None,
+                s.backup.name,
             )
         return ZoneState(
             mode=state.mode,
@@ -254,7 +261,7 @@ class ZoneController:
             last_setpoint=state.last_setpoint,
             recovering=state.recovering,
             temperature=state.temperature,
-            good_at=min(state.good_at, now),
+            good_at=now,
             good_since=None,
             normal=False,
             fail_safe=state.fail_safe,
@@ -683,6 +690,13 @@ class ZoneController:
             return scale
         scale *= factor
         return min(max(scale, MIN_TAU_SCALE), MAX_TAU_SCALE)
+
+
+def _resumed_point(old: PointState | None, name: str) -> PointState:
+    """A point's memory after a restart: kept, unless its only fault was going stale."""
+    if old is None or old.verdict == "stale":
+        return PointState(name)
+    return old
 
 
 def _ons_since(switches: tuple[tuple[float, bool], ...], horizon: float) -> int:
