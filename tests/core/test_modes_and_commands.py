@@ -281,3 +281,14 @@ def test_resume_keeps_a_real_fault() -> None:
     assert out.reliability == {"temperature": "over-range"} and st.points[0].faulted
     resumed = c.resume(st, 100.0)
     assert resumed.points[0] == st.points[0] and resumed.points[0].faulted
+
+
+def test_a_fahrenheit_set_point_at_a_limit_is_taken_as_the_limit() -> None:
+    s = settings(limit_min_c=5.0, limit_max_c=28.0)
+    state = ZoneController(s).initial_state(0.0)
+    top = (82.4 - 32.0) * 5.0 / 9.0  # 82.4 F, as the service converts it
+    assert top > 28.0
+    assert apply_command(s, state, "setpoint", top, 0.0).hold_setpoint == 28.0
+    assert apply_command(s, state, "setpoint", 5.0 - 1e-9, 0.0).hold_setpoint == 5.0
+    with pytest.raises(CommandRejected, match="limits"):
+        apply_command(s, state, "setpoint", 28.001, 0.0)

@@ -38,6 +38,8 @@ from .settings import LEVEL_NAMES, MODE_NAMES, ZoneSettings
 from .state import ZoneState
 
 COMMAND_FIELDS = ("setpoint", "mode", "level", "hold_until")
+LIMIT_TOLERANCE_K = 1e-6
+"""A set point this close to a limit is the limit (82.4 F converts to 28.000000000000004 C)."""
 MAX_HOLD_S = 366 * 86400.0
 """Farthest ``hold_until`` ahead of now: a year is a real plan; 1e300 breaks every date display."""
 
@@ -76,10 +78,11 @@ def apply_command(
     if field == "setpoint":
         number = _number(field, value)
         low, high = settings.limit_min_c, settings.limit_max_c
-        if not low <= number <= high:
+        if not low - LIMIT_TOLERANCE_K <= number <= high + LIMIT_TOLERANCE_K:
             raise CommandRejected(
                 field, f"{number:g} C is outside the zone's limits {low:g} to {high:g} C"
             )
+        number = min(max(number, low), high)
         keep_until = state.hold_until if state.mode == "hold" else None
         return replace(
             state,
