@@ -16,6 +16,7 @@ from typing import Any
 import pytest
 import yaml
 from service_rooms import RoomPlant, Watcher, site_yaml
+from structlog.testing import capture_logs
 
 from roomloop.config.loader import load_site
 from roomloop.config.models import Site
@@ -128,3 +129,33 @@ async def test_a_slow_device_does_not_hold_up_another_zones_output(
         # A serial round would wait out room0's write and read-back (over 6 s) first.
         await until(lambda: plant_b.rooms[0].coil, 3.0)
         slow.delay_s = 0.0
+
+
+async def test_at_stop_every_output_on_a_slow_link_gets_its_safe_write(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    server = await modbus_tcp_server()
+    data = site_yaml(modbus_port=server.port, broker_port=1, zones=4)
+    del data["broker"]
+    data["links"][0].update(timeout_s=1.0, retries=2)
+    service = Service(
+        write_site(tmp_path, data), clock=SimulatedClock(SPEED), state_dir=tmp_path / "state"
+    )
+    stop = asyncio.Event()
+    with capture_logs() as events:
+        async with RoomPlant(server, [17.0] * 4, SPEED) as plant:
+            task = asyncio.create_task(service.run(stop))
+            await until(lambda: all(room.coil for room in plant.rooms), 20)
+            plant.frozen = True
+            seen = len(server.requests)
+            server.delay_s = 0.6  # answers, but slowly: a serial stop with retries runs out
+            stop.set()
+            await asyncio.wait_for(task, 10)
+    writes = {r.address for r in server.requests[seen:] if r.function_code == 5}
+    assert writes == {0, 1, 2, 3}, server.requests[seen:]
+    safe = [e for e in events if e["event"] == "output.safe_state"]
+    assert sorted(e["point"] for e in safe) == ["relay0", "relay1", "relay2", "relay3"]
+    # Whatever was not confirmed safe is named, one event per output and one summary.
+    unconfirmed = sorted(e["point"] for e in safe if not e["confirmed"])
+    summary = [e for e in events if e["event"] == "service.outputs_not_confirmed_safe"]
+    assert (summary[0]["points"] if summary else []) == unconfirmed

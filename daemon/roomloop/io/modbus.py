@@ -255,10 +255,20 @@ class ModbusLink:
     # ------------------------------------------------------------------ requests
 
     async def _request(
-        self, call: Callable[[Any], Awaitable[Any]], check: Callable[[Any], str | None]
+        self,
+        call: Callable[[Any], Awaitable[Any]],
+        check: Callable[[Any], str | None],
+        *,
+        attempts: int | None = None,
+        timeout_s: float | None = None,
     ) -> Any:
-        """Send one request under the link lock, paced, with retries; raise ``_RequestFailed``."""
-        attempts = self.link.retries + 1
+        """Send one request under the link lock, paced, with retries; raise ``_RequestFailed``.
+
+        ``attempts`` and ``timeout_s`` override the link's retries and timeout (the stop's
+        one short try per output).
+        """
+        attempts = self.link.retries + 1 if attempts is None else attempts
+        wait_s = self.link.timeout_s + 1.0 if timeout_s is None else timeout_s
         reason = "not attempted"
         async with self._lock:
             for attempt in range(attempts):
@@ -274,9 +284,10 @@ class ModbusLink:
                     await asyncio.sleep(gap)
                 self.requests += 1
                 try:
-                    response = await asyncio.wait_for(call(self._client), self.link.timeout_s + 1.0)
+                    response = await asyncio.wait_for(call(self._client), wait_s)
                 except TimeoutError:
-                    reason = f"no answer within {self.link.timeout_s} s"
+                    shown_s = self.link.timeout_s if timeout_s is None else timeout_s
+                    reason = f"no answer within {shown_s:g} s"
                     continue
                 except Exception as exc:  # pymodbus raises ModbusException subclasses and OSError
                     reason = _describe(exc)
@@ -295,7 +306,14 @@ class ModbusLink:
         raise _RequestFailed(f"{reason} (after {attempts} attempt(s))")
 
     async def _read_registers(
-        self, unit_id: int, table: str, address: int, count: int
+        self,
+        unit_id: int,
+        table: str,
+        address: int,
+        count: int,
+        *,
+        attempts: int | None = None,
+        timeout_s: float | None = None,
     ) -> list[int]:
         async def call(client: Any) -> Any:
             if table == "input":
@@ -306,7 +324,7 @@ class ModbusLink:
             got = len(getattr(response, "registers", []) or [])
             return None if got == count else f"short reply: {got} of {count} registers"
 
-        response = await self._request(call, check)
+        response = await self._request(call, check, attempts=attempts, timeout_s=timeout_s)
         return [int(r) for r in response.registers[:count]]
 
     async def read_registers(self, unit_id: int, table: str, address: int, count: int) -> list[int]:
@@ -427,7 +445,9 @@ class ModbusLink:
         on = True if raw == point.on_value else False if raw == point.off_value else None
         return OutputReading(point, raw, on)
 
-    async def _read_output_raw(self, point: ModbusOutput) -> int:
+    async def _read_output_raw(
+        self, point: ModbusOutput, *, attempts: int | None = None, timeout_s: float | None = None
+    ) -> int:
         if point.table == "coil":
 
             async def call(client: Any) -> Any:
@@ -440,9 +460,13 @@ class ModbusLink:
                     else "short reply: no coil"
                 )
 
-            response = await self._request(call, check)
+            response = await self._request(call, check, attempts=attempts, timeout_s=timeout_s)
             return 1 if response.bits[0] else 0
-        return (await self._read_registers(point.unit_id, "holding", point.address, 1))[0]
+        return (
+            await self._read_registers(
+                point.unit_id, "holding", point.address, 1, attempts=attempts, timeout_s=timeout_s
+            )
+        )[0]
 
     async def set_output(self, name: str, on: bool) -> OutputState:
         """Write the on or off value, read it back if configured; the state says what happened.
@@ -454,7 +478,21 @@ class ModbusLink:
         async with self._output_locks[name]:
             return await self._write_output(name, self._wanted[name])
 
-    async def _write_output(self, name: str, on: bool) -> OutputState:
+    async def set_output_once(self, name: str, on: bool, timeout_s: float) -> OutputState:
+        """At stop: write (and read back) with one try of at most ``timeout_s`` per request.
+
+        Without retries the link's lock is held briefly, so every output of a slow link
+        gets its own try within the stop's budget. Called for all outputs at once, the
+        writes queue on the link's lock ahead of the read-backs (the lock is first come,
+        first served), so each output is written before any is read back.
+        """
+        self._wanted[name] = on
+        async with self._output_locks[name]:
+            return await self._write_output(name, on, attempts=1, timeout_s=timeout_s)
+
+    async def _write_output(
+        self, name: str, on: bool, *, attempts: int | None = None, timeout_s: float | None = None
+    ) -> OutputState:
         """Write and read back one output; the caller holds the output's lock."""
         point = self.outputs[name]
         value = point.on_value if on else point.off_value
@@ -472,10 +510,12 @@ class ModbusLink:
 
         step = "write"
         try:
-            await self._request(write, lambda _response: None)
+            await self._request(
+                write, lambda _response: None, attempts=attempts, timeout_s=timeout_s
+            )
             step = "read back"
             if point.read_back:
-                raw = await self._read_output_raw(point)
+                raw = await self._read_output_raw(point, attempts=attempts, timeout_s=timeout_s)
         except _RequestFailed as exc:
             # The detail says which step failed: a written output whose read-back failed
             # is not the same as a write that never arrived (probe tells the user which).

@@ -26,6 +26,7 @@ import asyncio
 import contextlib
 import functools
 import json
+import logging
 import time
 from collections.abc import Awaitable, Callable, Sequence
 from dataclasses import dataclass
@@ -72,6 +73,8 @@ READY_WAIT_S = 15.0
 """Real seconds to wait for the links before declaring READY=1 anyway."""
 STOP_OUTPUTS_S = 2.5
 """Real seconds the safe-state writes at stop may take (the whole stop stays under 5 s)."""
+STOP_REQUEST_MIN_S = 0.1
+"""Real seconds at least for each request of the stop's one try per output."""
 STOP_BROKER_S = 1.0
 STOP_TASKS_S = 1.5
 """Real seconds the control tasks get to end once cancelled, before the outputs go safe."""
@@ -516,27 +519,65 @@ class Service:
         )
 
     async def _stop_outputs(self) -> None:
-        """Every output to its zone's safe state, within a bounded time."""
+        """Every output to its zone's safe state at once, within ``STOP_OUTPUTS_S``.
+
+        All safe writes start together. On a Modbus link each output gets one short
+        try (no retries) for its write and its read-back, the writes first, so a slow
+        gateway still sees every output's write once within the budget. Every output
+        not confirmed safe is named in the log.
+        """
+        on_link: dict[int, int] = {}
+        for runtime in self.zones.values():
+            sink = self._sink.get(runtime.zone.output)
+            if isinstance(sink, ModbusLink):
+                on_link[id(sink)] = on_link.get(id(sink), 0) + 1
 
         async def one(runtime: ZoneRuntime) -> OutputState | None:
-            sink = self._sink.get(runtime.zone.output)
+            point = runtime.zone.output
+            sink = self._sink.get(point)
             if sink is None:
                 return None
-            return await sink.set_output(runtime.zone.output, runtime.safe_on)
+            if isinstance(sink, ModbusLink):
+                # A write and a read-back per output share the link's half of the budget.
+                share = STOP_OUTPUTS_S / (2 * on_link[id(sink)])
+                timeout_s = max(STOP_REQUEST_MIN_S, min(sink.link.timeout_s, share))
+                return await sink.set_output_once(point, runtime.safe_on, timeout_s)
+            return await sink.set_output(point, runtime.safe_on)
 
-        for runtime in self.zones.values():
+        runtimes = list(self.zones.values())
+        for runtime in runtimes:
             runtime.wanted = runtime.safe_on
-        try:
-            async with asyncio.timeout(STOP_OUTPUTS_S):
-                results = await asyncio.gather(
-                    *(one(r) for r in self.zones.values()), return_exceptions=True
-                )
-        except TimeoutError:
-            log.error("service.stop_outputs_timeout", within_s=STOP_OUTPUTS_S)
-            return
-        for runtime, result in zip(self.zones.values(), results, strict=True):
-            verdict = result.verdict if isinstance(result, OutputState) else repr(result)
-            log.info("output.safe_state", zone=runtime.name, on=runtime.safe_on, verdict=verdict)
+        tasks = [
+            asyncio.create_task(one(r), name=f"safe:{r.zone.output}") for r in runtimes
+        ]
+        _, pending = await asyncio.wait(tasks, timeout=STOP_OUTPUTS_S)
+        for task in pending:
+            task.cancel()
+        if pending:
+            await asyncio.wait(pending, timeout=0.2)
+        not_safe: list[str] = []
+        for runtime, task in zip(runtimes, tasks, strict=True):
+            if not task.done() or task.cancelled():
+                verdict = "no answer in time"
+            elif task.exception() is not None:
+                verdict = repr(task.exception())
+            else:
+                result = task.result()
+                verdict = "no output" if result is None else result.verdict
+            confirmed = verdict in ("ok", "unverified", "pending", "no output")
+            if not confirmed:
+                not_safe.append(runtime.zone.output)
+            log.log(
+                logging.INFO if confirmed else logging.ERROR,
+                "output.safe_state",
+                zone=runtime.name,
+                point=runtime.zone.output,
+                on=runtime.safe_on,
+                verdict=verdict,
+                confirmed=confirmed,
+            )
+        if not_safe:
+            log.error("service.outputs_not_confirmed_safe", points=not_safe)
 
     # ------------------------------------------------------------------ broker
 
