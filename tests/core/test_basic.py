@@ -17,6 +17,7 @@ from roomloop.core import (
     ZoneState,
     apply_command,
 )
+from roomloop.core.failsafe import BUCKET_S, choose_duty, learned_fraction
 from roomloop.core.types import Controller
 
 from .helpers import run, sample, settings
@@ -149,3 +150,17 @@ def test_a_time_beyond_year_9999_or_a_huge_number_is_refused(
         ZoneState.from_json(text.replace(old, new))
     last_second = text.replace('"hold_until":null', '"hold_until":253402300799')
     assert ZoneState.from_json(last_second).hold_until == 253402300799.0
+
+
+def test_learned_duty_ignores_an_open_bucket_older_than_the_learning_window() -> None:
+    """A zone off for days keeps its last open bucket: it must not count as recent history."""
+    learn_s = 4 * 3600.0
+    old_open = (0.0, 900.0, 900.0)  # fully on, three days ago
+    recent = ((3 * 86400.0 - 2 * BUCKET_S, 90.0, 900.0), (3 * 86400.0 - BUCKET_S, 90.0, 900.0))
+    now = 3 * 86400.0
+    assert learned_fraction(recent, old_open, now, learn_s) == (pytest.approx(0.1), 1800.0)
+    assert learned_fraction((), old_open, now, learn_s) == (0.0, 0.0)
+    assert learned_fraction((), old_open, 100.0, learn_s) == (1.0, 900.0)  # still recent
+    duty, why = choose_duty("learned-duty", (), old_open, now, duty=0.3, period_s=600.0,
+                            learn_hours=4.0, min_duty=0.1, max_duty=0.8)
+    assert duty == 0.3 and "unavailable" in why

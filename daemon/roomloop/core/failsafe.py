@@ -64,11 +64,15 @@ def record_duty(
 def learned_fraction(
     buckets: tuple[Bucket, ...], current: Bucket, now: float, learn_s: float
 ) -> tuple[float, float]:
-    """Measured on-fraction of the last ``learn_s`` (to a bucket) and the seconds it covers."""
-    on = current[1]
-    seen = current[2]
+    """Measured on-fraction of the last ``learn_s`` (to a bucket) and the seconds it covers.
+
+    The open bucket is filtered by age like the closed ones: it may be days old
+    when the zone has not run ordinary control since (mode off, a long fail-safe).
+    """
+    on = 0.0
+    seen = 0.0
     oldest = now - learn_s
-    for start, on_s, seen_s in buckets:
+    for start, on_s, seen_s in (*buckets, current):
         if start + BUCKET_S > oldest:
             on += on_s
             seen += seen_s
