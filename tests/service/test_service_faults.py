@@ -159,3 +159,23 @@ async def test_at_stop_every_output_on_a_slow_link_gets_its_safe_write(
     unconfirmed = sorted(e["point"] for e in safe if not e["confirmed"])
     summary = [e for e in events if e["event"] == "service.outputs_not_confirmed_safe"]
     assert (summary[0]["points"] if summary else []) == unconfirmed
+
+
+async def test_cancelled_from_outside_the_outputs_still_go_safe_and_the_state_is_saved(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    server = await modbus_tcp_server()
+    data = site_yaml(modbus_port=server.port, broker_port=1)
+    del data["broker"]
+    service = Service(
+        write_site(tmp_path, data), clock=SimulatedClock(SPEED), state_dir=tmp_path / "state"
+    )
+    async with RoomPlant(server, [17.0], SPEED) as plant:
+        task = asyncio.create_task(service.run(asyncio.Event()))
+        await until(lambda: plant.rooms[0].coil, 20)  # heating; the safe state is off
+        service.apply_command("room0", "setpoint", 23.5)
+        task.cancel()
+        with pytest.raises(asyncio.CancelledError):
+            await asyncio.wait_for(task, 10)
+    assert (await server.get_coils(0, 1)) == [False]
+    assert service.store.load()["room0"]["hold_setpoint"] == 23.5

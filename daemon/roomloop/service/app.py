@@ -286,37 +286,69 @@ class Service:
                 await stack.enter_async_context(link)
             control: list[asyncio.Task[None]] = []
             others: list[asyncio.Task[None]] = []
-            async with asyncio.TaskGroup() as group:
+            stopped_cleanly = False
+            try:
+                async with asyncio.TaskGroup() as group:
 
-                def start(name: str, body: Callable[[], Awaitable[None]], into: list[Any]) -> None:
-                    into.append(group.create_task(self._supervised(name, body), name=name))
+                    def start(
+                        name: str, body: Callable[[], Awaitable[None]], into: list[Any]
+                    ) -> None:
+                        into.append(group.create_task(self._supervised(name, body), name=name))
 
-                start("outputs", self._output_loop, control)
-                for name, link in self.links.items():
-                    start(f"modbus-poll:{name}", functools.partial(self._poll_loop, link), control)
-                for runtime in self.zones.values():
-                    self.progress.register(f"zone:{runtime.name}", self._allowed_gap(runtime))
-                    start(
-                        f"zone:{runtime.name}", functools.partial(self._zone_loop, runtime), control
-                    )
-                start("persist", self._persist_loop, others)
-                others.append(group.create_task(self._ready_once(), name="ready"))
-                if watchdog_interval_s() is not None:
-                    start("watchdog", self._watchdog_loop, others)
-                if self.site.broker is not None:
-                    start("broker", self._broker_loop, others)
-                    start("publish", self._publish_loop, others)
-                    start("mqtt-points", self._mqtt_points_loop, others)
-                await stop.wait()
-                log.info("service.stopping", site=self.site.name)
-                notify("STOPPING=1")
-                await _cancel_and_wait(control, STOP_TASKS_S)
-                await self._stop_outputs()
-                await self._announce_offline()
-                for task in others:
-                    task.cancel()
-        self._save(self.clock.now())
+                    start("outputs", self._output_loop, control)
+                    for name, link in self.links.items():
+                        start(
+                            f"modbus-poll:{name}", functools.partial(self._poll_loop, link), control
+                        )
+                    for runtime in self.zones.values():
+                        self.progress.register(f"zone:{runtime.name}", self._allowed_gap(runtime))
+                        start(
+                            f"zone:{runtime.name}",
+                            functools.partial(self._zone_loop, runtime),
+                            control,
+                        )
+                    start("persist", self._persist_loop, others)
+                    others.append(group.create_task(self._ready_once(), name="ready"))
+                    if watchdog_interval_s() is not None:
+                        start("watchdog", self._watchdog_loop, others)
+                    if self.site.broker is not None:
+                        start("broker", self._broker_loop, others)
+                        start("publish", self._publish_loop, others)
+                        start("mqtt-points", self._mqtt_points_loop, others)
+                    await stop.wait()
+                    log.info("service.stopping", site=self.site.name)
+                    notify("STOPPING=1")
+                    await _cancel_and_wait(control, STOP_TASKS_S)
+                    await self._stop_outputs()
+                    await self._announce_offline()
+                    stopped_cleanly = True
+                    for task in others:
+                        task.cancel()
+            finally:
+                if not stopped_cleanly:
+                    # Cancelled from outside, or something escaped the task group: the
+                    # outputs still go safe (the links are still open here), bounded.
+                    await self._stop_after_unexpected_exit([*control, *others])
+                await self._save_final()
         log.info("service.stopped", site=self.site.name)
+
+    async def _stop_after_unexpected_exit(self, tasks: Sequence[asyncio.Task[None]]) -> None:
+        """The stop's output and broker steps when ``run`` ends other than by ``stop``."""
+        log.warning("service.stopping_unexpectedly", site=self.site.name)
+        notify("STOPPING=1")
+        try:
+            await _cancel_and_wait(tasks, STOP_TASKS_S)
+            await self._stop_outputs()
+            await self._announce_offline()
+        except Exception:
+            log.exception("service.stop_failed")
+
+    async def _save_final(self) -> None:
+        """The last save at stop, on every exit path."""
+        try:
+            self._save(self.clock.now())
+        except Exception:
+            log.exception("persist.final_save_failed")
 
     # ------------------------------------------------------------------ supervision
 
