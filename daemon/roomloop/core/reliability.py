@@ -34,10 +34,6 @@ from .types import PointSample, Reliability
 _new_point = positional_builder(PointState)
 
 
-def initial_point_state(name: str) -> PointState:
-    return PointState(name=name)
-
-
 def evaluate_point(
     cfg: PointSettings,
     st: PointState,
