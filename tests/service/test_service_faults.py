@@ -179,3 +179,37 @@ async def test_cancelled_from_outside_the_outputs_still_go_safe_and_the_state_is
             await asyncio.wait_for(task, 10)
     assert (await server.get_coils(0, 1)) == [False]
     assert service.store.load()["room0"]["hold_setpoint"] == 23.5
+
+
+async def test_a_slow_disk_stalls_no_zone_loop_and_the_last_state_is_saved(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    server = await modbus_tcp_server()
+    data = site_yaml(modbus_port=server.port, broker_port=1)
+    del data["broker"]
+    service = Service(
+        write_site(tmp_path, data), clock=SimulatedClock(SPEED), state_dir=tmp_path / "state"
+    )
+    real_save = service.store.save
+    zone_went_on: list[bool] = []
+
+    def slow_save(zones: dict[str, Any], now: float) -> bool:
+        """A card that takes its time: waits (bounded) for the zone loop to step 3 times."""
+        runtime = service.zones["room0"]
+        steps = runtime.steps
+        deadline = time.monotonic() + 3.0
+        while runtime.steps < steps + 3 and time.monotonic() < deadline:
+            time.sleep(0.01)
+        zone_went_on.append(runtime.steps >= steps + 3)
+        return real_save(zones, now)
+
+    service.store.save = slow_save  # type: ignore[method-assign]
+    async with RoomPlant(server, [17.0], SPEED), running(service):
+        await until(lambda: "room0" in service.zones and service.zones["room0"].decided, 20)
+        for setpoint in (21.0, 22.0, 23.0):
+            service.apply_command("room0", "setpoint", setpoint)
+            await asyncio.sleep(0.1)
+        await until(lambda: len(zone_went_on) >= 1, 10)
+        while_running = list(zone_went_on)  # the final save runs with the zone loops stopped
+    assert while_running and all(while_running), while_running
+    assert service.store.load()["room0"]["hold_setpoint"] == 23.0

@@ -180,6 +180,8 @@ class Service:
         self._links_up = asyncio.Event()
         self._written: dict[str, bool] = {}
         self._last_saved_key: dict[str, str] = {}
+        self._save_lock = asyncio.Lock()
+        self._write_in_flight: asyncio.Future[bool] | None = None
         self._broker: Any = None
         self.commands: CommandHandler | None = None
 
@@ -346,7 +348,7 @@ class Service:
     async def _save_final(self) -> None:
         """The last save at stop, on every exit path."""
         try:
-            self._save(self.clock.now())
+            await self._save(self.clock.now())
         except Exception:
             log.exception("persist.final_save_failed")
 
@@ -729,18 +731,29 @@ class Service:
 
     # ------------------------------------------------------------------ persistence
 
-    def _save(self, now: float) -> None:
-        """Write the zone states if they changed since the last write (the store compares)."""
-        zones = {name: json.loads(r.state.to_json()) for name, r in self.zones.items()}
-        try:
-            written = self.store.save(zones, now)
-        except OSError as exc:
-            log.error("persist.save_failed", path=str(self.store.path), error=str(exc))
-            return
-        for name, runtime in self.zones.items():
-            self._last_saved_key[name] = _persist_key(runtime.state)
-        if written:
-            log.debug("persist.saved", path=str(self.store.path))
+    async def _save(self, now: float) -> None:
+        """Write the zone states if they changed since the last write (the store compares).
+
+        The snapshot is taken on the loop; the write and its fsyncs run in a thread, so
+        a slow SD card stalls no zone loop. One write at a time, in order: a write whose
+        caller was cancelled is still waited for before the next one starts.
+        """
+        async with self._save_lock:
+            if self._write_in_flight is not None:
+                with contextlib.suppress(Exception):
+                    await asyncio.shield(self._write_in_flight)
+            zones = {name: json.loads(r.state.to_json()) for name, r in self.zones.items()}
+            keys = {name: _persist_key(r.state) for name, r in self.zones.items()}
+            write = asyncio.ensure_future(asyncio.to_thread(self.store.save, zones, now))
+            self._write_in_flight = write
+            try:
+                written = await asyncio.shield(write)
+            except OSError as exc:
+                log.error("persist.save_failed", path=str(self.store.path), error=str(exc))
+                return
+            self._last_saved_key.update(keys)
+            if written:
+                log.debug("persist.saved", path=str(self.store.path))
 
     async def _persist_loop(self) -> None:
         while True:
@@ -749,7 +762,7 @@ class Service:
                     await self._persist_dirty.wait()
             await asyncio.sleep(0.05)  # one write for a burst (a command and the switch it causes)
             self._persist_dirty.clear()
-            self._save(self.clock.now())
+            await self._save(self.clock.now())
 
     # ------------------------------------------------------------------ systemd
 
