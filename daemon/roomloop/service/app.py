@@ -57,7 +57,7 @@ from roomloop.service.clock import Clock, RealClock
 from roomloop.service.commands import Command, CommandHandler
 from roomloop.service.notify import Progress, notify, watchdog_interval_s
 from roomloop.service.persist import StateStore
-from roomloop.service.program import ProgramCursor
+from roomloop.service.program import ProgramCursor, Switch
 from roomloop.service.publisher import (
     OFFLINE,
     ONLINE,
@@ -102,10 +102,17 @@ OnTick = Callable[[TickReport], None]
 class ZoneRuntime:
     """One zone's settings, controller, state and wanted output, shared by its tasks."""
 
-    def __init__(self, zone: Zone, settings: ZoneSettings, state: ZoneState, tz: ZoneInfo) -> None:
+    def __init__(
+        self,
+        zone: Zone,
+        settings: ZoneSettings,
+        controller: ZoneController,
+        state: ZoneState,
+        tz: ZoneInfo,
+    ) -> None:
         self.zone = zone
         self.settings = settings
-        self.controller = ZoneController(settings)
+        self.controller = controller
         self.state = state
         self.outputs: ZoneOutputs | None = None
         self.safe_on = zone.safe_state == "on"
@@ -238,7 +245,7 @@ class Service:
                     log.info("persist.zone_restored", zone=zone.name, mode=state.mode)
                     # The output was held at its safe state from the restart on.
                     state = controller.resume(state, now, relay_on=zone.safe_state == "on")
-            runtime = ZoneRuntime(zone, settings, state, self.tz)
+            runtime = ZoneRuntime(zone, settings, controller, state, self.tz)
             self.zones[zone.name] = runtime
             self._last_saved_key[zone.name] = _persist_key(state)
 
@@ -444,7 +451,7 @@ class Service:
         backup_name = zone.fail_safe.backup_point
         while True:
             now = self.clock.now()
-            level, _ = runtime.program.at(now)
+            level, next_change = runtime.program.at(now)
             inputs = ZoneInputs(
                 samples=self._samples(zone.inputs, now),
                 scheduled_level=level,
@@ -457,7 +464,7 @@ class Service:
                 runtime.wanted = outputs.demand
                 runtime.decided = True
                 self._outputs_wake.set()
-            self._after_step(runtime, outputs, now)
+            self._after_step(runtime, outputs, now, next_change)
             self.progress.beat(name)
             runtime.wake.clear()
             await self._sleep_or_wake(zone.tick_s, runtime.wake)
@@ -473,7 +480,9 @@ class Service:
             sleeper.cancel()
             waiter.cancel()
 
-    def _after_step(self, runtime: ZoneRuntime, outputs: ZoneOutputs, now: float) -> None:
+    def _after_step(
+        self, runtime: ZoneRuntime, outputs: ZoneOutputs, now: float, next_change: Switch | None
+    ) -> None:
         zone = runtime.zone
         sink = self._sink.get(zone.output)
         out_state = sink.output_state(zone.output) if sink is not None else None
@@ -485,7 +494,7 @@ class Service:
             output_verdict=None if out_state is None else out_state.verdict,
             output_confirmed=None if out_state is None else out_state.confirmed,
             hold_until=runtime.state.hold_until,
-            next_change=runtime.program.at(now)[1] if runtime.state.mode == "auto" else None,
+            next_change=next_change if runtime.state.mode == "auto" else None,
             fail_safe_policy=runtime.settings.fail_safe_policy,
         )
         self.publisher.update(view)
