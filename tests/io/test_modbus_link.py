@@ -358,3 +358,20 @@ def test_plan_made_once_at_start() -> None:
     link = ModbusLink(config, points)
     assert link.plan == plan_reads(points, 3)
     assert [r.point_names for r in link.plan] == [("x", "y"), ("z",)]
+
+
+def test_a_refused_serial_line_setting_is_named() -> None:
+    """pyserial reports a line setting the adapter cannot do as termios.error(22, ...)."""
+    import termios
+
+    from roomloop.config.models import ModbusRtuLink
+    from roomloop.io.modbus import describe_connect_error
+
+    rtu = ModbusRtuLink(type="modbus-rtu", name="bus", device="/dev/ttyUSB0", baud=19200)
+    text = describe_connect_error(rtu, termios.error(22, "Invalid argument"))
+    assert "/dev/ttyUSB0 refused the line settings 19200 baud 8E1" in text
+    assert describe_connect_error(rtu, OSError(22, "Invalid argument")) == text
+    # anything else keeps its own words
+    other = describe_connect_error(rtu, OSError(2, "No such file or directory"))
+    assert other == "FileNotFoundError: [Errno 2] No such file or directory"
+

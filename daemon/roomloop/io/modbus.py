@@ -15,6 +15,7 @@ Time: ``received_at`` and ``now`` are POSIX seconds from the injected ``clock``
 from __future__ import annotations
 
 import asyncio
+import errno
 import logging
 import os
 import time
@@ -217,7 +218,7 @@ class ModbusLink:
             ok = bool(await asyncio.wait_for(self._client.connect(), self.link.timeout_s + 1.0))
         except Exception as exc:  # refused, a serial port that vanished, DNS, a timeout ...
             ok = False
-            reason = f"{type(exc).__name__}: {exc}"
+            reason = describe_connect_error(self.link, exc)
         else:
             reason = self._why_not_connected()
         if ok:
@@ -589,3 +590,23 @@ class ModbusLink:
 def _describe(exc: BaseException) -> str:
     text = str(exc).strip() or type(exc).__name__
     return text if len(text) < 200 else text[:197] + "..."
+
+
+def describe_connect_error(link: ModbusTcpLink | ModbusRtuLink, exc: BaseException) -> str:
+    """Why a connection attempt raised, in words an installer can act on.
+
+    A serial adapter (or its driver) that cannot do the configured line settings makes
+    the port's set-up fail with EINVAL, which pyserial reports as a bare
+    ``(22, 'Invalid argument')``; say which settings it refused instead.
+    """
+    code = getattr(exc, "errno", None)
+    args = getattr(exc, "args", ())
+    if code is None and args and isinstance(args[0], int):
+        code = args[0]
+    if isinstance(link, ModbusRtuLink) and code == errno.EINVAL:
+        return (
+            f"the serial port {link.device} refused the line settings {link.baud} baud "
+            f"{link.data_bits}{link.parity}{link.stop_bits} (invalid argument): "
+            "check that the adapter supports them"
+        )
+    return f"{type(exc).__name__}: {exc}"
