@@ -17,12 +17,14 @@ import os
 import signal
 import sys
 import time
-from collections.abc import Callable
+from collections.abc import AsyncIterator, Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import aiomqtt
+
+from roomloop.service.app import Service
 
 TAU_S = 1200.0
 T_ON_C = 35.0
@@ -296,3 +298,23 @@ class Watcher:
             if time.monotonic() > deadline:
                 raise AssertionError(f"condition not met within {timeout_s} s")
             await asyncio.sleep(0.02)
+
+
+@contextlib.asynccontextmanager
+async def running(service: Service, timeout_s: float = 30.0) -> AsyncIterator[asyncio.Event]:
+    """Run an in-process service for the body of the ``with``; stop it (bounded) after."""
+    stop = asyncio.Event()
+    task = asyncio.create_task(service.run(stop))
+    try:
+        yield stop
+    finally:
+        stop.set()
+        await asyncio.wait_for(task, timeout_s)
+
+
+async def until(condition: Callable[[], Any], timeout_s: float = 10.0) -> None:
+    """Wait until ``condition()`` is true, failing the test after ``timeout_s``."""
+    deadline = time.monotonic() + timeout_s
+    while not condition():
+        assert time.monotonic() < deadline, "condition not met in time"
+        await asyncio.sleep(0.02)

@@ -11,13 +11,12 @@ import contextlib
 import re
 import socket
 import time
-from collections.abc import AsyncIterator
 from pathlib import Path
 from typing import Any
 
 import pytest
 import yaml
-from service_rooms import RoomPlant, site_yaml
+from service_rooms import RoomPlant, running, site_yaml, until
 from structlog.testing import capture_logs
 
 from roomloop.config.loader import load_site
@@ -36,24 +35,6 @@ def make_site(tmp_path: Path, port: int, **zone: Any) -> Site:
     path = tmp_path / "site.yaml"
     path.write_text(yaml.safe_dump(data))
     return load_site(path)
-
-
-@contextlib.asynccontextmanager
-async def running(service: Service, timeout_s: float = 30.0) -> AsyncIterator[asyncio.Event]:
-    stop = asyncio.Event()
-    task = asyncio.create_task(service.run(stop))
-    try:
-        yield stop
-    finally:
-        stop.set()
-        await asyncio.wait_for(task, timeout_s)
-
-
-async def until(condition: Any, timeout_s: float = 10.0) -> None:
-    deadline = time.monotonic() + timeout_s
-    while not condition():
-        assert time.monotonic() < deadline, "condition not met in time"
-        await asyncio.sleep(0.02)
 
 
 async def test_embedded_service_holds_the_safe_state_until_its_first_decision(

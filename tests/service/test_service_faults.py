@@ -7,15 +7,13 @@ The clock is simulated.
 from __future__ import annotations
 
 import asyncio
-import contextlib
 import time
-from collections.abc import AsyncIterator
 from pathlib import Path
 from typing import Any
 
 import pytest
 import yaml
-from service_rooms import RoomPlant, Watcher, site_yaml
+from service_rooms import RoomPlant, Watcher, running, site_yaml, until
 from structlog.testing import capture_logs
 
 from roomloop.config.loader import load_site
@@ -31,24 +29,6 @@ def write_site(tmp_path: Path, data: dict[str, Any]) -> Site:
     path = tmp_path / "site.yaml"
     path.write_text(yaml.safe_dump(data))
     return load_site(path)
-
-
-@contextlib.asynccontextmanager
-async def running(service: Service, timeout_s: float = 30.0) -> AsyncIterator[asyncio.Event]:
-    stop = asyncio.Event()
-    task = asyncio.create_task(service.run(stop))
-    try:
-        yield stop
-    finally:
-        stop.set()
-        await asyncio.wait_for(task, timeout_s)
-
-
-async def until(condition: Any, timeout_s: float = 10.0) -> None:
-    deadline = time.monotonic() + timeout_s
-    while not condition():
-        assert time.monotonic() < deadline, "condition not met in time"
-        await asyncio.sleep(0.02)
 
 
 @pytest.mark.needs_mosquitto
