@@ -577,14 +577,26 @@ class ModbusLink:
 
     # ------------------------------------------------------------------ loop
 
-    async def run(self) -> None:
-        """Poll every ``poll_interval_s`` and re-assert outputs, until cancelled."""
+    async def run(
+        self,
+        *,
+        sleep: Callable[[float], Awaitable[None]] = asyncio.sleep,
+        on_cycle: Callable[[], None] | None = None,
+    ) -> None:
+        """Poll every ``poll_interval_s`` and re-assert outputs, until cancelled.
+
+        The interval is measured on the link's clock and waited with ``sleep``, so a
+        service on a simulated clock passes that clock's sleep; ``on_cycle`` is called
+        after each cycle (the service starts its zones once every link was polled).
+        """
         while True:
-            started = time.monotonic()
+            started = self._clock()
             await self.poll()
             await self.reassert_due(self._clock())
             self.cycles += 1
-            await asyncio.sleep(max(0.0, self.link.poll_interval_s - (time.monotonic() - started)))
+            if on_cycle is not None:
+                on_cycle()
+            await sleep(max(0.0, self.link.poll_interval_s - (self._clock() - started)))
 
 
 def _describe(exc: BaseException) -> str:

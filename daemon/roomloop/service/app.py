@@ -400,12 +400,7 @@ class Service:
     # ------------------------------------------------------------------ links
 
     async def _poll_loop(self, link: ModbusLink) -> None:
-        while True:
-            await link.poll()
-            await link.reassert_due(self.clock.now())
-            link.cycles += 1
-            self._check_links()
-            await self.clock.sleep(link.link.poll_interval_s)
+        await link.run(sleep=self.clock.sleep, on_cycle=self._check_links)
 
     def _check_links(self) -> None:
         """Zones start once every link was polled once (answered or not); READY once all answer."""
