@@ -80,6 +80,7 @@ def test_builtin_plants_claim_the_classes_the_issue_names() -> None:
         "hydronic": "medium",
         "underfloor": "medium",
         "electric": "light",
+        "steam": "heavy",
     }
 
 

@@ -82,9 +82,11 @@ def build_parser() -> argparse.ArgumentParser:
     sim.add_argument("--zone", metavar="NAME", help="the zone to simulate (with -c)")
     sim.add_argument(
         "--plant",
-        required=True,
         metavar="PLANT",
-        help="a built-in plant (forced-air, hydronic, underfloor, electric) or a plant YAML file",
+        help=(
+            "a built-in plant (forced-air, hydronic, underfloor, electric, steam) or a plant "
+            "YAML file (docs/plant-file.md); default: the built-in plant of the zone's heating type"
+        ),
     )
     sim.add_argument(
         "--controller",

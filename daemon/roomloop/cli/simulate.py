@@ -1,7 +1,9 @@
 """``roomloop simulate``: one zone's controller against a plant model on the standard protocol.
 
-The zone comes from a site file (``-c SITE --zone NAME``) or from a heating type's
-defaults (``--heating TYPE``); the plant is a built-in name or a plant file. The
+The zone comes from a site file (``-c SITE --zone NAME``: its comfort and economy set
+points, tuning, limits and point checks; the protocol's schedule replaces its program) or
+from a heating type's defaults (``--heating TYPE``); the plant is a built-in name or a plant
+file, by default the built-in plant of the zone's heating type. The
 figures are printed as a table, and optionally written as JSON and drawn as a PNG.
 The output paths (and matplotlib, for ``--plot``) are checked before the run.
 Exit codes: 0 ok; 1 matplotlib is missing, or the JSON or the plot could not be
@@ -17,12 +19,19 @@ import json
 import sys
 
 from roomloop.cli.outputs import MATPLOTLIB_MISSING, matplotlib_available, output_path_problem
+from roomloop.config.checks import temperature_text
 from roomloop.config.loader import load_site
 from roomloop.core.settings import SettingsError, ZoneSettings
 from roomloop.plant.controllers import make_controller
 from roomloop.plant.figures import PhaseFigures
-from roomloop.plant.loader import load_plant
-from roomloop.plant.protocol import ProtocolResult, protocol_settings, run_protocol
+from roomloop.plant.loader import PLANT_FOR_HEATING, load_plant
+from roomloop.plant.protocol import (
+    COMFORT_C,
+    ECONOMY_C,
+    ProtocolResult,
+    protocol_settings,
+    run_protocol,
+)
 
 EXIT_OK = 0
 EXIT_RUNTIME = 1
@@ -34,11 +43,12 @@ def _fail(message: str, code: int) -> int:
     return code
 
 
-def _zone_settings(args: argparse.Namespace) -> ZoneSettings:
+def _zone_settings(args: argparse.Namespace) -> tuple[ZoneSettings, str]:
+    """The zone's settings and the units its set points are shown in."""
     if args.config is not None:
         site = load_site(args.config)
-        return ZoneSettings.from_site(site, args.zone)
-    return ZoneSettings.for_heating_type(args.heating)
+        return ZoneSettings.from_site(site, args.zone), site.site.units
+    return ZoneSettings.for_heating_type(args.heating), "C"
 
 
 def _check_outputs(args: argparse.Namespace) -> int | None:
@@ -64,9 +74,19 @@ def main(args: argparse.Namespace) -> int:
     refused = _check_outputs(args)
     if refused is not None:
         return refused
-    plant = load_plant(args.plant)  # ConfigError: the CLI front prints it, exit 2
     try:
-        settings = protocol_settings(_zone_settings(args))
+        zone, units = _zone_settings(args)
+    except SettingsError as exc:
+        return _fail(str(exc), EXIT_USAGE)
+    from_site = args.config is not None
+    # ConfigError (a bad plant file, an unknown name): the CLI front prints it, exit 2
+    plant = load_plant(args.plant or PLANT_FOR_HEATING[zone.heating])
+    # A site's zone runs the protocol at its own comfort and economy set points.
+    comfort_c, economy_c = (zone.comfort_c, zone.economy_c) if from_site else (
+        COMFORT_C, ECONOMY_C
+    )
+    try:
+        settings = protocol_settings(zone, comfort_c=comfort_c, economy_c=economy_c)
     except SettingsError as exc:
         return _fail(str(exc), EXIT_USAGE)
     controller = make_controller(args.controller, settings)
@@ -76,8 +96,10 @@ def main(args: argparse.Namespace) -> int:
         seed=args.seed,
         sensor_names=[p.name for p in settings.inputs],
         controller_name=args.controller,
+        comfort_c=comfort_c,
+        economy_c=economy_c,
     )
-    print(format_summary(result, settings, from_site=args.config is not None))
+    print(format_summary(result, settings, from_site=from_site, units=units))
     if args.json:
         try:
             with open(args.json, "w", encoding="utf-8") as out:
@@ -111,7 +133,7 @@ def _row(name: str, f: PhaseFigures) -> str:
     return (
         f"{name:<10} {f.setpoint_deviation_k:>+7.2f} {f.control_variation_k:>7.2f} "
         f"{f.control_accuracy_k:>7.2f} {f.cycles_per_hour:>6.1f} {100 * f.on_fraction:>5.0f} "
-        f"{_seconds(f.shortest_on_s):>7} {_seconds(f.shortest_off_s):>7} {f.energy_kwh:>7.2f}"
+        f"{_seconds(f.shortest_on_s):>8} {_seconds(f.shortest_off_s):>9} {f.energy_kwh:>7.2f}"
     )
 
 
@@ -122,19 +144,41 @@ def _zone_text(settings: ZoneSettings, from_site: bool) -> str:
     return f"{article} {settings.heating} zone with the heating type's defaults"
 
 
+def _setpoints_text(
+    result: ProtocolResult, settings: ZoneSettings, from_site: bool, units: str
+) -> str:
+    """Exactly what the run took from the zone, and what the protocol set itself."""
+    comfort = temperature_text(result.comfort_c, units)
+    economy = temperature_text(result.economy_c, units)
+    if not from_site:
+        return (
+            f"set points: the protocol's own, comfort {comfort} and economy {economy} "
+            "(the heating type's tuning)"
+        )
+    return (
+        f"taken from zone {settings.name}: comfort {comfort} and economy {economy} set points, "
+        "tuning, limits, point checks, fail-safe\n"
+        "not taken: its weekly program, mode and other levels (the protocol's schedule runs "
+        "instead: comfort, a 6 h set-back to economy, the step back)"
+    )
+
+
 def _settle_text(settle_s: float | None) -> str:
     if settle_s is None:
         return "never within 0.5 K of the set point in the phase"
     return f"within 0.5 K of the set point after {settle_s / 60:.0f} min"
 
 
-def format_summary(result: ProtocolResult, settings: ZoneSettings, *, from_site: bool) -> str:
+def format_summary(
+    result: ProtocolResult, settings: ZoneSettings, *, from_site: bool, units: str = "C"
+) -> str:
     """A readable table of the run's figures (temperatures of the true room air)."""
     lines = [
         f"controller {result.controller} on plant {result.plant}, "
         f"{_zone_text(settings, from_site)}, seed {result.seed}",
+        _setpoints_text(result, settings, from_site, units),
         f"{'phase':<10} {'CSD K':>7} {'CV K':>7} {'CA K':>7} {'cyc/h':>6} {'on %':>5} "
-        f"{'min on':>7} {'min off':>7} {'kWh':>7}",
+        f"{'min on s':>8} {'min off s':>9} {'kWh':>7}",
     ]
     for name, figures in result.phases.items():
         lines.append(_row(name, figures))
@@ -148,5 +192,8 @@ def format_summary(result: ProtocolResult, settings: ZoneSettings, *, from_site:
         f"overshoot {o.overshoot_k:+.2f} K, {o.cycles_per_hour:.1f} cycles/h (higher load phase), "
         f"{o.energy_kwh:.2f} kWh"
     )
-    lines.append("CSD = mean(T) - S, CV = (max T - min T) / 2, CA = |CSD| + CV (EN 15500)")
+    lines.append(
+        "CSD = mean(T) - S, CV = (max T - min T) / 2, CA = |CSD| + CV (EN 15500); "
+        "min on s / min off s: the shortest complete run in the phase"
+    )
     return "\n".join(lines)

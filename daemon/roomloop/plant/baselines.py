@@ -157,7 +157,7 @@ BIMETAL_ANTICIPATOR_GAIN_K: dict[str, float] = {
     "hydronic": 1.0,
     "underfloor": 0.6,
     "electric": 1.0,
-    "steam": 1.0,  # no built-in steam plant: the hydronic value
+    "steam": 1.0,  # the steam plant was not swept: the hydronic value
 }
 BIMETAL_ELEMENT_TIME_CONSTANT_S = 120.0
 """A bimetal coil under its cover lags the room air by about 5 min [recalled from memory];
@@ -262,7 +262,7 @@ PI_TUNING: dict[str, tuple[float, float]] = {
     "hydronic": (0.18, 3600.0),
     "underfloor": (1.4, 10800.0),
     "electric": (0.18, 2400.0),
-    "steam": (0.18, 3600.0),  # no built-in steam plant: the hydronic values
+    "steam": (0.18, 3600.0),  # the steam plant was not swept: the hydronic values
 }
 
 

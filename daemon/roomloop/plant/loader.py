@@ -21,10 +21,11 @@ from roomloop.config.loader import (
 from roomloop.errors import ConfigError, ConfigProblem
 from roomloop.plant.spec import PlantSpec
 
-BUILTIN_PLANTS: tuple[str, ...] = ("forced-air", "hydronic", "underfloor", "electric")
-"""The built-in plants, one per heating type the protocol compares (steam has none)."""
+BUILTIN_PLANTS: tuple[str, ...] = ("forced-air", "hydronic", "underfloor", "electric", "steam")
+"""The built-in plants, one per heating type (each named after its type)."""
 
 PLANT_FOR_HEATING: dict[str, str] = {name: name for name in BUILTIN_PLANTS}
+"""The built-in plant ``simulate`` and the demo take for a zone of each heating type."""
 
 
 def builtin_plant_path(name: str) -> Path:

@@ -12,8 +12,9 @@ class PlotUnavailable(Exception):
 
 
 def write_plot(result: ProtocolResult, path: str | os.PathLike[str]) -> None:
-    """Temperature and set point, relay, anticipator and droop terms; phases shaded; figures in
-    the title. Raises :class:`PlotUnavailable` without matplotlib, ``OSError`` if unwritable."""
+    """Temperature and set point, relay, anticipator and droop terms, outdoor temperature and
+    load; phases shaded; figures in the title. Raises :class:`PlotUnavailable` without
+    matplotlib, ``OSError`` if unwritable."""
     try:
         import matplotlib
 
@@ -24,12 +25,12 @@ def write_plot(result: ProtocolResult, path: str | os.PathLike[str]) -> None:
 
     trace = result.trace
     hours = [t / 3600.0 for t in trace.time_s]
-    fig, (ax_t, ax_r, ax_a) = plt.subplots(
-        3, 1, figsize=(12, 8), sharex=True, gridspec_kw={"height_ratios": [3, 1, 1.5]}
+    fig, (ax_t, ax_r, ax_a, ax_o) = plt.subplots(
+        4, 1, figsize=(12, 9.5), sharex=True, gridspec_kw={"height_ratios": [3, 1, 1.5, 1.5]}
     )
     for segment in SCHEDULE:
         if segment.scored:
-            for ax in (ax_t, ax_r, ax_a):
+            for ax in (ax_t, ax_r, ax_a, ax_o):
                 ax.axvspan(
                     segment.start_s / 3600, segment.end_s / 3600, color="tab:green", alpha=0.08
                 )
@@ -55,8 +56,19 @@ def write_plot(result: ProtocolResult, path: str | os.PathLike[str]) -> None:
     ax_a.plot(hours, trace.anticipator_k, color="tab:blue", lw=0.8, label="anticipator a")
     ax_a.plot(hours, trace.droop_k, color="tab:purple", lw=1.0, label="droop term b")
     ax_a.set_ylabel("K")
-    ax_a.set_xlabel("hours")
     ax_a.legend(loc="upper left", fontsize=8)
+    ax_o.plot(hours, trace.outdoor_c, color="tab:cyan", lw=1.0, label="outdoor temperature")
+    ax_o.set_ylabel("outdoor C")
+    ax_o.set_xlabel("hours")
+    ax_load = ax_o.twinx()
+    ax_load.plot(
+        hours, [100.0 * x for x in trace.load], color="tab:brown", lw=1.0, ls=":",
+        label="load (% of heater)",
+    )
+    ax_load.set_ylabel("load %")
+    ax_load.set_ylim(0, 100)
+    handles = ax_o.get_legend_handles_labels()[0] + ax_load.get_legend_handles_labels()[0]
+    ax_o.legend(handles=handles, loc="upper left", fontsize=8)
     o = result.overall
     fig.suptitle(
         f"{result.controller} on {result.plant} (seed {result.seed}): control accuracy "

@@ -49,7 +49,12 @@ class Segment:
 
     @property
     def setpoint_c(self) -> float:
-        return ECONOMY_C if self.level == "economy" else COMFORT_C
+        """The set point of the standard protocol (comfort 20 C, economy 17 C)."""
+        return self.setpoint_for(COMFORT_C, ECONOMY_C)
+
+    def setpoint_for(self, comfort_c: float, economy_c: float) -> float:
+        """The set point of this stretch for a run with these comfort and economy set points."""
+        return economy_c if self.level == "economy" else comfort_c
 
     def load_at(self, t_s: float) -> float:
         if self.load_start == self.load_end:
@@ -71,13 +76,16 @@ DURATION_S = SCHEDULE[-1].end_s
 INITIAL_LOAD = 0.3
 
 
-def protocol_settings(settings: ZoneSettings) -> ZoneSettings:
-    """The zone's settings with the protocol's set points (comfort 20 C, economy 17 C), mode auto.
+def protocol_settings(
+    settings: ZoneSettings, *, comfort_c: float = COMFORT_C, economy_c: float = ECONOMY_C
+) -> ZoneSettings:
+    """The zone's settings with the run's set points (by default the protocol's comfort 20 C and
+    economy 17 C), mode auto.
 
     Everything else (tuning, limits, reliability checks) stays the zone's own.
     """
     return dataclasses.replace(
-        settings, comfort_c=COMFORT_C, economy_c=ECONOMY_C, initial_mode="auto"
+        settings, comfort_c=comfort_c, economy_c=economy_c, initial_mode="auto"
     )
 
 
@@ -94,6 +102,8 @@ class Trace:
     anticipator_k: list[float] = field(default_factory=list)
     droop_k: list[float] = field(default_factory=list)
     outdoor_c: list[float] = field(default_factory=list)
+    load: list[float] = field(default_factory=list)
+    """The fraction of ``heater_w`` the schedule asks the heater to cover."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -106,13 +116,17 @@ class ProtocolResult:
     phases: dict[str, PhaseFigures]
     overall: OverallFigures
     trace: Trace
+    comfort_c: float = COMFORT_C
+    economy_c: float = ECONOMY_C
 
     def to_dict(self) -> dict[str, Any]:
-        """The JSON document of ``roomloop simulate --json`` (DESIGN.md's keys)."""
+        """The JSON document of ``roomloop simulate --json`` (DESIGN.md's keys, and the run's
+        set points in Celsius)."""
         return {
             "plant": self.plant,
             "controller": self.controller,
             "seed": self.seed,
+            "setpoints_c": {"comfort": self.comfort_c, "economy": self.economy_c},
             "phases": {name: figures.to_dict() for name, figures in self.phases.items()},
             "overall": self.overall.to_dict(),
         }
@@ -126,15 +140,19 @@ def run_protocol(
     sensor_names: Sequence[str] = ("temperature",),
     controller_name: str = "",
     tick_s: float = TICK_S,
+    comfort_c: float = COMFORT_C,
+    economy_c: float = ECONOMY_C,
 ) -> ProtocolResult:
     """Run ``controller`` against ``plant`` on the standard protocol; figures and trace.
 
-    The controller must already hold the protocol's set points (see :func:`protocol_settings`).
-    ``sensor_names`` are the zone's input points in order; the plant has one sensor, so each
-    gets the same reading.
+    The controller must already hold the run's set points (see :func:`protocol_settings`):
+    by default the protocol's comfort 20 C and economy 17 C; a zone's own set points move the
+    whole run (the loads are set at ``comfort_c``, the figures are taken against the set point
+    of each phase). ``sensor_names`` are the zone's input points in order; the plant has one
+    sensor, so each gets the same reading.
     """
     names = tuple(sensor_names)
-    sim = PlantSimulation.at_steady_state(plant, load=INITIAL_LOAD, room_c=COMFORT_C, seed=seed)
+    sim = PlantSimulation.at_steady_state(plant, load=INITIAL_LOAD, room_c=comfort_c, seed=seed)
     trace = Trace()
     state = controller.initial_state(EPOCH)
     ticks = round(DURATION_S / tick_s)
@@ -145,7 +163,8 @@ def run_protocol(
         while t >= segment.end_s and segment_index < len(SCHEDULE) - 1:
             segment_index += 1
             segment = SCHEDULE[segment_index]
-        sim.outdoor_c = plant.outdoor_for_load_c(segment.load_at(t), COMFORT_C)
+        load = segment.load_at(t)
+        sim.outdoor_c = plant.outdoor_for_load_c(load, comfort_c)
         now = EPOCH + t
         reading = sim.read_sensor()
         inputs = ZoneInputs(
@@ -156,11 +175,12 @@ def run_protocol(
         trace.time_s.append(t)
         trace.room_c.append(sim.room_c)
         trace.sensor_c.append(reading)
-        trace.setpoint_c.append(segment.setpoint_c)
+        trace.setpoint_c.append(segment.setpoint_for(comfort_c, economy_c))
         trace.demand.append(outputs.demand)
         trace.anticipator_k.append(outputs.anticipator_k)
         trace.droop_k.append(outputs.droop_k)
         trace.outdoor_c.append(sim.outdoor_c)
+        trace.load.append(load)
         sim.advance(tick_s, outputs.demand)
 
     phases: dict[str, PhaseFigures] = {}
@@ -173,7 +193,7 @@ def run_protocol(
             tick_s=tick_s,
             start_s=segment.start_s,
             end_s=segment.end_s,
-            setpoint_c=segment.setpoint_c,
+            setpoint_c=segment.setpoint_for(comfort_c, economy_c),
             heater_w=plant.heater_w,
             step_response=segment.name == "recovery",
         )
@@ -185,4 +205,6 @@ def run_protocol(
         phases=phases,
         overall=overall,
         trace=trace,
+        comfort_c=comfort_c,
+        economy_c=economy_c,
     )
