@@ -45,7 +45,9 @@ def test_state_json_carries_everything_a_dashboard_needs() -> None:
     assert payload["fail_safe_reason"] is None
     assert (payload["on_fraction_1h"], payload["cycles_1h"]) == (0.432, 3)
     assert payload["reason"] == "cut-in"
-    assert payload["next_change"] == {"at": "2027-01-15T10:00:00+01:00", "level": "economy"}
+    assert payload["next_change"] == {
+        "at": "2027-01-15T10:00:00+01:00", "level": "economy", "by": "program"
+    }
     assert payload["output"] == {"point": "relay", "verdict": "ok", "confirmed": True}
     json.dumps(payload, allow_nan=False)
 

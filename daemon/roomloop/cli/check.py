@@ -84,6 +84,15 @@ def print_site(site: Site, out: TextIO) -> None:
     for zone in site.zones:
         _zone(zone, units, w)
 
+    w("\ncalendar (replaces the weekly program while it lasts)\n")
+    if not site.calendar:
+        w("  (none)\n")
+    for entry in site.calendar:
+        whole_day = len(entry.end) == 10
+        until = f"{entry.end} (whole day)" if whole_day else entry.end
+        zones = "every zone" if entry.zones is None else ", ".join(entry.zones)
+        w(f"  {entry.name}: {entry.start} to {until}: {entry.level}, {zones}\n")
+
 
 def _broker_text(broker: Broker | None, site: Site) -> str:
     if broker is None:

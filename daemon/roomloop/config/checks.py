@@ -20,6 +20,7 @@ from typing import Any, Literal
 from roomloop.config.models import (
     LEVELS,
     Broker,
+    CalendarEntry,
     Logging,
     ModbusInput,
     ModbusOutput,
@@ -57,6 +58,7 @@ class SiteParts:
     links: list[tuple[int, AnyLink]] = field(default_factory=list)
     points: list[tuple[int, AnyPoint]] = field(default_factory=list)
     zones: list[tuple[int, Zone]] = field(default_factory=list)
+    calendar: list[tuple[int, CalendarEntry]] = field(default_factory=list)
     invalid_names: dict[str, set[str]] = field(default_factory=dict)
     """Names of items that failed validation: not reported again as unknown."""
 
@@ -71,6 +73,7 @@ class SiteParts:
             links=list(enumerate(site.links)),
             points=list(enumerate(site.points)),
             zones=list(enumerate(site.zones)),
+            calendar=list(enumerate(site.calendar)),
         )
 
 
@@ -85,6 +88,8 @@ def check_parts(parts: SiteParts) -> list[Finding]:
     findings += _duplicate_names("links", parts.links)
     findings += _duplicate_names("points", parts.points)
     findings += _duplicate_names("zones", parts.zones)
+    findings += _duplicate_names("calendar", parts.calendar)
+    findings += _calendar_zones(parts)
     findings += _point_links(parts)
     findings += _modbus_overlaps(parts)
     findings += _serial_devices(parts)
@@ -93,6 +98,22 @@ def check_parts(parts: SiteParts) -> list[Finding]:
         findings += _setpoints(index, zone, parts.units)
         findings += _tuning(index, zone, parts.units)
         findings += _program(index, zone)
+    return findings
+
+
+def _calendar_zones(parts: SiteParts) -> list[Finding]:
+    """Every zone a calendar entry names exists (a typo would silently skip a holiday)."""
+    known = {zone.name for _, zone in parts.zones} | parts.invalid_names.get("zones", set())
+    findings: list[Finding] = []
+    for index, entry in parts.calendar:
+        for position, name in enumerate(entry.zones or ()):
+            if name not in known:
+                findings.append(
+                    Finding(
+                        ("calendar", index, "zones", position),
+                        f"no zone named {name!r} (zones: {', '.join(sorted(known)) or 'none'})",
+                    )
+                )
     return findings
 
 

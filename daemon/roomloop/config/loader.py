@@ -36,6 +36,7 @@ from yaml.nodes import MappingNode, Node, ScalarNode, SequenceNode
 from roomloop.config.checks import Finding, SiteParts, check_parts
 from roomloop.config.models import (
     Broker,
+    CalendarEntry,
     Link,
     Logging,
     Point,
@@ -127,6 +128,9 @@ def _scalar(node: ScalarNode, constructor: _Scalars) -> Any:
         if node.tag in ("tag:yaml.org,2002:int", "tag:yaml.org,2002:float") and ":" in node.value:
             return node.value
         if node.tag == "tag:yaml.org,2002:bool" and node.value.lower() in _BOOL_WORDS:
+            return node.value
+        if node.tag == "tag:yaml.org,2002:timestamp":
+            # a date keeps its text: the model reads it (YAML would raise on 2026-02-30)
             return node.value
     return constructor.construct_object(node, deep=True)
 
@@ -514,9 +518,10 @@ _SECTIONS: dict[str, Any] = {
     "broker": Broker,
     "points": Point,
     "zones": Zone,
+    "calendar": CalendarEntry,
     "logging": Logging,
 }
-_LIST_SECTIONS = ("links", "points", "zones")
+_LIST_SECTIONS = ("links", "points", "zones", "calendar")
 _REQUIRED = ("site", "zones")
 
 _ADAPTERS: dict[str, TypeAdapter[Any]] = {name: TypeAdapter(tp) for name, tp in _SECTIONS.items()}

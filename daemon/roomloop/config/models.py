@@ -14,6 +14,7 @@ of them at once; the models here check one object at a time.
 
 from __future__ import annotations
 
+import datetime as dt
 import math
 import re
 import zoneinfo
@@ -550,6 +551,73 @@ def expand_days(value: list[str] | str) -> list[str]:
     return sorted(out, key=DAYS.index)
 
 
+_CALENDAR_WHEN = re.compile(r"(\d{4})-(\d{2})-(\d{2})(?:[ T]([01]?\d|2[0-3]):([0-5]\d))?")
+
+
+def _calendar_when(value: Any) -> str:
+    """A calendar bound as ``YYYY-MM-DD`` or ``YYYY-MM-DD HH:MM`` (the site's local time)."""
+    if isinstance(value, dt.datetime):
+        if value.tzinfo is not None:
+            raise ValueError("give the local time of the site, without an offset")
+        return value.strftime("%Y-%m-%d %H:%M")
+    if isinstance(value, dt.date):
+        return value.isoformat()
+    if not isinstance(value, str):
+        raise ValueError("a date YYYY-MM-DD or a local date and time 'YYYY-MM-DD HH:MM' (quoted)")
+    match = _CALENDAR_WHEN.fullmatch(value.strip())
+    if not match:
+        raise ValueError(
+            f"{value!r} is not a date YYYY-MM-DD or a local date and time 'YYYY-MM-DD HH:MM'"
+        )
+    year, month, day, hour, minute = match.groups()
+    try:
+        dt.date(int(year), int(month), int(day))
+    except ValueError as exc:
+        raise ValueError(f"{value!r} is not a date of the calendar: {exc}") from None
+    date = f"{year}-{month}-{day}"
+    return date if hour is None else f"{date} {int(hour):02d}:{minute}"
+
+
+def calendar_wall(value: str, *, end: bool) -> tuple[dt.date, int]:
+    """A normalised calendar bound as (local date, minute of day). A bare date starts at its
+    00:00; as an ``end`` it includes the whole day, so it ends at the next day's 00:00."""
+    date = dt.date.fromisoformat(value[:10])
+    if len(value) > 10:
+        hours, minutes = value[11:].split(":")
+        return date, int(hours) * 60 + int(minutes)
+    return (date + dt.timedelta(days=1), 0) if end else (date, 0)
+
+
+class CalendarEntry(Strict):
+    """A stretch of dates whose level replaces the weekly program in mode ``auto``: a holiday
+    closure of the whole site, a one-off event in one room.
+
+    ``start`` and ``end`` are dates (``end`` included: the entry lasts to the end of that day)
+    or local date-times ``"YYYY-MM-DD HH:MM"`` (``end`` is then the instant it stops).
+    """
+
+    name: Name
+    start: str
+    end: str
+    level: Level
+    zones: list[Name] | None = None
+    """The zones it applies to; left out: every zone of the site."""
+
+    @field_validator("start", "end", mode="before")
+    @classmethod
+    def _when(cls, value: Any) -> str:
+        return _calendar_when(value)
+
+    @model_validator(mode="after")
+    def _order(self) -> CalendarEntry:
+        if calendar_wall(self.end, end=True) <= calendar_wall(self.start, end=False):
+            raise ValueError(f"end {self.end} is not after start {self.start}")
+        return self
+
+    def applies_to(self, zone: str) -> bool:
+        return self.zones is None or zone in self.zones
+
+
 class Zone(Strict):
     """A controlled space: inputs, one output, a heating type, set points, tuning, fail-safe."""
 
@@ -609,6 +677,8 @@ class Site(Strict):
     broker: Broker | None = None
     points: list[Point] = []
     zones: Annotated[list[Zone], Field(min_length=1)]
+    calendar: list[CalendarEntry] = []
+    """Holidays and one-off events: date ranges whose level replaces the weekly program."""
     logging: Logging = Logging()
 
     @property
@@ -620,6 +690,10 @@ class Site(Strict):
         if self.broker is not None and self.broker.topic_prefix:
             return self.broker.topic_prefix
         return f"roomloop/{self.site.name}"
+
+    def calendar_for(self, zone: str) -> list[CalendarEntry]:
+        """The calendar entries that apply to ``zone``, in file order (a later one wins)."""
+        return [entry for entry in self.calendar if entry.applies_to(zone)]
 
     def point(self, name: str) -> ModbusInput | MqttInput | ModbusOutput | MqttOutput:
         for point in self.points:

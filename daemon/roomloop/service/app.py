@@ -38,6 +38,7 @@ import aiomqtt
 import structlog
 
 from roomloop.config.models import (
+    CalendarEntry,
     ModbusInput,
     ModbusOutput,
     MqttInput,
@@ -109,6 +110,8 @@ class ZoneRuntime:
         controller: ZoneController,
         state: ZoneState,
         tz: ZoneInfo,
+        *,
+        calendar: Sequence[CalendarEntry] = (),
     ) -> None:
         self.zone = zone
         self.settings = settings
@@ -120,7 +123,7 @@ class ZoneRuntime:
         self.decided = False
         self.wake = asyncio.Event()
         self.steps = 0
-        self.program = ProgramCursor(zone.program, tz, zone.default_level)
+        self.program = ProgramCursor(zone.program, tz, zone.default_level, calendar)
 
     @property
     def name(self) -> str:
@@ -245,7 +248,10 @@ class Service:
                     log.info("persist.zone_restored", zone=zone.name, mode=state.mode)
                     # The output was held at its safe state from the restart on.
                     state = controller.resume(state, now, relay_on=zone.safe_state == "on")
-            runtime = ZoneRuntime(zone, settings, controller, state, self.tz)
+            runtime = ZoneRuntime(
+                zone, settings, controller, state, self.tz,
+                calendar=self.site.calendar_for(zone.name),
+            )
             self.zones[zone.name] = runtime
             self._last_saved_key[zone.name] = _persist_key(state)
 

@@ -11,6 +11,12 @@ program follows daylight-saving changes:
 * a switch time that exists twice on a fall-back day happens at its first
   occurrence.
 
+Calendar entries (holidays, one-off events: ``calendar:`` in the site file) are
+date ranges whose level replaces the weekly program while they last; their
+bounds are local times resolved the same way, so a holiday that starts at
+midnight starts at local midnight on either side of a daylight-saving change.
+Where two entries overlap, the later one in the file wins.
+
 Pure functions: time comes in as POSIX seconds, nothing reads a clock.
 """
 
@@ -22,10 +28,14 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from zoneinfo import ZoneInfo
 
-from roomloop.config.models import DAYS, Level, ProgramEntry
+from roomloop.config.models import DAYS, CalendarEntry, Level, ProgramEntry, calendar_wall
 
 _LOOK_DAYS = 8
 """A weekly program repeats within 7 days; one more covers the day boundary."""
+
+
+PROGRAM = "program"
+"""What a switch comes from when the weekly program makes it (else a calendar entry's name)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -34,6 +44,44 @@ class Switch:
 
     at: float
     level: Level
+    by: str = PROGRAM
+    """``program`` (the weekly program) or the name of the calendar entry that sets the level."""
+
+
+@dataclass(frozen=True, slots=True)
+class Period:
+    """A calendar entry resolved to POSIX seconds: ``level`` in ``[start, end)``."""
+
+    start: float
+    end: float
+    level: Level
+    name: str
+
+
+def resolve_calendar(entries: Sequence[CalendarEntry], tz: ZoneInfo) -> tuple[Period, ...]:
+    """The entries' local bounds as instants, in file order."""
+    periods: list[Period] = []
+    for entry in entries:
+        start_day, start_minute = calendar_wall(entry.start, end=False)
+        end_day, end_minute = calendar_wall(entry.end, end=True)
+        periods.append(
+            Period(
+                switch_instant(start_day, start_minute, tz),
+                switch_instant(end_day, end_minute, tz),
+                entry.level,
+                entry.name,
+            )
+        )
+    return tuple(periods)
+
+
+def _period_at(periods: Sequence[Period], when: float) -> Period | None:
+    """The period in force at ``when``: of those containing it, the last in the file."""
+    found: Period | None = None
+    for period in periods:
+        if period.start <= when < period.end:
+            found = period
+    return found
 
 
 def switch_instant(day: dt.date, minute_of_day: int, tz: ZoneInfo) -> float:
@@ -81,9 +129,33 @@ def switches_between(
 
 
 def level_at(
-    entries: Sequence[ProgramEntry], when: float, tz: ZoneInfo, default: Level = "comfort"
+    entries: Sequence[ProgramEntry],
+    when: float,
+    tz: ZoneInfo,
+    default: Level = "comfort",
+    periods: Sequence[Period] = (),
 ) -> Level:
-    """The level the program puts in force at ``when``; ``default`` for an empty program."""
+    """The level in force at ``when``: a calendar period's, else the weekly program's
+    (``default`` for an empty program)."""
+    return _source_at(entries, when, tz, default, periods)[0]
+
+
+def _source_at(
+    entries: Sequence[ProgramEntry],
+    when: float,
+    tz: ZoneInfo,
+    default: Level,
+    periods: Sequence[Period],
+) -> tuple[Level, str]:
+    period = _period_at(periods, when)
+    if period is not None:
+        return period.level, period.name
+    return _weekly_level_at(entries, when, tz, default), PROGRAM
+
+
+def _weekly_level_at(
+    entries: Sequence[ProgramEntry], when: float, tz: ZoneInfo, default: Level
+) -> Level:
     if not entries:
         return default
     today = dt.datetime.fromtimestamp(when, tz).date()
@@ -96,15 +168,45 @@ def level_at(
 
 
 def next_change(
-    entries: Sequence[ProgramEntry], when: float, tz: ZoneInfo, default: Level = "comfort"
+    entries: Sequence[ProgramEntry],
+    when: float,
+    tz: ZoneInfo,
+    default: Level = "comfort",
+    periods: Sequence[Period] = (),
 ) -> Switch | None:
-    """The first switch point after ``when`` that changes the level, or None if it never changes."""
+    """The first instant after ``when`` at which the level changes (a weekly switch point
+    outside the calendar periods, or a period's start or end), or None if it never changes."""
+    current = level_at(entries, when, tz, default, periods)
+    bounds = sorted({b for p in periods for b in (p.start, p.end)})
+    t = when
+    for _ in range(2 * len(bounds) + 1):
+        bound = next((b for b in bounds if b > t), math.inf)
+        if _period_at(periods, t) is None:
+            weekly = _first_weekly_change(entries, t, tz, current)
+            if weekly is not None and weekly.at < bound:
+                return weekly
+        if bound == math.inf:
+            return None
+        t = bound
+        level, by = _source_at(entries, t, tz, default, periods)
+        if level != current:
+            return Switch(t, level, by)
+    return None  # pragma: no cover - every bound is visited at most once above
+
+
+def _first_weekly_change(
+    entries: Sequence[ProgramEntry], when: float, tz: ZoneInfo, current: Level
+) -> Switch | None:
+    """The first weekly switch point after ``when`` to a level other than ``current``; the
+    program repeats every week, so none within eight days means none ever."""
     if not entries:
         return None
-    current = level_at(entries, when, tz, default)
     today = dt.datetime.fromtimestamp(when, tz).date()
-    for switch in switches_between(entries, today, today + dt.timedelta(days=_LOOK_DAYS), tz):
-        if switch.at > when and switch.level != current:
+    switches = switches_between(entries, today, today + dt.timedelta(days=_LOOK_DAYS), tz)
+    for k, switch in enumerate(switches):
+        if switch.at <= when or (k + 1 < len(switches) and switches[k + 1].at == switch.at):
+            continue  # of two entries at one instant the later one in the file wins
+        if switch.level != current:
             return switch
     return None
 
@@ -118,11 +220,16 @@ class ProgramCursor:
     """
 
     def __init__(
-        self, entries: Sequence[ProgramEntry], tz: ZoneInfo, default: Level = "comfort"
+        self,
+        entries: Sequence[ProgramEntry],
+        tz: ZoneInfo,
+        default: Level = "comfort",
+        calendar: Sequence[CalendarEntry] = (),
     ) -> None:
         self.entries = tuple(entries)
         self.tz = tz
         self.default = default
+        self.periods = resolve_calendar(calendar, tz)
         self._since = math.inf
         self._until = -math.inf
         self._level: Level = default
@@ -131,8 +238,8 @@ class ProgramCursor:
     def at(self, when: float) -> tuple[Level, Switch | None]:
         """The level in force at ``when`` and the next change after it (None: never)."""
         if not self._since <= when < self._until:
-            self._level = level_at(self.entries, when, self.tz, self.default)
-            self._next = next_change(self.entries, when, self.tz, self.default)
+            self._level = level_at(self.entries, when, self.tz, self.default, self.periods)
+            self._next = next_change(self.entries, when, self.tz, self.default, self.periods)
             self._since = when
             self._until = math.inf if self._next is None else self._next.at
         return self._level, self._next

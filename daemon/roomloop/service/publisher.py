@@ -105,7 +105,11 @@ def state_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, Any]
         },
         "next_change": None
         if view.next_change is None
-        else {"at": iso(view.next_change.at, tz), "level": view.next_change.level},
+        else {
+            "at": iso(view.next_change.at, tz),
+            "level": view.next_change.level,
+            "by": view.next_change.by,
+        },
     }
 
 
