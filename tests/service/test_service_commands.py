@@ -131,13 +131,30 @@ def test_handler_applies_answers_and_ignores_retained_and_foreign() -> None:
     assert answer is not None and answer.topic == "roomloop/annex/zone/studio/cmd/result"
     assert json.loads(answer.payload) == {"field": "setpoint", "ok": True, "value": 22.0}
     assert h.handle(topic, b"23", retained=True, now=NOW, monotonic=0.0) is None
-    assert (
-        h.handle(
-            "roomloop/annex/zone/attic/cmd/mode", b"off", retained=False, now=NOW, monotonic=0.0
-        )
-        is None
-    )
+    assert h.handle("roomloop/other/zone/studio/cmd/mode", b"off", retained=False, now=NOW,
+                    monotonic=0.0) is None
     assert [c.value for c in rec.applied] == [22.0]
+
+
+def test_a_command_for_an_unknown_zone_is_refused_by_name_and_changes_nothing() -> None:
+    rec = Recorder()
+    h = handler(rec)
+    answer = h.handle(
+        "roomloop/annex/zone/attic/cmd/mode", b"off", retained=False, now=NOW, monotonic=0.0
+    )
+    assert answer is not None and answer.topic == "roomloop/annex/zone/attic/cmd/result"
+    body = json.loads(answer.payload)
+    assert body["ok"] is False and body["field"] == "mode"
+    assert "no zone named 'attic'" in body["reason"] and "studio" in body["reason"]
+    assert rec.applied == []
+    # A flood of made-up names shares one rate limit: answered at most so often, then silence.
+    answers = [
+        h.handle(f"roomloop/annex/zone/x{k}/cmd/mode", b"off", retained=False, now=NOW,
+                 monotonic=1.0)
+        for k in range(500)
+    ]
+    assert 0 < sum(a is not None for a in answers) <= h.limit.per_minute
+    assert rec.applied == []
 
 
 def test_handler_refuses_when_the_zone_refuses_and_when_flooded() -> None:

@@ -56,6 +56,7 @@ from roomloop.io.mqtt import MqttPoints
 from roomloop.io.ports import OutputState
 from roomloop.service.clock import Clock, RealClock
 from roomloop.service.commands import Command, CommandHandler
+from roomloop.service.events import zone_events
 from roomloop.service.notify import Progress, notify, watchdog_interval_s
 from roomloop.service.persist import StateStore
 from roomloop.service.program import ProgramCursor, Switch
@@ -458,8 +459,14 @@ class Service:
                 scheduled_level=level,
                 backup=None if backup_name is None else self._samples([backup_name], now)[0],
             )
-            runtime.state, outputs = runtime.controller.step(runtime.state, inputs, now)
+            before, previous = runtime.state, runtime.outputs
+            runtime.state, outputs = runtime.controller.step(before, inputs, now)
             runtime.outputs = outputs
+            for event in zone_events(
+                runtime.name, now=now, before=before, after=runtime.state,
+                previous=previous, outputs=outputs,
+            ):
+                getattr(log, event.level)(event.event, **event.fields)
             runtime.steps += 1
             if not runtime.decided or outputs.demand != runtime.wanted:
                 runtime.wanted = outputs.demand
@@ -551,6 +558,17 @@ class Service:
         except Exception as exc:  # a bug below us: the poll's re-assert still retries the write
             log.exception(
                 "output.write_crashed", zone=runtime.name, point=point, error=str(exc) or repr(exc)
+            )
+            return
+        if state.verdict == "comm-failure":
+            # not switched: the poll's re-assert retries the write
+            log.warning(
+                "output.write_failed",
+                zone=runtime.name,
+                point=point,
+                on=on,
+                detail=state.detail,
+                decided=decided,
             )
             return
         log.info(

@@ -58,6 +58,10 @@ class CommandTopic:
     field: str
 
 
+UNKNOWN_ZONE_KEY = "\x00unknown-zone"
+"""The rate limit's key for commands to zones the site does not have (no zone has this name)."""
+
+
 def command_filter(prefix: str) -> str:
     """The subscription that catches every zone's commands."""
     return f"{prefix}/zone/+/cmd/+"
@@ -257,7 +261,7 @@ class CommandHandler:
             return None
         zone = self.zones.get(where.zone)
         if zone is None:
-            return None  # not ours: another site with the same prefix, or a typo nobody reads
+            return self._unknown_zone(where, monotonic)
         answer: dict[str, Any] = {"field": where.field}
         if not self.limit.allow(zone.name, monotonic):
             answer.update(
@@ -284,6 +288,19 @@ class CommandHandler:
             else:
                 answer.update(ok=True, value=shown)
         return Answer(result_topic(self.prefix, zone.name), json.dumps(answer))
+
+
+    def _unknown_zone(self, where: CommandTopic, monotonic: float) -> Answer | None:
+        """A command for a zone this site does not have: refused on that zone's result topic
+        (a dashboard with a typo in the zone name learns it), logged; one rate limit for all
+        unknown names, so a flood of made-up names gets no answer and keeps no memory."""
+        if not self.limit.allow(UNKNOWN_ZONE_KEY, monotonic):
+            return None
+        known = ", ".join(sorted(self.zones))
+        reason = f"no zone named {where.zone[:64]!r} on this site (zones: {known})"
+        log.warning("command.unknown_zone", zone=where.zone[:64], field=where.field)
+        payload = json.dumps({"field": where.field, "ok": False, "reason": reason})
+        return Answer(result_topic(self.prefix, where.zone), payload)
 
 
 def _reason(exc: Exception) -> str:
