@@ -35,3 +35,23 @@ def test_sub_command_descriptions_are_wrapped_at_80_columns(
     usage_end = text.index("\n\n")
     ours = text[usage_end:].splitlines()
     assert [line for line in ours if len(line) > 80] == []
+
+
+def test_the_help_states_the_demos_ranges_and_the_heating_types(
+    capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from typing import get_args
+
+    from roomloop.cli import DEMO_HOURS, DEMO_MAX_SPEED, HEATING_TYPES
+    from roomloop.config.models import HeatingType
+    from roomloop.demo.runner import MAX_SPEED
+    from roomloop.demo.timeline import MAX_HOURS, MIN_HOURS
+
+    # the parser's written-out copies stay equal to what the commands check
+    assert get_args(HeatingType) == HEATING_TYPES
+    assert DEMO_HOURS == (MIN_HOURS, MAX_HOURS) and DEMO_MAX_SPEED == MAX_SPEED
+    demo = " ".join(_help(capsys, monkeypatch, "demo").split())
+    assert "simulated hours, 1 to 48 (default 8)" in demo
+    assert "above 0 and at most 3600" in demo
+    simulate = " ".join(_help(capsys, monkeypatch, "simulate").split())
+    assert "forced-air, hydronic, underfloor, electric, steam" in simulate

@@ -198,7 +198,7 @@ def test_plot_without_matplotlib_is_refused_before_the_run(
 
     # A None entry in sys.modules makes `import matplotlib` fail, as if it were not installed.
     monkeypatch.setitem(sys.modules, "matplotlib", None)
-    assert main(["demo", "--hours", "1", "--plot", str(tmp_path / "demo.png")]) == 1
+    assert main(["demo", "--hours", "1", "--plot", str(tmp_path / "demo.png")]) == 2
     captured = capsys.readouterr()
     assert captured.out == ""  # nothing ran
     assert "pip install matplotlib" in captured.err and "pip install '.[plot]'" in captured.err

@@ -21,6 +21,13 @@ EXIT_RUNTIME = 1
 EXIT_USAGE = 2
 HELP_WIDTH = 79
 """The raw (hand-wrapped) help texts stay within this many columns."""
+HEATING_TYPES = ("forced-air", "hydronic", "underfloor", "electric", "steam")
+"""``config.models.HeatingType`` (written out: the parser stays light to import; a test
+keeps the two equal)."""
+DEMO_HOURS = (1.0, 48.0)
+DEMO_MAX_SPEED = 3600.0
+"""The demo's ranges for its help (``demo.timeline`` and ``demo.runner`` check them; a test
+keeps them equal)."""
 
 SAFETY = """\
 safety: roomloop switches heating plant. Mains wiring is for qualified people
@@ -76,8 +83,11 @@ def build_parser() -> argparse.ArgumentParser:
     who.add_argument(
         "--heating",
         metavar="TYPE",
-        choices=["forced-air", "hydronic", "underfloor", "electric", "steam"],
-        help="simulate a zone with this heating type's defaults (no site needed)",
+        choices=HEATING_TYPES,
+        help=(
+            "simulate a zone with this heating type's defaults (no site needed): "
+            + ", ".join(HEATING_TYPES)
+        ),
     )
     sim.add_argument("--zone", metavar="NAME", help="the zone to simulate (with -c)")
     sim.add_argument(
@@ -121,12 +131,20 @@ def build_parser() -> argparse.ArgumentParser:
     demo = add(
         "demo", "run an invented three-zone site against simulated plants over real Modbus TCP"
     )
-    demo.add_argument("--hours", type=float, default=8.0, help="simulated hours (default 8)")
+    demo.add_argument(
+        "--hours",
+        type=float,
+        default=8.0,
+        help=f"simulated hours, {DEMO_HOURS[0]:g} to {DEMO_HOURS[1]:g} (default 8)",
+    )
     demo.add_argument(
         "--speed",
         type=float,
         default=None,
-        help="simulated seconds per real second (default: 8 h in about a minute)",
+        help=(
+            f"simulated seconds per real second, above 0 and at most {DEMO_MAX_SPEED:g} "
+            "(default: the run in about a minute)"
+        ),
     )
     demo.add_argument(
         "--broker", metavar="HOST:PORT", help="also publish to this MQTT broker, as 'run' does"

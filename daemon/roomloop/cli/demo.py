@@ -16,10 +16,10 @@ run`` stopping on a signal (a Ctrl-C while Python is still starting, before
 anything runs, is the command line's plain ``interrupted``, 130). At the end
 the demo also checks end to end that each coil followed the service's
 decisions and warns when it did not. Exit codes: 0 ran (to the end or until stopped);
-1 the demo could not run, an output was not in its safe state at the stop,
-matplotlib is missing for --plot, or the plot could not be written after all;
-2 a bad option (a --plot path whose folder is missing or not writable, or not .png:
-refused before the run).
+1 the demo could not run, an output was not in its safe state at the stop, or the
+plot could not be written after all; 2 a bad option (a --plot path whose folder is
+missing or not writable, or not .png, or --plot without matplotlib: refused before
+the run).
 """
 
 from __future__ import annotations
@@ -290,7 +290,7 @@ def main(args: argparse.Namespace) -> int:
         if problem:
             return _fail(problem, EXIT_USAGE)
         if not matplotlib_available():
-            return _fail(MATPLOTLIB_MISSING, EXIT_RUNTIME)
+            return _fail(MATPLOTLIB_MISSING, EXIT_USAGE)
     stamp = SimulatedStamp(demo_site_timezone())
     options = DemoOptions(hours=hours, speed=speed, broker=broker, on_clock=stamp.set_clock)
     out = sys.stdout

@@ -6,10 +6,10 @@ from a heating type's defaults (``--heating TYPE``); the plant is a built-in nam
 file, by default the built-in plant of the zone's heating type. The
 figures are printed as a table, and optionally written as JSON and drawn as a PNG.
 The output paths (and matplotlib, for ``--plot``) are checked before the run.
-Exit codes: 0 ok; 1 matplotlib is missing, or the JSON or the plot could not be
-written after all; 2 a bad plant file, an unknown plant or zone, a bad site file,
-an output path that cannot be written (no such folder, not writable, a plot not
-named .png).
+Exit codes: 0 ok; 1 the JSON or the plot could not be written after all; 2 a bad
+plant file, an unknown plant or zone, a bad site file, an output path that cannot
+be written (no such folder, not writable, a plot not named .png), --plot without
+matplotlib.
 """
 
 from __future__ import annotations
@@ -62,7 +62,7 @@ def _check_outputs(args: argparse.Namespace) -> int | None:
         if problem:
             return _fail(problem, EXIT_USAGE)
         if not matplotlib_available():
-            return _fail(MATPLOTLIB_MISSING, EXIT_RUNTIME)
+            return _fail(MATPLOTLIB_MISSING, EXIT_USAGE)
     return None
 
 
