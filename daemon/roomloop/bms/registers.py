@@ -24,6 +24,7 @@ from dataclasses import dataclass
 from typing import Literal
 
 from roomloop.config.models import LEVELS, Bms, Site, Zone
+from roomloop.core.alarms import ALARM_KINDS
 from roomloop.core.state import ZoneState
 from roomloop.core.types import RELIABILITY_VALUES, ZoneOutputs
 
@@ -40,16 +41,6 @@ MAX_WRITE = 123
 NOT_AVAILABLE_INT16 = 0x8000
 MODES = ("auto", "hold", "off")
 CONFIRMED = ("no", "yes", "unknown")
-ALARM_KINDS = (
-    "too-cold",
-    "too-warm",
-    "sensor-fault",
-    "output-unconfirmed",
-    "fail-safe",
-    "frost-protection",
-    "source-lockout",
-)
-"""Alarm kinds in bit order of the ``alarms`` register (bit 0 first)."""
 
 Kind = Literal["temperature", "delta", "enum", "bool", "uint16", "bits"]
 Access = Literal["R", "RW"]
