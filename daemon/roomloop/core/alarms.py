@@ -8,8 +8,9 @@ Kinds (:data:`ALARM_KINDS`, also the bit order of the BMS ``alarms`` register):
   suppressed for ``suppress_s_per_k`` per K of the step, at most
   ``suppress_max_s``: the room needs time to follow. This is the model of ASHRAE
   Guideline 36's zone temperature alarms (2 K beyond the set point for 10 min;
-  suppression 1080 s per K of set-point change, at most 2 h). Not evaluated in
-  mode ``off`` (frost protection has its own alarm) or without a temperature.
+  suppression 1080 s per K of set-point change, at most 2 h). Mode ``off`` ends
+  them (frost protection has its own alarm); without a temperature they are
+  neither raised nor ended (``sensor-fault`` speaks for the sensor).
 - ``sensor-fault``: an input (or backup) point not ``ok`` for ``sensor_fault_s``.
 - ``output-unconfirmed``: the output's read-back disagreeing for ``output_unconfirmed_s``.
 - ``fail-safe``, ``frost-protection``, ``source-lockout``: while the condition lasts
@@ -193,6 +194,8 @@ def _temperature_text(settings: AlarmSettings, celsius: float) -> str:
 def _conditions(settings: AlarmSettings, inputs: AlarmInputs) -> dict[str, _Condition]:
     t, s = inputs.temperature, inputs.setpoint
     below = (s - t) if t is not None and inputs.mode != "off" else None
+    # mode off ends a temperature alarm; a missing temperature neither raises nor ends one
+    off = inputs.mode == "off"
     where = f"the set point {_temperature_text(settings, s)} for {settings.delay_s:g} s"
     bad = [(name, verdict) for name, verdict in inputs.reliability if verdict != "ok"]
     bad_text = ", ".join(f"{name} {verdict}" for name, verdict in bad)
@@ -200,7 +203,7 @@ def _conditions(settings: AlarmSettings, inputs: AlarmInputs) -> dict[str, _Cond
     return {
         "too-cold": _Condition(
             holds=below is not None and below > settings.cold_band_k,
-            clears=below is None or below < settings.cold_band_k - settings.clear_k,
+            clears=off or (below is not None and below < settings.cold_band_k - settings.clear_k),
             delay_s=settings.delay_s,
             value=value_t,
             text=f"more than {_delta_text(settings, settings.cold_band_k)} below {where}",
@@ -208,7 +211,7 @@ def _conditions(settings: AlarmSettings, inputs: AlarmInputs) -> dict[str, _Cond
         ),
         "too-warm": _Condition(
             holds=below is not None and -below > settings.warm_band_k,
-            clears=below is None or -below < settings.warm_band_k - settings.clear_k,
+            clears=off or (below is not None and -below < settings.warm_band_k - settings.clear_k),
             delay_s=settings.delay_s,
             value=value_t,
             text=f"more than {_delta_text(settings, settings.warm_band_k)} above {where}",
