@@ -52,6 +52,7 @@ from roomloop.bms.registers import (
 )
 from roomloop.config.models import Bms, Site
 from roomloop.core.commands import CommandRejected
+from roomloop.errors import DeviceError
 from roomloop.service.commands import RateLimit
 
 log = structlog.get_logger("roomloop.bms")
@@ -59,6 +60,10 @@ log = structlog.get_logger("roomloop.bms")
 READ_FUNCTIONS = (3, 4)
 WRITE_FUNCTIONS = (6, 16)
 START_TIMEOUT_S = 10.0
+
+
+class BmsFaceError(DeviceError):
+    """The face cannot listen: the TCP address is taken or foreign, the serial port won't open."""
 
 
 class ZoneDirectory(Protocol):
@@ -113,7 +118,7 @@ class BmsFace:
                     address=(self.bms.address, self.bms.port),
                     ignore_missing_devices=False,
                 )
-                await self._start(tcp)
+                await self._start(tcp, endpoint=f"{self.bms.address}:{self.bms.port}")
             if self.bms.rtu is not None:
                 rtu = self.bms.rtu
                 serial = _SerialServer(
@@ -127,7 +132,7 @@ class BmsFace:
                     stopbits=rtu.stop_bits,
                     ignore_missing_devices=True,
                 )
-                await self._start(serial, unit_id=rtu.unit_id)
+                await self._start(serial, endpoint=rtu.device, unit_id=rtu.unit_id)
         except BaseException:
             await self._stop()
             raise
@@ -139,10 +144,17 @@ class BmsFace:
         )
         return self
 
-    async def _start(self, server: Any, unit_id: int | None = None) -> None:
+    async def _start(self, server: Any, *, endpoint: str, unit_id: int | None = None) -> None:
         server.context = _Registers(self, unit_id)
         self._servers.append(server)
-        await asyncio.wait_for(server.serve_forever(background=True), START_TIMEOUT_S)
+        try:
+            await asyncio.wait_for(server.serve_forever(background=True), START_TIMEOUT_S)
+        except (OSError, RuntimeError, TimeoutError, ValueError) as exc:
+            reason = getattr(exc, "strerror", None) or str(exc) or type(exc).__name__
+            raise BmsFaceError(
+                f"the BMS face cannot listen here ({reason}); check bms: in the site file",
+                endpoint=endpoint,
+            ) from None
 
     async def __aexit__(
         self,
