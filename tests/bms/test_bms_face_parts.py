@@ -8,6 +8,7 @@ pymodbus client on loopback.
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import datetime as dt
 import socket
 from dataclasses import replace
@@ -166,3 +167,33 @@ def test_fail_safe_minutes_count_since_local_midnight() -> None:
     book.observe("a", base, output_confirmed=None, now=evening + 80 * 60)
     assert book.fail_safe_minutes("a") == pytest.approx(20.0)
     assert book.bits("a") & (1 << 4) == 0  # the fail-safe alarm cleared with it
+
+
+async def test_run_retries_until_it_can_listen(capsys: pytest.CaptureFixture[str]) -> None:
+    taken = socket.socket()
+    taken.bind(("127.0.0.1", 0))
+    taken.listen()
+    port = taken.getsockname()[1]
+    site = make_site({"port": port})
+    zones = Zones(site)
+    task = asyncio.create_task(BmsFace(site, zones, zones).run(retry_s=0.2))
+    try:
+        await asyncio.sleep(0.5)
+        assert not task.done()
+        assert "bms.cannot_listen" in capsys.readouterr().out
+        taken.close()
+        for _ in range(50):
+            client = AsyncModbusTcpClient("127.0.0.1", port=port, timeout=0.5, retries=0)
+            if await client.connect():
+                reply = await client.read_holding_registers(0, count=1, device_id=1)
+                client.close()
+                assert not reply.isError()
+                break
+            await asyncio.sleep(0.1)
+        else:
+            raise AssertionError("the face never listened")
+    finally:
+        taken.close()
+        task.cancel()
+        with contextlib.suppress(asyncio.CancelledError):
+            await task

@@ -28,7 +28,7 @@ import contextlib
 import ipaddress
 import logging
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Awaitable, Callable, Sequence
 from types import TracebackType
 from typing import Any, Protocol
 
@@ -60,6 +60,8 @@ log = structlog.get_logger("roomloop.bms")
 READ_FUNCTIONS = (3, 4)
 WRITE_FUNCTIONS = (6, 16)
 START_TIMEOUT_S = 10.0
+RETRY_S = 30.0
+"""Seconds between two attempts to listen when the port or serial device is not usable."""
 
 
 class BmsFaceError(DeviceError):
@@ -170,10 +172,24 @@ class BmsFace:
             with contextlib.suppress(Exception):
                 await asyncio.wait_for(server.shutdown(), START_TIMEOUT_S)
 
-    async def run(self) -> None:
-        """Serve until cancelled (the service's ``bms`` task)."""
-        async with self:
-            await asyncio.Event().wait()
+    async def run(
+        self,
+        *,
+        retry_s: float = RETRY_S,
+        sleep: Callable[[float], Awaitable[None]] = asyncio.sleep,
+    ) -> None:
+        """Serve until cancelled (the service's ``bms`` task).
+
+        A face that cannot listen (the port taken, the serial adapter unplugged) is logged
+        and tried again every ``retry_s``: heating control goes on without it.
+        """
+        while True:
+            try:
+                async with self:
+                    await asyncio.Event().wait()
+            except BmsFaceError as exc:
+                log.error("bms.cannot_listen", error=str(exc), retry_in_s=retry_s)
+                await sleep(retry_s)
 
     # ------------------------------------------------------------------ policy
 

@@ -754,7 +754,8 @@ class Service:
         from roomloop.bms.face import BmsFace
 
         zones = ServiceZones(self.zones, self.alarms, self.clock.now)
-        await BmsFace(self.site, zones, self.apply_command, clock=self.clock.now).run()
+        face = BmsFace(self.site, zones, self.apply_command, clock=self.clock.now)
+        await face.run(sleep=self.clock.sleep)
 
     # ------------------------------------------------------------------ persistence
 
