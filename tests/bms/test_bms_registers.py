@@ -233,3 +233,26 @@ def test_write_refusals() -> None:
     with pytest.raises(MapError) as caught:
         regmap.commands(too_hot, 0.0)
     assert caught.value.code == ILLEGAL_VALUE
+
+
+@settings(max_examples=300, deadline=None)
+@given(
+    st.integers(min_value=0, max_value=260),
+    st.lists(st.integers(min_value=0, max_value=0xFFFF), min_size=0, max_size=130),
+    st.sampled_from(["int16x10", "float32"]),
+)
+def test_any_write_is_commands_or_a_refusal_with_a_modbus_code(
+    address: int, words: list[int], data_type: str
+) -> None:
+    regmap = RegisterMap(make_site(data_type=data_type))
+    try:
+        writes = regmap.decode_writes(address, words)
+        commands = [c for w in writes for c in regmap.commands(w, 1000.0)]
+    except MapError as exc:
+        assert exc.code in (ILLEGAL_ADDRESS, ILLEGAL_VALUE) and exc.reason
+        return
+    assert writes and all(w.register.access == "RW" for w in writes)
+    for field, value in commands:
+        assert field in ("setpoint", "mode", "level", "hold_until")
+        if field == "setpoint":
+            assert isinstance(value, float) and math.isfinite(value)
