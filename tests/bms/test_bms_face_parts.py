@@ -102,6 +102,21 @@ async def test_float32_writes_whole_values_only_and_hold_minutes_read_back() -> 
                                                  device_id=1)
             assert reply.isError() and reply.exception_code == 3
             assert face.writes_applied == 1 and face.writes_refused == 3
+            # the comfort set point in force: the hold at level comfort above (22.25), not
+            # the file's 20; a comfort write reads back as written
+            comfort = face.map.register("a", "comfort_setpoint").address
+            before = await client.read_holding_registers(comfort, count=2, device_id=1)
+            assert before.registers == encode_float32(22.25, "little")
+            assert not (await client.write_register(face.map.register("a", "mode").address, 0,
+                                                    device_id=1)).isError()
+            before = await client.read_holding_registers(comfort, count=2, device_id=1)
+            assert before.registers == encode_float32(20.0, "little")
+            reply = await client.write_registers(comfort, encode_float32(21.0, "little"),
+                                                 device_id=1)
+            assert not reply.isError()
+            after = await client.read_holding_registers(comfort, count=2, device_id=1)
+            assert after.registers == encode_float32(21.0, "little")
+            assert zones.state.hold_level == "comfort"
         finally:
             client.close()
 

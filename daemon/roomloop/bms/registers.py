@@ -76,7 +76,8 @@ LAYOUT: tuple[Field, ...] = (
     Field("droop", "delta", "R", "droop compensation term"),
     Field(
         "comfort_setpoint", "temperature", "RW",
-        "comfort set point of the site file; a write holds that temperature at level comfort",
+        "comfort set point (the site file's, or the held one after a write); a write holds "
+        "that temperature at level comfort until mode auto",
     ),
     Field(
         "hold_setpoint", "temperature", "RW",
@@ -295,6 +296,8 @@ class RegisterMap:
             return None if out is None else out.temperature
         if field == "setpoint":
             return None if out is None else out.setpoint
+        if field == "comfort_setpoint" and _comfort_hold(state) is not None:
+            return _comfort_hold(state)
         if field.endswith("_setpoint") and field != "hold_setpoint":
             return zone.setpoints.for_level(field.removesuffix("_setpoint"))  # type: ignore[arg-type]
         if field == "hold_setpoint":
@@ -435,6 +438,13 @@ class RegisterMap:
 
     def zone_registers(self, zone: str) -> list[Register]:
         return [r for r in self.registers if r.zone == zone]
+
+
+def _comfort_hold(state: ZoneState) -> float | None:
+    """The temperature of a running hold at level comfort (what a comfort write starts)."""
+    if state.mode == "hold" and state.hold_level == "comfort":
+        return state.hold_setpoint
+    return None
 
 
 def _remembered(state: ZoneState, point: str) -> str:
