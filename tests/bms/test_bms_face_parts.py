@@ -10,6 +10,7 @@ from __future__ import annotations
 import asyncio
 import contextlib
 import datetime as dt
+import json
 import socket
 from dataclasses import replace
 from typing import Any
@@ -212,3 +213,36 @@ async def test_run_retries_until_it_can_listen(capsys: pytest.CaptureFixture[str
         task.cancel()
         with contextlib.suppress(asyncio.CancelledError):
             await task
+
+
+def test_ack_commands_are_answered_like_commands() -> None:
+    book = AlarmBook(make_site({}), "roomloop/parts", ZoneInfo("UTC"))
+    topic = "roomloop/parts/zone/a/cmd/ack"
+    cold = ZoneOutputs(
+        demand=True, reason="cut-in", temperature=14.0, setpoint=20.0, level="comfort",
+        mode="auto", anticipator_k=0.0, droop_k=0.0, reliability={"t1": "ok"},
+    )
+    for t in range(0, 601, 10):
+        book.observe("a", cold, output_confirmed=True, now=NOW + t)
+    assert book.bits("a") == 1
+
+    def answer(payload: bytes, **kw: Any) -> Any:
+        got = book.handle_ack(topic, payload, retained=kw.get("retained", False), monotonic=0.0)
+        return None if got is None else json.loads(got.payload)
+
+    assert book.handle_ack("roomloop/parts/zone/a/cmd/mode", b"off", retained=False,
+                           monotonic=0.0) is None  # not ours: the command handler's
+    assert book.handle_ack("roomloop/parts/zone/zz/cmd/ack", b"all", retained=False,
+                           monotonic=0.0) is None  # no such zone
+    assert answer(b"all", retained=True) is None  # a stale retained ack is ignored
+    assert answer(b"\xff")["reason"] == "payload is not UTF-8 text"
+    assert answer(b"42")["ok"] is False
+    assert answer(b"x" * 300)["reason"] == "payload too large"
+    assert answer(b'{"value": "too-cold"}') == {"field": "ack", "ok": True, "value": "too-cold"}
+    payloads = {m.topic: json.loads(m.payload) for m in book.due()}
+    assert payloads["roomloop/parts/alarm/a/too-cold"]["acknowledged"] is True
+    assert payloads["roomloop/parts/alarm/a/too-warm"]["active"] is False
+    assert len(payloads) == 7
+    for message in book.due():
+        book.sent(message)
+    assert book.due() == []  # nothing changed since
