@@ -384,3 +384,15 @@ async def modbus_rtu_server() -> AsyncIterator[ModbusTestServer]:
         with contextlib.suppress(Exception):
             await server.stop()
         pair.close()
+
+
+@pytest.fixture
+def pty_pair() -> Iterator[PtyPair]:
+    """A bare socat pty pair (``.ends[0]``, ``.ends[1]``), for a server of the test's own."""
+    if shutil.which("socat") is None:
+        pytest.skip("socat is not installed (apt install socat)")
+    pair = PtyPair()
+    try:
+        yield pair
+    finally:
+        pair.close()

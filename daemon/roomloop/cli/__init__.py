@@ -117,6 +117,12 @@ def build_parser() -> argparse.ArgumentParser:
     probe.add_argument("--set", choices=["on", "off"], help="switch an output, then read it back")
     probe.add_argument("--yes", action="store_true", help="do not ask before switching an output")
 
+    bms_map = add(
+        "bms-map", "print the BMS face's register map, the document for the BMS contractor"
+    )
+    bms_map.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help="the site file")
+    bms_map.add_argument("--csv", metavar="OUT.csv", help="also write the map as CSV")
+
     run = add("run", "the service: control every zone of a site and publish to the broker")
     run.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help="the site file")
     run.add_argument(
@@ -161,6 +167,7 @@ _COMMANDS = {
     "probe": "roomloop.cli.probe",
     "run": "roomloop.cli.run",
     "demo": "roomloop.cli.demo",
+    "bms-map": "roomloop.cli.bms_map",
 }
 
 

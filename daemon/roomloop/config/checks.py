@@ -18,7 +18,10 @@ from dataclasses import dataclass, field
 from typing import Any, Literal
 
 from roomloop.config.models import (
+    BMS_FIXED_REGISTERS,
     LEVELS,
+    Alarms,
+    Bms,
     Broker,
     CalendarEntry,
     Logging,
@@ -61,6 +64,8 @@ class SiteParts:
     calendar: list[tuple[int, CalendarEntry]] = field(default_factory=list)
     invalid_names: dict[str, set[str]] = field(default_factory=dict)
     """Names of items that failed validation: not reported again as unknown."""
+    bms: Bms | None = None
+    alarms: Alarms | None = None
 
     @classmethod
     def from_site(cls, site: Site) -> SiteParts:
@@ -74,6 +79,8 @@ class SiteParts:
             points=list(enumerate(site.points)),
             zones=list(enumerate(site.zones)),
             calendar=list(enumerate(site.calendar)),
+            bms=site.bms,
+            alarms=site.alarms,
         )
 
 
@@ -94,6 +101,7 @@ def check_parts(parts: SiteParts) -> list[Finding]:
     findings += _modbus_overlaps(parts)
     findings += _serial_devices(parts)
     findings += _zone_references(parts)
+    findings += _bms_face(parts)
     for index, zone in parts.zones:
         findings += _setpoints(index, zone, parts.units)
         findings += _tuning(index, zone, parts.units)
@@ -243,6 +251,45 @@ def _serial_devices(parts: SiteParts) -> list[Finding]:
                 )
             else:
                 seen[link.device] = link.name
+    return findings
+
+
+def _bms_face(parts: SiteParts) -> list[Finding]:
+    """The zone blocks fit the register space and each zone's points fit its block."""
+    bms = parts.bms
+    if bms is None:
+        return []
+    findings: list[Finding] = []
+    end = bms.base_address + len(parts.zones) * bms.zone_block
+    if parts.zones and end > 0x10000:
+        findings.append(
+            Finding(
+                ("bms", "zone_block"),
+                f"{len(parts.zones)} zones of {bms.zone_block} registers from "
+                f"{bms.base_address} run past register 65535",
+            )
+        )
+    fixed = BMS_FIXED_REGISTERS[bms.data_type]
+    for _index, zone in parts.zones:
+        points = len(zone.inputs) + (1 if zone.fail_safe.backup_point else 0)
+        if fixed + points > bms.zone_block:
+            findings.append(
+                Finding(
+                    ("bms", "zone_block"),
+                    f"zone {zone.name!r} needs {fixed + points} registers "
+                    f"({points} point reliabilities), more than zone_block {bms.zone_block}",
+                )
+            )
+    if bms.rtu is not None:
+        for _index, link in parts.links:
+            if isinstance(link, ModbusRtuLink) and link.device == bms.rtu.device:
+                findings.append(
+                    Finding(
+                        ("bms", "rtu", "device"),
+                        f"serial device {bms.rtu.device!r} is already link {link.name!r}; "
+                        "the BMS face needs a port of its own",
+                    )
+                )
     return findings
 
 

@@ -35,6 +35,8 @@ from yaml.nodes import MappingNode, Node, ScalarNode, SequenceNode
 
 from roomloop.config.checks import Finding, SiteParts, check_parts
 from roomloop.config.models import (
+    Alarms,
+    Bms,
     Broker,
     CalendarEntry,
     Link,
@@ -520,6 +522,8 @@ _SECTIONS: dict[str, Any] = {
     "zones": Zone,
     "calendar": CalendarEntry,
     "logging": Logging,
+    "bms": Bms,
+    "alarms": Alarms,
 }
 _LIST_SECTIONS = ("links", "points", "zones", "calendar")
 _REQUIRED = ("site", "zones")
@@ -590,7 +594,7 @@ def site_from_data(
             )
             return None
 
-    for section in ("site", "broker", "logging"):
+    for section in ("site", "broker", "logging", "bms", "alarms"):
         if section in data and data[section] is not None:
             setattr(parts, section, validate(section, data[section], (section,)))
         elif section in data and section == "site":

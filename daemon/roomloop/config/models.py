@@ -21,6 +21,7 @@ import zoneinfo
 from typing import Annotated, Any, Literal
 
 from pydantic import (
+    AfterValidator,
     BaseModel,
     BeforeValidator,
     ConfigDict,
@@ -669,6 +670,133 @@ class Logging(Strict):
     """``auto``: JSON lines for journald when stdout is not a terminal, readable lines on one."""
 
 
+# --------------------------------------------------------------------------- BMS face and alarms
+
+BMS_DATA_TYPES = ("int16x10", "float32")
+BMS_FIXED_REGISTERS = {"int16x10": 17, "float32": 26}
+"""Registers of a zone block before the per-point reliabilities (``roomloop.bms.registers``
+lays them out; its tests check it agrees with these counts)."""
+
+
+def _ip_network(value: str) -> str:
+    import ipaddress
+
+    try:
+        ipaddress.ip_network(value.strip(), strict=False)
+    except ValueError:
+        raise ValueError(
+            f"{value!r} is not an IP address or network (e.g. 192.0.2.10 or 192.0.2.0/24)"
+        ) from None
+    return value.strip()
+
+
+ClientNetwork = Annotated[str, AfterValidator(_ip_network)]
+
+
+class BmsRtu(Strict):
+    """The BMS face as a Modbus RTU slave on a serial port (line settings as for a link)."""
+
+    device: Annotated[str, Field(min_length=1)]
+    unit_id: Annotated[int, Field(ge=1, le=247)] = 1
+    """The slave address the BMS polls; requests for any other address get no answer."""
+    baud: int = 9600
+    parity: Literal["N", "E", "O"] = "E"
+    data_bits: int = 8
+    stop_bits: Literal[1, 2] = 1
+
+    @field_validator("data_bits")
+    @classmethod
+    def _rtu_data_bits(cls, value: int) -> int:
+        if value != 8:
+            raise ValueError(f"Modbus RTU sends 8 data bits per character, not {value}")
+        return value
+
+    @field_validator("baud")
+    @classmethod
+    def _standard_baud(cls, value: int) -> int:
+        if value not in BAUD_RATES:
+            raise ValueError(
+                f"{value} is not a standard baud rate; use one of "
+                + ", ".join(str(b) for b in BAUD_RATES)
+            )
+        return value
+
+
+class Bms(Strict):
+    """roomloop's own Modbus server for a building management system (the BMS face)."""
+
+    address: str = "127.0.0.1"
+    """Where the Modbus TCP server listens: loopback unless an address is given."""
+    port: Annotated[int, Field(ge=1, le=65535)] = 1502
+    tcp: bool = True
+    """Serve Modbus TCP (false: the RTU slave only)."""
+    allow_clients: list[ClientNetwork] = []
+    """TCP clients (addresses or networks) that may connect at all; empty: any."""
+    allow_writes_from: list[ClientNetwork] = []
+    """TCP clients that may write; empty: every client that may connect."""
+    data_type: Literal["int16x10", "float32"] = "int16x10"
+    """Temperatures as int16 in tenths, or IEEE 754 float32 over two registers."""
+    word_order: Literal["big", "little"] = "big"
+    """float32 only: ``big`` sends the high word first (ABCD), ``little`` the low word (CDAB)."""
+    base_address: Annotated[int, Field(ge=0, le=MODBUS_MAX_ADDRESS)] = 0
+    zone_block: Annotated[int, Field(ge=1, le=1000)] = 100
+    """Registers per zone: zone ``i`` (file order) starts at ``base_address + i * zone_block``."""
+    write_rate_per_min: Annotated[int, Field(ge=1, le=600)] = 30
+    """Writes per zone and minute; more answer exception 6 (busy), like MQTT's rate limit."""
+    rtu: BmsRtu | None = None
+
+    @field_validator("address")
+    @classmethod
+    def _address(cls, value: str) -> str:
+        import ipaddress
+
+        try:
+            ipaddress.ip_address(value.strip())
+        except ValueError:
+            raise ValueError(
+                f"{value!r} is not an IP address to listen on (127.0.0.1, 0.0.0.0 or one of "
+                "this machine's addresses)"
+            ) from None
+        return value.strip()
+
+    @model_validator(mode="after")
+    def _fits(self) -> Bms:
+        need = BMS_FIXED_REGISTERS[self.data_type] + 1
+        if self.zone_block < need:
+            raise ValueError(
+                f"zone_block {self.zone_block} is too small: a {self.data_type} zone needs "
+                f"{need} registers and one more per input point"
+            )
+        if not self.tcp and self.rtu is None:
+            raise ValueError("tcp is false and there is no rtu section: nothing would be served")
+        return self
+
+
+class Alarms(Strict):
+    """When a zone raises an alarm (the zone temperature alarms follow ASHRAE Guideline 36)."""
+
+    cold_band_k: Annotated[TemperatureDelta, Field(gt=0, le=20)] = 2.0
+    """Too cold: below the set point by more than this for ``delay_s``."""
+    warm_band_k: Annotated[TemperatureDelta, Field(gt=0, le=20)] = 2.0
+    """Too warm: above the set point by more than this for ``delay_s``."""
+    delay_s: Annotated[float, Field(ge=0, le=86400, allow_inf_nan=False)] = 600.0
+    clear_k: Annotated[TemperatureDelta, Field(ge=0, le=5)] = 0.5
+    """Hysteresis: a temperature alarm clears once back inside its band by this much."""
+    suppress_s_per_k: Annotated[float, Field(ge=0, le=36000, allow_inf_nan=False)] = 1080.0
+    """Temperature alarms wait this long per K of a set-point change (the room needs time)."""
+    suppress_max_s: Annotated[float, Field(ge=0, le=86400, allow_inf_nan=False)] = 7200.0
+    sensor_fault_s: Annotated[float, Field(ge=0, le=7 * 86400, allow_inf_nan=False)] = 900.0
+    """An input point unreliable this long raises ``sensor-fault``."""
+    output_unconfirmed_s: Annotated[float, Field(ge=0, le=86400, allow_inf_nan=False)] = 120.0
+    """The output's read-back disagreeing this long raises ``output-unconfirmed``."""
+
+    @model_validator(mode="after")
+    def _hysteresis(self) -> Alarms:
+        if self.clear_k >= min(self.cold_band_k, self.warm_band_k):
+            raise ValueError("clear_k must be smaller than cold_band_k and warm_band_k")
+        return self
+
+
 class Site(Strict):
     """One YAML file, one daemon process."""
 
@@ -680,6 +808,8 @@ class Site(Strict):
     calendar: list[CalendarEntry] = []
     """Holidays and one-off events: date ranges whose level replaces the weekly program."""
     logging: Logging = Logging()
+    bms: Bms | None = None
+    alarms: Alarms = Alarms()
 
     @property
     def name(self) -> str:

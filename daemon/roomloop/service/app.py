@@ -37,6 +37,7 @@ from zoneinfo import ZoneInfo
 import aiomqtt
 import structlog
 
+from roomloop.bms.alarm_book import AlarmBook, ServiceZones
 from roomloop.config.models import (
     CalendarEntry,
     ModbusInput,
@@ -182,6 +183,7 @@ class Service:
             tz=self.tz,
             interval_s=site.broker.publish_interval_s if site.broker else 60.0,
         )
+        self.alarms = AlarmBook(site, self.prefix, self.tz)  # alarms: evaluated after each step
         self._build_io()
         self.zones: dict[str, ZoneRuntime] = {}
         self._persist_dirty = asyncio.Event()
@@ -324,6 +326,8 @@ class Service:
                             control,
                         )
                     start("persist", self._persist_loop, others)
+                    if self.site.bms is not None:  # the BMS face: one task
+                        start("bms", self._bms_loop, others)
                     others.append(group.create_task(self._ready_once(), name="ready"))
                     if watchdog_interval_s() is not None:
                         start("watchdog", self._watchdog_loop, others)
@@ -506,6 +510,9 @@ class Service:
             fail_safe_policy=runtime.settings.fail_safe_policy,
         )
         self.publisher.update(view)
+        self.alarms.observe(  # alarms
+            runtime.name, outputs, output_confirmed=view.output_confirmed, now=now
+        )
         self._publish_wake.set()
         key = _persist_key(runtime.state)
         if key != self._last_saved_key.get(runtime.name):
@@ -676,6 +683,7 @@ class Service:
             await client.subscribe(topic, qos=1)
         await client.publish(status_topic(self.prefix), ONLINE, qos=1, retain=True)
         self.publisher.forget_sent()
+        self.alarms.forget_sent()  # alarms
         self.mqtt_points.attach(client)
         await self.mqtt_points.publish_commands(client)
         self._publish_wake.set()
@@ -692,7 +700,9 @@ class Service:
         if self.mqtt_points.handle(topic, payload, now):
             return
         assert self.commands is not None
-        answer = self.commands.handle(
+        answer = self.alarms.handle_ack(  # alarm acknowledgements
+            topic, bytes(payload), retained=bool(message.retain), monotonic=time.monotonic()
+        ) or self.commands.handle(
             topic,
             bytes(payload),
             retained=bool(message.retain),
@@ -720,9 +730,10 @@ class Service:
             if client is not None:
                 now = self.clock.now()
                 try:
-                    for message in self.publisher.due(now):
+                    for message in [*self.publisher.due(now), *self.alarms.due()]:
                         await self._send(client, message)
                         self.publisher.sent(message, now)
+                        self.alarms.sent(message)  # alarms
                 except (aiomqtt.MqttError, TimeoutError, OSError) as exc:
                     # The broker went away mid-round; after the reconnect everything is resent.
                     log.debug("broker.publish_interrupted", error=str(exc) or type(exc).__name__)
@@ -756,6 +767,15 @@ class Service:
             log.warning("broker.offline_not_sent", error=str(exc) or type(exc).__name__)
         else:
             log.info("broker.offline", prefix=self.prefix)
+
+    # ------------------------------------------------------------------ BMS face
+
+    async def _bms_loop(self) -> None:
+        from roomloop.bms.face import BmsFace  # pymodbus's server side only when serving
+
+        zones = ServiceZones(self.zones, self.alarms, self.clock.now)
+        face = BmsFace(self.site, zones, self.apply_command, clock=self.clock.now)
+        await face.run(sleep=self.clock.sleep)
 
     # ------------------------------------------------------------------ persistence
 
