@@ -27,6 +27,7 @@ import pytest
 import yaml
 from service_rooms import ServiceProcess, Watcher
 
+from conftest import free_port
 from roomloop.config.loader import load_site, load_yaml_document
 from roomloop.config.models import ModbusInput
 from roomloop.io.codec import encode_point
@@ -65,6 +66,8 @@ def _rewritten_example(
         broker_section.pop(key, None)
     data["site"]["state_dir"] = str(state_dir)
     data["logging"] = {**data.get("logging", {}), "format": "json"}
+    if "bms" in data:  # the BMS face listens on loopback, on a free port of the test's own
+        data["bms"].update(address="127.0.0.1", port=free_port())
     return data
 
 
