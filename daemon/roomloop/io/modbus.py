@@ -18,12 +18,12 @@ import asyncio
 import errno
 import logging
 import os
-import time
 from collections.abc import Awaitable, Callable, Sequence
 from dataclasses import dataclass, replace
 from types import TracebackType
 from typing import Any
 
+from roomloop.clock import Clock, RealClock, wait_for
 from roomloop.config.models import ModbusInput, ModbusOutput, ModbusRtuLink, ModbusTcpLink
 from roomloop.core.types import PointSample
 from roomloop.errors import DeviceError
@@ -116,7 +116,7 @@ class ModbusLink:
         inputs: Sequence[ModbusInput] = (),
         outputs: Sequence[ModbusOutput] = (),
         *,
-        clock: Callable[[], float] = time.time,
+        clock: Clock | None = None,
         log_interval_s: float = 300.0,
         reconnect_min_s: float = 0.2,
         reconnect_max_s: float = 30.0,
@@ -133,7 +133,9 @@ class ModbusLink:
         self.inputs = {p.name: p for p in inputs}
         self.outputs = {p.name: p for p in outputs}
         self.plan: tuple[Read, ...] = plan_reads(inputs, link.max_gap_registers)
-        self._clock = clock
+        self.clock: Clock = clock if clock is not None else RealClock()
+        """Time stamps and the poll interval; ``clock.io`` paces and bounds the requests."""
+        self._clock = self.clock.now
         self._events = RateLimitedLog(log, log_interval_s)
         self._lock = asyncio.Lock()
         self._last_request_end = 0.0
@@ -211,11 +213,12 @@ class ModbusLink:
             raise RuntimeError("use 'async with ModbusLink(...)' before talking to the link")
         if self._client.connected:
             return True
-        loop_now = time.monotonic()
-        if loop_now < self._next_connect_at:
+        if self.clock.io.monotonic() < self._next_connect_at:
             return False
         try:
-            ok = bool(await asyncio.wait_for(self._client.connect(), self.link.timeout_s + 1.0))
+            ok = bool(
+                await wait_for(self.clock.io, self._client.connect(), self.link.timeout_s + 1.0)
+            )
         except Exception as exc:  # refused, a serial port that vanished, DNS, a timeout ...
             ok = False
             reason = describe_connect_error(self.link, exc)
@@ -239,7 +242,7 @@ class ModbusLink:
             reason=reason,
             retry_in_s=round(self._reconnect_delay, 2),
         )
-        self._next_connect_at = time.monotonic() + self._reconnect_delay
+        self._next_connect_at = self.clock.io.monotonic() + self._reconnect_delay
         self._reconnect_delay = min(self._reconnect_delay * 2, self._reconnect_max_s)
         return False
 
@@ -274,18 +277,18 @@ class ModbusLink:
         async with self._lock:
             for attempt in range(attempts):
                 if attempt:
-                    await asyncio.sleep(
+                    await self.clock.io.sleep(
                         min(RETRY_BACKOFF_S * 2 ** (attempt - 1), RETRY_BACKOFF_MAX_S)
                     )
                 if not await self._ensure_connected():
                     why = f": {self.connect_error}" if self.connect_error else ""
                     raise _RequestFailed(f"not connected{why}")
-                gap = self._last_request_end + self.link.request_gap_s - time.monotonic()
+                gap = self._last_request_end + self.link.request_gap_s - self.clock.io.monotonic()
                 if gap > 0:
-                    await asyncio.sleep(gap)
+                    await self.clock.io.sleep(gap)
                 self.requests += 1
                 try:
-                    response = await asyncio.wait_for(call(self._client), wait_s)
+                    response = await wait_for(self.clock.io, call(self._client), wait_s)
                 except TimeoutError:
                     shown_s = self.link.timeout_s if timeout_s is None else timeout_s
                     reason = f"no answer within {shown_s:g} s"
@@ -296,7 +299,7 @@ class ModbusLink:
                         self._next_connect_at = 0.0
                     continue
                 finally:
-                    self._last_request_end = time.monotonic()
+                    self._last_request_end = self.clock.io.monotonic()
                 if response.isError():
                     code = getattr(response, "exception_code", None)
                     raise _RequestFailed(exception_reply_text(code), code)
@@ -577,16 +580,10 @@ class ModbusLink:
 
     # ------------------------------------------------------------------ loop
 
-    async def run(
-        self,
-        *,
-        sleep: Callable[[float], Awaitable[None]] = asyncio.sleep,
-        on_cycle: Callable[[], None] | None = None,
-    ) -> None:
+    async def run(self, *, on_cycle: Callable[[], None] | None = None) -> None:
         """Poll every ``poll_interval_s`` and re-assert outputs, until cancelled.
 
-        The interval is measured on the link's clock and waited with ``sleep``, so a
-        service on a simulated clock passes that clock's sleep; ``on_cycle`` is called
+        The interval is measured and waited on the link's clock; ``on_cycle`` is called
         after each cycle (the service starts its zones once every link was polled).
         """
         while True:
@@ -596,7 +593,7 @@ class ModbusLink:
             self.cycles += 1
             if on_cycle is not None:
                 on_cycle()
-            await sleep(max(0.0, self.link.poll_interval_s - (self._clock() - started)))
+            await self.clock.sleep(max(0.0, self.link.poll_interval_s - (self._clock() - started)))
 
 
 def _describe(exc: BaseException) -> str:

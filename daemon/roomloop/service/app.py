@@ -16,7 +16,7 @@ published and the states are saved.
 
 Embedding (the demo, the tests, the benchmark)::
 
-    service = Service(site, clock=SimulatedClock(60), state_dir=path, on_tick=show)
+    service = Service(site, clock=VirtualClock(), state_dir=path, on_tick=show)
     await service.run(stop_event)
 """
 
@@ -27,7 +27,6 @@ import contextlib
 import functools
 import json
 import logging
-import time
 from collections.abc import Awaitable, Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -37,6 +36,7 @@ from zoneinfo import ZoneInfo
 import aiomqtt
 import structlog
 
+from roomloop.clock import Clock, RealClock, sleep_or_wake, timeout, wait_tasks
 from roomloop.config.models import (
     ModbusInput,
     ModbusOutput,
@@ -53,7 +53,6 @@ from roomloop.core.types import PointSample, ZoneInputs, ZoneOutputs
 from roomloop.io.modbus import ModbusLink
 from roomloop.io.mqtt import MqttPoints
 from roomloop.io.ports import OutputState
-from roomloop.service.clock import Clock, RealClock
 from roomloop.service.commands import Command, CommandHandler
 from roomloop.service.notify import Progress, notify, watchdog_interval_s
 from roomloop.service.persist import StateStore
@@ -70,18 +69,18 @@ from roomloop.service.publisher import (
 log = structlog.get_logger("roomloop.service")
 
 READY_WAIT_S = 15.0
-"""Real seconds to wait for the links before declaring READY=1 anyway."""
+"""Clock seconds to wait for the links before declaring READY=1 anyway."""
 STOP_OUTPUTS_S = 2.5
-"""Real seconds the safe-state writes at stop may take (the whole stop stays under 5 s)."""
+"""``clock.io`` seconds the safe-state writes at stop may take (the stop stays under 5 s)."""
 STOP_REQUEST_MIN_S = 0.1
-"""Real seconds at least for each request of the stop's one try per output."""
+"""``clock.io`` seconds at least for each request of the stop's one try per output."""
 STOP_BROKER_S = 1.0
 STOP_TASKS_S = 1.5
-"""Real seconds the control tasks get to end once cancelled, before the outputs go safe."""
+"""``clock.io`` seconds the control tasks get to end once cancelled, before outputs go safe."""
 PERIODIC_SAVE_S = 300.0
 """Clock seconds between saves of the slowly drifting terms (droop, learned duty)."""
 WATCHDOG_GRACE_S = 30.0
-"""Real seconds a zone loop may be late (a slow link, a busy board) before the watchdog starves."""
+"""Clock seconds a zone loop may be late (a slow link, a busy board) before the watchdog starves."""
 RESTART_MIN_S = 0.5
 RESTART_MAX_S = 30.0
 
@@ -169,7 +168,7 @@ class Service:
         self.store = StateStore(
             state_dir if state_dir is not None else site.site.state_dir, site.name
         )
-        self.progress = Progress()
+        self.progress = Progress(self.clock.monotonic)
         self.restarts: dict[str, int] = {}
         """Restarts per task name (tests and status)."""
         self.publisher = StatePublisher(
@@ -211,7 +210,7 @@ class Service:
                 mqtt_outputs.append(point)
         self.links: dict[str, ModbusLink] = {
             link.name: ModbusLink(
-                link, modbus_inputs[link.name], modbus_outputs[link.name], clock=self.clock.now
+                link, modbus_inputs[link.name], modbus_outputs[link.name], clock=self.clock
             )
             for link in site.links
             if modbus_inputs[link.name] or modbus_outputs[link.name]
@@ -288,7 +287,7 @@ class Service:
             broker=None
             if self.site.broker is None
             else f"{self.site.broker.host}:{self.site.broker.port}",
-            clock_speed=self.clock.speed,
+            clock=self.clock.kind,
         )
         async with contextlib.AsyncExitStack() as stack:
             for link in self.links.values():
@@ -327,7 +326,7 @@ class Service:
                     await stop.wait()
                     log.info("service.stopping", site=self.site.name)
                     notify("STOPPING=1")
-                    await _cancel_and_wait(control, STOP_TASKS_S)
+                    await _cancel_and_wait(self.clock.io, control, STOP_TASKS_S)
                     await self._stop_outputs()
                     await self._announce_offline()
                     stopped_cleanly = True
@@ -346,7 +345,7 @@ class Service:
         log.warning("service.stopping_unexpectedly", site=self.site.name)
         notify("STOPPING=1")
         try:
-            await _cancel_and_wait(tasks, STOP_TASKS_S)
+            await _cancel_and_wait(self.clock.io, tasks, STOP_TASKS_S)
             await self._stop_outputs()
             await self._announce_offline()
         except Exception:
@@ -365,7 +364,7 @@ class Service:
         """Run ``body``; if it fails or ends, log it and start it again after a growing pause."""
         delay = RESTART_MIN_S
         while True:
-            started = time.monotonic()
+            started = self.clock.monotonic()
             try:
                 await body()
             except asyncio.CancelledError:
@@ -378,11 +377,11 @@ class Service:
                 log.error("service.task_ended", task=name)
             if name.startswith("zone:"):
                 self._zone_failed(name[len("zone:") :])
-            if time.monotonic() - started > 60.0:
+            if self.clock.monotonic() - started > 60.0:
                 delay = RESTART_MIN_S
             self.restarts[name] = self.restarts.get(name, 0) + 1
             log.info("service.task_restarting", task=name, in_s=delay)
-            await asyncio.sleep(delay)
+            await self.clock.sleep(delay)
             delay = min(delay * 2, RESTART_MAX_S)
 
     def _zone_failed(self, zone: str) -> None:
@@ -394,13 +393,13 @@ class Service:
             self._outputs_wake.set()
 
     def _allowed_gap(self, runtime: ZoneRuntime) -> float:
-        """Real seconds a zone loop may go without progress before the watchdog starves."""
-        return runtime.zone.tick_s / self.clock.speed + self.ready_wait_s + self.watchdog_grace_s
+        """Clock seconds a zone loop may go without progress before the watchdog starves."""
+        return runtime.zone.tick_s + self.ready_wait_s + self.watchdog_grace_s
 
     # ------------------------------------------------------------------ links
 
     async def _poll_loop(self, link: ModbusLink) -> None:
-        await link.run(sleep=self.clock.sleep, on_cycle=self._check_links)
+        await link.run(on_cycle=self._check_links)
 
     def _check_links(self) -> None:
         """Zones start once every link was polled once (answered or not); READY once all answer."""
@@ -414,7 +413,7 @@ class Service:
         """READY=1 once every link answers, or after ``ready_wait_s`` (a dead link blocks none)."""
         if self.links:
             with contextlib.suppress(TimeoutError):
-                async with asyncio.timeout(self.ready_wait_s):
+                async with timeout(self.clock, self.ready_wait_s):
                     await self._links_up.wait()
         self._inputs_ready.set()
         down = [name for name, link in self.links.items() if not link.connected]
@@ -462,18 +461,7 @@ class Service:
             self._after_step(runtime, outputs, now, next_change)
             self.progress.beat(name)
             runtime.wake.clear()
-            await self._sleep_or_wake(zone.tick_s, runtime.wake)
-
-    async def _sleep_or_wake(self, seconds: float, wake: asyncio.Event) -> None:
-        if wake.is_set():
-            return
-        sleeper = asyncio.ensure_future(self.clock.sleep(seconds))
-        waiter = asyncio.ensure_future(wake.wait())
-        try:
-            await asyncio.wait((sleeper, waiter), return_when=asyncio.FIRST_COMPLETED)
-        finally:
-            sleeper.cancel()
-            waiter.cancel()
+            await sleep_or_wake(self.clock, zone.tick_s, runtime.wake)
 
     def _after_step(
         self, runtime: ZoneRuntime, outputs: ZoneOutputs, now: float, next_change: Switch | None
@@ -588,11 +576,11 @@ class Service:
         tasks = [
             asyncio.create_task(one(r), name=f"safe:{r.zone.output}") for r in runtimes
         ]
-        _, pending = await asyncio.wait(tasks, timeout=STOP_OUTPUTS_S)
+        _, pending = await wait_tasks(self.clock.io, tasks, STOP_OUTPUTS_S)
         for task in pending:
             task.cancel()
         if pending:
-            await asyncio.wait(pending, timeout=0.2)
+            await wait_tasks(self.clock.io, pending, 0.2)
         not_safe: list[str] = []
         for runtime, task in zip(runtimes, tasks, strict=True):
             if not task.done() or task.cancelled():
@@ -637,6 +625,7 @@ class Service:
             will=LastWill(status_topic(self.prefix), OFFLINE),
             backoff_min_s=0.5,
             backoff_max_s=30.0,
+            clock=self.clock,
         )
         await self._broker.run(
             self._on_message, on_connect=self._on_connect, on_disconnect=self.mqtt_points.detach
@@ -673,7 +662,7 @@ class Service:
             bytes(payload),
             retained=bool(message.retain),
             now=now,
-            monotonic=time.monotonic(),
+            monotonic=self.clock.monotonic(),
         )
         if answer is None:
             if message.retain and topic.startswith(f"{self.prefix}/zone/"):
@@ -683,7 +672,7 @@ class Service:
         client = self._broker.client if self._broker is not None else None
         if client is not None:
             try:
-                async with asyncio.timeout(5.0):
+                async with timeout(self.clock.io, 5.0):
                     await client.publish(answer.topic, answer.payload, qos=1, retain=False)
             except Exception as exc:
                 log.warning("command.answer_failed", topic=answer.topic, error=str(exc))
@@ -703,11 +692,11 @@ class Service:
                     # The broker went away mid-round; after the reconnect everything is resent.
                     log.debug("broker.publish_interrupted", error=str(exc) or type(exc).__name__)
             self._publish_wake.clear()
-            await self._sleep_or_wake(min(interval, 30.0), self._publish_wake)
-            await asyncio.sleep(0.05)  # coalesce a burst of zone updates into one round
+            await sleep_or_wake(self.clock, min(interval, 30.0), self._publish_wake)
+            await self.clock.sleep(0.05)  # coalesce a burst of zone updates into one round
 
     async def _send(self, client: Any, message: Message) -> None:
-        async with asyncio.timeout(10.0):
+        async with timeout(self.clock.io, 10.0):
             await client.publish(message.topic, message.payload, qos=1, retain=message.retain)
 
     async def _mqtt_points_loop(self) -> None:
@@ -716,14 +705,14 @@ class Service:
             return
         while True:
             await self.mqtt_points.tick(self.clock.now())
-            await asyncio.sleep(1.0)
+            await self.clock.sleep(1.0)
 
     async def _announce_offline(self) -> None:
         client = self._broker.client if self._broker is not None else None
         if client is None:
             return
         try:
-            async with asyncio.timeout(STOP_BROKER_S):
+            async with timeout(self.clock.io, STOP_BROKER_S):
                 now = self.clock.now()
                 for message in self.publisher.due(now):
                     await self._send(client, message)
@@ -761,10 +750,8 @@ class Service:
 
     async def _persist_loop(self) -> None:
         while True:
-            with contextlib.suppress(TimeoutError):
-                async with asyncio.timeout(PERIODIC_SAVE_S / self.clock.speed):
-                    await self._persist_dirty.wait()
-            await asyncio.sleep(0.05)  # one write for a burst (a command and the switch it causes)
+            await sleep_or_wake(self.clock, PERIODIC_SAVE_S, self._persist_dirty)
+            await self.clock.sleep(0.05)  # one write for a burst (a command and its switch)
             self._persist_dirty.clear()
             await self._save(self.clock.now())
 
@@ -780,7 +767,7 @@ class Service:
                 log.error("service.loops_stuck", loops=stuck)
             else:
                 notify("WATCHDOG=1")
-            await asyncio.sleep(interval)
+            await self.clock.sleep(interval)
 
 
 async def run_service(
@@ -797,7 +784,9 @@ async def run_service(
     return service
 
 
-async def _cancel_and_wait(tasks: Sequence[asyncio.Task[None]], within_s: float) -> None:
+async def _cancel_and_wait(
+    clock: Clock, tasks: Sequence[asyncio.Task[None]], within_s: float
+) -> None:
     """Cancel ``tasks`` and wait for them, cancelling again any that swallowed the request.
 
     A library's own ``wait_for`` can lose a cancellation that arrives just as its reply
@@ -805,12 +794,12 @@ async def _cancel_and_wait(tasks: Sequence[asyncio.Task[None]], within_s: float)
     stop waiting forever. Here the wait is bounded and the request repeated; whatever
     still runs after ``within_s`` is named in the log, and the stop goes on regardless.
     """
-    deadline = time.monotonic() + within_s
+    deadline = clock.monotonic() + within_s
     pending = {task for task in tasks if not task.done()}
     while pending:
         for task in pending:
             task.cancel()
-        left = deadline - time.monotonic()
+        left = deadline - clock.monotonic()
         if left <= 0:
             log.error(
                 "service.tasks_not_stopping",
@@ -818,4 +807,4 @@ async def _cancel_and_wait(tasks: Sequence[asyncio.Task[None]], within_s: float)
                 within_s=within_s,
             )
             return
-        _, pending = await asyncio.wait(pending, timeout=min(0.25, left))
+        _, pending = await wait_tasks(clock, pending, min(0.25, left))
