@@ -262,10 +262,6 @@ class Service:
         self._persist_dirty.set()
         runtime.wake.set()
 
-    def snapshot(self) -> dict[str, ZoneOutputs | None]:
-        """The latest decision of every zone (None before its first)."""
-        return {name: z.outputs for name, z in self.zones.items()}
-
     async def run(self, stop: asyncio.Event) -> None:
         """Run until ``stop`` is set, then stop cleanly: outputs safe, ``offline``, state saved.
 
@@ -768,20 +764,6 @@ class Service:
             else:
                 notify("WATCHDOG=1")
             await self.clock.sleep(interval)
-
-
-async def run_service(
-    site: Site,
-    *,
-    state_dir: str | Path | None = None,
-    clock: Clock | None = None,
-    stop: asyncio.Event | None = None,
-    on_tick: OnTick | None = None,
-) -> Service:
-    """Run the service until ``stop`` is set (forever without one); returns the stopped service."""
-    service = Service(site, clock=clock, state_dir=state_dir, on_tick=on_tick)
-    await service.run(stop if stop is not None else asyncio.Event())
-    return service
 
 
 async def _cancel_and_wait(
