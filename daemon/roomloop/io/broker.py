@@ -21,6 +21,7 @@ from typing import Any
 
 import aiomqtt
 
+from roomloop.backoff import Backoff
 from roomloop.clock import Clock, RealClock
 from roomloop.config.models import Broker
 from roomloop.errors import BrokerError
@@ -201,14 +202,15 @@ class BrokerConnection:
         on_disconnect: Callable[[], Awaitable[None] | None] | None = None,
     ) -> None:
         """Connect, serve messages, reconnect with backoff; returns only by cancellation."""
-        delay = self.backoff_min_s
+        backoff = Backoff(self.backoff_min_s, self.backoff_max_s)
+        delay = backoff.first()
         while True:
             try:
                 client = self.make_client()
                 async with client:
                     self.client = client
                     self.connections += 1
-                    delay = self.backoff_min_s
+                    delay = backoff.first()
                     log.info(
                         "broker.connected", endpoint=self.endpoint, connections=self.connections
                     )
@@ -235,7 +237,7 @@ class BrokerConnection:
                 if was_connected:
                     await _call_noarg(on_disconnect)
             await self.clock.io.sleep(delay)
-            delay = min(delay * 2, self.backoff_max_s)
+            delay = backoff.after(delay)
 
 
 async def _call_noarg(hook: Callable[[], Awaitable[None] | None] | None) -> None:

@@ -23,6 +23,7 @@ from dataclasses import dataclass, replace
 from types import TracebackType
 from typing import Any
 
+from roomloop.backoff import Backoff
 from roomloop.clock import Clock, RealClock, wait_for
 from roomloop.config.models import ModbusInput, ModbusOutput, ModbusRtuLink, ModbusTcpLink
 from roomloop.core.types import PointSample
@@ -34,9 +35,8 @@ from roomloop.io.ports import OutputState, aged
 
 log = get_logger("modbus")
 
-RETRY_BACKOFF_S = 0.05
-"""First pause before a retry; doubles each attempt, at most :data:`RETRY_BACKOFF_MAX_S`."""
-RETRY_BACKOFF_MAX_S = 1.0
+RETRY_BACKOFF = Backoff(0.05, 1.0)
+"""The pause before each retry of a request: 50 ms, doubling, at most 1 s."""
 
 
 class _RequestFailed(Exception):
@@ -139,9 +139,8 @@ class ModbusLink:
         self._events = RateLimitedLog(log, log_interval_s)
         self._lock = asyncio.Lock()
         self._last_request_end = 0.0
-        self._reconnect_min_s = reconnect_min_s
-        self._reconnect_max_s = reconnect_max_s
-        self._reconnect_delay = reconnect_min_s
+        self._reconnect = Backoff(reconnect_min_s, reconnect_max_s)
+        self._reconnect_delay = self._reconnect.first()
         self._next_connect_at = 0.0
         self._client: Any = None
         self.connect_error: str | None = None
@@ -225,11 +224,11 @@ class ModbusLink:
         else:
             reason = self._why_not_connected()
         if ok:
-            if self._reconnect_delay > self._reconnect_min_s or self.cycles:
+            if self._reconnect_delay > self._reconnect.first() or self.cycles:
                 self._events.recovered(
                     self.endpoint, "modbus.connected", link=self.name, endpoint=self.endpoint
                 )
-            self._reconnect_delay = self._reconnect_min_s
+            self._reconnect_delay = self._reconnect.first()
             self.connect_error = None
             return True
         self.connect_error = reason
@@ -243,7 +242,7 @@ class ModbusLink:
             retry_in_s=round(self._reconnect_delay, 2),
         )
         self._next_connect_at = self.clock.io.monotonic() + self._reconnect_delay
-        self._reconnect_delay = min(self._reconnect_delay * 2, self._reconnect_max_s)
+        self._reconnect_delay = self._reconnect.after(self._reconnect_delay)
         return False
 
     def _why_not_connected(self) -> str:
@@ -277,9 +276,7 @@ class ModbusLink:
         async with self._lock:
             for attempt in range(attempts):
                 if attempt:
-                    await self.clock.io.sleep(
-                        min(RETRY_BACKOFF_S * 2 ** (attempt - 1), RETRY_BACKOFF_MAX_S)
-                    )
+                    await self.clock.io.sleep(RETRY_BACKOFF.nth(attempt))
                 if not await self._ensure_connected():
                     why = f": {self.connect_error}" if self.connect_error else ""
                     raise _RequestFailed(f"not connected{why}")

@@ -27,6 +27,7 @@ import structlog
 
 from roomloop.config.models import LEVELS, Zone
 from roomloop.service.publisher import iso
+from roomloop.units import from_celsius, to_celsius
 
 log = structlog.get_logger("roomloop.service")
 
@@ -146,14 +147,6 @@ def parse_time(value: Any, tz: ZoneInfo) -> float | None:
         except (OverflowError, ValueError, OSError):
             raise Refused(f"hold_until {value[:40]!r} is out of range") from None
     return _number(value, "hold_until")
-
-
-def to_celsius(value: float, units: str) -> float:
-    return (value - 32.0) * 5.0 / 9.0 if units == "F" else value
-
-
-def from_celsius(value: float, units: str) -> float:
-    return value * 9.0 / 5.0 + 32.0 if units == "F" else value
 
 
 def parse_command(
