@@ -257,7 +257,9 @@ class Service:
         """
         runtime = self.zones[zone]
         now = self.clock.now()
-        runtime.state = apply_command(runtime.settings, runtime.state, field, value, now)
+        runtime.state = apply_command(
+            runtime.settings, runtime.state, field, value, now, units=self.units
+        )
         log.info("command.applied", zone=zone, field=field, value=value)
         self._persist_dirty.set()
         runtime.wake.set()
