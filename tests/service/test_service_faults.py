@@ -101,13 +101,13 @@ async def test_a_slow_device_does_not_hold_up_another_zones_output(
         running(service),
     ):
         await until(clock, lambda: all(z.decided for z in service.zones.values()))
-        await until(clock, lambda: service._written == {"relay0": False, "relay1": False})
+        await until(clock, lambda: service.outputs.written == {"relay0": False, "relay1": False})
         await clock.sleep(0.5)  # let the start-up writes finish
         slow.delay_s = 5.0  # every request to room0's device now times out (3 attempts each)
         # Both zones want heat at once; room0 comes first in the output round.
         service.apply_command("room0", "setpoint", 26.0)
         service.apply_command("room1", "setpoint", 26.0)
-        await until(clock, lambda: service.zones["room1"].wanted, 5, step_s=0.5)
+        await until(clock, lambda: service.outputs.wanted["relay1"], 5, step_s=0.5)
         # A serial round would wait out room0's write and read-back (over 6 s) first.
         await until(clock, lambda: plant_b.rooms[0].coil, 3.0, step_s=0.5)
         slow.delay_s = 0.0

@@ -166,6 +166,11 @@ class ModbusLink:
         return self.link.name
 
     @property
+    def request_timeout_s(self) -> float:
+        """The link's answer timeout (one request)."""
+        return self.link.timeout_s
+
+    @property
     def connected(self) -> bool:
         return bool(self._client is not None and self._client.connected)
 

@@ -254,6 +254,15 @@ class MqttPoints:
         """The connection is gone: commands wait until the next :meth:`attach`."""
         self._client = None
 
+    @property
+    def request_timeout_s(self) -> float:
+        """The longest one command publish may take."""
+        return PUBLISH_TIMEOUT_S
+
+    async def set_output_once(self, name: str, on: bool, timeout_s: float) -> OutputState:
+        """At stop: one publish (it is one try anyway; the caller bounds the whole stop)."""
+        return await self.set_output(name, on)
+
     async def set_output(self, name: str, on: bool) -> OutputState:
         """Record the wanted state, publish it now if connected (QoS 1); read-back comes later."""
         out = self.outputs[name]
