@@ -9,7 +9,8 @@ What is here (the service wires it, in ``roomloop.service``):
   timeouts and re-assertion);
 * ``broker.BrokerConnection``: the broker session, reconnecting with backoff.
 
-Each takes a :class:`roomloop.clock.Clock` for its time reads, pauses and timeouts.
+Each takes a :class:`roomloop.clock.Clock` for its time reads, pauses and timeouts
+(the real clock by default).
 
 Import the submodules directly; this package only re-exports the small shapes.
 """

@@ -176,7 +176,7 @@ class Service:
             for link in site.links
             if modbus_inputs[link.name] or modbus_outputs[link.name]
         }
-        mqtt_points = MqttPoints(mqtt_inputs, mqtt_outputs, clock=self.clock.now)
+        mqtt_points = MqttPoints(mqtt_inputs, mqtt_outputs, clock=self.clock)
         sources: dict[str, InputSource] = {}
         sinks: dict[str, SafeSink] = {}
         for link in links.values():
