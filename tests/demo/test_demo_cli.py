@@ -70,7 +70,7 @@ def _check_short_run(out: str, plot: Path) -> None:
         if "relay differed from the service's decision" in out:
             note = (
                 "\nNOTE: a coil did not follow the service's decisions during this run; seen "
-                "when ModbusLink.set_output (output loop) and reassert_due (poll loop) write "
+                "when ModbusLink.set_output (output writer) and reassert_due (poll loop) write "
                 "the same output at once (io/modbus.py)."
             )
         raise AssertionError(f"{exc}{note}\n--- demo output ---\n{out}") from None

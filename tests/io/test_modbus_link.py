@@ -252,10 +252,11 @@ async def test_output_write_read_back_mismatch_and_reassert(modbus_tcp_server: A
         assert (await link.set_output("blind", True)).verdict == "unverified"
 
         # the relay module lost power: the coil dropped; re-assertion puts it back
+        commanded = {"relay": True, "valve": True, "blind": True}  # what the owner wants
         await server.set_coils(3, [False])
-        assert await link.reassert_due(clock.now() + 30) == []  # not due yet
+        assert await link.reassert_due(clock.now() + 30, commanded) == []  # not due yet
         clock.advance(61)
-        again = await link.reassert_due(clock.now())
+        again = await link.reassert_due(clock.now(), commanded)
         assert "relay" in [s.name for s in again]
         assert (await server.get_coils(3, 1)) == [True]
 
@@ -276,10 +277,11 @@ async def test_output_write_read_back_mismatch_and_reassert(modbus_tcp_server: A
 
 
 async def test_a_new_decision_is_never_overtaken_by_a_reassert(modbus_tcp_server: Any) -> None:
-    """The poll loop's re-assert of the old state and the output writer's new decision race.
+    """The poll loop's re-assert and the output writer's new decision race.
 
-    The new decision is queued first and the re-assert of the old wanted state comes while
-    it is in flight; the coil must end at the new decision and the link must want it.
+    The new decision is queued first and the re-assert (due for the old state) comes while
+    it is in flight, with what the owner commands by then; the coil must end at the new
+    decision and the link's state must say so.
     """
     server = await modbus_tcp_server()
     clock = VirtualClock(start=1000.0)
@@ -290,7 +292,7 @@ async def test_a_new_decision_is_never_overtaken_by_a_reassert(modbus_tcp_server
         clock.advance(61)  # a re-assert of "on" is now due
         switch_off = asyncio.create_task(link.set_output("relay", False))
         await asyncio.sleep(0)  # the off write is under way
-        await link.reassert_due(clock.now())
+        await link.reassert_due(clock.now(), {"relay": False})  # the owner now wants off
         state = await asyncio.wait_for(switch_off, 5)
         assert await server.get_coils(3, 1) == [False]
         assert (state.wanted, state.verdict) == (False, "ok")
@@ -309,7 +311,7 @@ async def test_write_to_an_unreachable_device(modbus_tcp_server: Any) -> None:
         deadline = time.monotonic() + 5.0
         while link.output_state("relay").verdict != "ok":
             assert time.monotonic() < deadline
-            await link.reassert_due(time.time())
+            await link.reassert_due(time.time(), {"relay": True})
             await asyncio.sleep(0.05)
         assert await server.get_coils(0, 1) == [True]
 

@@ -42,9 +42,7 @@ async def test_embedded_service_holds_the_safe_state_until_its_first_decision(
     server = await modbus_tcp_server()
     site = make_site(tmp_path, server.port, safe_state="on")
     ticks: list[TickReport] = []
-    service = Service(
-        site, clock=clock, state_dir=tmp_path / "state", on_tick=ticks.append
-    )
+    service = Service(site, clock=clock, state_dir=tmp_path / "state", on_tick=ticks.append)
     # A warm room: the controller wants the heat off, the safe state is on.
     with capture_logs() as events:
         async with RoomPlant(server, [23.0], clock) as plant, running(service):
@@ -242,3 +240,31 @@ async def test_a_missing_broker_tls_file_stops_the_start_before_any_output_moves
     with pytest.raises(BrokerSetupError, match=re.escape(f"broker.tls.ca_file {ca}: no such file")):
         await wait_for(clock, service.run(asyncio.Event()), 10.0)
     assert server.requests == []  # no output written, not even the safe state
+
+
+async def test_a_coil_that_dropped_is_written_again_by_the_service(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    """The output writer owns what the coil should be; the link's poll re-asserts it."""
+    clock = VirtualClock()
+    server = await modbus_tcp_server()
+    site = make_site(tmp_path, server.port)
+    service = Service(site, clock=clock, state_dir=tmp_path / "state")
+    async with RoomPlant(server, [17.0], clock) as plant, running(service):
+        await until(clock, lambda: plant.rooms[0].coil)  # a cold room: heating
+        assert service.outputs.commanded() == {"relay0": True}
+        plant.frozen = True
+        await server.set_coils(0, [False])  # the relay module lost power
+        dropped_at = clock.now()
+        await until(
+            clock,
+            lambda: (
+                service.links["rooms"].output_state("relay0").written_at is not None
+                and service.links["rooms"].output_state("relay0").written_at > dropped_at
+            ),
+            600,
+        )
+        assert (await server.get_coils(0, 1)) == [True]
+        # written again within reassert_s (60 s for a Modbus output) and one poll (10 s)
+        written_at = service.links["rooms"].output_state("relay0").written_at
+        assert written_at is not None and written_at - dropped_at <= 60 + 10

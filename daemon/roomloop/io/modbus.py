@@ -18,7 +18,7 @@ import asyncio
 import errno
 import logging
 import os
-from collections.abc import Awaitable, Callable, Sequence
+from collections.abc import Awaitable, Callable, Mapping, Sequence
 from dataclasses import dataclass, replace
 from types import TracebackType
 from typing import Any
@@ -149,8 +149,6 @@ class ModbusLink:
             name: PointSample(name, None, None, "comm-failure") for name in self.inputs
         }
         self._outputs: dict[str, OutputState] = {name: OutputState(name) for name in self.outputs}
-        self._wanted: dict[str, bool] = {}
-        """The latest wanted state per output, set before any write queues for the lock."""
         self._output_locks = {name: asyncio.Lock() for name in self.outputs}
         """One write-and-read-back at a time per output, so a re-assert of the old state
         can never interleave with the write of a new decision."""
@@ -477,12 +475,13 @@ class ModbusLink:
     async def set_output(self, name: str, on: bool) -> OutputState:
         """Write the on or off value, read it back if configured; the state says what happened.
 
-        The wanted state is recorded at once; the write itself waits for the output's lock
-        and then writes whatever is wanted by then, so the newest decision always wins.
+        Writes of one output wait for each other (first come, first served), so the last
+        one asked for is the last one made. What the output should be is not kept here:
+        its owner (the service's output writer) says so, and re-asserts through
+        :meth:`reassert_due`.
         """
-        self._wanted[name] = on
         async with self._output_locks[name]:
-            return await self._write_output(name, self._wanted[name])
+            return await self._write_output(name, on)
 
     async def set_output_once(self, name: str, on: bool, timeout_s: float) -> OutputState:
         """At stop: write (and read back) with one try of at most ``timeout_s`` per request.
@@ -492,7 +491,6 @@ class ModbusLink:
         writes queue on the link's lock ahead of the read-backs (the lock is first come,
         first served), so each output is written before any is read back.
         """
-        self._wanted[name] = on
         async with self._output_locks[name]:
             return await self._write_output(name, on, attempts=1, timeout_s=timeout_s)
 
@@ -566,24 +564,33 @@ class ModbusLink:
         self._outputs[name] = state
         return state
 
-    async def reassert_due(self, now: float) -> list[OutputState]:
-        """Write again each commanded output due (``reassert_s``) or whose last write failed."""
+    async def reassert_due(self, now: float, wanted: Mapping[str, bool]) -> list[OutputState]:
+        """Write ``wanted`` again to each of its outputs that is due (``reassert_s``) or whose
+        last write failed; ``wanted`` holds the commanded outputs (others are left alone)."""
         done: list[OutputState] = []
         for name, point in self.outputs.items():
+            if name not in wanted:
+                continue
             async with self._output_locks[name]:
-                wanted = self._wanted.get(name)
-                if wanted is None:
+                on = wanted.get(name)
+                if on is None:
                     continue
                 state = self._outputs[name]
                 overdue = state.written_at is None or now - state.written_at >= point.reassert_s
                 if overdue or state.verdict in ("comm-failure", "mismatch"):
-                    done.append(await self._write_output(name, wanted))
+                    done.append(await self._write_output(name, on))
         return done
 
     # ------------------------------------------------------------------ loop
 
-    async def run(self, *, on_cycle: Callable[[], None] | None = None) -> None:
-        """Poll every ``poll_interval_s`` and re-assert outputs, until cancelled.
+    async def run(
+        self,
+        *,
+        on_cycle: Callable[[], None] | None = None,
+        commanded: Callable[[], Mapping[str, bool]] | None = None,
+    ) -> None:
+        """Poll every ``poll_interval_s`` and re-assert the ``commanded()`` outputs, until
+        cancelled.
 
         The interval is measured and waited on the link's clock; ``on_cycle`` is called
         after each cycle (the service starts its zones once every link was polled).
@@ -591,7 +598,8 @@ class ModbusLink:
         while True:
             started = self._clock()
             await self.poll()
-            await self.reassert_due(self._clock())
+            if commanded is not None:
+                await self.reassert_due(self._clock(), commanded())
             self.cycles += 1
             if on_cycle is not None:
                 on_cycle()

@@ -3,7 +3,7 @@
 The parts, one job each, meet through small protocols:
 
 * the links and points (``roomloop.io``): Modbus links (``modbus-poll:<link>``
-  polls each and re-asserts its outputs) and the MQTT points;
+  polls each and re-asserts the outputs the writer commanded) and the MQTT points;
 * :class:`~roomloop.service.zones.ZoneRunner`: each zone's loop (``zone:<name>``),
   the one way in for commands, and the per-step hooks;
 * :class:`~roomloop.service.outputs.OutputWriter` (``outputs``): the one owner of
@@ -199,7 +199,9 @@ class Service:
         outputs go safe, the others after."""
         start("outputs", self.outputs.run, True)
         for name, link in self.links.items():
-            poll = functools.partial(link.run, on_cycle=self._check_links)
+            poll = functools.partial(
+                link.run, on_cycle=self._check_links, commanded=self.outputs.commanded
+            )
             start(f"modbus-poll:{name}", poll, True)
         for runtime in self.zones.values():
             self.progress.register(f"zone:{runtime.name}", self._allowed_gap(runtime))

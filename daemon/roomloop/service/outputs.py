@@ -5,9 +5,11 @@ each output when its wanted state differs from what it last wrote, every write i
 own task, so a slow device holds up only its own outputs (and, through the link's
 lock, the others on its link), never another zone's. Until a zone's first decision,
 and again after its loop failed, its output is held at the zone's safe state. A write
-that fails is not retried here: the link (or the MQTT points) re-asserts every
-commanded output whose last write failed, on its poll. At stop every output goes to
-its safe state at once, within a bounded budget (:meth:`OutputWriter.stop_safe`).
+that fails is not retried here: on its poll a link re-asserts what the writer
+commanded (:meth:`OutputWriter.commanded`) where the last write failed or
+``reassert_s`` passed; the MQTT points re-assert their own last command. At stop
+every output goes to its safe state at once, within a bounded budget
+(:meth:`OutputWriter.stop_safe`).
 
 The sinks are anything with the :class:`SafeSink` methods (a Modbus link, the MQTT
 points); the writer never asks which kind it has.
@@ -94,6 +96,10 @@ class OutputWriter:
             self.wanted[point] = output.safe_on
             self.decided[point] = False
             self._wake.set()
+
+    def commanded(self) -> Mapping[str, bool]:
+        """What was handed to each output's sink: what a link re-asserts on its poll."""
+        return self.written
 
     def state(self, point: str) -> OutputState | None:
         """What the output's sink knows of it (None for a point no sink serves)."""
