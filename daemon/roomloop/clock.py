@@ -22,8 +22,11 @@ peer in the same process (the tests' pymodbus servers, the demo's plant server)
 answers before the loop ever looks idle, because loopback data is readable at
 once; a peer in another process (mosquitto) gets the threshold to answer. A peer
 slower than that sees virtual time move on, exactly as a slow peer does on the
-real clock, so a request may time out on the clock; the threshold trades wall time
-per jump against that (see :data:`AUTOJUMP_THRESHOLD_S`). Work handed to a thread
+real clock, so a request may time out on the clock. While a bounded wait on a peer
+is open (``timeout(clock.io, ...)``: every request, publish and stop budget), the
+loop must be idle for the longer :data:`PEER_WAIT_THRESHOLD_S` before a jump, so
+mosquitto's answers arrive first even on a busy machine; otherwise
+:data:`AUTOJUMP_THRESHOLD_S` (0.5 ms) is enough. Work handed to a thread
 (``asyncio.to_thread``: the state file's write; name look-ups) holds the clock
 still until it ends, since its end is not a timer the clock could jump to.
 """
@@ -37,7 +40,7 @@ import itertools
 import math
 import selectors
 import time
-from collections.abc import AsyncIterator, Callable
+from collections.abc import AsyncIterator, Callable, Iterator
 from typing import Any, Protocol, TypeVar
 
 _T = TypeVar("_T")
@@ -153,13 +156,19 @@ SimulatedClock = PacedClock
 """The paced clock's round-1 name (kept for callers not yet renamed)."""
 
 
-AUTOJUMP_THRESHOLD_S = 0.002
+AUTOJUMP_THRESHOLD_S = 0.0005
 """Real seconds the loop must sit idle before the virtual clock jumps.
 
-Each jump costs this much wall time; a peer in another process (mosquitto) that
-answers within it is never overtaken by virtual time. 2 ms covers a loopback round
-trip to mosquitto on a busy two-core machine in the test suite's runs; raise it for
-a slower peer (``VirtualClock(autojump_threshold_s=...)``).
+Each jump costs this much wall time. A peer in the same process answers before the
+loop ever looks idle (loopback data is readable at once), so this only needs to
+cover the loop's own wake-ups."""
+PEER_WAIT_THRESHOLD_S = 0.05
+"""Real seconds the loop must sit idle before a jump while a wait on a peer is open.
+
+A bounded wait on a real peer (``timeout(clock.io, ...)``: a Modbus request, a
+publish and its acknowledgement) holds the clock this long, so a peer in another
+process (mosquitto) answers before virtual time moves on, even on a busy machine;
+a peer slower than that meets virtual time as a slow peer meets real time.
 """
 
 
@@ -187,19 +196,24 @@ class VirtualClock:
 
     @property
     def io(self) -> Clock:
-        return self
+        return self._peer_view
 
     def __init__(
         self,
         start: float | None = None,
         *,
         autojump_threshold_s: float = AUTOJUMP_THRESHOLD_S,
+        peer_wait_threshold_s: float = PEER_WAIT_THRESHOLD_S,
         jump_during_threads: bool = False,
     ) -> None:
-        if not autojump_threshold_s >= 0:
-            raise ValueError("the autojump threshold must be zero or positive")
+        if not 0 <= autojump_threshold_s <= peer_wait_threshold_s:
+            raise ValueError("the autojump thresholds must be 0 <= idle <= peer wait")
         self._now = time.time() if start is None else float(start)
         self.autojump_threshold_s = float(autojump_threshold_s)
+        self.peer_wait_threshold_s = float(peer_wait_threshold_s)
+        self.peer_waits = 0
+        """Bounded waits on real peers open now (``timeout(clock.io, ...)``)."""
+        self._peer_view = _PeerWaits(self)
         self.jump_during_threads = jump_during_threads
         """False: no jump while a thread of the loop's executor works (a state file's write,
         a name look-up), since its end is not a timer. True: virtual time moves on meanwhile,
@@ -229,6 +243,10 @@ class VirtualClock:
 
     def monotonic(self) -> float:
         return self._now
+
+    def threshold_s(self) -> float:
+        """How long the loop must be idle before the next jump (longer while a peer is awaited)."""
+        return self.peer_wait_threshold_s if self.peer_waits else self.autojump_threshold_s
 
     def call_later(self, seconds: float, callback: Callable[[], None]) -> TimerHandle:
         if self._loop is None:
@@ -281,6 +299,40 @@ class VirtualClock:
                 timer.callback()
 
 
+class _PeerWaits:
+    """A virtual clock's ``io``: the same time and timers, and its bounded waits (the
+    :func:`timeout` helper) count as waits on a peer, which hold the autojump longer."""
+
+    kind = "virtual"
+
+    def __init__(self, clock: VirtualClock) -> None:
+        self._clock = clock
+
+    @property
+    def io(self) -> Clock:
+        return self
+
+    def now(self) -> float:
+        return self._clock.now()
+
+    def monotonic(self) -> float:
+        return self._clock.monotonic()
+
+    async def sleep(self, seconds: float) -> None:
+        await self._clock.sleep(seconds)
+
+    def call_later(self, seconds: float, callback: Callable[[], None]) -> TimerHandle:
+        return self._clock.call_later(seconds, callback)
+
+    @contextlib.contextmanager
+    def waiting_on_peer(self) -> Iterator[None]:
+        self._clock.peer_waits += 1
+        try:
+            yield
+        finally:
+            self._clock.peer_waits -= 1
+
+
 class _IdleSelector(selectors.BaseSelector):
     """The loop's selector, noticing when the loop has been idle for the clock's threshold."""
 
@@ -318,7 +370,7 @@ class _IdleSelector(selectors.BaseSelector):
             or clock.next_deadline() is None
         ):
             return self._inner.select(timeout)
-        threshold = clock.autojump_threshold_s
+        threshold = clock.threshold_s()
         if timeout is not None and timeout <= threshold:
             return self._inner.select(timeout)  # a real timer is due first
         events = self._inner.select(threshold)
@@ -368,12 +420,14 @@ async def timeout(clock: Clock, seconds: float | None) -> AsyncIterator[None]:
         yield
         return
     loop = asyncio.get_running_loop()
-    async with asyncio.timeout(None) as scope:
-        handle = clock.call_later(seconds, lambda: scope.reschedule(loop.time()))
-        try:
-            yield
-        finally:
-            handle.cancel()
+    waiting = getattr(clock, "waiting_on_peer", None)
+    with waiting() if waiting is not None else contextlib.nullcontext():
+        async with asyncio.timeout(None) as scope:
+            handle = clock.call_later(seconds, lambda: scope.reschedule(loop.time()))
+            try:
+                yield
+            finally:
+                handle.cancel()
 
 
 async def wait_for(clock: Clock, awaitable: Any, seconds: float) -> Any:

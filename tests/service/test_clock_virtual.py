@@ -124,3 +124,21 @@ async def test_a_paced_clock_runs_faster_but_waits_on_peers_in_real_time() -> No
     assert clock.now() == pytest.approx(real * 600.0, rel=0.2)
     with pytest.raises(ValueError, match="positive"):
         PacedClock(0.0)
+
+
+async def test_a_wait_on_a_peer_holds_the_clock_longer_than_a_control_wait() -> None:
+    """A bounded wait on ``clock.io`` gives a slow peer (here: 10 ms of real time) the
+    longer threshold to answer; the same wait on the control clock is overtaken."""
+    clock = VirtualClock(start=0.0)
+    loop = asyncio.get_running_loop()
+
+    def answer_in_10_ms() -> asyncio.Future[str]:
+        future: asyncio.Future[str] = loop.create_future()
+        loop.call_later(0.01, future.set_result, "answer")  # the peer, in real time
+        return future
+
+    assert await wait_for(clock.io, answer_in_10_ms(), 1.0) == "answer"
+    assert clock.now() == 0.0
+    with pytest.raises(TimeoutError):
+        await wait_for(clock, answer_in_10_ms(), 1.0)
+    assert clock.now() == 1.0
