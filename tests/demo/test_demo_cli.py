@@ -114,7 +114,7 @@ def _assert_short_run(out: str, plot: Path) -> None:
 )
 def test_a_signal_stops_cleanly_with_outputs_safe(signum: signal.Signals, said: str) -> None:
     process = subprocess.Popen(
-        _demo("--hours", "48"),  # far longer than the wait for the first relay on
+        _demo("--hours", "8"),  # a status block every 30 simulated min; the run lasts seconds
         stdout=subprocess.PIPE,
         stderr=subprocess.PIPE,
         text=True,
