@@ -167,30 +167,30 @@ def test_a_signal_stops_cleanly_with_outputs_safe(signum: signal.Signals, said: 
         (["--plot", "/nonexistent/demo.png"], "the folder /nonexistent does not exist"),
     ],
 )
-def test_bad_options_exit_2_with_one_line(args: list[str], message: str) -> None:
-    done = subprocess.run(
-        _demo(*args), capture_output=True, text=True, timeout=30.0, env=_env(), check=False
-    )
-    assert done.returncode == 2
-    assert message in done.stderr
-    assert "Traceback" not in done.stderr
-    assert done.stdout == ""
+def test_bad_options_exit_2_with_one_line(
+    args: list[str], message: str, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """In-process (the refusals come before anything runs; the runs above are processes)."""
+    from roomloop.cli import main
+
+    assert main(["demo", *args]) == 2
+    captured = capsys.readouterr()
+    assert message in captured.err
+    assert "Traceback" not in captured.err
+    assert captured.out == ""
 
 
-def test_plot_into_a_missing_folder_is_refused_before_the_run(tmp_path: Path) -> None:
+def test_plot_into_a_missing_folder_is_refused_before_the_run(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    from roomloop.cli import main
+
     target = tmp_path / "no-such-folder" / "demo.png"
-    done = subprocess.run(
-        _demo("--plot", str(target)),
-        capture_output=True,
-        text=True,
-        timeout=30.0,
-        env=_env(),
-        check=False,
-    )
-    assert done.returncode == 2
-    assert f"--plot {target}: the folder {target.parent} does not exist" in done.stderr
-    assert "Traceback" not in done.stderr
-    assert done.stdout == ""  # refused at once, not after a minute of demo
+    assert main(["demo", "--plot", str(target)]) == 2
+    captured = capsys.readouterr()
+    assert f"--plot {target}: the folder {target.parent} does not exist" in captured.err
+    assert "Traceback" not in captured.err
+    assert captured.out == ""  # refused at once, not after a minute of demo
 
 
 def test_plot_without_matplotlib_is_refused_before_the_run(
