@@ -44,6 +44,17 @@ LOOPBACK = "127.0.0.1"
 START_TIMEOUT_S = 10.0
 
 
+def pytest_asyncio_loop_factories(config: Any, item: Any) -> dict[str, Any]:
+    """Every async test runs on roomloop's AutojumpLoop, so a test may use a VirtualClock.
+
+    The loop is asyncio's own selector loop; it differs only while a VirtualClock
+    has timers pending (roomloop/clock.py), so tests without one see no difference.
+    """
+    from roomloop.clock import AutojumpLoop
+
+    return {"autojump": AutojumpLoop}
+
+
 def free_port() -> int:
     """A TCP port on loopback nobody listens on right now."""
     with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as sock:
@@ -168,6 +179,8 @@ class ModbusTestServer:
         self.coils = coils
         self.requests: list[ModbusRequest] = []
         self.delay_s = 0.0
+        self.clock: Any = None
+        """The clock ``delay_s`` is waited on (None: the real one)."""
         """Answer every request this much later (a slow device)."""
         self.exception_code: int | None = None
         """Answer every request with this Modbus exception code (e.g. 4, server device failure)."""
@@ -225,7 +238,8 @@ class ModbusTestServer:
         if self._local:
             return None
         if self.delay_s:
-            await asyncio.sleep(self.delay_s)
+            # On the test's clock when it set one (a slow device in virtual time).
+            await (asyncio.sleep if self.clock is None else self.clock.sleep)(self.delay_s)
         if self.exception_code is not None:
             from pymodbus.constants import ExcCodes
 

@@ -12,6 +12,9 @@ TCP server in this process whose rooms step a first-order model
    a few seconds of start-up.
    Baselines measured here too: the RSS of a bare interpreter that only imports the
    service's modules, and the CPU the control steps alone cost per zone-hour.
+   The same CPU figure in this process on a virtual clock (``VirtualClock``: no pacing,
+   exact): the service and its Modbus test server together, per zone-hour, for
+   ``VIRTUAL_SIM_HOURS`` simulated hours without a broker.
 2. Latency: on the real clock, ``cmd/setpoint`` commands alternately below and above
    the room temperature (minimum on/off times 0), from the publish to the Modbus
    write of the coil arriving at the server. Baseline: an MQTT round trip through the
@@ -54,6 +57,7 @@ from conftest import (  # type: ignore[import-not-found]  # noqa: E402
 PREFIX = "roomloop/test-annex"
 FOOTPRINT_SPEED = 120.0
 FOOTPRINT_SIM_HOURS = 0.5
+VIRTUAL_SIM_HOURS = 2.0
 STARTUP_S = 3.0
 LATENCY_COMMANDS = 60
 LATENCY_GAP_S = 0.15
@@ -164,6 +168,42 @@ async def footprint(zones: int, workdir: Path, broker: MosquittoBroker) -> tuple
     return rss_mb, (cpu_end - cpu_start) / (zones * sim_hours)
 
 
+async def virtual_cpu_per_zone_hour(zones: int, workdir: Path) -> tuple[float, int]:
+    """(CPU seconds per zone-hour, clock jumps): the service in this process on a
+    virtual clock for ``VIRTUAL_SIM_HOURS``, with its Modbus test server."""
+    import logging
+
+    import structlog
+
+    from roomloop.clock import VirtualClock
+    from roomloop.config.loader import load_site
+    from roomloop.service.app import Service
+
+    structlog.configure(wrapper_class=structlog.make_filtering_bound_logger(logging.WARNING))
+
+    clock = VirtualClock()
+    server = TimedServer(units=(1,))
+    await server.start()
+    data = bench_site(server.port, 1, zones)
+    del data["broker"]
+    config = workdir / f"virtual-{zones}.yaml"
+    config.write_text(yaml.safe_dump(data))
+    service = Service(load_site(config), clock=clock, state_dir=workdir / f"vstate-{zones}")
+    stop = asyncio.Event()
+    try:
+        async with RoomPlant(server, [17.0 + 0.05 * i for i in range(zones)], clock):
+            task = asyncio.create_task(service.run(stop))
+            await clock.sleep(60.0)  # start-up is not counted
+            started, jumps = time.process_time(), clock.jumps
+            await clock.sleep(VIRTUAL_SIM_HOURS * 3600)
+            cpu, jumps = time.process_time() - started, clock.jumps - jumps
+            stop.set()
+            await asyncio.wait_for(task, 30)
+    finally:
+        await server.stop()
+    return cpu / (zones * VIRTUAL_SIM_HOURS), jumps
+
+
 async def latency(zones: int, workdir: Path, broker: MosquittoBroker) -> list[float]:
     server = TimedServer(units=(1,))
     await server.start()
@@ -250,16 +290,20 @@ async def main() -> None:
             print()
             header = (
                 f"{'zones':>5}  {'peak RSS MB':>11}  {'x import':>8}  {'CPU s/zone-h':>12}"
-                f"  {'x step':>7}  {'p50 ms':>7}  {'p99 ms':>7}  {'x rtt':>6}"
+                f"  {'x step':>7}  {'virtual':>8}  {'x step':>7}  {'p50 ms':>7}  {'p99 ms':>7}"
+                f"  {'x rtt':>6}"
             )
             print(header)
             for zones in (1, 50):
                 rss, cpu = await footprint(zones, workdir, broker)
+                vcpu, jumps = await virtual_cpu_per_zone_hour(zones, workdir)
                 lat = await latency(zones, workdir, broker)
                 p50, p99 = pct(lat, 0.5), pct(lat, 0.99)
                 print(
                     f"{zones:>5}  {rss:>11.1f}  {rss / base_rss:>8.2f}  {cpu:>12.4f}"
-                    f"  {cpu / base_cpu:>7.1f}  {p50:>7.1f}  {p99:>7.1f}  {p50 / base_rtt:>6.1f}"
+                    f"  {cpu / base_cpu:>7.1f}  {vcpu:>8.4f}  {vcpu / base_cpu:>7.1f}"
+                    f"  {p50:>7.1f}  {p99:>7.1f}  {p50 / base_rtt:>6.1f}"
+                    f"   ({jumps} clock jumps)"
                 )
                 if zones == 50:
                     print()
@@ -271,6 +315,7 @@ async def main() -> None:
                     )
             print(
                 f"(footprint: {FOOTPRINT_SIM_HOURS} simulated h at speed {FOOTPRINT_SPEED:g};"
+                f" virtual: {VIRTUAL_SIM_HOURS} simulated h in this process;"
                 f" latency: {LATENCY_COMMANDS} commands on the real clock)"
             )
     finally:
@@ -278,5 +323,7 @@ async def main() -> None:
 
 
 if __name__ == "__main__":
-    with contextlib.suppress(KeyboardInterrupt):
-        asyncio.run(main())
+    from roomloop.clock import AutojumpLoop
+
+    with contextlib.suppress(KeyboardInterrupt), asyncio.Runner(loop_factory=AutojumpLoop) as run:
+        run.run(main())

@@ -18,18 +18,24 @@ PREFIX = "roomloop/quillby-green-hall"
 ZONES = ("small-hall", "meeting-room", "kitchen")
 
 
+WANTED = {f"{PREFIX}/status", *(f"{PREFIX}/zone/{zone}/state" for zone in ZONES)}
+
+
 async def _retained(host: str, port: int) -> dict[str, bytes]:
-    """Every retained message under the demo's prefix (collected for a bounded time)."""
+    """The retained messages under the demo's prefix, until the status and every zone's
+    state are in (bounded: whatever came within 10 s otherwise)."""
     got: dict[str, bytes] = {}
     async with aiomqtt.Client(host, port) as client:
         await client.subscribe(f"{PREFIX}/#", qos=1)
         try:
-            async with asyncio.timeout(1.5):
+            async with asyncio.timeout(10.0):
                 async for message in client.messages:
                     payload = message.payload
                     got[str(message.topic)] = (
                         payload if isinstance(payload, bytes) else str(payload).encode()
                     )
+                    if set(got) >= WANTED:
+                        break
         except TimeoutError:
             pass
     return got
@@ -37,7 +43,7 @@ async def _retained(host: str, port: int) -> dict[str, bytes]:
 
 async def test_demo_publishes_to_the_broker(mosquitto: Any) -> None:
     host, port = mosquitto
-    env = dict(os.environ, PYTHONUNBUFFERED="1")
+    env = dict(os.environ, PYTHONUNBUFFERED="1", ROOMLOOP_CLOCK="virtual")
     process = await asyncio.create_subprocess_exec(
         sys.executable,
         "-m",

@@ -1,7 +1,8 @@
 """``roomloop demo`` as a user runs it: a subprocess, real Modbus TCP on loopback, real signals.
 
 The demo's output goes to a pipe here, so it prints plain lines (no live view).
-Every wait is bounded; a run of one simulated hour at a high speed takes a few seconds.
+It runs on a virtual clock (the ``ROOMLOOP_CLOCK=virtual`` test hook), as fast as
+the CPU allows, so a simulated hour takes about a second. Every wait is bounded.
 """
 
 from __future__ import annotations
@@ -30,6 +31,7 @@ def _demo(*args: str) -> list[str]:
 def _env() -> dict[str, str]:
     env = dict(os.environ)
     env["PYTHONUNBUFFERED"] = "1"
+    env["ROOMLOOP_CLOCK"] = "virtual"
     return env
 
 
@@ -68,7 +70,7 @@ def _check_short_run(out: str, plot: Path) -> None:
         if "relay differed from the service's decision" in out:
             note = (
                 "\nNOTE: a coil did not follow the service's decisions during this run; seen "
-                "when ModbusLink.set_output (output loop) and reassert_due (poll loop) write "
+                "when ModbusLink.set_output (output writer) and reassert_due (poll loop) write "
                 "the same output at once (io/modbus.py)."
             )
         raise AssertionError(f"{exc}{note}\n--- demo output ---\n{out}") from None
@@ -112,7 +114,7 @@ def _assert_short_run(out: str, plot: Path) -> None:
 )
 def test_a_signal_stops_cleanly_with_outputs_safe(signum: signal.Signals, said: str) -> None:
     process = subprocess.Popen(
-        _demo("--hours", "8"),
+        _demo("--hours", "8"),  # a status block every 30 simulated min; the run lasts seconds
         stdout=subprocess.PIPE,
         stderr=subprocess.PIPE,
         text=True,
@@ -165,30 +167,30 @@ def test_a_signal_stops_cleanly_with_outputs_safe(signum: signal.Signals, said: 
         (["--plot", "/nonexistent/demo.png"], "the folder /nonexistent does not exist"),
     ],
 )
-def test_bad_options_exit_2_with_one_line(args: list[str], message: str) -> None:
-    done = subprocess.run(
-        _demo(*args), capture_output=True, text=True, timeout=30.0, env=_env(), check=False
-    )
-    assert done.returncode == 2
-    assert message in done.stderr
-    assert "Traceback" not in done.stderr
-    assert done.stdout == ""
+def test_bad_options_exit_2_with_one_line(
+    args: list[str], message: str, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """In-process (the refusals come before anything runs; the runs above are processes)."""
+    from roomloop.cli import main
+
+    assert main(["demo", *args]) == 2
+    captured = capsys.readouterr()
+    assert message in captured.err
+    assert "Traceback" not in captured.err
+    assert captured.out == ""
 
 
-def test_plot_into_a_missing_folder_is_refused_before_the_run(tmp_path: Path) -> None:
+def test_plot_into_a_missing_folder_is_refused_before_the_run(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    from roomloop.cli import main
+
     target = tmp_path / "no-such-folder" / "demo.png"
-    done = subprocess.run(
-        _demo("--plot", str(target)),
-        capture_output=True,
-        text=True,
-        timeout=30.0,
-        env=_env(),
-        check=False,
-    )
-    assert done.returncode == 2
-    assert f"--plot {target}: the folder {target.parent} does not exist" in done.stderr
-    assert "Traceback" not in done.stderr
-    assert done.stdout == ""  # refused at once, not after a minute of demo
+    assert main(["demo", "--plot", str(target)]) == 2
+    captured = capsys.readouterr()
+    assert f"--plot {target}: the folder {target.parent} does not exist" in captured.err
+    assert "Traceback" not in captured.err
+    assert captured.out == ""  # refused at once, not after a minute of demo
 
 
 def test_plot_without_matplotlib_is_refused_before_the_run(

@@ -10,6 +10,7 @@ from typing import Any
 import pytest
 from structlog.testing import capture_logs
 
+from roomloop.clock import VirtualClock
 from roomloop.config.models import ModbusInput, ModbusOutput, ModbusTcpLink
 from roomloop.errors import DeviceError
 from roomloop.io.codec import encode_raw
@@ -234,13 +235,13 @@ async def test_slow_link_does_not_hold_up_another(modbus_tcp_server: Any) -> Non
 
 async def test_output_write_read_back_mismatch_and_reassert(modbus_tcp_server: Any) -> None:
     server = await modbus_tcp_server()
-    clock = [1000.0]
+    clock = VirtualClock(start=1000.0)
     outputs = [
         out("relay", 3, reassert_s=60),
         out("valve", 7, table="holding", on_value=0x0100, off_value=0x0000),
         out("blind", 4, read_back=False),
     ]
-    link = ModbusLink(tcp_link(server), [], outputs, clock=lambda: clock[0])
+    link = ModbusLink(tcp_link(server), [], outputs, clock=clock)
     async with link:
         state = await link.set_output("relay", True)
         assert (state.verdict, state.confirmed) == ("ok", True)
@@ -251,10 +252,11 @@ async def test_output_write_read_back_mismatch_and_reassert(modbus_tcp_server: A
         assert (await link.set_output("blind", True)).verdict == "unverified"
 
         # the relay module lost power: the coil dropped; re-assertion puts it back
+        commanded = {"relay": True, "valve": True, "blind": True}  # what the owner wants
         await server.set_coils(3, [False])
-        assert await link.reassert_due(clock[0] + 30) == []  # not due yet
-        clock[0] += 61
-        again = await link.reassert_due(clock[0])
+        assert await link.reassert_due(clock.now() + 30, commanded) == []  # not due yet
+        clock.advance(61)
+        again = await link.reassert_due(clock.now(), commanded)
         assert "relay" in [s.name for s in again]
         assert (await server.get_coils(3, 1)) == [True]
 
@@ -275,21 +277,22 @@ async def test_output_write_read_back_mismatch_and_reassert(modbus_tcp_server: A
 
 
 async def test_a_new_decision_is_never_overtaken_by_a_reassert(modbus_tcp_server: Any) -> None:
-    """The poll loop's re-assert of the old state and the output writer's new decision race.
+    """The poll loop's re-assert and the output writer's new decision race.
 
-    The new decision is queued first and the re-assert of the old wanted state comes while
-    it is in flight; the coil must end at the new decision and the link must want it.
+    The new decision is queued first and the re-assert (due for the old state) comes while
+    it is in flight, with what the owner commands by then; the coil must end at the new
+    decision and the link's state must say so.
     """
     server = await modbus_tcp_server()
-    clock = [1000.0]
+    clock = VirtualClock(start=1000.0)
     relay = out("relay", 3, reassert_s=60)
-    link = ModbusLink(tcp_link(server), [], [relay], clock=lambda: clock[0])
+    link = ModbusLink(tcp_link(server), [], [relay], clock=clock)
     async with link:
         assert (await link.set_output("relay", True)).verdict == "ok"
-        clock[0] += 61  # a re-assert of "on" is now due
+        clock.advance(61)  # a re-assert of "on" is now due
         switch_off = asyncio.create_task(link.set_output("relay", False))
         await asyncio.sleep(0)  # the off write is under way
-        await link.reassert_due(clock[0])
+        await link.reassert_due(clock.now(), {"relay": False})  # the owner now wants off
         state = await asyncio.wait_for(switch_off, 5)
         assert await server.get_coils(3, 1) == [False]
         assert (state.wanted, state.verdict) == (False, "ok")
@@ -308,7 +311,7 @@ async def test_write_to_an_unreachable_device(modbus_tcp_server: Any) -> None:
         deadline = time.monotonic() + 5.0
         while link.output_state("relay").verdict != "ok":
             assert time.monotonic() < deadline
-            await link.reassert_due(time.time())
+            await link.reassert_due(time.time(), {"relay": True})
             await asyncio.sleep(0.05)
         assert await server.get_coils(0, 1) == [True]
 
@@ -316,16 +319,16 @@ async def test_write_to_an_unreachable_device(modbus_tcp_server: Any) -> None:
 async def test_broken_sensor_logs_are_rate_limited(modbus_tcp_server: Any) -> None:
     server = await modbus_tcp_server()
     await server.set_registers("input", 0, [0x7FFF])
-    clock = [0.0]
+    clock = VirtualClock(start=0.0)
     point = inp("room", 0, scale=0.1, sentinels=(0x7FFF,))
-    link = ModbusLink(tcp_link(server), [point], clock=lambda: clock[0], log_interval_s=300)
+    link = ModbusLink(tcp_link(server), [point], clock=clock, log_interval_s=300)
     with capture_logs() as events:
         async with link:
             for _ in range(20):
-                clock[0] += 5
+                clock.advance(5)
                 sample = (await link.poll())[0]
                 assert (sample.value, sample.transport) == (None, "over-range")
-            clock[0] += 300
+            clock.advance(300)
             await link.poll()
             await server.set_registers("input", 0, [0x00D7])
             await link.poll()
@@ -339,7 +342,7 @@ async def test_broken_sensor_logs_are_rate_limited(modbus_tcp_server: Any) -> No
 async def test_stale_when_polls_stop(modbus_tcp_server: Any) -> None:
     server = await modbus_tcp_server()
     point = inp("room", 0, reliability={"stale_after_s": 30})
-    link = ModbusLink(tcp_link(server), [point], clock=lambda: 1000.0)
+    link = ModbusLink(tcp_link(server), [point], clock=VirtualClock(start=1000.0))
     async with link:
         await link.poll()
     assert link.samples(1020.0)["room"].transport == "ok"

@@ -1,9 +1,11 @@
 """Rooms behind a real Modbus TCP server, and the service as a real subprocess, for the e2e tests.
 
 Each room is a first-order model, ``tau dT/dt = T_eq(u) - T`` (Newton's law of
-cooling, REFERENCES.md [published]), stepped in the test process on a clock
-``speed`` times faster than real time, the same speed the service subprocess
-runs at (``ROOMLOOP_CLOCK_SPEED``). Room ``i`` is input register ``i`` (int16,
+cooling, REFERENCES.md [published]), stepped in the test process on a clock:
+the in-process tests' :class:`VirtualClock` (the service shares it), or for the
+subprocess tests a paced clock ``speed`` times faster than real time, the same
+speed the service subprocess runs at (``ROOMLOOP_CLOCK_SPEED``: two processes
+cannot share one virtual clock). Room ``i`` is input register ``i`` (int16,
 tenths of a degree) and coil ``i`` on unit 1.
 """
 
@@ -24,6 +26,7 @@ from typing import Any
 
 import aiomqtt
 
+from roomloop.clock import Clock, PacedClock, wait_for
 from roomloop.service.app import Service
 
 TAU_S = 1200.0
@@ -36,16 +39,23 @@ class Room:
     temperature: float
     coil: bool = False
     coil_changes: list[tuple[float, bool]] = field(default_factory=list)
-    """(monotonic time, new coil state) as the plant saw them."""
+    """(clock time, new coil state) as the plant saw them."""
 
 
 class RoomPlant:
     """Steps every room from its coil and writes its temperature, until stopped."""
 
-    def __init__(self, server: Any, temperatures: list[float], speed: float) -> None:
+    def __init__(
+        self, server: Any, temperatures: list[float], clock: Clock | float, step_s: float = 5.0
+    ) -> None:
+        """``clock``: the test's clock, or a speed for a paced one (the subprocess tests);
+        the rooms step every ``step_s`` clock seconds (every 20 ms real when paced)."""
         self.server = server
         self.rooms = [Room(t) for t in temperatures]
-        self.speed = speed
+        if isinstance(clock, int | float):
+            clock, step_s = PacedClock(clock), 0.02 * clock
+        self.clock: Clock = clock
+        self.step_s = step_s
         self.frozen = False
         """While True the plant does not touch the server (it is stopped)."""
         self._task: asyncio.Task[None] | None = None
@@ -66,11 +76,11 @@ class RoomPlant:
         await self.server.set_registers("input", 0, regs)
 
     async def _run(self) -> None:
-        last = time.monotonic()
+        last = self.clock.monotonic()
         while True:
-            await asyncio.sleep(0.02)
-            now = time.monotonic()
-            dt = (now - last) * self.speed
+            await self.clock.sleep(self.step_s)
+            now = self.clock.monotonic()
+            dt = now - last
             last = now
             if self.frozen:
                 continue
@@ -228,7 +238,10 @@ class ServiceProcess:
 class Watcher:
     """An MQTT client that keeps the latest payload per topic and every command answer."""
 
-    def __init__(self, host: str, port: int, prefix: str) -> None:
+    def __init__(self, host: str, port: int, prefix: str, clock: Clock | None = None) -> None:
+        self.clock = clock
+        """The clock ``wait_for`` looks on (the in-process tests' virtual clock), or None:
+        real time, for a service in another process."""
         self.host = host
         self.port = port
         self.prefix = prefix
@@ -268,7 +281,7 @@ class Watcher:
                         self.changed.set()
             except aiomqtt.MqttError:
                 self.client = None
-                await asyncio.sleep(0.2)
+                await self._pause(0.2)
 
     def state(self, zone: str = "room0") -> dict[str, Any] | None:
         raw = self.latest.get(f"{self.prefix}/zone/{zone}/state")
@@ -289,7 +302,12 @@ class Watcher:
         return self.results[count_before]
 
     async def wait_for(self, condition: Callable[[], bool], timeout_s: float) -> None:
-        """Wait until ``condition()`` holds; fail the test after ``timeout_s`` real seconds."""
+        """Wait until ``condition()`` holds, looking every 20 ms (every clock second on the
+        watcher's clock); fail the test after ``timeout_s`` real seconds.
+
+        The bound is real time even on a virtual clock: the answer comes through
+        mosquitto, a real process, and a broker round trip lets virtual time move on.
+        """
         deadline = time.monotonic() + timeout_s
         while not condition():
             died = self.guard()
@@ -297,24 +315,31 @@ class Watcher:
                 raise AssertionError(died)
             if time.monotonic() > deadline:
                 raise AssertionError(f"condition not met within {timeout_s} s")
-            await asyncio.sleep(0.02)
+            await self._pause(0.02)
+
+    async def _pause(self, real_s: float) -> None:
+        await (asyncio.sleep(real_s) if self.clock is None else self.clock.sleep(1.0))
 
 
 @contextlib.asynccontextmanager
 async def running(service: Service, timeout_s: float = 30.0) -> AsyncIterator[asyncio.Event]:
-    """Run an in-process service for the body of the ``with``; stop it (bounded) after."""
+    """Run an in-process service for the body of the ``with``; stop it after, within
+    ``timeout_s`` of the service's clock."""
     stop = asyncio.Event()
     task = asyncio.create_task(service.run(stop))
     try:
         yield stop
     finally:
         stop.set()
-        await asyncio.wait_for(task, timeout_s)
+        await wait_for(service.clock, task, timeout_s)
 
 
-async def until(condition: Callable[[], Any], timeout_s: float = 10.0) -> None:
-    """Wait until ``condition()`` is true, failing the test after ``timeout_s``."""
-    deadline = time.monotonic() + timeout_s
+async def until(
+    clock: Clock, condition: Callable[[], Any], timeout_s: float = 600.0, step_s: float = 1.0
+) -> None:
+    """Wait until ``condition()`` is true, looking every ``step_s`` of ``clock``; fail the
+    test after ``timeout_s`` clock seconds (on a virtual clock: exact, and no wall time)."""
+    deadline = clock.monotonic() + timeout_s
     while not condition():
-        assert time.monotonic() < deadline, "condition not met in time"
-        await asyncio.sleep(0.02)
+        assert clock.monotonic() < deadline, f"condition not met within {timeout_s:g} clock s"
+        await clock.sleep(step_s)

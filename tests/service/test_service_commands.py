@@ -1,4 +1,8 @@
-"""Command parsing and checking: plain and JSON payloads, limits, units, times, rate limit."""
+"""Commands: the service parses plain and JSON payloads (units, times), the core checks them.
+
+The checks (limits, words, how far ahead) are the core's (``roomloop.core.commands``);
+here they are exercised the way the service meets them: parsed, then applied.
+"""
 
 from __future__ import annotations
 
@@ -10,7 +14,10 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from roomloop.config.models import Limits, Zone
+from roomloop.config.models import Limits, ModbusInput, Zone
+from roomloop.core.commands import CommandRejected, apply_command
+from roomloop.core.controller import ZoneController
+from roomloop.core.settings import ZoneSettings
 from roomloop.service.commands import (
     Command,
     CommandHandler,
@@ -31,9 +38,19 @@ ZONE = Zone(
 )
 
 
+SETTINGS = ZoneSettings.from_zone(
+    ZONE, {"t": ModbusInput(type="modbus-input", name="t", link="l", address=0)}
+)
+REFUSED = (Refused, CommandRejected)
+
+
 def parse(field: str, payload: bytes | str, units: str = "C") -> Command:
+    """Parse a payload, then let the core check and apply it (raising either refusal)."""
     raw = payload.encode() if isinstance(payload, str) else payload
-    return parse_command(ZONE, field, raw, units=units, tz=VIENNA, now=NOW)
+    command = parse_command(ZONE, field, raw, units=units, tz=VIENNA, now=NOW)
+    state = ZoneController(SETTINGS).initial_state(NOW)
+    apply_command(SETTINGS, state, command.field, command.value, NOW, units=units)
+    return command
 
 
 @pytest.mark.parametrize("payload", ["21.5", " 21.5\n", '"21.5"', "21.5e0", '{"value": 21.5}'])
@@ -44,7 +61,7 @@ def test_setpoint_plain_or_json(payload: str) -> None:
 def test_setpoint_in_fahrenheit_is_converted_and_checked_in_the_sites_units() -> None:
     # 70.7 F = 21.5 C (F = C x 9/5 + 32)
     assert parse("setpoint", "70.7", units="F").value == pytest.approx(21.5)
-    with pytest.raises(Refused, match=re.escape("outside the zone's limits 41 to 78.8 F")):
+    with pytest.raises(CommandRejected, match=re.escape("outside the zone's limits 41 to 78.8 F")):
         parse("setpoint", "80", units="F")
 
 
@@ -70,14 +87,16 @@ def test_setpoint_in_fahrenheit_is_converted_and_checked_in_the_sites_units() ->
     ],
 )
 def test_refusals_say_why(field: str, payload: str | bytes, words: str) -> None:
-    with pytest.raises(Refused) as caught:
+    with pytest.raises(REFUSED) as caught:
         parse(field, payload)
     assert words in str(caught.value)
 
 
 def test_words_are_case_and_space_insensitive() -> None:
-    assert parse("mode", " Hold ").value == "hold"
-    assert parse("level", '"ECONOMY"').value == "economy"
+    state = ZoneController(SETTINGS).initial_state(NOW)
+    assert apply_command(SETTINGS, state, "mode", parse("mode", " Hold ").value, NOW).mode == "hold"
+    level = apply_command(SETTINGS, state, "level", parse("level", '"ECONOMY"').value, NOW)
+    assert level.level_override == "economy"
 
 
 def test_hold_until_local_time_offset_and_clearing() -> None:
@@ -110,16 +129,26 @@ def test_rate_limit_is_a_sliding_minute_per_zone() -> None:
 
 
 class Recorder:
+    """The zone's side: the core checks and applies each command; the accepted ones are kept."""
+
     def __init__(self) -> None:
         self.applied: list[Command] = []
+        self.state = ZoneController(SETTINGS).initial_state(NOW)
 
     def __call__(self, command: Command) -> None:
+        self.state = apply_command(SETTINGS, self.state, command.field, command.value, NOW)
         self.applied.append(command)
 
 
 def handler(recorder: Recorder, rate: int = 30) -> CommandHandler:
     return CommandHandler(
-        "roomloop/annex", {"studio": ZONE}, recorder, units="C", tz=VIENNA, rate_per_min=rate
+        "roomloop/annex",
+        {"studio": ZONE},
+        recorder,
+        units="C",
+        tz=VIENNA,
+        rate_per_min=rate,
+        refusals=(CommandRejected,),
     )
 
 

@@ -28,7 +28,7 @@ from service_rooms import RoomPlant, ServiceProcess, Watcher, site_yaml
 
 pytestmark = [pytest.mark.needs_mosquitto, pytest.mark.slow]
 
-SPEED = 60.0
+SPEED = 120.0
 PREFIX = "roomloop/test-annex"
 
 
@@ -46,7 +46,9 @@ class Rig:
 
     async def restart_service(self) -> None:
         old = self.service
-        self.service = ServiceProcess(old.config, old.state_dir, SPEED, old.log_path, old.origin)
+        self.service = ServiceProcess(
+            old.config, old.state_dir, old.speed, old.log_path, old.origin
+        )
         self.watcher.guard = self.service.died
         await self.service.start()
 
@@ -57,6 +59,7 @@ async def _rig(
     mosquitto: Any,
     modbus_tcp_server: Any,
     temperatures: list[float],
+    speed: float = SPEED,
     **site: Any,
 ) -> AsyncIterator[Rig]:
     server = await modbus_tcp_server(units=(1,))
@@ -72,10 +75,10 @@ async def _rig(
         )
     )
     service = ServiceProcess(
-        config, tmp_path / "state", SPEED, tmp_path / "service.log", origin=time.time()
+        config, tmp_path / "state", speed, tmp_path / "service.log", origin=time.time()
     )
     async with (
-        RoomPlant(server, temperatures, SPEED) as plant,
+        RoomPlant(server, temperatures, speed) as plant,
         Watcher(mosquitto.host, mosquitto.port, PREFIX) as watcher,
     ):
         rig = Rig(server, plant, mosquitto, watcher, service, tmp_path)
@@ -179,9 +182,12 @@ async def test_a_stop_signal_leaves_the_coil_off_and_status_offline(
 async def test_kill_and_restart_restores_the_hold_and_short_cycle_timing(
     tmp_path: Path, mosquitto: Any, modbus_tcp_server: Any
 ) -> None:
-    # A 300 s minimum off time (5 s real) leaves room for a slow restart on a busy machine.
+    # A 300 s minimum off time (5 s real at half SPEED) leaves room for a slow restart on a
+    # busy machine (300 s is the most the electric preset's cycle rate allows).
     zone = {"tuning": {"min_off_s": 300}}
-    async with _rig(tmp_path, mosquitto, modbus_tcp_server, [17.0], extra_zone=zone) as rig:
+    async with _rig(
+        tmp_path, mosquitto, modbus_tcp_server, [17.0], speed=SPEED / 2, extra_zone=zone
+    ) as rig:
         await _kill_and_restart(rig)
 
 
@@ -251,7 +257,7 @@ async def test_sensor_server_stopped_engages_fail_safe_visibly(rig: Rig) -> None
     assert state is not None
     assert state["fail_safe_policy"] == "fixed-duty"
     assert state["reliability"]["t0"] == "comm-failure"
-    # sensor_timeout_s is 300 simulated seconds: 5 s real at SPEED, plus polling and a tick.
+    # sensor_timeout_s is 300 simulated seconds: 2.5 s real at SPEED, plus polling and a tick.
     assert time.monotonic() - stopped < 300 / SPEED + 5
 
 
@@ -259,8 +265,8 @@ async def test_program_entry_switches_the_level_at_its_time(
     tmp_path: Path, mosquitto: Any, modbus_tcp_server: Any
 ) -> None:
     now = dt.datetime.now(dt.UTC)
-    # 5 to 6 simulated minutes ahead: 5 to 6 s at SPEED, time enough for a start under load.
-    switch = (now + dt.timedelta(minutes=6)).replace(second=0, microsecond=0)
+    # 10 to 11 simulated minutes ahead: 5 to 5.5 s at SPEED, time enough for a start under load.
+    switch = (now + dt.timedelta(minutes=11)).replace(second=0, microsecond=0)
     program = [
         {"days": "all", "at": (now - dt.timedelta(hours=2)).strftime("%H:%M"), "level": "comfort"},
         {"days": "all", "at": switch.strftime("%H:%M"), "level": "economy"},

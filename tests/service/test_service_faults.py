@@ -1,13 +1,13 @@
 """The service in-process against faults found in review: absurd commands, slow devices, stops.
 
 Real parts: mosquitto, pymodbus TCP servers playing rooms (``service_rooms.RoomPlant``).
-The clock is simulated.
+The service, the rooms and the slow devices share one virtual clock.
 """
 
 from __future__ import annotations
 
 import asyncio
-import time
+import threading
 from pathlib import Path
 from typing import Any
 
@@ -16,12 +16,11 @@ import yaml
 from service_rooms import RoomPlant, Watcher, running, site_yaml, until
 from structlog.testing import capture_logs
 
+from roomloop.clock import VirtualClock, wait_for
 from roomloop.config.loader import load_site
 from roomloop.config.models import Site
-from roomloop.service.app import Service
-from roomloop.service.clock import SimulatedClock
+from roomloop.service.app import Service, TickReport
 
-SPEED = 60.0
 PREFIX = "roomloop/test-annex"
 
 
@@ -35,14 +34,15 @@ def write_site(tmp_path: Path, data: dict[str, Any]) -> Site:
 async def test_absurd_numbers_are_refused_and_state_is_still_published(
     tmp_path: Path, mosquitto: Any, modbus_tcp_server: Any
 ) -> None:
+    clock = VirtualClock()
     server = await modbus_tcp_server()
     site = write_site(
         tmp_path, site_yaml(modbus_port=server.port, broker_port=mosquitto.port)
     )
-    service = Service(site, clock=SimulatedClock(SPEED), state_dir=tmp_path / "state")
+    service = Service(site, clock=clock, state_dir=tmp_path / "state")
     async with (
-        RoomPlant(server, [17.0], SPEED),
-        Watcher(mosquitto.host, mosquitto.port, PREFIX) as w,
+        RoomPlant(server, [17.0], clock),
+        Watcher(mosquitto.host, mosquitto.port, PREFIX, clock=clock) as w,
         running(service),
     ):
         await w.wait_for(lambda: w.state() is not None, 15)
@@ -89,48 +89,50 @@ def two_link_site(tmp_path: Path, slow_port: int, fast_port: int) -> Site:
 async def test_a_slow_device_does_not_hold_up_another_zones_output(
     tmp_path: Path, modbus_tcp_server: Any
 ) -> None:
+    clock = VirtualClock()
     slow = await modbus_tcp_server()
     fast = await modbus_tcp_server()
+    slow.clock = fast.clock = clock
     site = two_link_site(tmp_path, slow.port, fast.port)
-    service = Service(site, clock=SimulatedClock(SPEED), state_dir=tmp_path / "state")
+    service = Service(site, clock=clock, state_dir=tmp_path / "state")
     async with (
-        RoomPlant(slow, [23.0], SPEED),
-        RoomPlant(fast, [23.0], SPEED) as plant_b,
+        RoomPlant(slow, [23.0], clock),
+        RoomPlant(fast, [23.0], clock, step_s=0.5) as plant_b,
         running(service),
     ):
-        await until(lambda: all(z.decided for z in service.zones.values()), 20)
-        await until(lambda: service._written == {"relay0": False, "relay1": False}, 10)
-        await asyncio.sleep(0.5)  # let the start-up writes finish
+        await until(clock, lambda: all(z.decided for z in service.zones.values()))
+        await until(clock, lambda: service.outputs.written == {"relay0": False, "relay1": False})
+        await clock.sleep(0.5)  # let the start-up writes finish
         slow.delay_s = 5.0  # every request to room0's device now times out (3 attempts each)
         # Both zones want heat at once; room0 comes first in the output round.
         service.apply_command("room0", "setpoint", 26.0)
         service.apply_command("room1", "setpoint", 26.0)
-        await until(lambda: service.zones["room1"].wanted, 5)
+        await until(clock, lambda: service.outputs.wanted["relay1"], 5, step_s=0.5)
         # A serial round would wait out room0's write and read-back (over 6 s) first.
-        await until(lambda: plant_b.rooms[0].coil, 3.0)
+        await until(clock, lambda: plant_b.rooms[0].coil, 3.0, step_s=0.5)
         slow.delay_s = 0.0
 
 
 async def test_at_stop_every_output_on_a_slow_link_gets_its_safe_write(
     tmp_path: Path, modbus_tcp_server: Any
 ) -> None:
+    clock = VirtualClock()
     server = await modbus_tcp_server()
+    server.clock = clock
     data = site_yaml(modbus_port=server.port, broker_port=1, zones=4)
     del data["broker"]
     data["links"][0].update(timeout_s=1.0, retries=2)
-    service = Service(
-        write_site(tmp_path, data), clock=SimulatedClock(SPEED), state_dir=tmp_path / "state"
-    )
+    service = Service(write_site(tmp_path, data), clock=clock, state_dir=tmp_path / "state")
     stop = asyncio.Event()
     with capture_logs() as events:
-        async with RoomPlant(server, [17.0] * 4, SPEED) as plant:
+        async with RoomPlant(server, [17.0] * 4, clock) as plant:
             task = asyncio.create_task(service.run(stop))
-            await until(lambda: all(room.coil for room in plant.rooms), 20)
+            await until(clock, lambda: all(room.coil for room in plant.rooms))
             plant.frozen = True
             seen = len(server.requests)
             server.delay_s = 0.6  # answers, but slowly: a serial stop with retries runs out
             stop.set()
-            await asyncio.wait_for(task, 10)
+            await wait_for(clock, task, 10)
     writes = {r.address for r in server.requests[seen:] if r.function_code == 5}
     assert writes == {0, 1, 2, 3}, server.requests[seen:]
     safe = [e for e in events if e["event"] == "output.safe_state"]
@@ -144,19 +146,18 @@ async def test_at_stop_every_output_on_a_slow_link_gets_its_safe_write(
 async def test_cancelled_from_outside_the_outputs_still_go_safe_and_the_state_is_saved(
     tmp_path: Path, modbus_tcp_server: Any
 ) -> None:
+    clock = VirtualClock()
     server = await modbus_tcp_server()
     data = site_yaml(modbus_port=server.port, broker_port=1)
     del data["broker"]
-    service = Service(
-        write_site(tmp_path, data), clock=SimulatedClock(SPEED), state_dir=tmp_path / "state"
-    )
-    async with RoomPlant(server, [17.0], SPEED) as plant:
+    service = Service(write_site(tmp_path, data), clock=clock, state_dir=tmp_path / "state")
+    async with RoomPlant(server, [17.0], clock) as plant:
         task = asyncio.create_task(service.run(asyncio.Event()))
-        await until(lambda: plant.rooms[0].coil, 20)  # heating; the safe state is off
+        await until(clock, lambda: plant.rooms[0].coil)  # heating; the safe state is off
         service.apply_command("room0", "setpoint", 23.5)
         task.cancel()
         with pytest.raises(asyncio.CancelledError):
-            await asyncio.wait_for(task, 10)
+            await wait_for(clock, task, 10)
     assert (await server.get_coils(0, 1)) == [False]
     assert service.store.load()["room0"]["hold_setpoint"] == 23.5
 
@@ -164,32 +165,41 @@ async def test_cancelled_from_outside_the_outputs_still_go_safe_and_the_state_is
 async def test_a_slow_disk_stalls_no_zone_loop_and_the_last_state_is_saved(
     tmp_path: Path, modbus_tcp_server: Any
 ) -> None:
+    # A disk slower than the control loop: virtual time goes on while the write's thread works.
+    clock = VirtualClock(jump_during_threads=True)
     server = await modbus_tcp_server()
     data = site_yaml(modbus_port=server.port, broker_port=1)
     del data["broker"]
+    ticked = threading.Event()
+
+    def on_tick(_report: TickReport) -> None:
+        ticked.set()
+
     service = Service(
-        write_site(tmp_path, data), clock=SimulatedClock(SPEED), state_dir=tmp_path / "state"
+        write_site(tmp_path, data), clock=clock, state_dir=tmp_path / "state", on_tick=on_tick
     )
     real_save = service.store.save
     zone_went_on: list[bool] = []
 
     def slow_save(zones: dict[str, Any], now: float) -> bool:
-        """A card that takes its time: waits (bounded) for the zone loop to step 3 times."""
+        """A card that takes its time: waits (each wait bounded) for the zone to step 3 times."""
         runtime = service.zones["room0"]
         steps = runtime.steps
-        deadline = time.monotonic() + 3.0
-        while runtime.steps < steps + 3 and time.monotonic() < deadline:
-            time.sleep(0.01)
+        while runtime.steps < steps + 3 and ticked.wait(3.0):
+            ticked.clear()
         zone_went_on.append(runtime.steps >= steps + 3)
         return real_save(zones, now)
 
     service.store.save = slow_save  # type: ignore[method-assign]
-    async with RoomPlant(server, [17.0], SPEED), running(service):
-        await until(lambda: "room0" in service.zones and service.zones["room0"].decided, 20)
+    async with RoomPlant(server, [17.0], clock), running(service):
+        await until(clock, lambda: "room0" in service.zones and service.zones["room0"].decided)
         for setpoint in (21.0, 22.0, 23.0):
             service.apply_command("room0", "setpoint", setpoint)
-            await asyncio.sleep(0.1)
-        await until(lambda: len(zone_went_on) >= 1, 10)
-        while_running = list(zone_went_on)  # the final save runs with the zone loops stopped
+            await clock.sleep(0.1)
+        await until(clock, lambda: len(zone_went_on) >= 1)
+        while_running = list(zone_went_on)
+        # The final save runs with the zone loops stopped: a plain disk again for it.
+        service.store.save = real_save  # type: ignore[method-assign]
+        clock.jump_during_threads = False
     assert while_running and all(while_running), while_running
     assert service.store.load()["room0"]["hold_setpoint"] == 23.0

@@ -15,10 +15,7 @@ from structlog.testing import capture_logs
 
 from roomloop.config.loader import load_site
 from roomloop.service.app import Service
-from roomloop.service.clock import SimulatedClock
-
-SPEED = 60.0
-
+from roomloop.clock import VirtualClock
 
 async def test_a_failed_output_write_is_logged_as_such(
     tmp_path: Path, modbus_tcp_server: Any
@@ -28,11 +25,12 @@ async def test_a_failed_output_write_is_logged_as_such(
     del data["broker"]
     path = tmp_path / "site.yaml"
     path.write_text(yaml.safe_dump(data))
-    service = Service(load_site(path), clock=SimulatedClock(SPEED), state_dir=tmp_path / "s")
+    clock = VirtualClock()
+    service = Service(load_site(path), clock=clock, state_dir=tmp_path / "s")
     with capture_logs() as events:
-        async with RoomPlant(server, [17.0], SPEED), running(service):
+        async with RoomPlant(server, [17.0], clock), running(service):
             server.exception_code = 4  # from now on the device refuses everything
-            await until(lambda: any(e["event"] == "output.write_failed" for e in events), 20)
+            await until(clock, lambda: any(e["event"] == "output.write_failed" for e in events))
     failed = [e for e in events if e["event"] == "output.write_failed"]
     assert failed[0]["log_level"] == "warning" and failed[0]["point"] == "relay0"
     assert failed[0]["detail"]

@@ -20,6 +20,10 @@ decisions and warns when it did not. Exit codes: 0 ran (to the end or until stop
 plot could not be written after all; 2 a bad option (a --plot path whose folder is
 missing or not writable, or not .png, or --plot without matplotlib: refused before
 the run).
+
+Test hook (not for users, see DEVELOPERS.md): ``ROOMLOOP_CLOCK=virtual`` runs the
+demo on a virtual clock, as fast as the CPU allows, instead of pacing it at
+``--speed`` (the status rows keep their simulated spacing).
 """
 
 from __future__ import annotations
@@ -27,6 +31,7 @@ from __future__ import annotations
 import argparse
 import asyncio
 import logging
+import os
 import shutil
 import signal
 import sys
@@ -37,6 +42,7 @@ from typing import Any, TextIO
 import structlog
 
 from roomloop.cli.outputs import MATPLOTLIB_MISSING, matplotlib_available, output_path_problem
+from roomloop.clock import AutojumpLoop, Clock
 from roomloop.demo.runner import (
     DEFAULT_SPEED,
     MAX_SPEED,
@@ -50,11 +56,11 @@ from roomloop.demo.runner import (
 from roomloop.demo.summary import clock_text, format_summary
 from roomloop.demo.timeline import MAX_HOURS, MIN_HOURS
 from roomloop.log import ConsoleRenderer, configure_logging
-from roomloop.service.clock import Clock
 
 EXIT_OK = 0
 EXIT_RUNTIME = 1
 EXIT_USAGE = 2
+CLOCK_ENV = "ROOMLOOP_CLOCK"
 PLAIN_STATUS_BLOCKS = 16
 """Plain output shows the zones this many times over a run (at least every 5 simulated min)."""
 
@@ -291,8 +297,17 @@ def main(args: argparse.Namespace) -> int:
             return _fail(problem, EXIT_USAGE)
         if not matplotlib_available():
             return _fail(MATPLOTLIB_MISSING, EXIT_USAGE)
+    clock_kind = os.environ.get(CLOCK_ENV, "paced")
+    if clock_kind not in ("paced", "virtual"):
+        return _fail(f"{CLOCK_ENV}={clock_kind!r} is not 'paced' or 'virtual'", EXIT_USAGE)
     stamp = SimulatedStamp(demo_site_timezone())
-    options = DemoOptions(hours=hours, speed=speed, broker=broker, on_clock=stamp.set_clock)
+    options = DemoOptions(
+        hours=hours,
+        speed=speed,
+        broker=broker,
+        on_clock=stamp.set_clock,
+        virtual=clock_kind == "virtual",
+    )
     out = sys.stdout
     view: TerminalView | PlainView
     if out.isatty():
@@ -303,7 +318,8 @@ def main(args: argparse.Namespace) -> int:
         configure_demo_logging(out, stamp)
         view = PlainView(out, max(300.0, hours * 3600 / PLAIN_STATUS_BLOCKS))
     try:
-        result = asyncio.run(_run(options, view))
+        with asyncio.Runner(loop_factory=AutojumpLoop if options.virtual else None) as runner:
+            result = runner.run(_run(options, view))
     except DemoError as exc:
         view.close()
         return _fail(str(exc), EXIT_RUNTIME)

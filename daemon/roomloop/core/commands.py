@@ -3,8 +3,10 @@
 :func:`apply_command` takes a field name and a value as they arrived (a JSON
 value or the plain payload text) and returns the new :class:`ZoneState`, or
 raises :class:`CommandRejected` with a reason the service can publish on
-``cmd/result``. Values are Celsius and POSIX seconds; the service converts site
-units before calling.
+``cmd/result``. It is the one place a command is checked: the service only parses
+payloads (site units to Celsius, local times to POSIX seconds) and hands the value
+here. Values are Celsius and POSIX seconds; ``units`` only words a refusal in the
+site's units.
 
 Fields:
 
@@ -33,6 +35,7 @@ from dataclasses import replace
 from typing import Any
 
 from roomloop.errors import RoomloopError
+from roomloop.units import from_celsius
 
 from .settings import LEVEL_NAMES, MODE_NAMES, ZoneSettings
 from .state import ZoneState
@@ -72,15 +75,27 @@ def current_setpoint(settings: ZoneSettings, state: ZoneState) -> float:
 
 
 def apply_command(
-    settings: ZoneSettings, state: ZoneState, field: str, value: object, now: float
+    settings: ZoneSettings,
+    state: ZoneState,
+    field: str,
+    value: object,
+    now: float,
+    *,
+    units: str = "C",
 ) -> ZoneState:
     """Return ``state`` with the command applied, or raise :class:`CommandRejected`."""
     if field == "setpoint":
         number = _number(field, value)
         low, high = settings.limit_min_c, settings.limit_max_c
         if not low - LIMIT_TOLERANCE_K <= number <= high + LIMIT_TOLERANCE_K:
+
+            def shown(celsius: float) -> str:
+                return f"{round(from_celsius(celsius, units), 6):g}"
+
             raise CommandRejected(
-                field, f"{number:g} C is outside the zone's limits {low:g} to {high:g} C"
+                field,
+                f"setpoint {shown(number)} is outside the zone's limits "
+                f"{shown(low)} to {shown(high)} {units}",
             )
         number = min(max(number, low), high)
         keep_until = state.hold_until if state.mode == "hold" else None
@@ -133,7 +148,10 @@ def apply_command(
     if field == "hold_until":
         until = _optional_number(field, value)
         if until is not None and until <= now:
-            raise CommandRejected(field, f"{until:.0f} is not in the future (now is {now:.0f})")
+            raise CommandRejected(
+                field,
+                f"hold_until {until:.0f} is in the past: it must be in the future (now {now:.0f})",
+            )
         if until is not None and until > now + MAX_HOLD_S:
             raise CommandRejected(
                 field,

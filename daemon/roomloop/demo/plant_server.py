@@ -21,18 +21,17 @@ the relay state held over the step.
 
 from __future__ import annotations
 
-import asyncio
 import logging
 import socket
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
+from roomloop.clock import Clock, wait_for
 from roomloop.config.models import ModbusInput, ModbusOutput, Site, Zone
 from roomloop.io.codec import encode_point
 from roomloop.plant.model import PlantSimulation
 from roomloop.plant.spec import PlantSpec
-from roomloop.service.clock import Clock
 
 STEP_S = 10.0
 """Simulated seconds per plant step (and per recorded sample)."""
@@ -184,7 +183,9 @@ class PlantServer:
 
         logging.getLogger("pymodbus").setLevel(logging.CRITICAL)
         self._server = ModbusTcpServer(self._devices(), address=(LOOPBACK, self.port))
-        await asyncio.wait_for(self._server.serve_forever(background=True), START_TIMEOUT_S)
+        await wait_for(
+            self.clock.io, self._server.serve_forever(background=True), START_TIMEOUT_S
+        )
         self.started_at = self.clock.now()
         self._time = self.started_at
         await self._publish_sensors()
@@ -192,7 +193,7 @@ class PlantServer:
     async def stop(self) -> None:
         server, self._server = self._server, None
         if server is not None:
-            await asyncio.wait_for(server.shutdown(), START_TIMEOUT_S)
+            await wait_for(self.clock.io, server.shutdown(), START_TIMEOUT_S)
 
     async def _get(self, unit: int, function_code: int, address: int, count: int) -> list[Any]:
         if self._server is None:

@@ -4,7 +4,10 @@ One asyncio task each for the plant server's stepping, the service
 (:class:`roomloop.service.app.Service`, the same code ``roomloop run`` uses),
 the scenario (a sensor goes silent and comes back) and the status refresh.
 The program switch from standby to comfort comes from the site's own weekly
-program. Everything runs on one :class:`SimulatedClock`.
+program. Everything runs on one clock: a :class:`PacedClock` for the live view
+(``speed`` simulated seconds per real second), or a :class:`VirtualClock` that runs
+as fast as the CPU allows (``DemoOptions.virtual``: the tests, on an
+:class:`~roomloop.clock.AutojumpLoop`); the same code either way.
 
 The runner knows nothing of terminals: it hands ready-made text to a
 :class:`DemoObserver` (events as they happen, status rows about once a real
@@ -26,6 +29,7 @@ from zoneinfo import ZoneInfo
 
 import structlog
 
+from roomloop.clock import Clock, PacedClock, VirtualClock, sleep_until, timeout, wait_for
 from roomloop.config.loader import load_yaml_document, site_from_data
 from roomloop.config.models import Site
 from roomloop.core.types import ZoneOutputs
@@ -36,7 +40,6 @@ from roomloop.errors import RoomloopError
 from roomloop.plant.loader import PLANT_FOR_HEATING, load_plant
 from roomloop.plant.spec import PlantSpec
 from roomloop.service.app import Service, TickReport
-from roomloop.service.clock import Clock, SimulatedClock
 
 log = structlog.get_logger("roomloop.demo")
 
@@ -51,6 +54,7 @@ START_ROOM_C = 18.0
 SILENT_ZONE = "meeting-room"
 SERVICE_STOP_S = 15.0
 FIRST_DECISION_WAIT_S = 10.0
+"""Real seconds at ``speed`` (simulated: times ``speed``) the view waits for every zone."""
 SERVICE_CANCEL_S = 5.0
 PORT_ATTEMPTS = 3
 
@@ -75,7 +79,10 @@ class DemoOptions:
     speed: float = DEFAULT_SPEED
     broker: tuple[str, int] | None = None
     refresh_s: float = 1.0
-    """Real seconds between two status refreshes."""
+    """Real seconds between two status refreshes at ``speed`` (``refresh_s * speed``
+    simulated seconds, on a virtual clock too)."""
+    virtual: bool = False
+    """Run on a virtual clock (needs an AutojumpLoop) instead of pacing at ``speed``."""
     on_clock: Callable[[Clock], None] | None = None
     """Called with the demo's simulated clock before anything runs (log time stamps)."""
 
@@ -300,7 +307,11 @@ class _Demo:
             except ValueError as exc:
                 raise DemoError(str(exc)) from None
             self.timeline = timeline
-            clock = SimulatedClock(options.speed, start=timeline.start)
+            clock: Clock = (
+                VirtualClock(start=timeline.start)
+                if options.virtual
+                else PacedClock(options.speed, start=timeline.start)
+            )
             if options.on_clock is not None:
                 options.on_clock(clock)
             server = PlantServer(
@@ -327,7 +338,7 @@ class _Demo:
         timeline = self.timeline
         clock = server.clock
         self.records = {z.name: ZoneRecord() for z in site.zones}
-        real_start = time.monotonic()
+        real_start = time.monotonic()  # only for the report's "N h in M s" figure
         silent = server.zone(SILENT_ZONE)
         self.say(
             timeline.start,
@@ -376,7 +387,7 @@ class _Demo:
             await _cancel(plants, scenario, refresh, stopper)
             service_stop.set()
             try:
-                await asyncio.wait_for(asyncio.shield(service_task), SERVICE_STOP_S)
+                await wait_for(clock.io, asyncio.shield(service_task), SERVICE_STOP_S)
             except TimeoutError:
                 waiting = _pending_tasks({plants, scenario, refresh, stopper, service_task})
                 log.error("demo.service_stop_stuck", within_s=SERVICE_STOP_S, tasks=waiting)
@@ -394,7 +405,8 @@ class _Demo:
                 service_stop.set()
                 service_task.cancel()
                 # Bounded: a service that ignores cancellation must not hang the demo.
-                await asyncio.wait({service_task}, timeout=SERVICE_CANCEL_S)
+                with contextlib.suppress(TimeoutError):
+                    await wait_for(clock.io, asyncio.wait({service_task}), SERVICE_CANCEL_S)
         self._emit_status(server, ended_at)
         log.info(
             "demo.stopped", completed=completed, simulated_h=(ended_at - timeline.start) / 3600
@@ -431,17 +443,17 @@ class _Demo:
     async def _scenario(self, server: PlantServer, unit: int) -> None:
         assert self.timeline is not None
         timeline = self.timeline
-        await _sleep_until(server.clock, timeline.silence_start)
+        await sleep_until(server.clock, timeline.silence_start)
         server.silence(unit)
         self.say(
             server.clock.now(),
             f"{SILENT_ZONE}: its sensor (unit {unit}) goes silent: the gateway answers "
             "'target device failed to respond' (Modbus exception 11)",
         )
-        await _sleep_until(server.clock, timeline.silence_end)
+        await sleep_until(server.clock, timeline.silence_end)
         server.restore(unit)
         self.say(server.clock.now(), f"{SILENT_ZONE}: its sensor answers again")
-        await _sleep_until(server.clock, timeline.end)
+        await sleep_until(server.clock, timeline.end)
 
     def _rows(self, server: PlantServer) -> list[str]:
         rooms = server.room_temperatures()
@@ -457,11 +469,13 @@ class _Demo:
 
     async def _refresh(self, server: PlantServer) -> None:
         # The first rows once every zone has decided (bounded: show whatever there is after).
+        clock = server.clock
         with contextlib.suppress(TimeoutError):
-            await asyncio.wait_for(self.all_decided.wait(), FIRST_DECISION_WAIT_S)
+            async with timeout(clock, FIRST_DECISION_WAIT_S * self.options.speed):
+                await self.all_decided.wait()
         while True:
             self._emit_status(server)
-            await asyncio.sleep(self.options.refresh_s)
+            await clock.sleep(self.options.refresh_s * self.options.speed)
 
     def _emit_status(self, server: PlantServer, at: float | None = None) -> None:
         now = server.clock.now() if at is None else at
@@ -512,14 +526,6 @@ def _task_error(task: asyncio.Task[None]) -> str:
         return "cancelled"
     exc = task.exception()
     return "ended" if exc is None else f"{type(exc).__name__}: {exc}"
-
-
-async def _sleep_until(clock: Clock, when: float) -> None:
-    while True:
-        left = when - clock.now()
-        if left <= 0:
-            return
-        await clock.sleep(left)
 
 
 async def run_demo(options: DemoOptions, observer: DemoObserver, stop: asyncio.Event) -> DemoResult:

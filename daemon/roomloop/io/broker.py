@@ -21,6 +21,8 @@ from typing import Any
 
 import aiomqtt
 
+from roomloop.backoff import Backoff
+from roomloop.clock import Clock, RealClock
 from roomloop.config.models import Broker
 from roomloop.errors import BrokerError
 from roomloop.io.eventlog import RateLimitedLog, get_logger
@@ -173,6 +175,7 @@ class BrokerConnection:
         backoff_min_s: float = 1.0,
         backoff_max_s: float = 60.0,
         env: Mapping[str, str] | None = None,
+        clock: Clock | None = None,
     ) -> None:
         self.broker = broker
         self.endpoint = endpoint_of(broker)
@@ -180,6 +183,7 @@ class BrokerConnection:
         self.backoff_min_s = backoff_min_s
         self.backoff_max_s = backoff_max_s
         self._env = env
+        self.clock: Clock = clock if clock is not None else RealClock()
         self.client: aiomqtt.Client | None = None
         """The connected client, or None between connections."""
         self.connected = asyncio.Event()
@@ -198,15 +202,15 @@ class BrokerConnection:
         on_disconnect: Callable[[], Awaitable[None] | None] | None = None,
     ) -> None:
         """Connect, serve messages, reconnect with backoff; returns only by cancellation."""
-        delay = self.backoff_min_s
-        loop = asyncio.get_running_loop()
+        backoff = Backoff(self.backoff_min_s, self.backoff_max_s)
+        delay = backoff.first()
         while True:
             try:
                 client = self.make_client()
                 async with client:
                     self.client = client
                     self.connections += 1
-                    delay = self.backoff_min_s
+                    delay = backoff.first()
                     log.info(
                         "broker.connected", endpoint=self.endpoint, connections=self.connections
                     )
@@ -221,7 +225,7 @@ class BrokerConnection:
                 self._events.problem(
                     self.endpoint,
                     "broker.disconnected",
-                    loop.time(),
+                    self.clock.now(),
                     endpoint=self.endpoint,
                     reason=str(exc) or type(exc).__name__,
                     retry_in_s=delay,
@@ -232,8 +236,8 @@ class BrokerConnection:
                 self.connected.clear()
                 if was_connected:
                     await _call_noarg(on_disconnect)
-            await asyncio.sleep(delay)
-            delay = min(delay * 2, self.backoff_max_s)
+            await self.clock.io.sleep(delay)
+            delay = backoff.after(delay)
 
 
 async def _call_noarg(hook: Callable[[], Awaitable[None] | None] | None) -> None:

@@ -18,12 +18,13 @@ import asyncio
 import errno
 import logging
 import os
-import time
-from collections.abc import Awaitable, Callable, Sequence
+from collections.abc import Awaitable, Callable, Mapping, Sequence
 from dataclasses import dataclass, replace
 from types import TracebackType
 from typing import Any
 
+from roomloop.backoff import Backoff
+from roomloop.clock import Clock, RealClock, wait_for
 from roomloop.config.models import ModbusInput, ModbusOutput, ModbusRtuLink, ModbusTcpLink
 from roomloop.core.types import PointSample
 from roomloop.errors import DeviceError
@@ -34,9 +35,8 @@ from roomloop.io.ports import OutputState, aged
 
 log = get_logger("modbus")
 
-RETRY_BACKOFF_S = 0.05
-"""First pause before a retry; doubles each attempt, at most :data:`RETRY_BACKOFF_MAX_S`."""
-RETRY_BACKOFF_MAX_S = 1.0
+RETRY_BACKOFF = Backoff(0.05, 1.0)
+"""The pause before each retry of a request: 50 ms, doubling, at most 1 s."""
 
 
 class _RequestFailed(Exception):
@@ -116,7 +116,7 @@ class ModbusLink:
         inputs: Sequence[ModbusInput] = (),
         outputs: Sequence[ModbusOutput] = (),
         *,
-        clock: Callable[[], float] = time.time,
+        clock: Clock | None = None,
         log_interval_s: float = 300.0,
         reconnect_min_s: float = 0.2,
         reconnect_max_s: float = 30.0,
@@ -133,13 +133,14 @@ class ModbusLink:
         self.inputs = {p.name: p for p in inputs}
         self.outputs = {p.name: p for p in outputs}
         self.plan: tuple[Read, ...] = plan_reads(inputs, link.max_gap_registers)
-        self._clock = clock
+        self.clock: Clock = clock if clock is not None else RealClock()
+        """Time stamps and the poll interval; ``clock.io`` paces and bounds the requests."""
+        self._clock = self.clock.now
         self._events = RateLimitedLog(log, log_interval_s)
         self._lock = asyncio.Lock()
         self._last_request_end = 0.0
-        self._reconnect_min_s = reconnect_min_s
-        self._reconnect_max_s = reconnect_max_s
-        self._reconnect_delay = reconnect_min_s
+        self._reconnect = Backoff(reconnect_min_s, reconnect_max_s)
+        self._reconnect_delay = self._reconnect.first()
         self._next_connect_at = 0.0
         self._client: Any = None
         self.connect_error: str | None = None
@@ -148,8 +149,6 @@ class ModbusLink:
             name: PointSample(name, None, None, "comm-failure") for name in self.inputs
         }
         self._outputs: dict[str, OutputState] = {name: OutputState(name) for name in self.outputs}
-        self._wanted: dict[str, bool] = {}
-        """The latest wanted state per output, set before any write queues for the lock."""
         self._output_locks = {name: asyncio.Lock() for name in self.outputs}
         """One write-and-read-back at a time per output, so a re-assert of the old state
         can never interleave with the write of a new decision."""
@@ -163,6 +162,11 @@ class ModbusLink:
     @property
     def name(self) -> str:
         return self.link.name
+
+    @property
+    def request_timeout_s(self) -> float:
+        """The link's answer timeout (one request)."""
+        return self.link.timeout_s
 
     @property
     def connected(self) -> bool:
@@ -211,22 +215,23 @@ class ModbusLink:
             raise RuntimeError("use 'async with ModbusLink(...)' before talking to the link")
         if self._client.connected:
             return True
-        loop_now = time.monotonic()
-        if loop_now < self._next_connect_at:
+        if self.clock.io.monotonic() < self._next_connect_at:
             return False
         try:
-            ok = bool(await asyncio.wait_for(self._client.connect(), self.link.timeout_s + 1.0))
+            ok = bool(
+                await wait_for(self.clock.io, self._client.connect(), self.link.timeout_s + 1.0)
+            )
         except Exception as exc:  # refused, a serial port that vanished, DNS, a timeout ...
             ok = False
             reason = describe_connect_error(self.link, exc)
         else:
             reason = self._why_not_connected()
         if ok:
-            if self._reconnect_delay > self._reconnect_min_s or self.cycles:
+            if self._reconnect_delay > self._reconnect.first() or self.cycles:
                 self._events.recovered(
                     self.endpoint, "modbus.connected", link=self.name, endpoint=self.endpoint
                 )
-            self._reconnect_delay = self._reconnect_min_s
+            self._reconnect_delay = self._reconnect.first()
             self.connect_error = None
             return True
         self.connect_error = reason
@@ -239,8 +244,8 @@ class ModbusLink:
             reason=reason,
             retry_in_s=round(self._reconnect_delay, 2),
         )
-        self._next_connect_at = time.monotonic() + self._reconnect_delay
-        self._reconnect_delay = min(self._reconnect_delay * 2, self._reconnect_max_s)
+        self._next_connect_at = self.clock.io.monotonic() + self._reconnect_delay
+        self._reconnect_delay = self._reconnect.after(self._reconnect_delay)
         return False
 
     def _why_not_connected(self) -> str:
@@ -274,18 +279,16 @@ class ModbusLink:
         async with self._lock:
             for attempt in range(attempts):
                 if attempt:
-                    await asyncio.sleep(
-                        min(RETRY_BACKOFF_S * 2 ** (attempt - 1), RETRY_BACKOFF_MAX_S)
-                    )
+                    await self.clock.io.sleep(RETRY_BACKOFF.nth(attempt))
                 if not await self._ensure_connected():
                     why = f": {self.connect_error}" if self.connect_error else ""
                     raise _RequestFailed(f"not connected{why}")
-                gap = self._last_request_end + self.link.request_gap_s - time.monotonic()
+                gap = self._last_request_end + self.link.request_gap_s - self.clock.io.monotonic()
                 if gap > 0:
-                    await asyncio.sleep(gap)
+                    await self.clock.io.sleep(gap)
                 self.requests += 1
                 try:
-                    response = await asyncio.wait_for(call(self._client), wait_s)
+                    response = await wait_for(self.clock.io, call(self._client), wait_s)
                 except TimeoutError:
                     shown_s = self.link.timeout_s if timeout_s is None else timeout_s
                     reason = f"no answer within {shown_s:g} s"
@@ -296,7 +299,7 @@ class ModbusLink:
                         self._next_connect_at = 0.0
                     continue
                 finally:
-                    self._last_request_end = time.monotonic()
+                    self._last_request_end = self.clock.io.monotonic()
                 if response.isError():
                     code = getattr(response, "exception_code", None)
                     raise _RequestFailed(exception_reply_text(code), code)
@@ -472,12 +475,13 @@ class ModbusLink:
     async def set_output(self, name: str, on: bool) -> OutputState:
         """Write the on or off value, read it back if configured; the state says what happened.
 
-        The wanted state is recorded at once; the write itself waits for the output's lock
-        and then writes whatever is wanted by then, so the newest decision always wins.
+        Writes of one output wait for each other (first come, first served), so the last
+        one asked for is the last one made. What the output should be is not kept here:
+        its owner (the service's output writer) says so, and re-asserts through
+        :meth:`reassert_due`.
         """
-        self._wanted[name] = on
         async with self._output_locks[name]:
-            return await self._write_output(name, self._wanted[name])
+            return await self._write_output(name, on)
 
     async def set_output_once(self, name: str, on: bool, timeout_s: float) -> OutputState:
         """At stop: write (and read back) with one try of at most ``timeout_s`` per request.
@@ -487,7 +491,6 @@ class ModbusLink:
         writes queue on the link's lock ahead of the read-backs (the lock is first come,
         first served), so each output is written before any is read back.
         """
-        self._wanted[name] = on
         async with self._output_locks[name]:
             return await self._write_output(name, on, attempts=1, timeout_s=timeout_s)
 
@@ -561,18 +564,21 @@ class ModbusLink:
         self._outputs[name] = state
         return state
 
-    async def reassert_due(self, now: float) -> list[OutputState]:
-        """Write again each commanded output due (``reassert_s``) or whose last write failed."""
+    async def reassert_due(self, now: float, wanted: Mapping[str, bool]) -> list[OutputState]:
+        """Write ``wanted`` again to each of its outputs that is due (``reassert_s``) or whose
+        last write failed; ``wanted`` holds the commanded outputs (others are left alone)."""
         done: list[OutputState] = []
         for name, point in self.outputs.items():
+            if name not in wanted:
+                continue
             async with self._output_locks[name]:
-                wanted = self._wanted.get(name)
-                if wanted is None:
+                on = wanted.get(name)
+                if on is None:
                     continue
                 state = self._outputs[name]
                 overdue = state.written_at is None or now - state.written_at >= point.reassert_s
                 if overdue or state.verdict in ("comm-failure", "mismatch"):
-                    done.append(await self._write_output(name, wanted))
+                    done.append(await self._write_output(name, on))
         return done
 
     # ------------------------------------------------------------------ loop
@@ -580,23 +586,24 @@ class ModbusLink:
     async def run(
         self,
         *,
-        sleep: Callable[[float], Awaitable[None]] = asyncio.sleep,
         on_cycle: Callable[[], None] | None = None,
+        commanded: Callable[[], Mapping[str, bool]] | None = None,
     ) -> None:
-        """Poll every ``poll_interval_s`` and re-assert outputs, until cancelled.
+        """Poll every ``poll_interval_s`` and re-assert the ``commanded()`` outputs, until
+        cancelled.
 
-        The interval is measured on the link's clock and waited with ``sleep``, so a
-        service on a simulated clock passes that clock's sleep; ``on_cycle`` is called
+        The interval is measured and waited on the link's clock; ``on_cycle`` is called
         after each cycle (the service starts its zones once every link was polled).
         """
         while True:
             started = self._clock()
             await self.poll()
-            await self.reassert_due(self._clock())
+            if commanded is not None:
+                await self.reassert_due(self._clock(), commanded())
             self.cycles += 1
             if on_cycle is not None:
                 on_cycle()
-            await sleep(max(0.0, self.link.poll_interval_s - (self._clock() - started)))
+            await self.clock.sleep(max(0.0, self.link.poll_interval_s - (self._clock() - started)))
 
 
 def _describe(exc: BaseException) -> str:

@@ -15,14 +15,13 @@ payload.
 
 from __future__ import annotations
 
-import asyncio
 import json
 import math
-import time
-from collections.abc import Callable, Sequence
+from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from typing import Any, Protocol
 
+from roomloop.clock import Clock, RealClock, wait_for
 from roomloop.config.models import MqttInput, MqttOutput
 from roomloop.core.types import PointSample, Reliability
 from roomloop.io.codec import range_verdict, to_celsius
@@ -159,7 +158,7 @@ class MqttPoints:
         inputs: Sequence[MqttInput] = (),
         outputs: Sequence[MqttOutput] = (),
         *,
-        clock: Callable[[], float] = time.time,
+        clock: Clock | None = None,
         log_interval_s: float = 300.0,
     ) -> None:
         self.inputs = {p.name: p for p in inputs}
@@ -171,7 +170,8 @@ class MqttPoints:
         for out in outputs:
             if out.state_topic is not None:
                 self._by_state_topic.setdefault(out.state_topic, []).append(out)
-        self._clock = clock
+        self.clock: Clock = clock if clock is not None else RealClock()
+        self._clock = self.clock.now
         self._events = RateLimitedLog(log, log_interval_s)
         self._samples: dict[str, PointSample] = {
             name: PointSample(name, None, None, "stale") for name in self.inputs
@@ -254,6 +254,15 @@ class MqttPoints:
         """The connection is gone: commands wait until the next :meth:`attach`."""
         self._client = None
 
+    @property
+    def request_timeout_s(self) -> float:
+        """The longest one command publish may take."""
+        return PUBLISH_TIMEOUT_S
+
+    async def set_output_once(self, name: str, on: bool, timeout_s: float) -> OutputState:
+        """At stop: one publish (it is one try anyway; the caller bounds the whole stop)."""
+        return await self.set_output(name, on)
+
     async def set_output(self, name: str, on: bool) -> OutputState:
         """Record the wanted state, publish it now if connected (QoS 1); read-back comes later."""
         out = self.outputs[name]
@@ -270,8 +279,10 @@ class MqttPoints:
             return
         payload = out.on_payload if state.wanted else out.off_payload
         try:
-            await asyncio.wait_for(
-                client.publish(out.command_topic, payload, qos=1, retain=False), PUBLISH_TIMEOUT_S
+            await wait_for(
+                self.clock.io,
+                client.publish(out.command_topic, payload, qos=1, retain=False),
+                PUBLISH_TIMEOUT_S,
             )
         except Exception as exc:  # aiomqtt.MqttError when the broker went away, or our timeout
             self._outputs[out.name] = replace(

@@ -1,10 +1,11 @@
 """Commands from the broker: ``<prefix>/zone/<zone>/cmd/<field>``, checked, applied, answered.
 
 A command is a plain payload (``21.5``, ``hold``) or JSON (``21.5``,
-``"hold"``, ``{"value": 21.5}``). It is parsed here, in the site's units;
-the zone's limits and the glossary are checked; and only then is it handed to
-the zone (the control core may still refuse it, with a reason). Whatever the
-outcome, one answer goes to ``<prefix>/zone/<zone>/cmd/result``:
+``"hold"``, ``{"value": 21.5}``). It is parsed here, from the site's units and
+local time into Celsius and POSIX seconds; the control core alone checks it
+(limits, words, how far ahead: :mod:`roomloop.core.commands`) as it applies it,
+and its refusal is the answer's reason. Whatever the outcome, one answer goes
+to ``<prefix>/zone/<zone>/cmd/result``:
 ``{"field": ..., "ok": true, "value": ...}`` or ``{"field": ..., "ok": false,
 "reason": ...}``. A refused command changes nothing.
 
@@ -25,17 +26,14 @@ from zoneinfo import ZoneInfo
 
 import structlog
 
-from roomloop.config.models import LEVELS, Zone
+from roomloop.config.models import Zone
 from roomloop.service.publisher import iso
+from roomloop.units import from_celsius, to_celsius
 
 log = structlog.get_logger("roomloop.service")
 
 FIELDS = ("setpoint", "mode", "level", "hold_until")
-MODES = ("auto", "hold", "off")
 MAX_PAYLOAD_BYTES = 1024
-MAX_HOLD_AHEAD_S = 366 * 86400.0
-"""How far ahead ``hold_until`` may be: a year and a day covers every real hold, and keeps
-the time inside what the clock and the state file can represent."""
 RESULT = "result"
 
 
@@ -121,13 +119,6 @@ def _number(value: Any, what: str) -> float:
     return number
 
 
-def _word(value: Any, what: str, allowed: tuple[str, ...]) -> str:
-    if not isinstance(value, str) or value.strip().lower() not in allowed:
-        shown = value[:40] if isinstance(value, str) else json.dumps(value)[:40]
-        raise Refused(f"{what} {shown!r} is not one of {', '.join(allowed)}")
-    return value.strip().lower()
-
-
 def parse_time(value: Any, tz: ZoneInfo) -> float | None:
     """``hold_until``: ISO 8601 (local to the site without an offset), POSIX seconds, or none."""
     if value is None or (isinstance(value, str) and value.strip().lower() in ("none", "null")):
@@ -152,41 +143,23 @@ def parse_time(value: Any, tz: ZoneInfo) -> float | None:
     return _number(value, "hold_until")
 
 
-def to_celsius(value: float, units: str) -> float:
-    return (value - 32.0) * 5.0 / 9.0 if units == "F" else value
-
-
-def from_celsius(value: float, units: str) -> float:
-    return value * 9.0 / 5.0 + 32.0 if units == "F" else value
-
-
 def parse_command(
     zone: Zone, field: str, payload: bytes, *, units: str, tz: ZoneInfo, now: float
 ) -> Command:
-    """Parse and check one command against the zone's limits; :class:`Refused` says why not."""
+    """Parse one command's payload into the core's terms; :class:`Refused` if it cannot be read.
+
+    Only the payload's form is checked here (size, UTF-8, a number where a number goes,
+    a time for ``hold_until``); whether the value is allowed (limits, words, how far
+    ahead) is for the core's :func:`~roomloop.core.commands.apply_command` alone.
+    """
     if field not in FIELDS:
-        raise Refused(f"unknown field {field[:40]!r} (commands: {', '.join(FIELDS)})")
+        return Command(zone.name, field, None)  # the core refuses it, naming the fields
     value = _payload_value(payload)
     if field == "setpoint":
-        number = _number(value, "setpoint")
-        celsius = to_celsius(number, units)
-        low, high = zone.limits.min, zone.limits.max
-        if not low - 1e-9 <= celsius <= high + 1e-9:
-            raise Refused(
-                f"setpoint {number:g} is outside the zone's limits "
-                f"{from_celsius(low, units):g} to {from_celsius(high, units):g} {units}"
-            )
-        return Command(zone.name, field, celsius)
-    if field == "mode":
-        return Command(zone.name, field, _word(value, "mode", MODES))
-    if field == "level":
-        return Command(zone.name, field, _word(value, "level", LEVELS))
-    when = parse_time(value, tz)
-    if when is not None and when <= now:
-        raise Refused("hold_until is in the past")
-    if when is not None and when > now + MAX_HOLD_AHEAD_S:
-        raise Refused("hold_until is more than 366 days ahead")
-    return Command(zone.name, field, when)
+        return Command(zone.name, field, to_celsius(_number(value, "setpoint"), units))
+    if field in ("mode", "level"):
+        return Command(zone.name, field, value)
+    return Command(zone.name, field, parse_time(value, tz))
 
 
 def shown_value(command: Command, *, units: str, tz: ZoneInfo) -> Any:
@@ -196,7 +169,12 @@ def shown_value(command: Command, *, units: str, tz: ZoneInfo) -> Any:
     if command.field == "hold_until":
         if command.value is None:
             return None
-        return iso(float(command.value), tz)
+        try:
+            return iso(float(command.value), tz)
+        except (OverflowError, ValueError, OSError):  # far beyond any date: the core refuses it
+            return float(command.value)
+    if isinstance(command.value, str):
+        return command.value.strip().lower()  # as the core reads a word
     return command.value
 
 

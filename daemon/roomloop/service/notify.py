@@ -11,7 +11,7 @@ from __future__ import annotations
 import os
 import socket
 import time
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 
 import structlog
 
@@ -52,26 +52,28 @@ def watchdog_interval_s() -> float | None:
 class Progress:
     """The control loops' heartbeat: the watchdog is fed only while every loop keeps beating.
 
-    Each loop registers the longest real time it may legitimately take between
-    two beats (its tick on the clock, in real seconds, plus a grace). A loop that
+    Each loop registers the longest clock time it may legitimately take between
+    two beats (its tick plus a grace). A loop that
     is stuck, or dead and not yet restarted, makes :meth:`all_alive` false, and a
     service whose watchdog is no longer fed gets restarted by systemd.
     """
 
-    def __init__(self) -> None:
+    def __init__(self, monotonic: Callable[[], float] = time.monotonic) -> None:
+        self._monotonic = monotonic
+        """Where the beats are timed: the service passes its clock's ``monotonic``."""
         self._last: dict[str, float] = {}
         self._allowed: dict[str, float] = {}
 
     def register(self, name: str, allowed_gap_s: float, now: float | None = None) -> None:
         self._allowed[name] = allowed_gap_s
-        self._last[name] = time.monotonic() if now is None else now
+        self._last[name] = self._monotonic() if now is None else now
 
     def beat(self, name: str, now: float | None = None) -> None:
-        self._last[name] = time.monotonic() if now is None else now
+        self._last[name] = self._monotonic() if now is None else now
 
     def stuck(self, now: float | None = None) -> list[str]:
         """Names of the loops that have not beaten within their allowed gap."""
-        at = time.monotonic() if now is None else now
+        at = self._monotonic() if now is None else now
         return [n for n, last in self._last.items() if at - last > self._allowed[n]]
 
     def all_alive(self, names: Iterable[str] | None = None) -> bool:

@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import datetime as dt
 import json
-import time
 from collections.abc import Iterable
 from dataclasses import dataclass
 from typing import Any
@@ -22,6 +21,7 @@ import structlog
 
 from roomloop.core.types import ZoneOutputs
 from roomloop.service.program import Switch
+from roomloop.units import from_celsius
 
 log = structlog.get_logger("roomloop.service")
 
@@ -47,7 +47,7 @@ def field_topic(prefix: str, zone: str, field: str) -> str:
 def _abs(value: float | None, units: str, digits: int = 2) -> float | None:
     if value is None:
         return None
-    return round(value * 9.0 / 5.0 + 32.0 if units == "F" else value, digits)
+    return round(from_celsius(value, units), digits)
 
 
 def _delta(value: float, units: str, digits: int = 3) -> float:
@@ -179,7 +179,7 @@ class StatePublisher:
                 fields = plain_fields(view, units=self.units)
                 state = json.dumps(payload)
             except Exception as exc:  # one zone's bad view must not silence the others
-                self._render_failed(zone, exc)
+                self._render_failed(zone, exc, now)
                 continue
             key = _significant(payload)
             last = self._sent_state.get(zone)
@@ -190,13 +190,12 @@ class StatePublisher:
                     messages.append(Message(field_topic(self.prefix, zone, field), text))
         return messages
 
-    def _render_failed(self, zone: str, exc: Exception) -> None:
+    def _render_failed(self, zone: str, exc: Exception, now: float) -> None:
         """Log a view that cannot be rendered, at most once per ``RENDER_LOG_EVERY_S``."""
-        real = time.monotonic()
         last = self._render_logged.get(zone)
-        if last is not None and real - last < RENDER_LOG_EVERY_S:
+        if last is not None and now - last < RENDER_LOG_EVERY_S:
             return
-        self._render_logged[zone] = real
+        self._render_logged[zone] = now
         log.error("publish.view_failed", zone=zone, error=str(exc) or type(exc).__name__)
 
     def sent(self, message: Message, now: float) -> None:

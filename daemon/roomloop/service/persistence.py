@@ -1,0 +1,145 @@
+"""Persistence of the zone states: restore at start, save when it matters, the final save.
+
+:func:`restore_states` reads the state file (``persist.StateStore``, which validates
+it) and resumes each zone's saved state, or starts it fresh. :class:`Persistence`
+saves the states when something that must survive a restart changed (a command,
+the relay and its switch times, fail-safe: :func:`persist_key`), every
+``PERIODIC_SAVE_S`` otherwise (the slowly drifting terms), and once more at stop.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import json
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+
+import structlog
+
+from roomloop.clock import Clock, sleep_or_wake
+from roomloop.config.models import Site
+from roomloop.core.controller import ZoneController
+from roomloop.core.settings import ZoneSettings
+from roomloop.core.state import StateFormatError, ZoneState
+from roomloop.service.persist import StateStore
+
+log = structlog.get_logger("roomloop.service")
+
+PERIODIC_SAVE_S = 300.0
+"""Clock seconds between saves of the slowly drifting terms (droop, learned duty)."""
+BURST_S = 0.05
+"""Clock seconds a save waits, so a burst (a command and the switch it causes) is one write."""
+
+
+def persist_key(state: ZoneState) -> str:
+    """What must reach the disk at once: commands, the relay and its switch times, fail-safe."""
+    keep = (
+        "mode",
+        "hold_setpoint",
+        "hold_level",
+        "hold_until",
+        "level_override",
+        "relay_on",
+        "switched_at",
+        "switches",
+        "fail_safe",
+    )
+    return repr(tuple(getattr(state, k) for k in keep))
+
+
+@dataclass(frozen=True, slots=True)
+class RestoredZone:
+    settings: ZoneSettings
+    controller: ZoneController
+    state: ZoneState
+
+
+def restore_states(site: Site, store: StateStore, now: float) -> dict[str, RestoredZone]:
+    """Each zone's controller and its state: the saved one resumed, or a fresh one."""
+    saved = store.load()
+    zones: dict[str, RestoredZone] = {}
+    for zone in site.zones:
+        settings = ZoneSettings.from_site(site, zone.name)
+        controller = ZoneController(settings)
+        state = controller.initial_state(now)
+        raw = saved.get(zone.name)
+        if raw is not None:
+            try:
+                state = ZoneState.from_json(json.dumps(raw))
+            except StateFormatError as exc:
+                log.warning("persist.zone_state_rejected", zone=zone.name, reason=str(exc))
+            else:
+                log.info("persist.zone_restored", zone=zone.name, mode=state.mode)
+                # The output was held at its safe state from the restart on.
+                state = controller.resume(state, now, relay_on=zone.safe_state == "on")
+        zones[zone.name] = RestoredZone(settings, controller, state)
+    return zones
+
+
+class Persistence:
+    """Saves the states that ``states()`` returns, in order, never on the event loop."""
+
+    def __init__(
+        self, store: StateStore, clock: Clock, states: Callable[[], Mapping[str, ZoneState]]
+    ) -> None:
+        self.store = store
+        self.clock = clock
+        self.states = states
+        self._dirty = asyncio.Event()
+        self._last_saved_key: dict[str, str] = {}
+        self._lock = asyncio.Lock()
+        self._in_flight: asyncio.Future[bool] | None = None
+
+    def saved_as(self, zone: str, state: ZoneState) -> None:
+        """``state`` is what the disk holds for ``zone`` (restored at start)."""
+        self._last_saved_key[zone] = persist_key(state)
+
+    def mark_dirty(self) -> None:
+        """Save soon (a command was applied)."""
+        self._dirty.set()
+
+    def note(self, zone: str, state: ZoneState) -> None:
+        """A zone stepped: save soon if what must survive a restart changed."""
+        if persist_key(state) != self._last_saved_key.get(zone):
+            self._dirty.set()
+
+    async def save(self, now: float) -> None:
+        """Write the zone states if they changed since the last write (the store compares).
+
+        The snapshot is taken on the loop; the write and its fsyncs run in a thread, so
+        a slow SD card stalls no zone loop. One write at a time, in order: a write whose
+        caller was cancelled is still waited for before the next one starts.
+        """
+        async with self._lock:
+            if self._in_flight is not None:
+                with contextlib.suppress(Exception):
+                    await asyncio.shield(self._in_flight)
+            states = self.states()
+            zones = {name: json.loads(state.to_json()) for name, state in states.items()}
+            keys = {name: persist_key(state) for name, state in states.items()}
+            write = asyncio.ensure_future(asyncio.to_thread(self.store.save, zones, now))
+            self._in_flight = write
+            try:
+                written = await asyncio.shield(write)
+            except OSError as exc:
+                log.error("persist.save_failed", path=str(self.store.path), error=str(exc))
+                return
+            self._last_saved_key.update(keys)
+            if written:
+                log.debug("persist.saved", path=str(self.store.path))
+
+    async def run(self) -> None:
+        """Save when dirty (a burst at once) or every ``PERIODIC_SAVE_S``, until cancelled."""
+        while True:
+            await sleep_or_wake(self.clock, PERIODIC_SAVE_S, self._dirty)
+            await self.clock.sleep(BURST_S)
+            self._dirty.clear()
+            await self.save(self.clock.now())
+
+    async def save_final(self) -> None:
+        """The last save at stop, on every exit path."""
+        try:
+            await self.save(self.clock.now())
+        except Exception:
+            log.exception("persist.final_save_failed")

@@ -1,0 +1,201 @@
+"""The broker session: connect, subscribe, answer commands, publish the state, go offline.
+
+One :class:`BrokerSession` per service with a broker. Its tasks (``broker``,
+``publish``, ``mqtt-points``) never hold up control: a zone only hands its decision
+to the publisher and wakes it (:meth:`BrokerSession.wake`). On every (re)connect it
+subscribes to the commands and the MQTT points, says ``online`` and sends every
+retained message again; at stop, :meth:`announce_offline` sends what is due and
+``offline``.
+"""
+
+from __future__ import annotations
+
+import asyncio
+from collections.abc import Callable
+from typing import TYPE_CHECKING, Any
+from zoneinfo import ZoneInfo
+
+import aiomqtt
+import structlog
+
+from roomloop.clock import Clock, sleep_or_wake, timeout
+from roomloop.config.models import Broker, Zone
+from roomloop.io.mqtt import MqttPoints
+from roomloop.service.commands import Command, CommandHandler
+from roomloop.service.publisher import OFFLINE, ONLINE, Message, StatePublisher, status_topic
+
+if TYPE_CHECKING:
+    from roomloop.bms.alarm_book import AlarmBook
+
+log = structlog.get_logger("roomloop.service")
+
+STOP_BROKER_S = 1.0
+"""``clock.io`` seconds the last state and ``offline`` may take at stop."""
+ANSWER_S = 5.0
+SEND_S = 10.0
+BURST_S = 0.05
+"""Clock seconds the publisher waits after a wake, so a burst of zone updates is one round."""
+POINTS_TICK_S = 1.0
+RECONNECT_MIN_S = 0.5
+RECONNECT_MAX_S = 30.0
+
+
+class BrokerSession:
+    """The service's side of the broker; ``apply`` hands a parsed command to its zone."""
+
+    def __init__(
+        self,
+        broker: Broker,
+        prefix: str,
+        clock: Clock,
+        *,
+        publisher: StatePublisher,
+        mqtt_points: MqttPoints,
+        zones: dict[str, Zone],
+        apply: Callable[[Command], None],
+        units: str,
+        tz: ZoneInfo,
+        refusals: tuple[type[Exception], ...],
+        alarms: AlarmBook | None = None,
+    ) -> None:
+        from roomloop.io.broker import BrokerConnection, LastWill
+
+        self.prefix = prefix
+        self.clock = clock
+        self.publisher = publisher
+        self.alarms = alarms
+        """The zones' alarms: published retained beside the states, acknowledged by command."""
+        self.mqtt_points = mqtt_points
+        self.commands = CommandHandler(
+            prefix,
+            zones,
+            apply,
+            units=units,
+            tz=tz,
+            rate_per_min=broker.command_rate_per_min,
+            refusals=refusals,
+        )
+        self.connection = BrokerConnection(
+            broker,
+            will=LastWill(status_topic(prefix), OFFLINE),
+            backoff_min_s=RECONNECT_MIN_S,
+            backoff_max_s=RECONNECT_MAX_S,
+            clock=clock,
+        )
+        self._wake = asyncio.Event()
+
+    def wake(self) -> None:
+        """Something changed: publish soon."""
+        self._wake.set()
+
+    @property
+    def client(self) -> Any:
+        return self.connection.client
+
+    async def run(self) -> None:
+        """Keep the session up (reconnecting with backoff), serving messages, until cancelled."""
+        await self.connection.run(
+            self._on_message, on_connect=self._on_connect, on_disconnect=self.mqtt_points.detach
+        )
+
+    async def _on_connect(self, client: Any) -> None:
+        topics = [*self.commands.topics(), *self.mqtt_points.topics()]
+        for topic in topics:
+            await client.subscribe(topic, qos=1)
+        await client.publish(status_topic(self.prefix), ONLINE, qos=1, retain=True)
+        self.publisher.forget_sent()
+        if self.alarms is not None:
+            self.alarms.forget_sent()
+        self.mqtt_points.attach(client)
+        await self.mqtt_points.publish_commands(client)
+        self._wake.set()
+        log.info("broker.online", prefix=self.prefix, subscriptions=len(topics))
+
+    async def _on_message(self, message: Any) -> None:
+        topic = str(message.topic)
+        payload = message.payload
+        if isinstance(payload, str):
+            payload = payload.encode()
+        elif not isinstance(payload, bytes | bytearray):
+            payload = b"" if payload is None else str(payload).encode()
+        now = self.clock.now()
+        if self.mqtt_points.handle(topic, payload, now):
+            return
+        ack = None
+        if self.alarms is not None:
+            ack = self.alarms.handle_ack(
+                topic, bytes(payload), retained=bool(message.retain),
+                monotonic=self.clock.monotonic(),
+            )
+        answer = ack or self.commands.handle(
+            topic,
+            bytes(payload),
+            retained=bool(message.retain),
+            now=now,
+            monotonic=self.clock.monotonic(),
+        )
+        if answer is None:
+            if message.retain and topic.startswith(f"{self.prefix}/zone/"):
+                log.info("command.retained_ignored", topic=topic)
+            return
+        log.info("command.answered", topic=topic, answer=answer.payload)
+        client = self.client
+        if client is not None:
+            try:
+                async with timeout(self.clock.io, ANSWER_S):
+                    await client.publish(answer.topic, answer.payload, qos=1, retain=False)
+            except Exception as exc:
+                log.warning("command.answer_failed", topic=answer.topic, error=str(exc))
+
+    async def publish_loop(self) -> None:
+        """Send due retained messages; never blocks a zone (they only set an event)."""
+        interval = self.publisher.interval_s
+        while True:
+            client = self.client
+            if client is not None:
+                now = self.clock.now()
+                try:
+                    for message in self._due(now):
+                        await self._send(client, message)
+                        self.publisher.sent(message, now)
+                        if self.alarms is not None:
+                            self.alarms.sent(message)
+                except (aiomqtt.MqttError, TimeoutError, OSError) as exc:
+                    # The broker went away mid-round; after the reconnect everything is resent.
+                    log.debug("broker.publish_interrupted", error=str(exc) or type(exc).__name__)
+            self._wake.clear()
+            await sleep_or_wake(self.clock, min(interval, 30.0), self._wake)
+            await self.clock.sleep(BURST_S)
+
+    def _due(self, now: float) -> list[Message]:
+        alarms = [] if self.alarms is None else self.alarms.due()
+        return [*self.publisher.due(now), *alarms]
+
+    async def _send(self, client: Any, message: Message) -> None:
+        async with timeout(self.clock.io, SEND_S):
+            await client.publish(message.topic, message.payload, qos=1, retain=message.retain)
+
+    async def mqtt_points_loop(self) -> None:
+        """Read-back timeouts and re-assertion of the MQTT points."""
+        if not (self.mqtt_points.inputs or self.mqtt_points.outputs):
+            await asyncio.Event().wait()  # nothing to serve; stay as a (sleeping) task
+            return
+        while True:
+            await self.mqtt_points.tick(self.clock.now())
+            await self.clock.sleep(POINTS_TICK_S)
+
+    async def announce_offline(self) -> None:
+        """At stop: what is due, then ``offline`` (bounded; a missing broker is only logged)."""
+        client = self.client
+        if client is None:
+            return
+        try:
+            async with timeout(self.clock.io, STOP_BROKER_S):
+                now = self.clock.now()
+                for message in self._due(now):
+                    await self._send(client, message)
+                await client.publish(status_topic(self.prefix), OFFLINE, qos=1, retain=True)
+        except Exception as exc:
+            log.warning("broker.offline_not_sent", error=str(exc) or type(exc).__name__)
+        else:
+            log.info("broker.offline", prefix=self.prefix)
