@@ -13,9 +13,10 @@ import yaml
 from service_rooms import RoomPlant, running, site_yaml, until
 from structlog.testing import capture_logs
 
+from roomloop.clock import VirtualClock
 from roomloop.config.loader import load_site
 from roomloop.service.app import Service
-from roomloop.clock import VirtualClock
+
 
 async def test_a_failed_output_write_is_logged_as_such(
     tmp_path: Path, modbus_tcp_server: Any
