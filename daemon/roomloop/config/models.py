@@ -32,6 +32,8 @@ from pydantic import (
     model_validator,
 )
 
+from roomloop.config.presets import PRESET_KEYS, PRESETS, time_constant_for_cycle_rate
+
 # --------------------------------------------------------------------------- units
 
 
@@ -577,8 +579,6 @@ class Zone(Strict):
     _origins: dict[str, str] = PrivateAttr(default_factory=dict)
 
     def model_post_init(self, context: Any, /) -> None:
-        from roomloop.config.presets import resolve_tuning
-
         tuning, origins = resolve_tuning(self.heating, self.tuning)
         self._tuning = tuning
         self._origins = origins
@@ -593,6 +593,47 @@ class Zone(Strict):
     def origins(self) -> dict[str, str]:
         """For each tuning key: ``file``, ``preset <type>`` or ``derived from cycle rate``."""
         return dict(self._origins)
+
+
+def resolve_tuning(heating: HeatingType, given: TuningInput) -> tuple[Tuning, dict[str, str]]:
+    """Fill what the file left out from the heating type's preset; say where each value came from.
+
+    An impossible derivation (gain not above the differential) leaves the time constant at
+    the cycle period so the model still builds; :mod:`roomloop.config.checks` reports it.
+    """
+    preset = PRESETS[heating]
+    values: dict[str, object] = {}
+    origins: dict[str, str] = {}
+    for key in PRESET_KEYS:
+        value = getattr(given, key)
+        if value is None:
+            values[key] = getattr(preset, key)
+            origins[key] = f"preset {heating}"
+        else:
+            values[key] = value
+            origins[key] = "file"
+    values["droop_compensation"] = (
+        True if given.droop_compensation is None else given.droop_compensation
+    )
+    origins["droop_compensation"] = (
+        f"preset {heating}" if given.droop_compensation is None else "file"
+    )
+    values["smoothing_s"] = given.smoothing_s
+    origins["smoothing_s"] = "derived from cycle rate" if given.smoothing_s is None else "file"
+    if given.anticipator_time_constant_s is not None:
+        values["anticipator_time_constant_s"] = given.anticipator_time_constant_s
+        origins["anticipator_time_constant_s"] = "file"
+    else:
+        cph = float(values["cycle_rate_cph"])  # type: ignore[arg-type]
+        gain = float(values["anticipator_gain_k"])  # type: ignore[arg-type]
+        diff = float(values["differential_k"])  # type: ignore[arg-type]
+        try:
+            tau = time_constant_for_cycle_rate(cph, gain, diff)
+        except ValueError:
+            tau = 3600.0 / cph
+        values["anticipator_time_constant_s"] = tau
+        origins["anticipator_time_constant_s"] = "derived from cycle rate"
+    return Tuning.model_validate(values), origins
 
 
 class Logging(Strict):
