@@ -24,6 +24,7 @@ from __future__ import annotations
 import difflib
 import os
 import re
+import stat
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Annotated, Any, Literal, get_args, get_origin
@@ -50,6 +51,9 @@ KeyPath = tuple[str | int, ...]
 
 MAX_FILE_BYTES = 4 * 1024 * 1024
 """A site or plant file is a few kilobytes; anything this big is the wrong file."""
+
+MAX_DEPTH = 64
+"""Nesting levels a document may have; a real site file has fewer than ten."""
 
 MAX_VALUES = 200_000
 """Aliases can make a small file expand enormously; a real site has a few thousand values."""
@@ -144,7 +148,7 @@ class _Builder:
     def build(self, node: Node, path: KeyPath, depth: int = 0) -> Any:
         self.lines.value_lines.setdefault(path, node.start_mark.line + 1)
         self._built += 1
-        if depth > 64:
+        if depth > MAX_DEPTH:
             self._problem(node, path, "nested too deeply (an alias that refers to itself?)")
             return None
         if self._built > MAX_VALUES:
@@ -213,11 +217,16 @@ def _fail(
 
 
 def _read_text(path: str | os.PathLike[str]) -> tuple[str, str]:
-    """The file's name (as the user gave it) and its text; one clear line when it cannot be read."""
+    """The file's name (as the user gave it) and its text; one clear line when it cannot be read.
+
+    Only a regular file is read: a FIFO would block the reader until some writer comes
+    (``check`` and ``run`` would hang), and a device or socket is never a site file. The
+    file is opened without blocking and judged by ``fstat`` of what was opened, so there
+    is no gap between the check and the read.
+    """
     file = os.fspath(path)
     try:
-        with open(file, "rb") as handle:
-            raw = handle.read(MAX_FILE_BYTES + 1)
+        fd = os.open(file, os.O_RDONLY | os.O_NONBLOCK | getattr(os, "O_CLOEXEC", 0))
     except FileNotFoundError:
         raise _fail(file, "no such file") from None
     except IsADirectoryError:
@@ -226,6 +235,17 @@ def _read_text(path: str | os.PathLike[str]) -> tuple[str, str]:
         raise _fail(file, "cannot read the file: permission denied") from None
     except OSError as exc:
         raise _fail(file, f"cannot read the file: {exc.strerror or exc}") from None
+    mode = os.fstat(fd).st_mode
+    if not stat.S_ISREG(mode):
+        os.close(fd)
+        if stat.S_ISDIR(mode):
+            raise _fail(file, "is a directory, not a YAML file")
+        raise _fail(file, f"is {_file_kind(mode)}, not a regular file; give the YAML file")
+    with os.fdopen(fd, "rb") as handle:
+        try:
+            raw = handle.read(MAX_FILE_BYTES + 1)
+        except OSError as exc:
+            raise _fail(file, f"cannot read the file: {exc.strerror or exc}") from None
     if len(raw) > MAX_FILE_BYTES:
         raise _fail(
             file,
@@ -239,18 +259,68 @@ def _read_text(path: str | os.PathLike[str]) -> tuple[str, str]:
     return file, text
 
 
+def _file_kind(mode: int) -> str:
+    if stat.S_ISFIFO(mode):
+        return "a named pipe (FIFO)"
+    if stat.S_ISCHR(mode) or stat.S_ISBLK(mode):
+        return "a device"
+    if stat.S_ISSOCK(mode):
+        return "a socket"
+    return "not a file"
+
+
+_OPENS = (
+    yaml.BlockMappingStartToken,
+    yaml.BlockSequenceStartToken,
+    yaml.FlowMappingStartToken,
+    yaml.FlowSequenceStartToken,
+)
+_CLOSES = (yaml.BlockEndToken, yaml.FlowMappingEndToken, yaml.FlowSequenceEndToken)
+
+
+def _deepest(file: str, text: str) -> None:
+    """Refuse a document nested deeper than :data:`MAX_DEPTH`, at the line where it gets too deep.
+
+    PyYAML's composer recurses once per level, so a few hundred nested lists or mappings
+    end in a RecursionError. Its scanner is a loop: count the depth on the tokens first.
+    """
+    depth = 0
+    for token in yaml.scan(text, Loader=yaml.SafeLoader):
+        if isinstance(token, _OPENS):
+            depth += 1
+            if depth > MAX_DEPTH:
+                mark = token.start_mark
+                raise _fail(
+                    file,
+                    f"nested more than {MAX_DEPTH} levels deep; a site file needs a handful",
+                    mark.line + 1,
+                    mark.column + 1,
+                )
+        elif isinstance(token, _CLOSES):
+            depth -= 1
+
+
+def _syntax_hint(problem: str | None) -> str:
+    if problem and "'\\t'" in problem:
+        return " (indent with spaces, not tabs)"
+    return ""
+
+
 def _compose(file: str, text: str) -> Node | None:
     try:
+        _deepest(file, text)
         return yaml.compose(text, Loader=yaml.SafeLoader)
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark
         what = ": ".join(part for part in (exc.context, exc.problem) if part)
-        message = f"YAML syntax error: {what or 'cannot parse'}"
+        message = f"YAML syntax error: {what or 'cannot parse'}{_syntax_hint(exc.problem)}"
         if mark is None:
             raise _fail(file, message) from None
         raise _fail(file, message, mark.line + 1, mark.column + 1) from None
     except yaml.YAMLError as exc:
         raise _fail(file, f"YAML error: {exc}") from None
+    except RecursionError:  # pragma: no cover - _deepest refuses such documents first
+        raise _fail(file, f"nested more than {MAX_DEPTH} levels deep") from None
 
 
 def _read_document(
