@@ -89,6 +89,7 @@ def check_parts(parts: SiteParts) -> list[Finding]:
     findings += _modbus_overlaps(parts)
     findings += _serial_devices(parts)
     findings += _zone_references(parts)
+    findings += _point_topics(parts)
     for index, zone in parts.zones:
         findings += _setpoints(index, zone, parts.units)
         findings += _tuning(index, zone, parts.units)
@@ -222,6 +223,61 @@ def _serial_devices(parts: SiteParts) -> list[Finding]:
                 )
             else:
                 seen[link.device] = link.name
+    return findings
+
+
+def _prefix(parts: SiteParts) -> str | None:
+    """The topic prefix the site will use, if the sections that set it validated."""
+    if parts.broker is not None and parts.broker.topic_prefix:
+        return parts.broker.topic_prefix
+    if parts.site is None or (parts.broker_present and parts.broker is None):
+        return None
+    return f"roomloop/{parts.site.name}"
+
+
+def _short(text: str, limit: int = 60) -> str:
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+def _point_topics(parts: SiteParts) -> list[Finding]:
+    """No point topic inside roomloop's own tree, and no input reading a command topic.
+
+    roomloop publishes its state and takes commands under ``<prefix>/``: an output whose
+    command topic is there (another zone's ``cmd/setpoint``, the site's ``status``) would
+    turn its on/off payloads into commands, and an input there reads roomloop's own values
+    back. An input (or an output's read-back) on a topic with a ``cmd`` level reads the
+    commands sent to some roomloop, never a device's reading.
+    """
+    findings: list[Finding] = []
+    prefix = _prefix(parts)
+    for index, point in parts.points:
+        topics: list[tuple[str, str | None, bool]] = []
+        if isinstance(point, MqttInput):
+            topics.append(("topic", point.topic, True))
+        elif isinstance(point, MqttOutput):
+            topics.append(("command_topic", point.command_topic, False))
+            topics.append(("state_topic", point.state_topic, True))
+        for key, topic, read in topics:
+            if topic is None:
+                continue
+            where: KeyPath = ("points", index, key)
+            if prefix is not None and (topic == prefix or topic.startswith(prefix + "/")):
+                findings.append(
+                    Finding(
+                        where,
+                        f"{key} is inside roomloop's own topic tree {_short(prefix)}/...: "
+                        "roomloop publishes its state and takes commands there; use the "
+                        "device's own topic",
+                    )
+                )
+            elif read and "cmd" in topic.split("/"):
+                findings.append(
+                    Finding(
+                        where,
+                        f"{key} has a 'cmd' level: it would read commands sent to a "
+                        "roomloop, not the device's own value",
+                    )
+                )
     return findings
 
 

@@ -20,6 +20,7 @@ import zoneinfo
 from typing import Annotated, Any, Literal
 
 from pydantic import (
+    AfterValidator,
     BaseModel,
     BeforeValidator,
     ConfigDict,
@@ -101,6 +102,49 @@ Name = Annotated[
 
 Seconds = Annotated[float, Field(gt=0, allow_inf_nan=False)]
 Fraction = Annotated[float, Field(ge=0, le=1, allow_inf_nan=False)]
+
+MQTT_STRING_MAX_BYTES = 65535
+"""An MQTT string (a topic among them) carries a two-byte length: at most 65535 bytes of UTF-8
+(MQTT 3.1.1, OASIS Standard 2014, section 1.5.3; MQTT 5.0, OASIS Standard 2019, section 1.5.4)."""
+
+PREFIX_HEADROOM_BYTES = 128
+"""What roomloop appends to its topic prefix at most: ``/zone/<zone, up to 64 bytes>/cmd/<field>``
+and the other per-zone topics fit in 128 bytes, so a prefix of at most 65535 - 128 bytes keeps
+every topic roomloop builds within MQTT's limit."""
+
+_MQTT_SPEC = "MQTT 3.1.1 section 1.5.3, MQTT 5.0 section 1.5.4"
+
+
+def _mqtt_string(value: str, what: str, limit: int = MQTT_STRING_MAX_BYTES) -> None:
+    """An MQTT UTF-8 string: no U+0000, well-formed UTF-8, at most ``limit`` bytes (the value
+    itself is never repeated: it may be 70,000 characters long)."""
+    if "\x00" in value:
+        raise ValueError(
+            f"{what} contains a NUL character (U+0000), which MQTT forbids ({_MQTT_SPEC})"
+        )
+    try:
+        size = len(value.encode("utf-8"))
+    except UnicodeEncodeError:
+        raise ValueError(f"{what} is not valid UTF-8 (a lone surrogate; {_MQTT_SPEC})") from None
+    if size > limit:
+        raise ValueError(
+            f"{what} is {size} bytes of UTF-8; MQTT allows a topic at most "
+            f"{MQTT_STRING_MAX_BYTES} bytes ({_MQTT_SPEC})"
+            + (
+                f", and roomloop appends up to {MQTT_STRING_MAX_BYTES - limit} bytes to it"
+                if limit < MQTT_STRING_MAX_BYTES
+                else ""
+            )
+        )
+
+
+def _topic(value: str) -> str:
+    _mqtt_string(value, "the topic")
+    return value
+
+
+Topic = Annotated[str, Field(min_length=1), AfterValidator(_topic)]
+"""One MQTT topic name: NUL-free UTF-8 of at most 65535 bytes (wildcards are checked per key)."""
 
 
 class Strict(BaseModel):
@@ -227,15 +271,25 @@ class Broker(Strict):
     @field_validator("topic_prefix")
     @classmethod
     def _clean_prefix(cls, value: str | None) -> str | None:
+        """MQTT topic names carry no wildcards (MQTT 3.1.1 and 5.0, section 4.7.1); a name
+        starting with ``$`` is the broker's own (``$SYS/...``; section 4.7.2): a client's
+        subscriptions with wildcards never match it, so roomloop's commands would be lost."""
         if value is None:
             return None
-        if (
-            not value
-            or value.startswith("/")
-            or value.endswith("/")
-            or any(c in value for c in "#+")
-        ):
-            raise ValueError("a topic prefix has no leading or trailing '/', and no '#' or '+'")
+        if not value or value.startswith("/") or value.endswith("/"):
+            raise ValueError("a topic prefix has no leading or trailing '/'")
+        if any(c in value for c in "#+"):
+            raise ValueError(
+                "a topic prefix has no '#' or '+': those are wildcards of subscriptions, never "
+                "part of a topic name (MQTT 3.1.1 and 5.0, section 4.7.1)"
+            )
+        if value.startswith("$"):
+            raise ValueError(
+                "a topic prefix must not start with '$': such topics belong to the broker "
+                "($SYS/...) and wildcard subscriptions never match them "
+                "(MQTT 3.1.1 and 5.0, section 4.7.2)"
+            )
+        _mqtt_string(value, "the topic prefix", MQTT_STRING_MAX_BYTES - PREFIX_HEADROOM_BYTES)
         return value
 
 
@@ -355,7 +409,7 @@ class ModbusInput(InputBase):
 
 class MqttInput(InputBase):
     type: Literal["mqtt-input"]
-    topic: Annotated[str, Field(min_length=1)]
+    topic: Topic
     field: str | None = None
     """Dotted path into a JSON payload (``sensors.0.temp``); none for a plain number."""
 
@@ -392,10 +446,10 @@ class ModbusOutput(Strict):
 class MqttOutput(Strict):
     type: Literal["mqtt-output"]
     name: Name
-    command_topic: Annotated[str, Field(min_length=1)]
+    command_topic: Topic
     on_payload: str = "on"
     off_payload: str = "off"
-    state_topic: str | None = None
+    state_topic: Topic | None = None
     state_timeout_s: Seconds = 10.0
     reassert_s: Seconds = 300.0
 
