@@ -14,6 +14,7 @@ of them at once; the models here check one object at a time.
 
 from __future__ import annotations
 
+import ipaddress
 import math
 import re
 import zoneinfo
@@ -147,6 +148,61 @@ Topic = Annotated[str, Field(min_length=1), AfterValidator(_topic)]
 """One MQTT topic name: NUL-free UTF-8 of at most 65535 bytes (wildcards are checked per key)."""
 
 
+_HOST_LABEL = re.compile(r"[A-Za-z0-9_]([A-Za-z0-9_-]{0,61}[A-Za-z0-9_])?")
+
+
+def _host(value: str) -> str:
+    """A host name or an IP address, as the socket layer takes it: nothing else.
+
+    Names follow RFC 1123 section 2.1 (labels of letters, digits and '-', at most 63
+    characters, 253 in all; '_' is tolerated, as local networks use it). A name made of
+    numbers only must be a dotted-quad IPv4 address (RFC 1123 section 2.1 asks to check
+    that first); an IPv6 address is written without brackets.
+    """
+    if any(c.isspace() for c in value):
+        raise ValueError(f"{value!r} contains a space: a host is one name or address")
+    if "://" in value:
+        scheme, _, rest = value.partition("://")
+        host, _, port = rest.partition(":")
+        hint = f"host: {host.rstrip('/') or '...'}" + (
+            f" and port: {port.rstrip('/')}" if port else ""
+        )
+        raise ValueError(
+            f"{value!r} is a URL; give the host alone ({hint}; port is its own key, "
+            f"and {scheme}:// is implied)"
+        )
+    try:
+        ipaddress.ip_address(value)
+        return value
+    except ValueError:
+        pass
+    if value.startswith("[") and value.endswith("]"):
+        raise ValueError(f"{value!r}: write an IPv6 address without brackets")
+    if ":" in value:
+        host, _, port = value.rpartition(":")
+        if port.isdigit() and host:
+            raise ValueError(
+                f"{value!r} has a port in it; write host: {host.strip('[]')} and port: {port} "
+                "(port is its own key)"
+            )
+        raise ValueError(f"{value!r} is neither a host name nor an IP address")
+    labels = value[:-1].split(".") if value.endswith(".") else value.split(".")
+    if all(label.isdigit() for label in labels):
+        raise ValueError(
+            f"{value!r} is not an IPv4 address (four numbers 0-255, e.g. 192.168.1.20)"
+        )
+    if len(value) > 253 or not all(_HOST_LABEL.fullmatch(label) for label in labels):
+        raise ValueError(
+            f"{value!r} is not a host name (letters, digits, '-' and '.', RFC 1123) "
+            "nor an IP address"
+        )
+    return value
+
+
+Host = Annotated[str, Field(min_length=1), AfterValidator(_host)]
+"""A host name or an IP address; the port is its own key."""
+
+
 class Strict(BaseModel):
     """Base of every config model: frozen, and unknown keys are errors (a typo is never ignored)."""
 
@@ -196,7 +252,7 @@ class ModbusLinkBase(Strict):
 
 class ModbusTcpLink(ModbusLinkBase):
     type: Literal["modbus-tcp"]
-    host: Annotated[str, Field(min_length=1)]
+    host: Host
     port: Annotated[int, Field(ge=1, le=65535)] = 502
 
 
@@ -245,7 +301,7 @@ class Tls(Strict):
 class Broker(Strict):
     """The site's MQTT broker: monitoring, commands and MQTT points go through it."""
 
-    host: Annotated[str, Field(min_length=1)]
+    host: Host
     port: Annotated[int, Field(ge=1, le=65535)] = 1883
     client_id: str | None = None
     keepalive_s: Annotated[int, Field(ge=5, le=3600)] = 30
