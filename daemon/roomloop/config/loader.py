@@ -392,6 +392,7 @@ def _clean_loc(loc: Sequence[str | int], data: Any) -> KeyPath:
 
 
 _PREFIXES = ("Value error, ", "Assertion failed, ")
+_NUMBER_TYPES = {"int_type": "a whole number", "float_type": "a number"}
 
 
 def _message(error: Mapping[str, Any], allowed: Iterable[str] = (), tags: str = "") -> str:
@@ -416,12 +417,30 @@ def _message(error: Mapping[str, Any], allowed: Iterable[str] = (), tags: str = 
     if kind in {"model_type", "dict_type", "model_attributes_type"}:
         return f"must be a mapping of keys, got {_show(error.get('input'))}"
     shown = error.get("input")
+    if kind in _NUMBER_TYPES and isinstance(shown, bool):
+        return (
+            f"must be {_NUMBER_TYPES[kind]}, not {str(shown).lower()} (a boolean is no number; "
+            "write the number itself)"
+        )
+    if kind in _NUMBER_TYPES and isinstance(shown, str):
+        hint = "; write it without quotes" if _looks_numeric(shown) else ""
+        return f"must be {_NUMBER_TYPES[kind]}, not text (got {_show(shown)}){hint}"
+    if kind == "int_type" and isinstance(shown, float):
+        return f"must be a whole number (got {_show(shown)})"
     if kind in ("value_error", "assertion_error"):
         return msg  # our own wording, already a sentence fragment
     msg = f"{msg[:1].lower()}{msg[1:]}"  # pydantic's "Input should be ..." reads on after the path
     if isinstance(shown, dict | list):
         return msg
     return f"{msg} (got {_show(shown)})"
+
+
+def _looks_numeric(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
 
 
 _BOUNDS = {

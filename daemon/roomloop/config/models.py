@@ -33,6 +33,7 @@ from pydantic import (
     field_validator,
     model_validator,
 )
+from pydantic import Strict as StrictType
 
 from roomloop.config.presets import PRESET_KEYS, PRESETS, time_constant_for_cycle_rate
 
@@ -81,8 +82,25 @@ def _finite(value: float) -> float:
     return value
 
 
+def _not_a_bool(value: Any) -> Any:
+    """For number choices (``Literal[1, 2]``), which strict mode cannot take: ``true`` is no 1."""
+    if isinstance(value, bool):
+        raise ValueError(f"must be a number, not {str(value).lower()}")
+    return value
+
+
+Int = Annotated[int, StrictType()]
+"""A whole number as written: ``true`` is no 1, ``12.0`` and ``"12"`` are no 12 (use it, not
+``int``, for every whole-number key of the site file)."""
+
+Float = Annotated[float, StrictType(), Field(allow_inf_nan=False)]
+"""A finite number as written (an integer is fine): ``true`` is no 1.0 and ``"21"`` no 21.0
+(use it, not ``float``, for every number key of the site file)."""
+
 Temperature = Annotated[
     float,
+    StrictType(),
+    Field(allow_inf_nan=False),
     BeforeValidator(_abs_in),
     PlainSerializer(_abs_out, return_type=float),
 ]
@@ -90,6 +108,8 @@ Temperature = Annotated[
 
 TemperatureDelta = Annotated[
     float,
+    StrictType(),
+    Field(allow_inf_nan=False),
     BeforeValidator(_delta_in),
     PlainSerializer(_delta_out, return_type=float),
 ]
@@ -101,8 +121,10 @@ Name = Annotated[
 ]
 """Names appear in MQTT topics and log events: lower case, digits, ``-`` and ``_``."""
 
-Seconds = Annotated[float, Field(gt=0, allow_inf_nan=False)]
-Fraction = Annotated[float, Field(ge=0, le=1, allow_inf_nan=False)]
+WEEK_S = 7 * 86400.0
+Seconds = Annotated[Float, Field(gt=0, le=WEEK_S)]
+"""A duration: above 0 and at most a week; each key adds its own sensible lower bound."""
+Fraction = Annotated[Float, Field(ge=0, le=1)]
 
 MQTT_STRING_MAX_BYTES = 65535
 """An MQTT string (a topic among them) carries a two-byte length: at most 65535 bytes of UTF-8
@@ -241,30 +263,30 @@ class ModbusLinkBase(Strict):
     """What every Modbus link shares: timing of requests on the wire."""
 
     name: Name
-    timeout_s: Seconds = 1.0
-    retries: Annotated[int, Field(ge=0, le=10)] = 2
-    request_gap_s: Annotated[float, Field(ge=0, le=10)] = 0.02
+    timeout_s: Annotated[Seconds, Field(ge=0.05, le=60)] = 1.0
+    retries: Annotated[Int, Field(ge=0, le=10)] = 2
+    request_gap_s: Annotated[Float, Field(ge=0, le=10)] = 0.02
     """Pause between two requests on this link (slow devices and RS-485 turn-around)."""
-    poll_interval_s: Seconds = 5.0
-    max_gap_registers: Annotated[int, Field(ge=0, le=100)] = 8
+    poll_interval_s: Annotated[Seconds, Field(ge=0.05)] = 5.0
+    max_gap_registers: Annotated[Int, Field(ge=0, le=100)] = 8
     """Unused registers a coalesced read may bridge between two points."""
 
 
 class ModbusTcpLink(ModbusLinkBase):
     type: Literal["modbus-tcp"]
     host: Host
-    port: Annotated[int, Field(ge=1, le=65535)] = 502
+    port: Annotated[Int, Field(ge=1, le=65535)] = 502
 
 
 class ModbusRtuLink(ModbusLinkBase):
     type: Literal["modbus-rtu"]
     device: Annotated[str, Field(min_length=1)]
-    baud: int = 9600
+    baud: Int = 9600
     parity: Literal["N", "E", "O"] = "E"
     """Modbus over Serial Line V1.02 asks for even parity by default."""
-    data_bits: int = 8
+    data_bits: Int = 8
     """Modbus RTU characters carry 8 data bits (Modbus over Serial Line V1.02)."""
-    stop_bits: Literal[1, 2] = 1
+    stop_bits: Annotated[Literal[1, 2], BeforeValidator(_not_a_bool)] = 1
 
     @field_validator("data_bits")
     @classmethod
@@ -302,17 +324,17 @@ class Broker(Strict):
     """The site's MQTT broker: monitoring, commands and MQTT points go through it."""
 
     host: Host
-    port: Annotated[int, Field(ge=1, le=65535)] = 1883
+    port: Annotated[Int, Field(ge=1, le=65535)] = 1883
     client_id: str | None = None
-    keepalive_s: Annotated[int, Field(ge=5, le=3600)] = 30
+    keepalive_s: Annotated[Int, Field(ge=5, le=3600)] = 30
     username: str | None = None
     password_file: str | None = None
     password_env: str | None = None
     tls: Tls | None = None
     topic_prefix: str | None = None
     """Defaults to ``roomloop/<site name>``."""
-    publish_interval_s: Seconds = 60.0
-    command_rate_per_min: Annotated[int, Field(ge=1, le=600)] = 30
+    publish_interval_s: Annotated[Seconds, Field(ge=1)] = 60.0
+    command_rate_per_min: Annotated[Int, Field(ge=1, le=600)] = 30
 
     @model_validator(mode="after")
     def _one_password_source(self) -> Broker:
@@ -384,13 +406,13 @@ DATA_TYPE_REGISTERS = {"int16": 1, "uint16": 1, "int32": 2, "uint32": 2, "float3
 class Reliability(Strict):
     """How an input point's readings are judged (BACnet-style reliability)."""
 
-    stale_after_s: Seconds = 120.0
-    max_rate_k_per_min: Annotated[TemperatureDelta, Field(gt=0, allow_inf_nan=False)] = 2.0
+    stale_after_s: Annotated[Seconds, Field(ge=1)] = 120.0
+    max_rate_k_per_min: Annotated[TemperatureDelta, Field(gt=0)] = 2.0
     """A room does not change faster than this; a jump beyond it is ``implausible``."""
-    stuck_after_s: Seconds | None = 10800.0
+    stuck_after_s: Annotated[Seconds, Field(ge=60)] | None = 10800.0
     """No movement beyond the resolution for this long while the relay is on: ``stuck``."""
-    resolution_k: Annotated[TemperatureDelta, Field(ge=0, allow_inf_nan=False)] = 0.1
-    recovery_s: Annotated[float, Field(ge=0, allow_inf_nan=False)] = 60.0
+    resolution_k: Annotated[TemperatureDelta, Field(ge=0)] = 0.1
+    recovery_s: Annotated[Float, Field(ge=0, le=WEEK_S)] = 60.0
     """A point must read good this long before it is trusted again."""
 
 
@@ -400,8 +422,8 @@ class InputBase(Strict):
     reliability: Reliability = Reliability()
     unit: Literal["C", "F"] = "C"
     """The unit the device sends; converted to Celsius on arrival."""
-    scale: Annotated[float, Field(allow_inf_nan=False)] = 1.0
-    offset: Annotated[float, Field(allow_inf_nan=False)] = 0.0
+    scale: Float = 1.0
+    offset: Float = 0.0
     """value = raw * scale + offset, in the device's unit."""
 
     @field_validator("valid_range")
@@ -425,11 +447,11 @@ class InputBase(Strict):
 class ModbusInput(InputBase):
     type: Literal["modbus-input"]
     link: Name
-    unit_id: Annotated[int, Field(ge=0, le=247)] = 1
+    unit_id: Annotated[Int, Field(ge=0, le=247)] = 1
     table: Literal["input", "holding"] = "input"
-    address: Annotated[int, Field(ge=0, le=MODBUS_MAX_ADDRESS)]
+    address: Annotated[Int, Field(ge=0, le=MODBUS_MAX_ADDRESS)]
     data_type: Literal["int16", "uint16", "int32", "uint32", "float32"] = "int16"
-    count: Annotated[int, Field(ge=1, le=125)] | None = None
+    count: Annotated[Int, Field(ge=1, le=125)] | None = None
     """Registers the value spans; implied by data_type, checked against it if given."""
     word_order: Literal["big", "little"] = "big"
     byte_order: Literal["big", "little"] = "big"
@@ -481,13 +503,13 @@ class ModbusOutput(Strict):
     type: Literal["modbus-output"]
     name: Name
     link: Name
-    unit_id: Annotated[int, Field(ge=0, le=247)] = 1
+    unit_id: Annotated[Int, Field(ge=0, le=247)] = 1
     table: Literal["coil", "holding"] = "coil"
-    address: Annotated[int, Field(ge=0, le=MODBUS_MAX_ADDRESS)]
-    on_value: Annotated[int, Field(ge=0, le=0xFFFF)] = 1
-    off_value: Annotated[int, Field(ge=0, le=0xFFFF)] = 0
+    address: Annotated[Int, Field(ge=0, le=MODBUS_MAX_ADDRESS)]
+    on_value: Annotated[Int, Field(ge=0, le=0xFFFF)] = 1
+    off_value: Annotated[Int, Field(ge=0, le=0xFFFF)] = 0
     read_back: bool = True
-    reassert_s: Seconds = 60.0
+    reassert_s: Annotated[Seconds, Field(ge=1)] = 60.0
     """Write the wanted state again this often, so a relay module that lost power is corrected."""
 
     @model_validator(mode="after")
@@ -506,8 +528,8 @@ class MqttOutput(Strict):
     on_payload: str = "on"
     off_payload: str = "off"
     state_topic: Topic | None = None
-    state_timeout_s: Seconds = 10.0
-    reassert_s: Seconds = 300.0
+    state_timeout_s: Annotated[Seconds, Field(ge=0.1, le=600)] = 10.0
+    reassert_s: Annotated[Seconds, Field(ge=1)] = 300.0
 
     @model_validator(mode="after")
     def _distinct(self) -> MqttOutput:
@@ -556,14 +578,14 @@ class TuningInput(Strict):
 
     differential_k: Annotated[TemperatureDelta, Field(gt=0, le=5)] | None = None
     anticipator_gain_k: Annotated[TemperatureDelta, Field(ge=0, le=10)] | None = None
-    anticipator_time_constant_s: Seconds | None = None
-    cycle_rate_cph: Annotated[float, Field(gt=0, le=30)] | None = None
-    min_on_s: Annotated[float, Field(ge=0, le=7200)] | None = None
-    min_off_s: Annotated[float, Field(ge=0, le=7200)] | None = None
-    max_cycles_per_hour: Annotated[int, Field(ge=1, le=60)] | None = None
+    anticipator_time_constant_s: Annotated[Seconds, Field(ge=10)] | None = None
+    cycle_rate_cph: Annotated[Float, Field(gt=0, le=30)] | None = None
+    min_on_s: Annotated[Float, Field(ge=0, le=7200)] | None = None
+    min_off_s: Annotated[Float, Field(ge=0, le=7200)] | None = None
+    max_cycles_per_hour: Annotated[Int, Field(ge=1, le=60)] | None = None
     droop_compensation: bool | None = None
-    droop_time_s: Seconds | None = None
-    smoothing_s: Annotated[float, Field(ge=0, le=14400, allow_inf_nan=False)] | None = None
+    droop_time_s: Annotated[Seconds, Field(ge=60)] | None = None
+    smoothing_s: Annotated[Float, Field(ge=0, le=14400)] | None = None
     """Time constant of the smoothing of the temperature the relay switches on; left out:
     one cycle period (3600 / cycle rate); 0: none."""
 
@@ -590,16 +612,16 @@ class FailSafe(Strict):
     """What the zone does with no reliable temperature."""
 
     policy: Literal["off", "fixed-duty", "learned-duty"] = "learned-duty"
-    sensor_timeout_s: Seconds = 600.0
+    sensor_timeout_s: Annotated[Seconds, Field(ge=10)] = 600.0
     duty: Fraction = 0.3
     """On-fraction for ``fixed-duty``, and for ``learned-duty`` before anything was learned."""
-    period_s: Annotated[float, Field(ge=60, le=14400)] = 1200.0
-    learn_hours: Annotated[float, Field(gt=0, le=48)] = 4.0
+    period_s: Annotated[Float, Field(ge=60, le=14400)] = 1200.0
+    learn_hours: Annotated[Float, Field(ge=0.5, le=48)] = 4.0
     min_duty: Fraction = 0.1
     max_duty: Fraction = 0.7
     backup_point: Name | None = None
     """A second sensor (e.g. a pipe or outdoor-wall probe) that keeps protection working."""
-    recovery_s: Annotated[float, Field(ge=0, le=7200)] = 120.0
+    recovery_s: Annotated[Float, Field(ge=0, le=7200)] = 120.0
 
     @model_validator(mode="after")
     def _bounds(self) -> FailSafe:
@@ -681,7 +703,7 @@ class Zone(Strict):
     """The level in mode ``auto`` when the program is empty."""
     protection_in_off: bool = True
     """In mode ``off``, still heat below the protection set point (frost protection)."""
-    tick_s: Annotated[float, Field(ge=1, le=300)] = 10.0
+    tick_s: Annotated[Float, Field(ge=1, le=300)] = 10.0
     safe_state: Literal["off", "on"] = "off"
     """The output's state at start, at stop and when roomloop cannot decide."""
 
