@@ -94,10 +94,11 @@ def _broker_text(broker: Broker | None, site: Site) -> str:
     ]
     parts.append(f"keepalive {broker.keepalive_s} s")
     if broker.username:
+        # Never the values: a password typed into either key by mistake stays unseen.
         if broker.password_file:
-            secret = f"password from file {broker.password_file}"
+            secret = "password from the file broker.password_file names"
         elif broker.password_env:
-            secret = f"password from ${broker.password_env}"
+            secret = "password from the variable broker.password_env names"
         else:
             secret = "no password"
         parts.append(f"user {broker.username} ({secret})")

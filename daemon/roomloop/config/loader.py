@@ -36,6 +36,7 @@ from yaml.nodes import MappingNode, Node, ScalarNode, SequenceNode
 
 from roomloop.config.checks import Finding, SiteParts, check_parts
 from roomloop.config.models import (
+    SECRET_KEYS,
     Broker,
     Link,
     Logging,
@@ -468,7 +469,16 @@ def _fahrenheit_bound(error: Mapping[str, Any], path: KeyPath, units: str) -> st
     )
 
 
+class _Hidden:
+    """Stands in for a secret key's value in a message."""
+
+
+_HIDDEN = _Hidden()
+
+
 def _show(value: Any) -> str:
+    if isinstance(value, _Hidden):
+        return "a value that is not shown"
     if value is None:
         return "nothing"
     if isinstance(value, dict):
@@ -511,7 +521,10 @@ def problems_from_validation_error(
             tags = _type_tags(schema)
             if error["type"] == "union_tag_invalid":
                 full = (*full, "type")  # point at the 'type' line itself
-        message = _fahrenheit_bound(error, full, units) or _message(error, allowed, tags)
+        told: Mapping[str, Any] = error
+        if any(part in SECRET_KEYS for part in full if isinstance(part, str)):
+            told = {**error, "input": _HIDDEN}  # a password typed there is never echoed
+        message = _fahrenheit_bound(told, full, units) or _message(told, allowed, tags)
         line = linemap.line(full)
         key = (line, format_path(full), message)
         if key in seen:

@@ -320,6 +320,12 @@ class Tls(Strict):
     """Skip the host name check (a self-signed broker on a site network); never the default."""
 
 
+_ENV_NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]{0,254}")
+
+SECRET_KEYS = frozenset({"password_file", "password_env"})
+"""Keys whose values are never printed: a password typed into one by mistake stays unseen."""
+
+
 class Broker(Strict):
     """The site's MQTT broker: monitoring, commands and MQTT points go through it."""
 
@@ -329,7 +335,9 @@ class Broker(Strict):
     keepalive_s: Annotated[Int, Field(ge=5, le=3600)] = 30
     username: str | None = None
     password_file: str | None = None
+    """An absolute path; never shown (a password typed here by mistake must not be echoed)."""
     password_env: str | None = None
+    """An environment variable's name; never shown, like ``password_file``."""
     tls: Tls | None = None
     topic_prefix: str | None = None
     """Defaults to ``roomloop/<site name>``."""
@@ -345,6 +353,30 @@ class Broker(Strict):
         if self.tls is not None and (self.tls.cert_file is None) != (self.tls.key_file is None):
             raise ValueError("tls.cert_file and tls.key_file go together")
         return self
+
+    @field_validator("password_env")
+    @classmethod
+    def _variable_name(cls, value: str | None) -> str | None:
+        """A variable name (letters, digits, '_', not starting with a digit: the portable
+        names of IEEE Std 1003.1, Base Definitions, chapter 8). The value is never repeated."""
+        if value is not None and not _ENV_NAME.fullmatch(value):
+            raise ValueError(
+                "is not an environment variable's name (letters, digits and '_', e.g. "
+                "ROOMLOOP_BROKER_PASSWORD); if this is the password itself, move it out of the "
+                "site file (the value is not shown)"
+            )
+        return value
+
+    @field_validator("password_file")
+    @classmethod
+    def _password_path(cls, value: str | None) -> str | None:
+        if value is not None and (not value.startswith("/") or any(c in value for c in "\x00\n\r")):
+            raise ValueError(
+                "must be the absolute path of a file holding the password (e.g. "
+                "/etc/roomloop/broker-password); if this is the password itself, move it out "
+                "of the site file (the value is not shown)"
+            )
+        return value
 
     @field_validator("topic_prefix")
     @classmethod
