@@ -17,6 +17,7 @@ from typing import TextIO
 from roomloop.config.checks import delta_text, temperature_text
 from roomloop.config.loader import load_site
 from roomloop.config.models import (
+    BYTE_LETTERS,
     LEVELS,
     Broker,
     ModbusInput,
@@ -132,7 +133,7 @@ def _point_text(point: ModbusInput | MqttInput | ModbusOutput | MqttOutput, unit
             common += f" as raw x {_n(point.scale)} + {_n(point.offset)}"
         if isinstance(point, ModbusInput):
             order = (
-                f"{point.word_order}-word {point.byte_order}-byte"
+                f"{point.word_order}-word {point.byte_order}-byte, {_letters(point)}"
                 if point.registers > 1
                 else f"{point.byte_order}-byte"
             )
@@ -167,6 +168,14 @@ def _point_text(point: ModbusInput | MqttInput | ModbusOutput | MqttOutput, unit
         f"{point.off_payload!r}, "
         f"{state}, re-sent every {_n(point.reassert_s)} s"
     )
+
+
+def _letters(point: ModbusInput) -> str:
+    """The layout as device manuals spell it (CDAB: low word first)."""
+    for letters, orders in BYTE_LETTERS.items():
+        if orders == (point.word_order, point.byte_order):
+            return letters
+    return "?"  # pragma: no cover - the four pairs are all the pairs
 
 
 def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:

@@ -432,6 +432,14 @@ def _sentinel_map(value: Any) -> Any:
     return out
 
 
+BYTE_LETTERS: dict[str, tuple[Literal["big", "little"], Literal["big", "little"]]] = {
+    "ABCD": ("big", "big"),
+    "CDAB": ("little", "big"),
+    "BADC": ("big", "little"),
+    "DCBA": ("little", "little"),
+}
+"""The usual spellings of a 32-bit register layout -> (word_order, byte_order)."""
+
 DATA_TYPE_REGISTERS = {"int16": 1, "uint16": 1, "int32": 2, "uint32": 2, "float32": 2}
 
 
@@ -486,6 +494,8 @@ class ModbusInput(InputBase):
     count: Annotated[Int, Field(ge=1, le=125)] | None = None
     """Registers the value spans; implied by data_type, checked against it if given."""
     word_order: Literal["big", "little"] = "big"
+    """``big``: the high word first; ``little``: the low word first. ABCD, CDAB, BADC or DCBA
+    set word_order and byte_order together."""
     byte_order: Literal["big", "little"] = "big"
     sentinels: Annotated[dict[int, SentinelVerdict | None], BeforeValidator(_sentinel_map)] = {}
     """Raw register values the device sends instead of a reading (e.g. 0x7FFF, 0x8000).
@@ -494,6 +504,34 @@ class ModbusInput(InputBase):
     (0x7FFF ``over-range``, 0x8001 ``under-range``); a mapping names the verdict per
     value, e.g. ``{0x7FFF: over-range, 0x8000: comm-failure, 0x8001: under-range}``.
     """
+
+    @model_validator(mode="before")
+    @classmethod
+    def _byte_letters(cls, data: Any) -> Any:
+        """``word_order: CDAB`` (and ABCD, BADC, DCBA) as device manuals write it.
+
+        The letters name the bytes of the value most significant first, as IEEE 754 lays
+        out a float32 (21.5 = 0x41AC0000: A = 0x41, B = 0xAC, C = D = 0x00), in the order
+        they arrive: CDAB sends the low word first with each word's bytes high first.
+        """
+        if not isinstance(data, dict) or not isinstance(data.get("word_order"), str):
+            return data
+        letters = data["word_order"].strip().upper()
+        if letters not in BYTE_LETTERS:
+            if re.fullmatch(r"[ABCD]{4}", letters):
+                raise ValueError(
+                    f"word_order {letters} is not a register layout; use ABCD, CDAB, BADC or "
+                    "DCBA (or word_order and byte_order: big / little)"
+                )
+            return data
+        word, byte = BYTE_LETTERS[letters]
+        given = data.get("byte_order")
+        if given is not None and given != byte:
+            raise ValueError(
+                f"word_order {letters} sets byte_order {byte!r} already; drop byte_order "
+                f"{given!r} (or write word_order and byte_order as big / little)"
+            )
+        return {**data, "word_order": word, "byte_order": byte}
 
     def sentinel_verdict(self, value: int) -> SentinelVerdict | None:
         """The configured verdict of a sentinel value (None: judge it by the valid range)."""
