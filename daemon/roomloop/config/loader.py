@@ -171,6 +171,7 @@ class _Builder:
         out: dict[str, Any] = {}
         first_line: dict[str, int] = {}
         merged: list[tuple[Node, KeyPath]] = []
+        previous: tuple[Node, Node] | None = None
         for key_node, value_node in node.value:
             if key_node.tag == "tag:yaml.org,2002:merge":
                 merged.append((value_node, path))
@@ -188,6 +189,11 @@ class _Builder:
                     "give each key once",
                 )
                 continue
+            comma = _decimal_comma(node, key_node, value_node, previous)
+            if comma is not None and previous is not None:
+                self._problem(previous[0], (*path, str(previous[0].value)), comma)
+                continue
+            previous = (key_node, value_node)
             first_line[key] = line
             if from_merge and (*path, key) in self.lines.key_lines:
                 continue  # given directly in the mapping that merges this one: that wins
@@ -209,6 +215,34 @@ class _Builder:
         self.problems.append(
             ConfigProblem(self.file, node.start_mark.line + 1, format_path(path), message)
         )
+
+
+def _decimal_comma(
+    node: MappingNode, key: ScalarNode, value: Node, previous: tuple[Node, Node] | None
+) -> str | None:
+    """``{comfort: 21,5}`` is ``{comfort: 21, 5: null}`` to YAML: a decimal comma, not a key.
+
+    Only in a flow mapping, for a bare-number key without a value right after a bare whole
+    number, on the same line: no real site file has a key like ``5`` there.
+    """
+    if not node.flow_style or previous is None or key.style is not None:
+        return None
+    before = previous[1]
+    if not (
+        isinstance(before, ScalarNode)
+        and before.style is None
+        and re.fullmatch(r"[-+]?\d+", before.value)
+        and re.fullmatch(r"\d+", key.value)
+        and isinstance(value, ScalarNode)
+        and value.tag == "tag:yaml.org,2002:null"
+        and key.start_mark.line == before.end_mark.line
+    ):
+        return None
+    number = f"{before.value}.{key.value}"
+    return (
+        f"{before.value},{key.value} reads as {before.value} and a key {key.value!r}: "
+        f"write decimals with a point ({number})"
+    )
 
 
 def _fail(
@@ -425,6 +459,8 @@ def _message(error: Mapping[str, Any], allowed: Iterable[str] = (), tags: str = 
         )
     if kind in _NUMBER_TYPES and isinstance(shown, str):
         hint = "; write it without quotes" if _looks_numeric(shown) else ""
+        if re.fullmatch(r"\s*[-+]?\d+,\d+\s*", shown):
+            hint = f"; write decimals with a point ({shown.strip().replace(',', '.')})"
         return f"must be {_NUMBER_TYPES[kind]}, not text (got {_show(shown)}){hint}"
     if kind == "int_type" and isinstance(shown, float):
         return f"must be a whole number (got {_show(shown)})"

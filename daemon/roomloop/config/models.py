@@ -712,12 +712,25 @@ class ProgramEntry(Strict):
     def _days(cls, value: list[str] | str) -> list[str]:
         return expand_days(value)
 
+    @field_validator("at", mode="before")
+    @classmethod
+    def _quoted(cls, value: Any) -> Any:
+        """YAML reads a bare ``0730`` as a number (octal: 472) and ``7.30`` as 7.3."""
+        if isinstance(value, int | float) and not isinstance(value, bool):
+            raise ValueError(
+                f"YAML read this time as the number {value:g} (a bare 0730 is even octal); "
+                'write times as HH:MM in quotes, e.g. at: "07:30"'
+            )
+        return value
+
     @field_validator("at")
     @classmethod
     def _time(cls, value: str) -> str:
         match = re.fullmatch(r"([01]?\d|2[0-3]):([0-5]\d)", value.strip())
         if not match:
-            raise ValueError(f"{value!r} is not a time of day HH:MM (00:00 to 23:59)")
+            digits = re.fullmatch(r"(\d{1,2})(\d\d)", value.strip())
+            hint = f'; write it as "{int(digits[1]):02d}:{digits[2]}"' if digits else ""
+            raise ValueError(f"{value!r} is not a time of day HH:MM (00:00 to 23:59){hint}")
         return f"{int(match.group(1)):02d}:{match.group(2)}"
 
     @property
