@@ -551,7 +551,15 @@ def problems_from_validation_error(
         loc = tuple(error.get("loc", ()))
         path = _clean_loc(loc, data) if data is not None else _drop_tags(loc)
         full = (*tuple(prefix), *path)
-        allowed = _allowed_keys(schema, data, path[:-1]) if schema is not None else ()
+        allowed: Iterable[str] = ()
+        dedented = ""
+        if schema is not None:
+            parent, parent_data = _model_at(schema, data, path[:-1])
+            allowed = list(parent.model_fields) if parent is not None else []
+            if error.get("type") == "extra_forbidden" and path and isinstance(path[-1], str):
+                homes = _homes(parent, parent_data, path[-1])
+                keys = parent_data if isinstance(parent_data, Mapping) else {}
+                dedented = _dedent_hint(path[-1], homes, keys)
         tags = ""
         if str(error.get("type", "")).startswith("union_tag"):
             tags = _type_tags(schema)
@@ -560,7 +568,10 @@ def problems_from_validation_error(
         told: Mapping[str, Any] = error
         if any(part in SECRET_KEYS for part in full if isinstance(part, str)):
             told = {**error, "input": _HIDDEN}  # a password typed there is never echoed
-        message = _fahrenheit_bound(told, full, units) or _message(told, allowed, tags)
+        message = _fahrenheit_bound(told, full, units) or _message(
+            told, [] if dedented else allowed, tags
+        )
+        message += dedented
         line = linemap.line(full)
         key = (line, format_path(full), message)
         if key in seen:
@@ -594,8 +605,8 @@ def _drop_tags(loc: Sequence[str | int]) -> KeyPath:
     )
 
 
-def _allowed_keys(schema: Any, data: Any, path: KeyPath) -> list[str]:
-    """The keys the model at ``path`` accepts (for 'did you mean ...?')."""
+def _model_at(schema: Any, data: Any, path: KeyPath) -> tuple[Any, Any]:
+    """The model type at ``path`` (None if it is no model) and the data there."""
     current_type: Any = schema
     current: Any = data
     for part in path:
@@ -609,11 +620,43 @@ def _allowed_keys(schema: Any, data: Any, path: KeyPath) -> list[str]:
             current_type = info.annotation if info is not None else None
             current = current.get(part) if isinstance(current, Mapping) else None
         else:
-            return []
+            return None, None
     current_type = _narrow(current_type, current)
     if isinstance(current_type, type) and issubclass(current_type, BaseModel):
-        return list(current_type.model_fields)
-    return []
+        return current_type, current
+    return None, None
+
+
+def _allowed_keys(schema: Any, data: Any, path: KeyPath) -> list[str]:
+    """The keys the model at ``path`` accepts (for 'did you mean ...?')."""
+    model, _ = _model_at(schema, data, path)
+    return list(model.model_fields) if model is not None else []
+
+
+def _homes(model: Any, data: Any, key: str) -> list[str]:
+    """The sub-sections of ``model`` (``fail_safe``, ``tuning``, ...) that have ``key``:
+    where a key reported as unknown belongs when it was dedented out of its section."""
+    if model is None:
+        return []
+    found: list[str] = []
+    for name, info in model.model_fields.items():
+        value = data.get(name) if isinstance(data, Mapping) else None
+        sub = _narrow(info.annotation, value)
+        if isinstance(sub, type) and issubclass(sub, BaseModel) and key in sub.model_fields:
+            found.append(name)
+    return found
+
+
+def _dedent_hint(key: str, homes: Sequence[str], data_keys: Iterable[str]) -> str:
+    if not homes:
+        return ""
+    present = [home for home in homes if home in set(data_keys)]
+    chosen = present or list(homes)
+    where = " or ".join(f"'{home}:'" for home in chosen)
+    return (
+        f"; {key!r} is a key of {' or '.join(chosen)}: indent it under {where} "
+        "(is it dedented out of its section?)"
+    )
 
 
 def _narrow(tp: Any, value: Any) -> Any:
@@ -696,8 +739,14 @@ def site_from_data(
 
     for key in data:
         if key not in _SECTIONS:
+            homes = [
+                section
+                for section in ("site", "broker", "logging")
+                if str(key) in _SECTIONS[section].model_fields
+            ]
             close = difflib.get_close_matches(str(key), list(_SECTIONS), n=1, cutoff=0.6)
-            hint = f"; did you mean {close[0]!r}?" if close else ""
+            hint = f"; did you mean {close[0]!r}?" if close and not homes else ""
+            hint += _dedent_hint(str(key), homes, data)
             found.append(
                 ConfigProblem(
                     file,
