@@ -75,7 +75,7 @@ def test_bytes_not_characters_are_counted(
     # 'é' is two bytes in UTF-8 (RFC 3629): 33,000 characters are 66,000 bytes.
     code, err = _check(capsys, _site(tmp_path, "roomloop/ok", topic="é" * 33_000))
     assert code == 2
-    assert "points[0].topic: the topic is 66000 bytes of UTF-8" in err
+    assert "points[t1].topic: the topic is 66000 bytes of UTF-8" in err
 
 
 def test_a_point_topic_of_exactly_65535_bytes_passes(

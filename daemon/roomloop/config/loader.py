@@ -63,15 +63,38 @@ MAX_VALUES = 200_000
 # --------------------------------------------------------------------------- key paths
 
 
-def format_path(path: Sequence[str | int]) -> str:
-    """``('zones', 1, 'tuning', 'min_on_s')`` -> ``zones[1].tuning.min_on_s``."""
+def format_path(path: Sequence[str | int], document: Any = None) -> str:
+    """``('zones', 1, 'tuning', 'min_on_s')`` -> ``zones[1].tuning.min_on_s``.
+
+    With the ``document`` the path points into, a list item with a usable ``name`` (unique in
+    its list, a valid name) is named by it: ``points[meeting-temp].address``, which an
+    integrator finds in the file faster than ``points[7]``.
+    """
     out = ""
+    current: Any = document
     for part in path:
         if isinstance(part, int):
-            out += f"[{part}]"
+            out += f"[{_item_label(current, part)}]"
+            current = current[part] if isinstance(current, list) and part < len(current) else None
         else:
             out += ("." if out else "") + str(part)
+            current = current.get(part) if isinstance(current, Mapping) else None
     return out
+
+
+_LABEL = re.compile(r"[a-z0-9][a-z0-9_-]{0,63}")
+
+
+def _item_label(items: Any, index: int) -> str:
+    """The item's name if it names it unambiguously, else its index."""
+    if not isinstance(items, list) or not 0 <= index < len(items):
+        return str(index)
+    item = items[index]
+    name = item.get("name") if isinstance(item, Mapping) else None
+    if not isinstance(name, str) or not _LABEL.fullmatch(name) or name.isdigit():
+        return str(index)
+    same = sum(1 for other in items if isinstance(other, Mapping) and other.get("name") == name)
+    return name if same == 1 else str(index)
 
 
 @dataclass
@@ -142,7 +165,7 @@ class _Builder:
     def __init__(self, file: str) -> None:
         self.file = file
         self.lines = LineMap()
-        self.problems: list[ConfigProblem] = []
+        self.raw_problems: list[tuple[int, KeyPath, str]] = []
         self._constructor = _Scalars()
         self._built = 0
 
@@ -212,9 +235,14 @@ class _Builder:
         return out
 
     def _problem(self, node: Node, path: KeyPath, message: str) -> None:
-        self.problems.append(
-            ConfigProblem(self.file, node.start_mark.line + 1, format_path(path), message)
-        )
+        self.raw_problems.append((node.start_mark.line + 1, path, message))
+
+    def problems(self, document: Any) -> list[ConfigProblem]:
+        """The problems found while building, their paths naming items of ``document``."""
+        return [
+            ConfigProblem(self.file, line, format_path(path, document), message)
+            for line, path, message in self.raw_problems
+        ]
 
 
 def _decimal_comma(
@@ -376,7 +404,7 @@ def _read_document(
         )
     builder = _Builder(file)
     data = builder.build(node, ())
-    return file, data, builder.lines, builder.problems
+    return file, data, builder.lines, builder.problems(data)
 
 
 def load_yaml_document(path: str | os.PathLike[str]) -> tuple[dict[str, Any], LineMap]:
@@ -534,6 +562,7 @@ def problems_from_validation_error(
     data: Any = None,
     schema: Any = None,
     units: str = "C",
+    document: Any = None,
 ) -> list[ConfigProblem]:
     """One :class:`ConfigProblem` per pydantic error, located at its key's line.
 
@@ -542,8 +571,9 @@ def problems_from_validation_error(
     (used to drop union tags from ``loc``; without it the tags are guessed from the
     error's shape); ``schema`` is the model or type validated, used to suggest the
     right spelling of an unknown key; ``units`` (``"F"``) states the bounds of temperature
-    differences (keys ending in ``_k``) in °F degrees, as the file is written. Stable
-    interface: the plant loader uses it.
+    differences (keys ending in ``_k``) in °F degrees, as the file is written; ``document``
+    is the whole document (list items are then named by their ``name``:
+    ``points[meeting-temp].address``). Stable interface: the plant loader uses it.
     """
     problems: list[ConfigProblem] = []
     seen: set[tuple[int | None, str, str]] = set()
@@ -573,11 +603,12 @@ def problems_from_validation_error(
         )
         message += dedented
         line = linemap.line(full)
-        key = (line, format_path(full), message)
+        shown_path = format_path(full, document)
+        key = (line, shown_path, message)
         if key in seen:
             continue
         seen.add(key)
-        problems.append(ConfigProblem(file, line, format_path(full), message))
+        problems.append(ConfigProblem(file, line, shown_path, message))
     return problems
 
 
@@ -767,7 +798,14 @@ def site_from_data(
         except ValidationError as exc:
             found.extend(
                 problems_from_validation_error(
-                    exc, file, lines, where, data=value, schema=_SECTIONS[section], units=units
+                    exc,
+                    file,
+                    lines,
+                    where,
+                    data=value,
+                    schema=_SECTIONS[section],
+                    units=units,
+                    document=data,
                 )
             )
             return None
@@ -816,7 +854,7 @@ def site_from_data(
         parts.invalid_names[section] = invalid_names
 
     for finding in check_parts(parts):
-        found.append(_locate(finding, file, lines))
+        found.append(_locate(finding, file, lines, data))
 
     if found:
         raise ConfigError(_sorted(found))
@@ -828,8 +866,10 @@ def site_from_data(
         ) from None
 
 
-def _locate(finding: Finding, file: str, lines: LineMap) -> ConfigProblem:
-    return ConfigProblem(file, lines.line(finding.path), format_path(finding.path), finding.message)
+def _locate(finding: Finding, file: str, lines: LineMap, document: Any = None) -> ConfigProblem:
+    return ConfigProblem(
+        file, lines.line(finding.path), format_path(finding.path, document), finding.message
+    )
 
 
 def _sorted(problems: list[ConfigProblem]) -> list[ConfigProblem]:
