@@ -12,10 +12,11 @@ import argparse
 import os
 import sys
 from collections.abc import Callable
+from dataclasses import replace
 from typing import TextIO
 
 from roomloop.config.checks import delta_text, temperature_text
-from roomloop.config.loader import load_site
+from roomloop.config.loader import load_site_with_warnings
 from roomloop.config.models import (
     BYTE_LETTERS,
     LEVELS,
@@ -29,19 +30,36 @@ from roomloop.config.models import (
     Site,
     Zone,
 )
+from roomloop.errors import ConfigProblem
 
 
 def main(args: argparse.Namespace) -> int:
-    site = load_site(args.config)
+    site, warnings = load_site_with_warnings(args.config)
+    for warning in warnings:
+        print(_warning_text(warning), file=sys.stderr)
     try:
         print_site(site, sys.stdout)
-        print(f"\n{args.config}: ok", file=sys.stdout)
+        told = f" ({len(warnings)} warning{'s' if len(warnings) != 1 else ''})" if warnings else ""
+        print(f"\n{args.config}: ok{told}", file=sys.stdout)
         sys.stdout.flush()
     except BrokenPipeError:
         # `roomloop check -c site.yaml | head`: the reader left; that is no error.
         devnull = os.open(os.devnull, os.O_WRONLY)
         os.dup2(devnull, sys.stdout.fileno())
     return 0
+
+
+def _seconds(value: float, *, derived: bool) -> str:
+    """A duration; one roomloop derived (not typed) is rounded to what matters: whole
+    seconds, or tenths below 10 s (``519 s``, not ``519.371 s``)."""
+    if not derived:
+        return f"{_n(value)} s"
+    return f"{round(value):d} s" if value >= 10 else f"{round(value, 1):g} s"
+
+
+def _warning_text(problem: ConfigProblem) -> str:
+    """``FILE:LINE: key.path: warning: message``, like an error line but marked."""
+    return str(replace(problem, message=f"warning: {problem.message}"))
 
 
 def _n(value: float) -> str:
@@ -201,7 +219,10 @@ def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:
         ("anticipator gain", delta_text(tuning.anticipator_gain_k, units), "anticipator_gain_k"),
         (
             "anticipator time constant",
-            f"{_n(tuning.anticipator_time_constant_s)} s",
+            _seconds(
+                tuning.anticipator_time_constant_s,
+                derived=origins.get("anticipator_time_constant_s") != "file",
+            ),
             "anticipator_time_constant_s",
         ),
         ("cycle rate", f"{_n(tuning.cycle_rate_cph)} per hour", "cycle_rate_cph"),
@@ -212,7 +233,7 @@ def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:
         ("droop time", f"{_n(tuning.droop_time_s)} s", "droop_time_s"),
         (
             "smoothing",
-            f"{_n(3600.0 / tuning.cycle_rate_cph)} s"
+            _seconds(3600.0 / tuning.cycle_rate_cph, derived=True)
             if tuning.smoothing_s is None
             else ("off" if tuning.smoothing_s == 0 else f"{_n(tuning.smoothing_s)} s"),
             "smoothing_s",

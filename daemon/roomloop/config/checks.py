@@ -97,6 +97,47 @@ def check_parts(parts: SiteParts) -> list[Finding]:
     return findings
 
 
+def warnings_of_parts(parts: SiteParts) -> list[Finding]:
+    """What is probably a mistake but may be right: ``check`` prints it, the site still loads."""
+    return _one_based_registers(parts)
+
+
+def site_warnings(site: Site) -> list[Finding]:
+    """The warnings of a whole (already validated) site (``run`` may log them)."""
+    return warnings_of_parts(SiteParts.from_site(site))
+
+
+_REFERENCE_BLOCKS = {3: "input", 4: "holding"}
+
+
+def _one_based_registers(parts: SiteParts) -> list[Finding]:
+    """Addresses 30001-39999 and 40001-49999 are usually reference numbers, not addresses.
+
+    Device manuals often list registers as 3xxxx (input) and 4xxxx (holding) reference
+    numbers counted from 1 (Modicon's numbering, recalled from memory). On the wire an item
+    numbered X is addressed X - 1 (Modbus Application Protocol Specification V1.1b3, section
+    4.4), and roomloop takes that wire address, so 40001 is most likely address 0.
+    """
+    findings: list[Finding] = []
+    for index, point in parts.points:
+        if not isinstance(point, ModbusInput | ModbusOutput):
+            continue
+        block, rest = divmod(point.address, 10000)
+        table = _REFERENCE_BLOCKS.get(block)
+        if table is None or rest == 0:
+            continue
+        findings.append(
+            Finding(
+                ("points", index, "address"),
+                f"{point.address} looks like a one-based {block}xxxx reference number from a "
+                f"device manual; roomloop takes the address on the wire (counted from 0): for "
+                f"reference {point.address} write table: {table} and address: {rest - 1}. "
+                "If the device really uses this address, ignore this warning",
+            )
+        )
+    return findings
+
+
 # --------------------------------------------------------------------------- formatting
 
 

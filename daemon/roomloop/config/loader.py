@@ -34,7 +34,7 @@ from pydantic import BaseModel, TypeAdapter, ValidationError
 from yaml.constructor import SafeConstructor
 from yaml.nodes import MappingNode, Node, ScalarNode, SequenceNode
 
-from roomloop.config.checks import Finding, SiteParts, check_parts
+from roomloop.config.checks import Finding, SiteParts, check_parts, warnings_of_parts
 from roomloop.config.models import (
     SECRET_KEYS,
     Broker,
@@ -747,9 +747,15 @@ def load_site(path: str | os.PathLike[str]) -> Site:
     Each problem reads ``FILE:LINE: key.path: message``; temperatures are in the units the
     file's ``site.units`` names.
     """
-    file, data, lines, problems = _read_document(path)
-    site = site_from_data(data, file, lines, problems)
+    site, _warnings = load_site_with_warnings(path)
     return site
+
+
+def load_site_with_warnings(path: str | os.PathLike[str]) -> tuple[Site, list[ConfigProblem]]:
+    """:func:`load_site`, plus what is probably a mistake but may be right (``check`` prints
+    these; the site is valid with them), each located like a problem."""
+    file, data, lines, problems = _read_document(path)
+    return _validated(data, file, lines, problems)
 
 
 def site_from_data(
@@ -763,6 +769,16 @@ def site_from_data(
     Useful for sites built in code (the demo, tests); ``lines`` may be empty, then the
     problems carry no line numbers.
     """
+    site, _warnings = _validated(data, file, lines, problems)
+    return site
+
+
+def _validated(
+    data: Mapping[str, Any],
+    file: str,
+    lines: LineMap | None = None,
+    problems: list[ConfigProblem] | None = None,
+) -> tuple[Site, list[ConfigProblem]]:
     lines = lines if lines is not None else LineMap()
     found: list[ConfigProblem] = list(problems or [])
     units = _site_units(data)
@@ -858,8 +874,9 @@ def site_from_data(
 
     if found:
         raise ConfigError(_sorted(found))
+    warnings = _sorted([_locate(w, file, lines, data) for w in warnings_of_parts(parts)])
     try:
-        return Site.model_validate(data, context=context)
+        return Site.model_validate(data, context=context), warnings
     except ValidationError as exc:  # pragma: no cover - the sections above catch the same errors
         raise ConfigError(
             problems_from_validation_error(exc, file, lines, (), data=data, schema=Site)
