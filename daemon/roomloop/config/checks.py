@@ -325,79 +325,107 @@ def _point_topics(parts: SiteParts) -> list[Finding]:
 # --------------------------------------------------------------------------- zones
 
 
+@dataclass(frozen=True)
+class _PointIndex:
+    """The points a zone may name, for the reference checks."""
+
+    points: dict[str, AnyPoint]
+    invalid: set[str]
+    known: str
+
+    def unknown(self, name: str, where: KeyPath) -> list[Finding]:
+        """A finding for a name no point has (none for a point that failed on its own)."""
+        if name in self.invalid:
+            return []
+        return [Finding(where, f"unknown point {name!r} (points: {self.known})")]
+
+
 def _zone_references(parts: SiteParts) -> list[Finding]:
-    findings: list[Finding] = []
     points = {point.name: point for _, point in parts.points}
-    bad_points = parts.invalid_names.get("points", set())
-    known = ", ".join(sorted(points)) or "none defined"
+    index_of = _PointIndex(
+        points,
+        parts.invalid_names.get("points", set()),
+        ", ".join(sorted(points)) or "none defined",
+    )
+    findings: list[Finding] = []
     used_outputs: dict[str, str] = {}
     for index, zone in parts.zones:
-        seen_inputs: set[str] = set()
-        for j, name in enumerate(zone.inputs):
-            where: KeyPath = ("zones", index, "inputs", j)
-            if name in seen_inputs:
-                findings.append(Finding(where, f"input {name!r} is listed twice"))
-                continue
-            seen_inputs.add(name)
-            point = points.get(name)
-            if point is None:
-                if name not in bad_points:
-                    findings.append(Finding(where, f"unknown point {name!r} (points: {known})"))
-            elif isinstance(point, ModbusOutput | MqttOutput):
-                findings.append(
-                    Finding(
-                        where,
-                        f"{name!r} is an output ({point.type}); a zone's inputs are "
-                        "temperature inputs",
-                    )
-                )
-        where = ("zones", index, "output")
-        output = points.get(zone.output)
-        if output is None:
-            if zone.output not in bad_points:
-                findings.append(Finding(where, f"unknown point {zone.output!r} (points: {known})"))
-        elif isinstance(output, ModbusInput | MqttInput):
-            findings.append(
-                Finding(
-                    where,
-                    f"{zone.output!r} is an input ({output.type}); a zone's output must be a "
-                    "relay output",
-                )
-            )
-        elif zone.output in used_outputs:
-            findings.append(
-                Finding(
-                    where,
-                    f"output {zone.output!r} is already switched by zone "
-                    f"{used_outputs[zone.output]!r}; "
-                    "two zones cannot share one relay",
-                )
-            )
-        else:
-            used_outputs[zone.output] = zone.name
-        backup = zone.fail_safe.backup_point
-        if backup is not None:
-            where = ("zones", index, "fail_safe", "backup_point")
-            point = points.get(backup)
-            if point is None:
-                if backup not in bad_points:
-                    findings.append(Finding(where, f"unknown point {backup!r} (points: {known})"))
-            elif isinstance(point, ModbusOutput | MqttOutput):
-                findings.append(
-                    Finding(
-                        where,
-                        f"{backup!r} is an output; the backup point must be a temperature input",
-                    )
-                )
-            elif backup in zone.inputs:
-                findings.append(
-                    Finding(
-                        where,
-                        f"{backup!r} is already one of the zone's inputs; a backup must be a "
-                        "second sensor",
-                    )
-                )
+        findings += _zone_inputs(index, zone, index_of)
+        findings += _zone_output(index, zone, index_of, used_outputs)
+        findings += _zone_backup(index, zone, index_of)
     return findings
+
+
+def _zone_inputs(index: int, zone: Zone, known: _PointIndex) -> list[Finding]:
+    findings: list[Finding] = []
+    seen_inputs: set[str] = set()
+    for j, name in enumerate(zone.inputs):
+        where: KeyPath = ("zones", index, "inputs", j)
+        if name in seen_inputs:
+            findings.append(Finding(where, f"input {name!r} is listed twice"))
+            continue
+        seen_inputs.add(name)
+        point = known.points.get(name)
+        if point is None:
+            findings += known.unknown(name, where)
+        elif isinstance(point, ModbusOutput | MqttOutput):
+            findings.append(
+                Finding(
+                    where,
+                    f"{name!r} is an output ({point.type}); a zone's inputs are temperature inputs",
+                )
+            )
+    return findings
+
+
+def _zone_output(
+    index: int, zone: Zone, known: _PointIndex, used_outputs: dict[str, str]
+) -> list[Finding]:
+    where: KeyPath = ("zones", index, "output")
+    output = known.points.get(zone.output)
+    if output is None:
+        return known.unknown(zone.output, where)
+    if isinstance(output, ModbusInput | MqttInput):
+        return [
+            Finding(
+                where,
+                f"{zone.output!r} is an input ({output.type}); a zone's output must be a "
+                "relay output",
+            )
+        ]
+    if zone.output in used_outputs:
+        return [
+            Finding(
+                where,
+                f"output {zone.output!r} is already switched by zone "
+                f"{used_outputs[zone.output]!r}; "
+                "two zones cannot share one relay",
+            )
+        ]
+    used_outputs[zone.output] = zone.name
+    return []
+
+
+def _zone_backup(index: int, zone: Zone, known: _PointIndex) -> list[Finding]:
+    backup = zone.fail_safe.backup_point
+    if backup is None:
+        return []
+    where: KeyPath = ("zones", index, "fail_safe", "backup_point")
+    point = known.points.get(backup)
+    if point is None:
+        return known.unknown(backup, where)
+    if isinstance(point, ModbusOutput | MqttOutput):
+        return [
+            Finding(where, f"{backup!r} is an output; the backup point must be a temperature input")
+        ]
+    if backup in zone.inputs:
+        return [
+            Finding(
+                where,
+                f"{backup!r} is already one of the zone's inputs; a backup must be a second sensor",
+            )
+        ]
+    return []
 
 
 def _setpoints(index: int, zone: Zone, units: str) -> list[Finding]:

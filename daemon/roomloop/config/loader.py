@@ -464,6 +464,22 @@ def _message(error: Mapping[str, Any], allowed: Iterable[str] = (), tags: str = 
     for prefix in _PREFIXES:
         if msg.startswith(prefix):
             msg = msg[len(prefix) :]
+    shown = error.get("input")
+    told = _shape_message(kind, error, allowed, tags) or _number_message(kind, shown)
+    if told is not None:
+        return told
+    if kind in ("value_error", "assertion_error"):
+        return msg  # our own wording, already a sentence fragment
+    msg = f"{msg[:1].lower()}{msg[1:]}"  # pydantic's "Input should be ..." reads on after the path
+    if isinstance(shown, dict | list):
+        return msg
+    return f"{msg} (got {_show(shown)})"
+
+
+def _shape_message(
+    kind: str, error: Mapping[str, Any], allowed: Iterable[str], tags: str
+) -> str | None:
+    """Missing and unknown keys, union tags, a scalar where a mapping belongs."""
     if kind == "missing":
         return "missing: this key is required"
     if kind == "extra_forbidden":
@@ -473,13 +489,16 @@ def _message(error: Mapping[str, Any], allowed: Iterable[str] = (), tags: str = 
         return f"unknown key {key!r} (a typo is never ignored){hint}"
     if kind in ("union_tag_invalid", "union_tag_not_found"):
         tags = tags or str(error.get("ctx", {}).get("expected_tags", ""))
-        found = error.get("ctx", {}).get("tag")
         if kind == "union_tag_not_found":
             return f"missing 'type': say which kind this is ({tags or 'see the reference'})"
-        return f"unknown type {found!r}; use one of {tags}"
+        return f"unknown type {error.get('ctx', {}).get('tag')!r}; use one of {tags}"
     if kind in {"model_type", "dict_type", "model_attributes_type"}:
         return f"must be a mapping of keys, got {_show(error.get('input'))}"
-    shown = error.get("input")
+    return None
+
+
+def _number_message(kind: str, shown: Any) -> str | None:
+    """A boolean, text or a fraction where a number or a whole number belongs."""
     if kind in _NUMBER_TYPES and isinstance(shown, bool):
         return (
             f"must be {_NUMBER_TYPES[kind]}, not {str(shown).lower()} (a boolean is no number; "
@@ -492,12 +511,7 @@ def _message(error: Mapping[str, Any], allowed: Iterable[str] = (), tags: str = 
         return f"must be {_NUMBER_TYPES[kind]}, not text (got {_show(shown)}){hint}"
     if kind == "int_type" and isinstance(shown, float):
         return f"must be a whole number (got {_show(shown)})"
-    if kind in ("value_error", "assertion_error"):
-        return msg  # our own wording, already a sentence fragment
-    msg = f"{msg[:1].lower()}{msg[1:]}"  # pydantic's "Input should be ..." reads on after the path
-    if isinstance(shown, dict | list):
-        return msg
-    return f"{msg} (got {_show(shown)})"
+    return None
 
 
 def _looks_numeric(text: str) -> bool:
@@ -784,27 +798,7 @@ def _validated(
     units = _site_units(data)
     context = {"units": units}
 
-    for key in data:
-        if key not in _SECTIONS:
-            homes = [
-                section
-                for section in ("site", "broker", "logging")
-                if str(key) in _SECTIONS[section].model_fields
-            ]
-            close = difflib.get_close_matches(str(key), list(_SECTIONS), n=1, cutoff=0.6)
-            hint = f"; did you mean {close[0]!r}?" if close and not homes else ""
-            hint += _dedent_hint(str(key), homes, data)
-            found.append(
-                ConfigProblem(
-                    file,
-                    lines.line((key,)),
-                    str(key),
-                    f"unknown section {key!r} (sections: {', '.join(_SECTIONS)}){hint}",
-                )
-            )
-    for key in _REQUIRED:
-        if key not in data:
-            found.append(ConfigProblem(file, 1, key, f"missing: the '{key}' section is required"))
+    found += _section_names(data, file, lines)
 
     parts = SiteParts(units=units, broker_present=data.get("broker") is not None)
 
@@ -837,27 +831,10 @@ def _validated(
             )
 
     for section in _LIST_SECTIONS:
-        items = data.get(section)
+        items, shape = _list_section(data, section, file, lines)
+        found += shape
         if items is None:
-            if section == "zones" and section in data:
-                found.append(
-                    ConfigProblem(file, lines.line((section,)), section, "list at least one zone")
-                )
             continue
-        if not isinstance(items, list):
-            found.append(
-                ConfigProblem(
-                    file,
-                    lines.line((section,)),
-                    section,
-                    f"must be a list (one '- ' item per entry), got {_show(items)}",
-                )
-            )
-            continue
-        if section == "zones" and not items:
-            found.append(
-                ConfigProblem(file, lines.line((section,)), section, "list at least one zone")
-            )
         valid: list[tuple[int, Any]] = []
         invalid_names: set[str] = set()
         for index, item in enumerate(items):
@@ -881,6 +858,52 @@ def _validated(
         raise ConfigError(
             problems_from_validation_error(exc, file, lines, (), data=data, schema=Site)
         ) from None
+
+
+def _section_names(data: Mapping[str, Any], file: str, lines: LineMap) -> list[ConfigProblem]:
+    """Unknown sections (with where a dedented key belongs) and missing required ones."""
+    found: list[ConfigProblem] = []
+    for key in data:
+        if key in _SECTIONS:
+            continue
+        homes = [
+            section
+            for section in ("site", "broker", "logging")
+            if str(key) in _SECTIONS[section].model_fields
+        ]
+        close = difflib.get_close_matches(str(key), list(_SECTIONS), n=1, cutoff=0.6)
+        hint = f"; did you mean {close[0]!r}?" if close and not homes else ""
+        hint += _dedent_hint(str(key), homes, data)
+        found.append(
+            ConfigProblem(
+                file,
+                lines.line((key,)),
+                str(key),
+                f"unknown section {key!r} (sections: {', '.join(_SECTIONS)}){hint}",
+            )
+        )
+    for key in _REQUIRED:
+        if key not in data:
+            found.append(ConfigProblem(file, 1, key, f"missing: the '{key}' section is required"))
+    return found
+
+
+def _list_section(
+    data: Mapping[str, Any], section: str, file: str, lines: LineMap
+) -> tuple[list[Any] | None, list[ConfigProblem]]:
+    """The items of a list section (None when there are none to validate) and its problems."""
+    items = data.get(section)
+    where = lines.line((section,))
+    if items is None:
+        if section == "zones" and section in data:
+            return None, [ConfigProblem(file, where, section, "list at least one zone")]
+        return None, []
+    if not isinstance(items, list):
+        message = f"must be a list (one '- ' item per entry), got {_show(items)}"
+        return None, [ConfigProblem(file, where, section, message)]
+    if section == "zones" and not items:
+        return items, [ConfigProblem(file, where, section, "list at least one zone")]
+    return items, []
 
 
 def _locate(finding: Finding, file: str, lines: LineMap, document: Any = None) -> ConfigProblem:
