@@ -54,8 +54,8 @@ def test_a_one_based_reference_number_is_a_warning(
     lines = err.strip().splitlines()
     assert len(lines) == 1, err
     # Modbus Application Protocol Specification V1.1b3, section 4.4: the item numbered X is
-    # addressed X - 1 [published]; 3xxxx input / 4xxxx holding reference numbers: common
-    # practice in device manuals (recalled from memory).
+    # addressed X - 1 [published; the section number recalled from memory]; 3xxxx input /
+    # 4xxxx holding reference numbers: common practice in device manuals, no source.
     assert lines[0].startswith(f"{path}:4: points[meeting-temp].address: warning: ")
     assert f"write table: {table} and address: {wire}" in lines[0]
     assert out.rstrip().endswith(f"{path}: ok (1 warning)")

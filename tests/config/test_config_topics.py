@@ -2,8 +2,11 @@
 
 MQTT 3.1.1 (OASIS Standard, 2014) section 1.5.3 and MQTT 5.0 (OASIS Standard, 2019) section
 1.5.4: a UTF-8 string, a topic name among them, carries a two-byte length, so at most 65535
-bytes, and never U+0000 [published]. roomloop appends at most 128 bytes to its prefix
-(``/zone/<zone, up to 64 bytes>/cmd/<field>``), so a prefix may have 65535 - 128 bytes.
+bytes, and never U+0000 [published; MQTT-1.5.3-2 and MQTT-1.5.4-2]. Wildcards never in a topic
+name (section 4.7.1) and ``$`` topics being the broker's (section 4.7.2): the fixtures
+``bad/topic_prefix_*.yaml`` [published; the 4.7.x section numbers recalled from memory].
+roomloop appends at most 128 bytes to its prefix (``/zone/<zone, up to 64 bytes>/cmd/<field>``),
+so a prefix may have 65535 - 128 bytes.
 """
 
 from __future__ import annotations
