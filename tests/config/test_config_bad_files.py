@@ -147,7 +147,7 @@ def test_missing_sections(capsys: pytest.CaptureFixture[str], tmp_path: Path) ->
 @pytest.mark.parametrize(
     ("name", "expect"),
     [
-        ("unknown_point.yaml", ":10: zones[0].inputs[1]: unknown point 'hall-tmep'"),
+        ("unknown_point.yaml", ":10: zones[hall].inputs[1]: unknown point 'hall-tmep'"),
         ("syntax_error.yaml", ":5:"),
     ],
 )

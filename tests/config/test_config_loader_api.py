@@ -109,7 +109,7 @@ def test_site_from_data_without_lines() -> None:
     with pytest.raises(ConfigError) as caught:
         site_from_data(data, "<demo>")
     assert [str(p) for p in caught.value.problems] == [
-        "<demo>: zones[0].output: 't' is an input (modbus-input); "
+        "<demo>: zones[z].output: 't' is an input (modbus-input); "
         "a zone's output must be a relay output"
     ]
 

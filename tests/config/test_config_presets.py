@@ -15,8 +15,8 @@ import math
 import pytest
 from scipy.optimize import brentq
 
-from roomloop.config.models import TuningInput, Zone
-from roomloop.config.presets import PRESETS, resolve_tuning, time_constant_for_cycle_rate
+from roomloop.config.models import TuningInput, Zone, resolve_tuning
+from roomloop.config.presets import PRESETS, time_constant_for_cycle_rate
 
 
 def test_time_constant_check_value() -> None:
@@ -169,3 +169,24 @@ def test_fahrenheit_tuning_is_held_in_kelvin() -> None:
     assert zone.setpoints.protection == pytest.approx(7.0)
     # 5 cph, G = 1.5 K, D = 0.5 K: tau = 3600 / (10 ln 2) = 519.37 s (hand computation).
     assert zone.effective.anticipator_time_constant_s == pytest.approx(519.37, abs=0.01)
+
+
+def test_presets_and_models_form_no_import_cycle() -> None:
+    """models reads presets; presets imports nothing of roomloop (not even lazily)."""
+    import ast
+    from pathlib import Path
+
+    from roomloop.config import models, presets
+
+    def roomloop_imports(module: object) -> set[str]:
+        tree = ast.parse(Path(module.__file__).read_text(encoding="utf-8"))  # type: ignore[attr-defined]
+        found: set[str] = set()
+        for node in ast.walk(tree):
+            if isinstance(node, ast.ImportFrom) and node.module:
+                found.add(node.module)
+            elif isinstance(node, ast.Import):
+                found.update(alias.name for alias in node.names)
+        return {name for name in found if name.startswith("roomloop")}
+
+    assert roomloop_imports(presets) == set()
+    assert "roomloop.config.presets" in roomloop_imports(models)

@@ -69,7 +69,9 @@ def sites(draw: st.DrawFn) -> dict[str, Any]:
                     "address": draw(st.integers(0, 65000)),
                     "data_type": draw(st.sampled_from(["int16", "uint16", "int32", "float32"])),
                     "scale": draw(st.sampled_from([1.0, 0.1, 0.01])),
-                    "word_order": draw(st.sampled_from(["big", "little"])),
+                    "word_order": draw(
+                        st.sampled_from(["big", "little", "ABCD", "CDAB", "BADC", "DCBA"])
+                    ),
                     "sentinels": draw(st.lists(st.integers(0, 65535), max_size=2)),
                 }
             low = draw(st.integers(-40, 0))

@@ -165,15 +165,15 @@ def test_the_site_file_takes_dates_and_local_times(tmp_path: Path) -> None:
 @pytest.mark.parametrize(
     ("entry", "where", "fragment"),
     [
-        ("{name: x, start: 2026-12-24, end: 2026-12-23, level: economy}", "calendar[0]",
+        ("{name: x, start: 2026-12-24, end: 2026-12-23, level: economy}", "calendar[x]",
          "is not after start"),
-        ("{name: x, start: 2026-02-30, end: 2026-03-01, level: economy}", "calendar[0].start",
+        ("{name: x, start: 2026-02-30, end: 2026-03-01, level: economy}", "calendar[x].start",
          "is not a date"),
-        ("{name: x, start: '24.12.2026', end: 2026-12-26, level: economy}", "calendar[0].start",
+        ("{name: x, start: '24.12.2026', end: 2026-12-26, level: economy}", "calendar[x].start",
          "is not a date YYYY-MM-DD"),
         ("{name: x, start: 2026-12-24, end: 2026-12-26, level: economy, zones: [attic]}",
-         "calendar[0].zones[0]", "no zone named 'attic'"),
-        ("{name: x, start: 2026-12-24, end: 2026-12-26, level: away}", "calendar[0].level",
+         "calendar[x].zones[0]", "no zone named 'attic'"),
+        ("{name: x, start: 2026-12-24, end: 2026-12-26, level: away}", "calendar[x].level",
          ""),
     ],
 )

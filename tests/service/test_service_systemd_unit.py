@@ -58,6 +58,22 @@ def test_serial_adapters_stay_reachable() -> None:
     assert settings.get("PrivateDevices", ["no"]) == ["no"]
 
 
+def test_host_shared_memory_is_not_writable() -> None:
+    """ProtectSystem=strict makes /usr, /boot, /etc read-only but leaves /dev writable when
+    PrivateDevices=no (systemd.exec(5), ProtectSystem=): the host's /dev/shm (and POSIX
+    message queues in /dev/mqueue) must be hidden explicitly."""
+    settings = _settings()
+    assert settings["ProtectSystem"] == ["strict"]
+    hidden = {
+        path.lstrip("-")
+        for value in settings.get("InaccessiblePaths", [])
+        for path in value.split()
+    }
+    assert {"/dev/shm", "/dev/mqueue"} <= hidden
+    # Still no blanket /dev: the serial adapters live there.
+    assert "/dev" not in hidden
+
+
 def test_exec_start_is_a_valid_run_command_line() -> None:
     argv = shlex.split(_settings()["ExecStart"][0])
     assert argv[0].endswith("/roomloop")

@@ -12,11 +12,13 @@ import argparse
 import os
 import sys
 from collections.abc import Callable
+from dataclasses import replace
 from typing import TextIO
 
 from roomloop.config.checks import delta_text, temperature_text
-from roomloop.config.loader import load_site
+from roomloop.config.loader import load_site_with_warnings
 from roomloop.config.models import (
+    BYTE_LETTERS,
     LEVELS,
     Broker,
     ModbusInput,
@@ -28,19 +30,36 @@ from roomloop.config.models import (
     Site,
     Zone,
 )
+from roomloop.errors import ConfigProblem
 
 
 def main(args: argparse.Namespace) -> int:
-    site = load_site(args.config)
+    site, warnings = load_site_with_warnings(args.config)
+    for warning in warnings:
+        print(_warning_text(warning), file=sys.stderr)
     try:
         print_site(site, sys.stdout)
-        print(f"\n{args.config}: ok", file=sys.stdout)
+        told = f" ({len(warnings)} warning{'s' if len(warnings) != 1 else ''})" if warnings else ""
+        print(f"\n{args.config}: ok{told}", file=sys.stdout)
         sys.stdout.flush()
     except BrokenPipeError:
         # `roomloop check -c site.yaml | head`: the reader left; that is no error.
         devnull = os.open(os.devnull, os.O_WRONLY)
         os.dup2(devnull, sys.stdout.fileno())
     return 0
+
+
+def _seconds(value: float, *, derived: bool) -> str:
+    """A duration; one roomloop derived (not typed) is rounded to what matters: whole
+    seconds, or tenths below 10 s (``519 s``, not ``519.371 s``)."""
+    if not derived:
+        return f"{_n(value)} s"
+    return f"{round(value):d} s" if value >= 10 else f"{round(value, 1):g} s"
+
+
+def _warning_text(problem: ConfigProblem) -> str:
+    """``FILE:LINE: key.path: warning: message``, like an error line but marked."""
+    return str(replace(problem, message=f"warning: {problem.message}"))
 
 
 def _n(value: float) -> str:
@@ -103,10 +122,11 @@ def _broker_text(broker: Broker | None, site: Site) -> str:
     ]
     parts.append(f"keepalive {broker.keepalive_s} s")
     if broker.username:
+        # Never the values: a password typed into either key by mistake stays unseen.
         if broker.password_file:
-            secret = f"password from file {broker.password_file}"
+            secret = "password from the file broker.password_file names"
         elif broker.password_env:
-            secret = f"password from ${broker.password_env}"
+            secret = "password from the variable broker.password_env names"
         else:
             secret = "no password"
         parts.append(f"user {broker.username} ({secret})")
@@ -140,7 +160,7 @@ def _point_text(point: ModbusInput | MqttInput | ModbusOutput | MqttOutput, unit
             common += f" as raw x {_n(point.scale)} + {_n(point.offset)}"
         if isinstance(point, ModbusInput):
             order = (
-                f"{point.word_order}-word {point.byte_order}-byte"
+                f"{point.word_order}-word {point.byte_order}-byte, {_letters(point)}"
                 if point.registers > 1
                 else f"{point.byte_order}-byte"
             )
@@ -177,6 +197,14 @@ def _point_text(point: ModbusInput | MqttInput | ModbusOutput | MqttOutput, unit
     )
 
 
+def _letters(point: ModbusInput) -> str:
+    """The layout as device manuals spell it (CDAB: low word first)."""
+    for letters, orders in BYTE_LETTERS.items():
+        if orders == (point.word_order, point.byte_order):
+            return letters
+    return "?"  # pragma: no cover - the four pairs are all the pairs
+
+
 def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:
     write(
         f"  {zone.name}: {zone.heating}, output {zone.output}, inputs "
@@ -200,7 +228,10 @@ def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:
         ("anticipator gain", delta_text(tuning.anticipator_gain_k, units), "anticipator_gain_k"),
         (
             "anticipator time constant",
-            f"{_n(tuning.anticipator_time_constant_s)} s",
+            _seconds(
+                tuning.anticipator_time_constant_s,
+                derived=origins.get("anticipator_time_constant_s") != "file",
+            ),
             "anticipator_time_constant_s",
         ),
         ("cycle rate", f"{_n(tuning.cycle_rate_cph)} per hour", "cycle_rate_cph"),
@@ -211,7 +242,7 @@ def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:
         ("droop time", f"{_n(tuning.droop_time_s)} s", "droop_time_s"),
         (
             "smoothing",
-            f"{_n(3600.0 / tuning.cycle_rate_cph)} s"
+            _seconds(3600.0 / tuning.cycle_rate_cph, derived=True)
             if tuning.smoothing_s is None
             else ("off" if tuning.smoothing_s == 0 else f"{_n(tuning.smoothing_s)} s"),
             "smoothing_s",

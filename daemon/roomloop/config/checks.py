@@ -102,6 +102,7 @@ def check_parts(parts: SiteParts) -> list[Finding]:
     findings += _serial_devices(parts)
     findings += _zone_references(parts)
     findings += _bms_face(parts)
+    findings += _point_topics(parts)
     for index, zone in parts.zones:
         findings += _setpoints(index, zone, parts.units)
         findings += _tuning(index, zone, parts.units)
@@ -122,6 +123,47 @@ def _calendar_zones(parts: SiteParts) -> list[Finding]:
                         f"no zone named {name!r} (zones: {', '.join(sorted(known)) or 'none'})",
                     )
                 )
+    return findings
+
+
+def warnings_of_parts(parts: SiteParts) -> list[Finding]:
+    """What is probably a mistake but may be right: ``check`` prints it, the site still loads."""
+    return _one_based_registers(parts)
+
+
+def site_warnings(site: Site) -> list[Finding]:
+    """The warnings of a whole (already validated) site (``run`` may log them)."""
+    return warnings_of_parts(SiteParts.from_site(site))
+
+
+_REFERENCE_BLOCKS = {3: "input", 4: "holding"}
+
+
+def _one_based_registers(parts: SiteParts) -> list[Finding]:
+    """Addresses 30001-39999 and 40001-49999 are usually reference numbers, not addresses.
+
+    Device manuals often list registers as 3xxxx (input) and 4xxxx (holding) reference
+    numbers counted from 1 (Modicon's numbering, recalled from memory). On the wire an item
+    numbered X is addressed X - 1 (Modbus Application Protocol Specification V1.1b3, section
+    4.4), and roomloop takes that wire address, so 40001 is most likely address 0.
+    """
+    findings: list[Finding] = []
+    for index, point in parts.points:
+        if not isinstance(point, ModbusInput | ModbusOutput):
+            continue
+        block, rest = divmod(point.address, 10000)
+        table = _REFERENCE_BLOCKS.get(block)
+        if table is None or rest == 0:
+            continue
+        findings.append(
+            Finding(
+                ("points", index, "address"),
+                f"{point.address} looks like a one-based {block}xxxx reference number from a "
+                f"device manual; roomloop takes the address on the wire (counted from 0): for "
+                f"reference {point.address} write table: {table} and address: {rest - 1}. "
+                "If the device really uses this address, ignore this warning",
+            )
+        )
     return findings
 
 
@@ -294,81 +336,167 @@ def _bms_face(parts: SiteParts) -> list[Finding]:
 
 
 # --------------------------------------------------------------------------- zones
+def _prefix(parts: SiteParts) -> str | None:
+    """The topic prefix the site will use, if the sections that set it validated."""
+    if parts.broker is not None and parts.broker.topic_prefix:
+        return parts.broker.topic_prefix
+    if parts.site is None or (parts.broker_present and parts.broker is None):
+        return None
+    return f"roomloop/{parts.site.name}"
 
 
-def _zone_references(parts: SiteParts) -> list[Finding]:
+
+
+def _short(text: str, limit: int = 60) -> str:
+    return text if len(text) <= limit else text[: limit - 3] + "..."
+
+
+def _point_topics(parts: SiteParts) -> list[Finding]:
+    """No point topic inside roomloop's own tree, and no input reading a command topic.
+
+    roomloop publishes its state and takes commands under ``<prefix>/``: an output whose
+    command topic is there (another zone's ``cmd/setpoint``, the site's ``status``) would
+    turn its on/off payloads into commands, and an input there reads roomloop's own values
+    back. An input (or an output's read-back) on a topic with a ``cmd`` level reads the
+    commands sent to some roomloop, never a device's reading.
+    """
     findings: list[Finding] = []
-    points = {point.name: point for _, point in parts.points}
-    bad_points = parts.invalid_names.get("points", set())
-    known = ", ".join(sorted(points)) or "none defined"
-    used_outputs: dict[str, str] = {}
-    for index, zone in parts.zones:
-        seen_inputs: set[str] = set()
-        for j, name in enumerate(zone.inputs):
-            where: KeyPath = ("zones", index, "inputs", j)
-            if name in seen_inputs:
-                findings.append(Finding(where, f"input {name!r} is listed twice"))
+    prefix = _prefix(parts)
+    for index, point in parts.points:
+        topics: list[tuple[str, str | None, bool]] = []
+        if isinstance(point, MqttInput):
+            topics.append(("topic", point.topic, True))
+        elif isinstance(point, MqttOutput):
+            topics.append(("command_topic", point.command_topic, False))
+            topics.append(("state_topic", point.state_topic, True))
+        for key, topic, read in topics:
+            if topic is None:
                 continue
-            seen_inputs.add(name)
-            point = points.get(name)
-            if point is None:
-                if name not in bad_points:
-                    findings.append(Finding(where, f"unknown point {name!r} (points: {known})"))
-            elif isinstance(point, ModbusOutput | MqttOutput):
+            where: KeyPath = ("points", index, key)
+            if prefix is not None and (topic == prefix or topic.startswith(prefix + "/")):
                 findings.append(
                     Finding(
                         where,
-                        f"{name!r} is an output ({point.type}); a zone's inputs are "
-                        "temperature inputs",
+                        f"{key} is inside roomloop's own topic tree {_short(prefix)}/...: "
+                        "roomloop publishes its state and takes commands there; use the "
+                        "device's own topic",
                     )
                 )
-        where = ("zones", index, "output")
-        output = points.get(zone.output)
-        if output is None:
-            if zone.output not in bad_points:
-                findings.append(Finding(where, f"unknown point {zone.output!r} (points: {known})"))
-        elif isinstance(output, ModbusInput | MqttInput):
-            findings.append(
-                Finding(
-                    where,
-                    f"{zone.output!r} is an input ({output.type}); a zone's output must be a "
-                    "relay output",
-                )
-            )
-        elif zone.output in used_outputs:
-            findings.append(
-                Finding(
-                    where,
-                    f"output {zone.output!r} is already switched by zone "
-                    f"{used_outputs[zone.output]!r}; "
-                    "two zones cannot share one relay",
-                )
-            )
-        else:
-            used_outputs[zone.output] = zone.name
-        backup = zone.fail_safe.backup_point
-        if backup is not None:
-            where = ("zones", index, "fail_safe", "backup_point")
-            point = points.get(backup)
-            if point is None:
-                if backup not in bad_points:
-                    findings.append(Finding(where, f"unknown point {backup!r} (points: {known})"))
-            elif isinstance(point, ModbusOutput | MqttOutput):
+            elif read and "cmd" in topic.split("/"):
                 findings.append(
                     Finding(
                         where,
-                        f"{backup!r} is an output; the backup point must be a temperature input",
-                    )
-                )
-            elif backup in zone.inputs:
-                findings.append(
-                    Finding(
-                        where,
-                        f"{backup!r} is already one of the zone's inputs; a backup must be a "
-                        "second sensor",
+                        f"{key} has a 'cmd' level: it would read commands sent to a "
+                        "roomloop, not the device's own value",
                     )
                 )
     return findings
+
+
+# --------------------------------------------------------------------------- zones
+
+
+@dataclass(frozen=True)
+class _PointIndex:
+    """The points a zone may name, for the reference checks."""
+
+    points: dict[str, AnyPoint]
+    invalid: set[str]
+    known: str
+
+    def unknown(self, name: str, where: KeyPath) -> list[Finding]:
+        """A finding for a name no point has (none for a point that failed on its own)."""
+        if name in self.invalid:
+            return []
+        return [Finding(where, f"unknown point {name!r} (points: {self.known})")]
+
+
+def _zone_references(parts: SiteParts) -> list[Finding]:
+    points = {point.name: point for _, point in parts.points}
+    index_of = _PointIndex(
+        points,
+        parts.invalid_names.get("points", set()),
+        ", ".join(sorted(points)) or "none defined",
+    )
+    findings: list[Finding] = []
+    used_outputs: dict[str, str] = {}
+    for index, zone in parts.zones:
+        findings += _zone_inputs(index, zone, index_of)
+        findings += _zone_output(index, zone, index_of, used_outputs)
+        findings += _zone_backup(index, zone, index_of)
+    return findings
+
+
+def _zone_inputs(index: int, zone: Zone, known: _PointIndex) -> list[Finding]:
+    findings: list[Finding] = []
+    seen_inputs: set[str] = set()
+    for j, name in enumerate(zone.inputs):
+        where: KeyPath = ("zones", index, "inputs", j)
+        if name in seen_inputs:
+            findings.append(Finding(where, f"input {name!r} is listed twice"))
+            continue
+        seen_inputs.add(name)
+        point = known.points.get(name)
+        if point is None:
+            findings += known.unknown(name, where)
+        elif isinstance(point, ModbusOutput | MqttOutput):
+            findings.append(
+                Finding(
+                    where,
+                    f"{name!r} is an output ({point.type}); a zone's inputs are temperature inputs",
+                )
+            )
+    return findings
+
+
+def _zone_output(
+    index: int, zone: Zone, known: _PointIndex, used_outputs: dict[str, str]
+) -> list[Finding]:
+    where: KeyPath = ("zones", index, "output")
+    output = known.points.get(zone.output)
+    if output is None:
+        return known.unknown(zone.output, where)
+    if isinstance(output, ModbusInput | MqttInput):
+        return [
+            Finding(
+                where,
+                f"{zone.output!r} is an input ({output.type}); a zone's output must be a "
+                "relay output",
+            )
+        ]
+    if zone.output in used_outputs:
+        return [
+            Finding(
+                where,
+                f"output {zone.output!r} is already switched by zone "
+                f"{used_outputs[zone.output]!r}; "
+                "two zones cannot share one relay",
+            )
+        ]
+    used_outputs[zone.output] = zone.name
+    return []
+
+
+def _zone_backup(index: int, zone: Zone, known: _PointIndex) -> list[Finding]:
+    backup = zone.fail_safe.backup_point
+    if backup is None:
+        return []
+    where: KeyPath = ("zones", index, "fail_safe", "backup_point")
+    point = known.points.get(backup)
+    if point is None:
+        return known.unknown(backup, where)
+    if isinstance(point, ModbusOutput | MqttOutput):
+        return [
+            Finding(where, f"{backup!r} is an output; the backup point must be a temperature input")
+        ]
+    if backup in zone.inputs:
+        return [
+            Finding(
+                where,
+                f"{backup!r} is already one of the zone's inputs; a backup must be a second sensor",
+            )
+        ]
+    return []
 
 
 def _setpoints(index: int, zone: Zone, units: str) -> list[Finding]:

@@ -24,6 +24,7 @@ from __future__ import annotations
 import difflib
 import os
 import re
+import stat
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Annotated, Any, Literal, get_args, get_origin
@@ -33,8 +34,9 @@ from pydantic import BaseModel, TypeAdapter, ValidationError
 from yaml.constructor import SafeConstructor
 from yaml.nodes import MappingNode, Node, ScalarNode, SequenceNode
 
-from roomloop.config.checks import Finding, SiteParts, check_parts
+from roomloop.config.checks import Finding, SiteParts, check_parts, warnings_of_parts
 from roomloop.config.models import (
+    SECRET_KEYS,
     Alarms,
     Bms,
     Broker,
@@ -54,6 +56,9 @@ KeyPath = tuple[str | int, ...]
 MAX_FILE_BYTES = 4 * 1024 * 1024
 """A site or plant file is a few kilobytes; anything this big is the wrong file."""
 
+MAX_DEPTH = 64
+"""Nesting levels a document may have; a real site file has fewer than ten."""
+
 MAX_VALUES = 200_000
 """Aliases can make a small file expand enormously; a real site has a few thousand values."""
 
@@ -61,15 +66,38 @@ MAX_VALUES = 200_000
 # --------------------------------------------------------------------------- key paths
 
 
-def format_path(path: Sequence[str | int]) -> str:
-    """``('zones', 1, 'tuning', 'min_on_s')`` -> ``zones[1].tuning.min_on_s``."""
+def format_path(path: Sequence[str | int], document: Any = None) -> str:
+    """``('zones', 1, 'tuning', 'min_on_s')`` -> ``zones[1].tuning.min_on_s``.
+
+    With the ``document`` the path points into, a list item with a usable ``name`` (unique in
+    its list, a valid name) is named by it: ``points[meeting-temp].address``, which an
+    integrator finds in the file faster than ``points[7]``.
+    """
     out = ""
+    current: Any = document
     for part in path:
         if isinstance(part, int):
-            out += f"[{part}]"
+            out += f"[{_item_label(current, part)}]"
+            current = current[part] if isinstance(current, list) and part < len(current) else None
         else:
             out += ("." if out else "") + str(part)
+            current = current.get(part) if isinstance(current, Mapping) else None
     return out
+
+
+_LABEL = re.compile(r"[a-z0-9][a-z0-9_-]{0,63}")
+
+
+def _item_label(items: Any, index: int) -> str:
+    """The item's name if it names it unambiguously, else its index."""
+    if not isinstance(items, list) or not 0 <= index < len(items):
+        return str(index)
+    item = items[index]
+    name = item.get("name") if isinstance(item, Mapping) else None
+    if not isinstance(name, str) or not _LABEL.fullmatch(name) or name.isdigit():
+        return str(index)
+    same = sum(1 for other in items if isinstance(other, Mapping) and other.get("name") == name)
+    return name if same == 1 else str(index)
 
 
 @dataclass
@@ -143,14 +171,14 @@ class _Builder:
     def __init__(self, file: str) -> None:
         self.file = file
         self.lines = LineMap()
-        self.problems: list[ConfigProblem] = []
+        self.raw_problems: list[tuple[int, KeyPath, str]] = []
         self._constructor = _Scalars()
         self._built = 0
 
     def build(self, node: Node, path: KeyPath, depth: int = 0) -> Any:
         self.lines.value_lines.setdefault(path, node.start_mark.line + 1)
         self._built += 1
-        if depth > 64:
+        if depth > MAX_DEPTH:
             self._problem(node, path, "nested too deeply (an alias that refers to itself?)")
             return None
         if self._built > MAX_VALUES:
@@ -172,6 +200,7 @@ class _Builder:
         out: dict[str, Any] = {}
         first_line: dict[str, int] = {}
         merged: list[tuple[Node, KeyPath]] = []
+        previous: tuple[Node, Node] | None = None
         for key_node, value_node in node.value:
             if key_node.tag == "tag:yaml.org,2002:merge":
                 merged.append((value_node, path))
@@ -189,6 +218,11 @@ class _Builder:
                     "give each key once",
                 )
                 continue
+            comma = _decimal_comma(node, key_node, value_node, previous)
+            if comma is not None and previous is not None:
+                self._problem(previous[0], (*path, str(previous[0].value)), comma)
+                continue
+            previous = (key_node, value_node)
             first_line[key] = line
             if from_merge and (*path, key) in self.lines.key_lines:
                 continue  # given directly in the mapping that merges this one: that wins
@@ -207,9 +241,42 @@ class _Builder:
         return out
 
     def _problem(self, node: Node, path: KeyPath, message: str) -> None:
-        self.problems.append(
-            ConfigProblem(self.file, node.start_mark.line + 1, format_path(path), message)
-        )
+        self.raw_problems.append((node.start_mark.line + 1, path, message))
+
+    def problems(self, document: Any) -> list[ConfigProblem]:
+        """The problems found while building, their paths naming items of ``document``."""
+        return [
+            ConfigProblem(self.file, line, format_path(path, document), message)
+            for line, path, message in self.raw_problems
+        ]
+
+
+def _decimal_comma(
+    node: MappingNode, key: ScalarNode, value: Node, previous: tuple[Node, Node] | None
+) -> str | None:
+    """``{comfort: 21,5}`` is ``{comfort: 21, 5: null}`` to YAML: a decimal comma, not a key.
+
+    Only in a flow mapping, for a bare-number key without a value right after a bare whole
+    number, on the same line: no real site file has a key like ``5`` there.
+    """
+    if not node.flow_style or previous is None or key.style is not None:
+        return None
+    before = previous[1]
+    if not (
+        isinstance(before, ScalarNode)
+        and before.style is None
+        and re.fullmatch(r"[-+]?\d+", before.value)
+        and re.fullmatch(r"\d+", key.value)
+        and isinstance(value, ScalarNode)
+        and value.tag == "tag:yaml.org,2002:null"
+        and key.start_mark.line == before.end_mark.line
+    ):
+        return None
+    number = f"{before.value}.{key.value}"
+    return (
+        f"{before.value},{key.value} reads as {before.value} and a key {key.value!r}: "
+        f"write decimals with a point ({number})"
+    )
 
 
 def _fail(
@@ -219,11 +286,16 @@ def _fail(
 
 
 def _read_text(path: str | os.PathLike[str]) -> tuple[str, str]:
-    """The file's name (as the user gave it) and its text; one clear line when it cannot be read."""
+    """The file's name (as the user gave it) and its text; one clear line when it cannot be read.
+
+    Only a regular file is read: a FIFO would block the reader until some writer comes
+    (``check`` and ``run`` would hang), and a device or socket is never a site file. The
+    file is opened without blocking and judged by ``fstat`` of what was opened, so there
+    is no gap between the check and the read.
+    """
     file = os.fspath(path)
     try:
-        with open(file, "rb") as handle:
-            raw = handle.read(MAX_FILE_BYTES + 1)
+        fd = os.open(file, os.O_RDONLY | os.O_NONBLOCK | getattr(os, "O_CLOEXEC", 0))
     except FileNotFoundError:
         raise _fail(file, "no such file") from None
     except IsADirectoryError:
@@ -232,6 +304,17 @@ def _read_text(path: str | os.PathLike[str]) -> tuple[str, str]:
         raise _fail(file, "cannot read the file: permission denied") from None
     except OSError as exc:
         raise _fail(file, f"cannot read the file: {exc.strerror or exc}") from None
+    mode = os.fstat(fd).st_mode
+    if not stat.S_ISREG(mode):
+        os.close(fd)
+        if stat.S_ISDIR(mode):
+            raise _fail(file, "is a directory, not a YAML file")
+        raise _fail(file, f"is {_file_kind(mode)}, not a regular file; give the YAML file")
+    with os.fdopen(fd, "rb") as handle:
+        try:
+            raw = handle.read(MAX_FILE_BYTES + 1)
+        except OSError as exc:
+            raise _fail(file, f"cannot read the file: {exc.strerror or exc}") from None
     if len(raw) > MAX_FILE_BYTES:
         raise _fail(
             file,
@@ -245,18 +328,68 @@ def _read_text(path: str | os.PathLike[str]) -> tuple[str, str]:
     return file, text
 
 
+def _file_kind(mode: int) -> str:
+    if stat.S_ISFIFO(mode):
+        return "a named pipe (FIFO)"
+    if stat.S_ISCHR(mode) or stat.S_ISBLK(mode):
+        return "a device"
+    if stat.S_ISSOCK(mode):
+        return "a socket"
+    return "not a file"
+
+
+_OPENS = (
+    yaml.BlockMappingStartToken,
+    yaml.BlockSequenceStartToken,
+    yaml.FlowMappingStartToken,
+    yaml.FlowSequenceStartToken,
+)
+_CLOSES = (yaml.BlockEndToken, yaml.FlowMappingEndToken, yaml.FlowSequenceEndToken)
+
+
+def _deepest(file: str, text: str) -> None:
+    """Refuse a document nested deeper than :data:`MAX_DEPTH`, at the line where it gets too deep.
+
+    PyYAML's composer recurses once per level, so a few hundred nested lists or mappings
+    end in a RecursionError. Its scanner is a loop: count the depth on the tokens first.
+    """
+    depth = 0
+    for token in yaml.scan(text, Loader=yaml.SafeLoader):
+        if isinstance(token, _OPENS):
+            depth += 1
+            if depth > MAX_DEPTH:
+                mark = token.start_mark
+                raise _fail(
+                    file,
+                    f"nested more than {MAX_DEPTH} levels deep; a site file needs a handful",
+                    mark.line + 1,
+                    mark.column + 1,
+                )
+        elif isinstance(token, _CLOSES):
+            depth -= 1
+
+
+def _syntax_hint(problem: str | None) -> str:
+    if problem and "'\\t'" in problem:
+        return " (indent with spaces, not tabs)"
+    return ""
+
+
 def _compose(file: str, text: str) -> Node | None:
     try:
+        _deepest(file, text)
         return yaml.compose(text, Loader=yaml.SafeLoader)
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark
         what = ": ".join(part for part in (exc.context, exc.problem) if part)
-        message = f"YAML syntax error: {what or 'cannot parse'}"
+        message = f"YAML syntax error: {what or 'cannot parse'}{_syntax_hint(exc.problem)}"
         if mark is None:
             raise _fail(file, message) from None
         raise _fail(file, message, mark.line + 1, mark.column + 1) from None
     except yaml.YAMLError as exc:
         raise _fail(file, f"YAML error: {exc}") from None
+    except RecursionError:  # pragma: no cover - _deepest refuses such documents first
+        raise _fail(file, f"nested more than {MAX_DEPTH} levels deep") from None
 
 
 def _read_document(
@@ -277,7 +410,7 @@ def _read_document(
         )
     builder = _Builder(file)
     data = builder.build(node, ())
-    return file, data, builder.lines, builder.problems
+    return file, data, builder.lines, builder.problems(data)
 
 
 def load_yaml_document(path: str | os.PathLike[str]) -> tuple[dict[str, Any], LineMap]:
@@ -328,6 +461,7 @@ def _clean_loc(loc: Sequence[str | int], data: Any) -> KeyPath:
 
 
 _PREFIXES = ("Value error, ", "Assertion failed, ")
+_NUMBER_TYPES = {"int_type": "a whole number", "float_type": "a number"}
 
 
 def _message(error: Mapping[str, Any], allowed: Iterable[str] = (), tags: str = "") -> str:
@@ -336,6 +470,22 @@ def _message(error: Mapping[str, Any], allowed: Iterable[str] = (), tags: str = 
     for prefix in _PREFIXES:
         if msg.startswith(prefix):
             msg = msg[len(prefix) :]
+    shown = error.get("input")
+    told = _shape_message(kind, error, allowed, tags) or _number_message(kind, shown)
+    if told is not None:
+        return told
+    if kind in ("value_error", "assertion_error"):
+        return msg  # our own wording, already a sentence fragment
+    msg = f"{msg[:1].lower()}{msg[1:]}"  # pydantic's "Input should be ..." reads on after the path
+    if isinstance(shown, dict | list):
+        return msg
+    return f"{msg} (got {_show(shown)})"
+
+
+def _shape_message(
+    kind: str, error: Mapping[str, Any], allowed: Iterable[str], tags: str
+) -> str | None:
+    """Missing and unknown keys, union tags, a scalar where a mapping belongs."""
     if kind == "missing":
         return "missing: this key is required"
     if kind == "extra_forbidden":
@@ -345,19 +495,37 @@ def _message(error: Mapping[str, Any], allowed: Iterable[str] = (), tags: str = 
         return f"unknown key {key!r} (a typo is never ignored){hint}"
     if kind in ("union_tag_invalid", "union_tag_not_found"):
         tags = tags or str(error.get("ctx", {}).get("expected_tags", ""))
-        found = error.get("ctx", {}).get("tag")
         if kind == "union_tag_not_found":
             return f"missing 'type': say which kind this is ({tags or 'see the reference'})"
-        return f"unknown type {found!r}; use one of {tags}"
+        return f"unknown type {error.get('ctx', {}).get('tag')!r}; use one of {tags}"
     if kind in {"model_type", "dict_type", "model_attributes_type"}:
         return f"must be a mapping of keys, got {_show(error.get('input'))}"
-    shown = error.get("input")
-    if kind in ("value_error", "assertion_error"):
-        return msg  # our own wording, already a sentence fragment
-    msg = f"{msg[:1].lower()}{msg[1:]}"  # pydantic's "Input should be ..." reads on after the path
-    if isinstance(shown, dict | list):
-        return msg
-    return f"{msg} (got {_show(shown)})"
+    return None
+
+
+def _number_message(kind: str, shown: Any) -> str | None:
+    """A boolean, text or a fraction where a number or a whole number belongs."""
+    if kind in _NUMBER_TYPES and isinstance(shown, bool):
+        return (
+            f"must be {_NUMBER_TYPES[kind]}, not {str(shown).lower()} (a boolean is no number; "
+            "write the number itself)"
+        )
+    if kind in _NUMBER_TYPES and isinstance(shown, str):
+        hint = "; write it without quotes" if _looks_numeric(shown) else ""
+        if re.fullmatch(r"\s*[-+]?\d+,\d+\s*", shown):
+            hint = f"; write decimals with a point ({shown.strip().replace(',', '.')})"
+        return f"must be {_NUMBER_TYPES[kind]}, not text (got {_show(shown)}){hint}"
+    if kind == "int_type" and isinstance(shown, float):
+        return f"must be a whole number (got {_show(shown)})"
+    return None
+
+
+def _looks_numeric(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
 
 
 _BOUNDS = {
@@ -385,7 +553,16 @@ def _fahrenheit_bound(error: Mapping[str, Any], path: KeyPath, units: str) -> st
     )
 
 
+class _Hidden:
+    """Stands in for a secret key's value in a message."""
+
+
+_HIDDEN = _Hidden()
+
+
 def _show(value: Any) -> str:
+    if isinstance(value, _Hidden):
+        return "a value that is not shown"
     if value is None:
         return "nothing"
     if isinstance(value, dict):
@@ -405,6 +582,7 @@ def problems_from_validation_error(
     data: Any = None,
     schema: Any = None,
     units: str = "C",
+    document: Any = None,
 ) -> list[ConfigProblem]:
     """One :class:`ConfigProblem` per pydantic error, located at its key's line.
 
@@ -413,8 +591,9 @@ def problems_from_validation_error(
     (used to drop union tags from ``loc``; without it the tags are guessed from the
     error's shape); ``schema`` is the model or type validated, used to suggest the
     right spelling of an unknown key; ``units`` (``"F"``) states the bounds of temperature
-    differences (keys ending in ``_k``) in °F degrees, as the file is written. Stable
-    interface: the plant loader uses it.
+    differences (keys ending in ``_k``) in °F degrees, as the file is written; ``document``
+    is the whole document (list items are then named by their ``name``:
+    ``points[meeting-temp].address``). Stable interface: the plant loader uses it.
     """
     problems: list[ConfigProblem] = []
     seen: set[tuple[int | None, str, str]] = set()
@@ -422,19 +601,34 @@ def problems_from_validation_error(
         loc = tuple(error.get("loc", ()))
         path = _clean_loc(loc, data) if data is not None else _drop_tags(loc)
         full = (*tuple(prefix), *path)
-        allowed = _allowed_keys(schema, data, path[:-1]) if schema is not None else ()
+        allowed: Iterable[str] = ()
+        dedented = ""
+        if schema is not None:
+            parent, parent_data = _model_at(schema, data, path[:-1])
+            allowed = list(parent.model_fields) if parent is not None else []
+            if error.get("type") == "extra_forbidden" and path and isinstance(path[-1], str):
+                homes = _homes(parent, parent_data, path[-1])
+                keys = parent_data if isinstance(parent_data, Mapping) else {}
+                dedented = _dedent_hint(path[-1], homes, keys)
         tags = ""
         if str(error.get("type", "")).startswith("union_tag"):
             tags = _type_tags(schema)
             if error["type"] == "union_tag_invalid":
                 full = (*full, "type")  # point at the 'type' line itself
-        message = _fahrenheit_bound(error, full, units) or _message(error, allowed, tags)
+        told: Mapping[str, Any] = error
+        if any(part in SECRET_KEYS for part in full if isinstance(part, str)):
+            told = {**error, "input": _HIDDEN}  # a password typed there is never echoed
+        message = _fahrenheit_bound(told, full, units) or _message(
+            told, [] if dedented else allowed, tags
+        )
+        message += dedented
         line = linemap.line(full)
-        key = (line, format_path(full), message)
+        shown_path = format_path(full, document)
+        key = (line, shown_path, message)
         if key in seen:
             continue
         seen.add(key)
-        problems.append(ConfigProblem(file, line, format_path(full), message))
+        problems.append(ConfigProblem(file, line, shown_path, message))
     return problems
 
 
@@ -462,8 +656,8 @@ def _drop_tags(loc: Sequence[str | int]) -> KeyPath:
     )
 
 
-def _allowed_keys(schema: Any, data: Any, path: KeyPath) -> list[str]:
-    """The keys the model at ``path`` accepts (for 'did you mean ...?')."""
+def _model_at(schema: Any, data: Any, path: KeyPath) -> tuple[Any, Any]:
+    """The model type at ``path`` (None if it is no model) and the data there."""
     current_type: Any = schema
     current: Any = data
     for part in path:
@@ -477,11 +671,43 @@ def _allowed_keys(schema: Any, data: Any, path: KeyPath) -> list[str]:
             current_type = info.annotation if info is not None else None
             current = current.get(part) if isinstance(current, Mapping) else None
         else:
-            return []
+            return None, None
     current_type = _narrow(current_type, current)
     if isinstance(current_type, type) and issubclass(current_type, BaseModel):
-        return list(current_type.model_fields)
-    return []
+        return current_type, current
+    return None, None
+
+
+def _allowed_keys(schema: Any, data: Any, path: KeyPath) -> list[str]:
+    """The keys the model at ``path`` accepts (for 'did you mean ...?')."""
+    model, _ = _model_at(schema, data, path)
+    return list(model.model_fields) if model is not None else []
+
+
+def _homes(model: Any, data: Any, key: str) -> list[str]:
+    """The sub-sections of ``model`` (``fail_safe``, ``tuning``, ...) that have ``key``:
+    where a key reported as unknown belongs when it was dedented out of its section."""
+    if model is None:
+        return []
+    found: list[str] = []
+    for name, info in model.model_fields.items():
+        value = data.get(name) if isinstance(data, Mapping) else None
+        sub = _narrow(info.annotation, value)
+        if isinstance(sub, type) and issubclass(sub, BaseModel) and key in sub.model_fields:
+            found.append(name)
+    return found
+
+
+def _dedent_hint(key: str, homes: Sequence[str], data_keys: Iterable[str]) -> str:
+    if not homes:
+        return ""
+    present = [home for home in homes if home in set(data_keys)]
+    chosen = present or list(homes)
+    where = " or ".join(f"'{home}:'" for home in chosen)
+    return (
+        f"; {key!r} is a key of {' or '.join(chosen)}: indent it under {where} "
+        "(is it dedented out of its section?)"
+    )
 
 
 def _narrow(tp: Any, value: Any) -> Any:
@@ -544,9 +770,15 @@ def load_site(path: str | os.PathLike[str]) -> Site:
     Each problem reads ``FILE:LINE: key.path: message``; temperatures are in the units the
     file's ``site.units`` names.
     """
-    file, data, lines, problems = _read_document(path)
-    site = site_from_data(data, file, lines, problems)
+    site, _warnings = load_site_with_warnings(path)
     return site
+
+
+def load_site_with_warnings(path: str | os.PathLike[str]) -> tuple[Site, list[ConfigProblem]]:
+    """:func:`load_site`, plus what is probably a mistake but may be right (``check`` prints
+    these; the site is valid with them), each located like a problem."""
+    file, data, lines, problems = _read_document(path)
+    return _validated(data, file, lines, problems)
 
 
 def site_from_data(
@@ -560,26 +792,22 @@ def site_from_data(
     Useful for sites built in code (the demo, tests); ``lines`` may be empty, then the
     problems carry no line numbers.
     """
+    site, _warnings = _validated(data, file, lines, problems)
+    return site
+
+
+def _validated(
+    data: Mapping[str, Any],
+    file: str,
+    lines: LineMap | None = None,
+    problems: list[ConfigProblem] | None = None,
+) -> tuple[Site, list[ConfigProblem]]:
     lines = lines if lines is not None else LineMap()
     found: list[ConfigProblem] = list(problems or [])
     units = _site_units(data)
     context = {"units": units}
 
-    for key in data:
-        if key not in _SECTIONS:
-            close = difflib.get_close_matches(str(key), list(_SECTIONS), n=1, cutoff=0.6)
-            hint = f"; did you mean {close[0]!r}?" if close else ""
-            found.append(
-                ConfigProblem(
-                    file,
-                    lines.line((key,)),
-                    str(key),
-                    f"unknown section {key!r} (sections: {', '.join(_SECTIONS)}){hint}",
-                )
-            )
-    for key in _REQUIRED:
-        if key not in data:
-            found.append(ConfigProblem(file, 1, key, f"missing: the '{key}' section is required"))
+    found += _section_names(data, file, lines)
 
     parts = SiteParts(units=units, broker_present=data.get("broker") is not None)
 
@@ -589,7 +817,14 @@ def site_from_data(
         except ValidationError as exc:
             found.extend(
                 problems_from_validation_error(
-                    exc, file, lines, where, data=value, schema=_SECTIONS[section], units=units
+                    exc,
+                    file,
+                    lines,
+                    where,
+                    data=value,
+                    schema=_SECTIONS[section],
+                    units=units,
+                    document=data,
                 )
             )
             return None
@@ -605,27 +840,10 @@ def site_from_data(
             )
 
     for section in _LIST_SECTIONS:
-        items = data.get(section)
+        items, shape = _list_section(data, section, file, lines)
+        found += shape
         if items is None:
-            if section == "zones" and section in data:
-                found.append(
-                    ConfigProblem(file, lines.line((section,)), section, "list at least one zone")
-                )
             continue
-        if not isinstance(items, list):
-            found.append(
-                ConfigProblem(
-                    file,
-                    lines.line((section,)),
-                    section,
-                    f"must be a list (one '- ' item per entry), got {_show(items)}",
-                )
-            )
-            continue
-        if section == "zones" and not items:
-            found.append(
-                ConfigProblem(file, lines.line((section,)), section, "list at least one zone")
-            )
         valid: list[tuple[int, Any]] = []
         invalid_names: set[str] = set()
         for index, item in enumerate(items):
@@ -638,20 +856,69 @@ def site_from_data(
         parts.invalid_names[section] = invalid_names
 
     for finding in check_parts(parts):
-        found.append(_locate(finding, file, lines))
+        found.append(_locate(finding, file, lines, data))
 
     if found:
         raise ConfigError(_sorted(found))
+    warnings = _sorted([_locate(w, file, lines, data) for w in warnings_of_parts(parts)])
     try:
-        return Site.model_validate(data, context=context)
+        return Site.model_validate(data, context=context), warnings
     except ValidationError as exc:  # pragma: no cover - the sections above catch the same errors
         raise ConfigError(
             problems_from_validation_error(exc, file, lines, (), data=data, schema=Site)
         ) from None
 
 
-def _locate(finding: Finding, file: str, lines: LineMap) -> ConfigProblem:
-    return ConfigProblem(file, lines.line(finding.path), format_path(finding.path), finding.message)
+def _section_names(data: Mapping[str, Any], file: str, lines: LineMap) -> list[ConfigProblem]:
+    """Unknown sections (with where a dedented key belongs) and missing required ones."""
+    found: list[ConfigProblem] = []
+    for key in data:
+        if key in _SECTIONS:
+            continue
+        homes = [
+            section
+            for section in ("site", "broker", "logging")
+            if str(key) in _SECTIONS[section].model_fields
+        ]
+        close = difflib.get_close_matches(str(key), list(_SECTIONS), n=1, cutoff=0.6)
+        hint = f"; did you mean {close[0]!r}?" if close and not homes else ""
+        hint += _dedent_hint(str(key), homes, data)
+        found.append(
+            ConfigProblem(
+                file,
+                lines.line((key,)),
+                str(key),
+                f"unknown section {key!r} (sections: {', '.join(_SECTIONS)}){hint}",
+            )
+        )
+    for key in _REQUIRED:
+        if key not in data:
+            found.append(ConfigProblem(file, 1, key, f"missing: the '{key}' section is required"))
+    return found
+
+
+def _list_section(
+    data: Mapping[str, Any], section: str, file: str, lines: LineMap
+) -> tuple[list[Any] | None, list[ConfigProblem]]:
+    """The items of a list section (None when there are none to validate) and its problems."""
+    items = data.get(section)
+    where = lines.line((section,))
+    if items is None:
+        if section == "zones" and section in data:
+            return None, [ConfigProblem(file, where, section, "list at least one zone")]
+        return None, []
+    if not isinstance(items, list):
+        message = f"must be a list (one '- ' item per entry), got {_show(items)}"
+        return None, [ConfigProblem(file, where, section, message)]
+    if section == "zones" and not items:
+        return items, [ConfigProblem(file, where, section, "list at least one zone")]
+    return items, []
+
+
+def _locate(finding: Finding, file: str, lines: LineMap, document: Any = None) -> ConfigProblem:
+    return ConfigProblem(
+        file, lines.line(finding.path), format_path(finding.path, document), finding.message
+    )
 
 
 def _sorted(problems: list[ConfigProblem]) -> list[ConfigProblem]:

@@ -15,6 +15,7 @@ of them at once; the models here check one object at a time.
 from __future__ import annotations
 
 import datetime as dt
+import ipaddress
 import math
 import re
 import zoneinfo
@@ -33,6 +34,9 @@ from pydantic import (
     field_validator,
     model_validator,
 )
+from pydantic import Strict as StrictType
+
+from roomloop.config.presets import PRESET_KEYS, PRESETS, time_constant_for_cycle_rate
 
 # --------------------------------------------------------------------------- units
 
@@ -79,8 +83,25 @@ def _finite(value: float) -> float:
     return value
 
 
+def _not_a_bool(value: Any) -> Any:
+    """For number choices (``Literal[1, 2]``), which strict mode cannot take: ``true`` is no 1."""
+    if isinstance(value, bool):
+        raise ValueError(f"must be a number, not {str(value).lower()}")
+    return value
+
+
+Int = Annotated[int, StrictType()]
+"""A whole number as written: ``true`` is no 1, ``12.0`` and ``"12"`` are no 12 (use it, not
+``int``, for every whole-number key of the site file)."""
+
+Float = Annotated[float, StrictType(), Field(allow_inf_nan=False)]
+"""A finite number as written (an integer is fine): ``true`` is no 1.0 and ``"21"`` no 21.0
+(use it, not ``float``, for every number key of the site file)."""
+
 Temperature = Annotated[
     float,
+    StrictType(),
+    Field(allow_inf_nan=False),
     BeforeValidator(_abs_in),
     PlainSerializer(_abs_out, return_type=float),
 ]
@@ -88,6 +109,8 @@ Temperature = Annotated[
 
 TemperatureDelta = Annotated[
     float,
+    StrictType(),
+    Field(allow_inf_nan=False),
     BeforeValidator(_delta_in),
     PlainSerializer(_delta_out, return_type=float),
 ]
@@ -99,8 +122,108 @@ Name = Annotated[
 ]
 """Names appear in MQTT topics and log events: lower case, digits, ``-`` and ``_``."""
 
-Seconds = Annotated[float, Field(gt=0, allow_inf_nan=False)]
-Fraction = Annotated[float, Field(ge=0, le=1, allow_inf_nan=False)]
+WEEK_S = 7 * 86400.0
+Seconds = Annotated[Float, Field(gt=0, le=WEEK_S)]
+"""A duration: above 0 and at most a week; each key adds its own sensible lower bound."""
+Fraction = Annotated[Float, Field(ge=0, le=1)]
+
+MQTT_STRING_MAX_BYTES = 65535
+"""An MQTT string (a topic among them) carries a two-byte length: at most 65535 bytes of UTF-8
+(MQTT 3.1.1, OASIS Standard 2014, section 1.5.3; MQTT 5.0, OASIS Standard 2019, section 1.5.4)."""
+
+PREFIX_HEADROOM_BYTES = 128
+"""What roomloop appends to its topic prefix at most: ``/zone/<zone, up to 64 bytes>/cmd/<field>``
+and the other per-zone topics fit in 128 bytes, so a prefix of at most 65535 - 128 bytes keeps
+every topic roomloop builds within MQTT's limit."""
+
+_MQTT_SPEC = "MQTT 3.1.1 section 1.5.3, MQTT 5.0 section 1.5.4"
+
+
+def _mqtt_string(value: str, what: str, limit: int = MQTT_STRING_MAX_BYTES) -> None:
+    """An MQTT UTF-8 string: no U+0000, well-formed UTF-8, at most ``limit`` bytes (the value
+    itself is never repeated: it may be 70,000 characters long)."""
+    if "\x00" in value:
+        raise ValueError(
+            f"{what} contains a NUL character (U+0000), which MQTT forbids ({_MQTT_SPEC})"
+        )
+    try:
+        size = len(value.encode("utf-8"))
+    except UnicodeEncodeError:
+        raise ValueError(f"{what} is not valid UTF-8 (a lone surrogate; {_MQTT_SPEC})") from None
+    if size > limit:
+        raise ValueError(
+            f"{what} is {size} bytes of UTF-8; MQTT allows a topic at most "
+            f"{MQTT_STRING_MAX_BYTES} bytes ({_MQTT_SPEC})"
+            + (
+                f", and roomloop appends up to {MQTT_STRING_MAX_BYTES - limit} bytes to it"
+                if limit < MQTT_STRING_MAX_BYTES
+                else ""
+            )
+        )
+
+
+def _topic(value: str) -> str:
+    _mqtt_string(value, "the topic")
+    return value
+
+
+Topic = Annotated[str, Field(min_length=1), AfterValidator(_topic)]
+"""One MQTT topic name: NUL-free UTF-8 of at most 65535 bytes (wildcards are checked per key)."""
+
+
+_HOST_LABEL = re.compile(r"[A-Za-z0-9_]([A-Za-z0-9_-]{0,61}[A-Za-z0-9_])?")
+
+
+def _host(value: str) -> str:
+    """A host name or an IP address, as the socket layer takes it: nothing else.
+
+    Names follow RFC 1123 section 2.1 (labels of letters, digits and '-', at most 63
+    characters, 253 in all; '_' is tolerated, as local networks use it). A name made of
+    numbers only must be a dotted-quad IPv4 address (RFC 1123 section 2.1 asks to check
+    that first); an IPv6 address is written without brackets.
+    """
+    if any(c.isspace() for c in value):
+        raise ValueError(f"{value!r} contains a space: a host is one name or address")
+    if "://" in value:
+        scheme, _, rest = value.partition("://")
+        host, _, port = rest.partition(":")
+        hint = f"host: {host.rstrip('/') or '...'}" + (
+            f" and port: {port.rstrip('/')}" if port else ""
+        )
+        raise ValueError(
+            f"{value!r} is a URL; give the host alone ({hint}; port is its own key, "
+            f"and {scheme}:// is implied)"
+        )
+    try:
+        ipaddress.ip_address(value)
+        return value
+    except ValueError:
+        pass
+    if value.startswith("[") and value.endswith("]"):
+        raise ValueError(f"{value!r}: write an IPv6 address without brackets")
+    if ":" in value:
+        host, _, port = value.rpartition(":")
+        if port.isdigit() and host:
+            raise ValueError(
+                f"{value!r} has a port in it; write host: {host.strip('[]')} and port: {port} "
+                "(port is its own key)"
+            )
+        raise ValueError(f"{value!r} is neither a host name nor an IP address")
+    labels = value[:-1].split(".") if value.endswith(".") else value.split(".")
+    if all(label.isdigit() for label in labels):
+        raise ValueError(
+            f"{value!r} is not an IPv4 address (four numbers 0-255, e.g. 192.168.1.20)"
+        )
+    if len(value) > 253 or not all(_HOST_LABEL.fullmatch(label) for label in labels):
+        raise ValueError(
+            f"{value!r} is not a host name (letters, digits, '-' and '.', RFC 1123) "
+            "nor an IP address"
+        )
+    return value
+
+
+Host = Annotated[str, Field(min_length=1), AfterValidator(_host)]
+"""A host name or an IP address; the port is its own key."""
 
 
 class Strict(BaseModel):
@@ -141,30 +264,30 @@ class ModbusLinkBase(Strict):
     """What every Modbus link shares: timing of requests on the wire."""
 
     name: Name
-    timeout_s: Seconds = 1.0
-    retries: Annotated[int, Field(ge=0, le=10)] = 2
-    request_gap_s: Annotated[float, Field(ge=0, le=10)] = 0.02
+    timeout_s: Annotated[Seconds, Field(ge=0.05, le=60)] = 1.0
+    retries: Annotated[Int, Field(ge=0, le=10)] = 2
+    request_gap_s: Annotated[Float, Field(ge=0, le=10)] = 0.02
     """Pause between two requests on this link (slow devices and RS-485 turn-around)."""
-    poll_interval_s: Seconds = 5.0
-    max_gap_registers: Annotated[int, Field(ge=0, le=100)] = 8
+    poll_interval_s: Annotated[Seconds, Field(ge=0.05)] = 5.0
+    max_gap_registers: Annotated[Int, Field(ge=0, le=100)] = 8
     """Unused registers a coalesced read may bridge between two points."""
 
 
 class ModbusTcpLink(ModbusLinkBase):
     type: Literal["modbus-tcp"]
-    host: Annotated[str, Field(min_length=1)]
-    port: Annotated[int, Field(ge=1, le=65535)] = 502
+    host: Host
+    port: Annotated[Int, Field(ge=1, le=65535)] = 502
 
 
 class ModbusRtuLink(ModbusLinkBase):
     type: Literal["modbus-rtu"]
     device: Annotated[str, Field(min_length=1)]
-    baud: int = 9600
+    baud: Int = 9600
     parity: Literal["N", "E", "O"] = "E"
     """Modbus over Serial Line V1.02 asks for even parity by default."""
-    data_bits: int = 8
+    data_bits: Int = 8
     """Modbus RTU characters carry 8 data bits (Modbus over Serial Line V1.02)."""
-    stop_bits: Literal[1, 2] = 1
+    stop_bits: Annotated[Literal[1, 2], BeforeValidator(_not_a_bool)] = 1
 
     @field_validator("data_bits")
     @classmethod
@@ -198,21 +321,29 @@ class Tls(Strict):
     """Skip the host name check (a self-signed broker on a site network); never the default."""
 
 
+_ENV_NAME = re.compile(r"[A-Za-z_][A-Za-z0-9_]{0,254}")
+
+SECRET_KEYS = frozenset({"password_file", "password_env"})
+"""Keys whose values are never printed: a password typed into one by mistake stays unseen."""
+
+
 class Broker(Strict):
     """The site's MQTT broker: monitoring, commands and MQTT points go through it."""
 
-    host: Annotated[str, Field(min_length=1)]
-    port: Annotated[int, Field(ge=1, le=65535)] = 1883
+    host: Host
+    port: Annotated[Int, Field(ge=1, le=65535)] = 1883
     client_id: str | None = None
-    keepalive_s: Annotated[int, Field(ge=5, le=3600)] = 30
+    keepalive_s: Annotated[Int, Field(ge=5, le=3600)] = 30
     username: str | None = None
     password_file: str | None = None
+    """An absolute path; never shown (a password typed here by mistake must not be echoed)."""
     password_env: str | None = None
+    """An environment variable's name; never shown, like ``password_file``."""
     tls: Tls | None = None
     topic_prefix: str | None = None
     """Defaults to ``roomloop/<site name>``."""
-    publish_interval_s: Seconds = 60.0
-    command_rate_per_min: Annotated[int, Field(ge=1, le=600)] = 30
+    publish_interval_s: Annotated[Seconds, Field(ge=1)] = 60.0
+    command_rate_per_min: Annotated[Int, Field(ge=1, le=600)] = 30
 
     @model_validator(mode="after")
     def _one_password_source(self) -> Broker:
@@ -224,18 +355,52 @@ class Broker(Strict):
             raise ValueError("tls.cert_file and tls.key_file go together")
         return self
 
+    @field_validator("password_env")
+    @classmethod
+    def _variable_name(cls, value: str | None) -> str | None:
+        """A variable name (letters, digits, '_', not starting with a digit: the portable
+        names of IEEE Std 1003.1, Base Definitions, chapter 8). The value is never repeated."""
+        if value is not None and not _ENV_NAME.fullmatch(value):
+            raise ValueError(
+                "is not an environment variable's name (letters, digits and '_', e.g. "
+                "ROOMLOOP_BROKER_PASSWORD); if this is the password itself, move it out of the "
+                "site file (the value is not shown)"
+            )
+        return value
+
+    @field_validator("password_file")
+    @classmethod
+    def _password_path(cls, value: str | None) -> str | None:
+        if value is not None and (not value.startswith("/") or any(c in value for c in "\x00\n\r")):
+            raise ValueError(
+                "must be the absolute path of a file holding the password (e.g. "
+                "/etc/roomloop/broker-password); if this is the password itself, move it out "
+                "of the site file (the value is not shown)"
+            )
+        return value
+
     @field_validator("topic_prefix")
     @classmethod
     def _clean_prefix(cls, value: str | None) -> str | None:
+        """MQTT topic names carry no wildcards (MQTT 3.1.1 and 5.0, section 4.7.1); a name
+        starting with ``$`` is the broker's own (``$SYS/...``; section 4.7.2): a client's
+        subscriptions with wildcards never match it, so roomloop's commands would be lost."""
         if value is None:
             return None
-        if (
-            not value
-            or value.startswith("/")
-            or value.endswith("/")
-            or any(c in value for c in "#+")
-        ):
-            raise ValueError("a topic prefix has no leading or trailing '/', and no '#' or '+'")
+        if not value or value.startswith("/") or value.endswith("/"):
+            raise ValueError("a topic prefix has no leading or trailing '/'")
+        if any(c in value for c in "#+"):
+            raise ValueError(
+                "a topic prefix has no '#' or '+': those are wildcards of subscriptions, never "
+                "part of a topic name (MQTT 3.1.1 and 5.0, section 4.7.1)"
+            )
+        if value.startswith("$"):
+            raise ValueError(
+                "a topic prefix must not start with '$': such topics belong to the broker "
+                "($SYS/...) and wildcard subscriptions never match them "
+                "(MQTT 3.1.1 and 5.0, section 4.7.2)"
+            )
+        _mqtt_string(value, "the topic prefix", MQTT_STRING_MAX_BYTES - PREFIX_HEADROOM_BYTES)
         return value
 
 
@@ -268,19 +433,27 @@ def _sentinel_map(value: Any) -> Any:
     return out
 
 
+BYTE_LETTERS: dict[str, tuple[Literal["big", "little"], Literal["big", "little"]]] = {
+    "ABCD": ("big", "big"),
+    "CDAB": ("little", "big"),
+    "BADC": ("big", "little"),
+    "DCBA": ("little", "little"),
+}
+"""The usual spellings of a 32-bit register layout -> (word_order, byte_order)."""
+
 DATA_TYPE_REGISTERS = {"int16": 1, "uint16": 1, "int32": 2, "uint32": 2, "float32": 2}
 
 
 class Reliability(Strict):
     """How an input point's readings are judged (BACnet-style reliability)."""
 
-    stale_after_s: Seconds = 120.0
-    max_rate_k_per_min: Annotated[TemperatureDelta, Field(gt=0, allow_inf_nan=False)] = 2.0
+    stale_after_s: Annotated[Seconds, Field(ge=1)] = 120.0
+    max_rate_k_per_min: Annotated[TemperatureDelta, Field(gt=0)] = 2.0
     """A room does not change faster than this; a jump beyond it is ``implausible``."""
-    stuck_after_s: Seconds | None = 10800.0
+    stuck_after_s: Annotated[Seconds, Field(ge=60)] | None = 10800.0
     """No movement beyond the resolution for this long while the relay is on: ``stuck``."""
-    resolution_k: Annotated[TemperatureDelta, Field(ge=0, allow_inf_nan=False)] = 0.1
-    recovery_s: Annotated[float, Field(ge=0, allow_inf_nan=False)] = 60.0
+    resolution_k: Annotated[TemperatureDelta, Field(ge=0)] = 0.1
+    recovery_s: Annotated[Float, Field(ge=0, le=WEEK_S)] = 60.0
     """A point must read good this long before it is trusted again."""
 
 
@@ -290,8 +463,8 @@ class InputBase(Strict):
     reliability: Reliability = Reliability()
     unit: Literal["C", "F"] = "C"
     """The unit the device sends; converted to Celsius on arrival."""
-    scale: Annotated[float, Field(allow_inf_nan=False)] = 1.0
-    offset: Annotated[float, Field(allow_inf_nan=False)] = 0.0
+    scale: Float = 1.0
+    offset: Float = 0.0
     """value = raw * scale + offset, in the device's unit."""
 
     @field_validator("valid_range")
@@ -315,13 +488,15 @@ class InputBase(Strict):
 class ModbusInput(InputBase):
     type: Literal["modbus-input"]
     link: Name
-    unit_id: Annotated[int, Field(ge=0, le=247)] = 1
+    unit_id: Annotated[Int, Field(ge=0, le=247)] = 1
     table: Literal["input", "holding"] = "input"
-    address: Annotated[int, Field(ge=0, le=MODBUS_MAX_ADDRESS)]
+    address: Annotated[Int, Field(ge=0, le=MODBUS_MAX_ADDRESS)]
     data_type: Literal["int16", "uint16", "int32", "uint32", "float32"] = "int16"
-    count: Annotated[int, Field(ge=1, le=125)] | None = None
+    count: Annotated[Int, Field(ge=1, le=125)] | None = None
     """Registers the value spans; implied by data_type, checked against it if given."""
     word_order: Literal["big", "little"] = "big"
+    """``big``: the high word first; ``little``: the low word first. ABCD, CDAB, BADC or DCBA
+    set word_order and byte_order together."""
     byte_order: Literal["big", "little"] = "big"
     sentinels: Annotated[dict[int, SentinelVerdict | None], BeforeValidator(_sentinel_map)] = {}
     """Raw register values the device sends instead of a reading (e.g. 0x7FFF, 0x8000).
@@ -330,6 +505,34 @@ class ModbusInput(InputBase):
     (0x7FFF ``over-range``, 0x8001 ``under-range``); a mapping names the verdict per
     value, e.g. ``{0x7FFF: over-range, 0x8000: comm-failure, 0x8001: under-range}``.
     """
+
+    @model_validator(mode="before")
+    @classmethod
+    def _byte_letters(cls, data: Any) -> Any:
+        """``word_order: CDAB`` (and ABCD, BADC, DCBA) as device manuals write it.
+
+        The letters name the bytes of the value most significant first, as IEEE 754 lays
+        out a float32 (21.5 = 0x41AC0000: A = 0x41, B = 0xAC, C = D = 0x00), in the order
+        they arrive: CDAB sends the low word first with each word's bytes high first.
+        """
+        if not isinstance(data, dict) or not isinstance(data.get("word_order"), str):
+            return data
+        letters = data["word_order"].strip().upper()
+        if letters not in BYTE_LETTERS:
+            if re.fullmatch(r"[ABCD]{4}", letters):
+                raise ValueError(
+                    f"word_order {letters} is not a register layout; use ABCD, CDAB, BADC or "
+                    "DCBA (or word_order and byte_order: big / little)"
+                )
+            return data
+        word, byte = BYTE_LETTERS[letters]
+        given = data.get("byte_order")
+        if given is not None and given != byte:
+            raise ValueError(
+                f"word_order {letters} sets byte_order {byte!r} already; drop byte_order "
+                f"{given!r} (or write word_order and byte_order as big / little)"
+            )
+        return {**data, "word_order": word, "byte_order": byte}
 
     def sentinel_verdict(self, value: int) -> SentinelVerdict | None:
         """The configured verdict of a sentinel value (None: judge it by the valid range)."""
@@ -355,7 +558,7 @@ class ModbusInput(InputBase):
 
 class MqttInput(InputBase):
     type: Literal["mqtt-input"]
-    topic: Annotated[str, Field(min_length=1)]
+    topic: Topic
     field: str | None = None
     """Dotted path into a JSON payload (``sensors.0.temp``); none for a plain number."""
 
@@ -371,13 +574,13 @@ class ModbusOutput(Strict):
     type: Literal["modbus-output"]
     name: Name
     link: Name
-    unit_id: Annotated[int, Field(ge=0, le=247)] = 1
+    unit_id: Annotated[Int, Field(ge=0, le=247)] = 1
     table: Literal["coil", "holding"] = "coil"
-    address: Annotated[int, Field(ge=0, le=MODBUS_MAX_ADDRESS)]
-    on_value: Annotated[int, Field(ge=0, le=0xFFFF)] = 1
-    off_value: Annotated[int, Field(ge=0, le=0xFFFF)] = 0
+    address: Annotated[Int, Field(ge=0, le=MODBUS_MAX_ADDRESS)]
+    on_value: Annotated[Int, Field(ge=0, le=0xFFFF)] = 1
+    off_value: Annotated[Int, Field(ge=0, le=0xFFFF)] = 0
     read_back: bool = True
-    reassert_s: Seconds = 60.0
+    reassert_s: Annotated[Seconds, Field(ge=1)] = 60.0
     """Write the wanted state again this often, so a relay module that lost power is corrected."""
 
     @model_validator(mode="after")
@@ -392,12 +595,12 @@ class ModbusOutput(Strict):
 class MqttOutput(Strict):
     type: Literal["mqtt-output"]
     name: Name
-    command_topic: Annotated[str, Field(min_length=1)]
+    command_topic: Topic
     on_payload: str = "on"
     off_payload: str = "off"
-    state_topic: str | None = None
-    state_timeout_s: Seconds = 10.0
-    reassert_s: Seconds = 300.0
+    state_topic: Topic | None = None
+    state_timeout_s: Annotated[Seconds, Field(ge=0.1, le=600)] = 10.0
+    reassert_s: Annotated[Seconds, Field(ge=1)] = 300.0
 
     @model_validator(mode="after")
     def _distinct(self) -> MqttOutput:
@@ -446,14 +649,14 @@ class TuningInput(Strict):
 
     differential_k: Annotated[TemperatureDelta, Field(gt=0, le=5)] | None = None
     anticipator_gain_k: Annotated[TemperatureDelta, Field(ge=0, le=10)] | None = None
-    anticipator_time_constant_s: Seconds | None = None
-    cycle_rate_cph: Annotated[float, Field(gt=0, le=30)] | None = None
-    min_on_s: Annotated[float, Field(ge=0, le=7200)] | None = None
-    min_off_s: Annotated[float, Field(ge=0, le=7200)] | None = None
-    max_cycles_per_hour: Annotated[int, Field(ge=1, le=60)] | None = None
+    anticipator_time_constant_s: Annotated[Seconds, Field(ge=10)] | None = None
+    cycle_rate_cph: Annotated[Float, Field(gt=0, le=30)] | None = None
+    min_on_s: Annotated[Float, Field(ge=0, le=7200)] | None = None
+    min_off_s: Annotated[Float, Field(ge=0, le=7200)] | None = None
+    max_cycles_per_hour: Annotated[Int, Field(ge=1, le=60)] | None = None
     droop_compensation: bool | None = None
-    droop_time_s: Seconds | None = None
-    smoothing_s: Annotated[float, Field(ge=0, le=14400, allow_inf_nan=False)] | None = None
+    droop_time_s: Annotated[Seconds, Field(ge=60)] | None = None
+    smoothing_s: Annotated[Float, Field(ge=0, le=14400)] | None = None
     """Time constant of the smoothing of the temperature the relay switches on; left out:
     one cycle period (3600 / cycle rate); 0: none."""
 
@@ -480,16 +683,16 @@ class FailSafe(Strict):
     """What the zone does with no reliable temperature."""
 
     policy: Literal["off", "fixed-duty", "learned-duty"] = "learned-duty"
-    sensor_timeout_s: Seconds = 600.0
+    sensor_timeout_s: Annotated[Seconds, Field(ge=10)] = 600.0
     duty: Fraction = 0.3
     """On-fraction for ``fixed-duty``, and for ``learned-duty`` before anything was learned."""
-    period_s: Annotated[float, Field(ge=60, le=14400)] = 1200.0
-    learn_hours: Annotated[float, Field(gt=0, le=48)] = 4.0
+    period_s: Annotated[Float, Field(ge=60, le=14400)] = 1200.0
+    learn_hours: Annotated[Float, Field(ge=0.5, le=48)] = 4.0
     min_duty: Fraction = 0.1
     max_duty: Fraction = 0.7
     backup_point: Name | None = None
     """A second sensor (e.g. a pipe or outdoor-wall probe) that keeps protection working."""
-    recovery_s: Annotated[float, Field(ge=0, le=7200)] = 120.0
+    recovery_s: Annotated[Float, Field(ge=0, le=7200)] = 120.0
 
     @model_validator(mode="after")
     def _bounds(self) -> FailSafe:
@@ -510,12 +713,25 @@ class ProgramEntry(Strict):
     def _days(cls, value: list[str] | str) -> list[str]:
         return expand_days(value)
 
+    @field_validator("at", mode="before")
+    @classmethod
+    def _quoted(cls, value: Any) -> Any:
+        """YAML reads a bare ``0730`` as a number (octal: 472) and ``7.30`` as 7.3."""
+        if isinstance(value, int | float) and not isinstance(value, bool):
+            raise ValueError(
+                f"YAML read this time as the number {value:g} (a bare 0730 is even octal); "
+                'write times as HH:MM in quotes, e.g. at: "07:30"'
+            )
+        return value
+
     @field_validator("at")
     @classmethod
     def _time(cls, value: str) -> str:
         match = re.fullmatch(r"([01]?\d|2[0-3]):([0-5]\d)", value.strip())
         if not match:
-            raise ValueError(f"{value!r} is not a time of day HH:MM (00:00 to 23:59)")
+            digits = re.fullmatch(r"(\d{1,2})(\d\d)", value.strip())
+            hint = f'; write it as "{int(digits[1]):02d}:{digits[2]}"' if digits else ""
+            raise ValueError(f"{value!r} is not a time of day HH:MM (00:00 to 23:59){hint}")
         return f"{int(match.group(1)):02d}:{match.group(2)}"
 
     @property
@@ -638,7 +854,7 @@ class Zone(Strict):
     """The level in mode ``auto`` when the program is empty."""
     protection_in_off: bool = True
     """In mode ``off``, still heat below the protection set point (frost protection)."""
-    tick_s: Annotated[float, Field(ge=1, le=300)] = 10.0
+    tick_s: Annotated[Float, Field(ge=1, le=300)] = 10.0
     safe_state: Literal["off", "on"] = "off"
     """The output's state at start, at stop and when roomloop cannot decide."""
 
@@ -646,8 +862,6 @@ class Zone(Strict):
     _origins: dict[str, str] = PrivateAttr(default_factory=dict)
 
     def model_post_init(self, context: Any, /) -> None:
-        from roomloop.config.presets import resolve_tuning
-
         tuning, origins = resolve_tuning(self.heating, self.tuning)
         self._tuning = tuning
         self._origins = origins
@@ -662,6 +876,47 @@ class Zone(Strict):
     def origins(self) -> dict[str, str]:
         """For each tuning key: ``file``, ``preset <type>`` or ``derived from cycle rate``."""
         return dict(self._origins)
+
+
+def resolve_tuning(heating: HeatingType, given: TuningInput) -> tuple[Tuning, dict[str, str]]:
+    """Fill what the file left out from the heating type's preset; say where each value came from.
+
+    An impossible derivation (gain not above the differential) leaves the time constant at
+    the cycle period so the model still builds; :mod:`roomloop.config.checks` reports it.
+    """
+    preset = PRESETS[heating]
+    values: dict[str, object] = {}
+    origins: dict[str, str] = {}
+    for key in PRESET_KEYS:
+        value = getattr(given, key)
+        if value is None:
+            values[key] = getattr(preset, key)
+            origins[key] = f"preset {heating}"
+        else:
+            values[key] = value
+            origins[key] = "file"
+    values["droop_compensation"] = (
+        True if given.droop_compensation is None else given.droop_compensation
+    )
+    origins["droop_compensation"] = (
+        f"preset {heating}" if given.droop_compensation is None else "file"
+    )
+    values["smoothing_s"] = given.smoothing_s
+    origins["smoothing_s"] = "derived from cycle rate" if given.smoothing_s is None else "file"
+    if given.anticipator_time_constant_s is not None:
+        values["anticipator_time_constant_s"] = given.anticipator_time_constant_s
+        origins["anticipator_time_constant_s"] = "file"
+    else:
+        cph = float(values["cycle_rate_cph"])  # type: ignore[arg-type]
+        gain = float(values["anticipator_gain_k"])  # type: ignore[arg-type]
+        diff = float(values["differential_k"])  # type: ignore[arg-type]
+        try:
+            tau = time_constant_for_cycle_rate(cph, gain, diff)
+        except ValueError:
+            tau = 3600.0 / cph
+        values["anticipator_time_constant_s"] = tau
+        origins["anticipator_time_constant_s"] = "derived from cycle rate"
+    return Tuning.model_validate(values), origins
 
 
 class Logging(Strict):

@@ -1,5 +1,8 @@
 """Heating-type presets: the tuning defaults a zone gets for its kind of plant.
 
+This module imports nothing of roomloop: :mod:`roomloop.config.models` reads the presets
+(``resolve_tuning``) and this module never reads the models, so there is no import cycle.
+
 Sources (../shared/REFERENCES.md):
 - cycle rates: forced-air gas/oil 5-6, hot water / radiant 3, steam or gravity 1,
   electric 9 cycles per hour [trade, common practice, no single source];
@@ -28,8 +31,6 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-
-from roomloop.config.models import HeatingType, Tuning, TuningInput
 
 
 @dataclass(frozen=True)
@@ -62,7 +63,7 @@ PRESETS: dict[str, Preset] = {
     "steam": Preset(1.0, 0.5, 1.5, 600.0, 600.0, 2, 10800.0),
 }
 
-_PRESET_KEYS = (
+PRESET_KEYS = (
     "cycle_rate_cph",
     "differential_k",
     "anticipator_gain_k",
@@ -91,44 +92,3 @@ def time_constant_for_cycle_rate(
     return 3600.0 / (
         2.0 * cycle_rate_cph * math.log((gain_k + differential_k) / (gain_k - differential_k))
     )
-
-
-def resolve_tuning(heating: HeatingType, given: TuningInput) -> tuple[Tuning, dict[str, str]]:
-    """Fill what the file left out from the heating type's preset; say where each value came from.
-
-    An impossible derivation (gain not above the differential) leaves the time constant at
-    the cycle period so the model still builds; :mod:`roomloop.config.checks` reports it.
-    """
-    preset = PRESETS[heating]
-    values: dict[str, object] = {}
-    origins: dict[str, str] = {}
-    for key in _PRESET_KEYS:
-        value = getattr(given, key)
-        if value is None:
-            values[key] = getattr(preset, key)
-            origins[key] = f"preset {heating}"
-        else:
-            values[key] = value
-            origins[key] = "file"
-    values["droop_compensation"] = (
-        True if given.droop_compensation is None else given.droop_compensation
-    )
-    origins["droop_compensation"] = (
-        f"preset {heating}" if given.droop_compensation is None else "file"
-    )
-    values["smoothing_s"] = given.smoothing_s
-    origins["smoothing_s"] = "derived from cycle rate" if given.smoothing_s is None else "file"
-    if given.anticipator_time_constant_s is not None:
-        values["anticipator_time_constant_s"] = given.anticipator_time_constant_s
-        origins["anticipator_time_constant_s"] = "file"
-    else:
-        cph = float(values["cycle_rate_cph"])  # type: ignore[arg-type]
-        gain = float(values["anticipator_gain_k"])  # type: ignore[arg-type]
-        diff = float(values["differential_k"])  # type: ignore[arg-type]
-        try:
-            tau = time_constant_for_cycle_rate(cph, gain, diff)
-        except ValueError:
-            tau = 3600.0 / cph
-        values["anticipator_time_constant_s"] = tau
-        origins["anticipator_time_constant_s"] = "derived from cycle rate"
-    return Tuning.model_validate(values), origins

@@ -95,26 +95,24 @@ def read_password(broker: Broker, env: Mapping[str, str] | None = None) -> str |
         path = broker.password_file
         problem = _file_problem(path)
         if problem is not None:
-            raise BrokerSetupError(f"broker.password_file {path}: {problem}", endpoint=where)
+            # The key only, never its value: a password typed there by mistake stays unseen.
+            raise BrokerSetupError(f"broker.password_file: {problem}", endpoint=where)
         try:
             text = Path(path).read_text(encoding="utf-8")
         except (OSError, UnicodeDecodeError) as exc:
             reason = exc.strerror if isinstance(exc, OSError) and exc.strerror else str(exc)
             raise BrokerSetupError(
-                f"broker.password_file {path}: cannot read it: {reason}", endpoint=where
+                f"broker.password_file: cannot read it: {reason}", endpoint=where
             ) from None
         lines = text.splitlines()
         if not lines or not lines[0]:
-            raise BrokerSetupError(
-                f"broker.password_file {path}: the first line is empty", endpoint=where
-            )
+            raise BrokerSetupError("broker.password_file: the first line is empty", endpoint=where)
         return lines[0]
     if broker.password_env is not None:
         value = env.get(broker.password_env)
         if not value:
             raise BrokerSetupError(
-                f"broker.password_env {broker.password_env}: "
-                "the environment variable is not set or empty",
+                "broker.password_env: the environment variable it names is not set or empty",
                 endpoint=where,
             )
         return value

@@ -1,0 +1,82 @@
+"""What ``check`` prints for a valid site: rounded derived seconds, and warnings that are
+not errors (the site still passes, exit 0)."""
+
+from __future__ import annotations
+
+import math
+import re
+from pathlib import Path
+
+import pytest
+
+from roomloop.cli import main
+
+SITE = """\
+site: {{name: warn}}
+links: [{{name: io, type: modbus-tcp, host: 127.0.0.1}}]
+points:
+  - {{name: meeting-temp, type: modbus-input, link: io, table: holding, address: {address}}}
+  - {{name: r1, type: modbus-output, link: io, table: holding, address: 2}}
+zones:
+  - name: meeting
+    inputs: [meeting-temp]
+    output: r1
+    heating: hydronic
+    tuning:
+      cycle_rate_cph: 7
+      max_cycles_per_hour: 8
+      anticipator_gain_k: 2.5
+      differential_k: 0.5
+      min_on_s: 60
+      min_off_s: 60
+"""
+
+
+def _check(
+    capsys: pytest.CaptureFixture[str], tmp_path: Path, address: int
+) -> tuple[int, str, str, Path]:
+    path = tmp_path / "site.yaml"
+    path.write_text(SITE.format(address=address), encoding="utf-8")
+    code = main(["check", "-c", str(path)])
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err, path
+
+
+@pytest.mark.parametrize(
+    ("address", "table", "wire"),
+    [(40001, "holding", 0), (40100, "holding", 99), (30001, "input", 0), (39999, "input", 9998)],
+)
+def test_a_one_based_reference_number_is_a_warning(
+    capsys: pytest.CaptureFixture[str], tmp_path: Path, address: int, table: str, wire: int
+) -> None:
+    code, out, err, path = _check(capsys, tmp_path, address)
+    assert code == 0, err
+    lines = err.strip().splitlines()
+    assert len(lines) == 1, err
+    # Modbus Application Protocol Specification V1.1b3, section 4.4: the item numbered X is
+    # addressed X - 1 [published; the section number recalled from memory]; 3xxxx input /
+    # 4xxxx holding reference numbers: common practice in device manuals, no source.
+    assert lines[0].startswith(f"{path}:4: points[meeting-temp].address: warning: ")
+    assert f"write table: {table} and address: {wire}" in lines[0]
+    assert out.rstrip().endswith(f"{path}: ok (1 warning)")
+
+
+@pytest.mark.parametrize("address", [40000, 30000, 29999, 50000, 100, 0])
+def test_other_addresses_give_no_warning(
+    capsys: pytest.CaptureFixture[str], tmp_path: Path, address: int
+) -> None:
+    code, out, err, path = _check(capsys, tmp_path, address)
+    assert code == 0 and err == "", err
+    assert out.rstrip().endswith(f"{path}: ok")
+
+
+def test_derived_seconds_are_rounded(capsys: pytest.CaptureFixture[str], tmp_path: Path) -> None:
+    _code, out, _err, _path = _check(capsys, tmp_path, 0)
+    # DESIGN.md cycle-rate sizing, by hand: tau = 3600 / (2 * 7 * ln(3.0 / 2.0)) = 634.19 s.
+    tau = 3600 / (2 * 7 * math.log(3.0 / 2.0))
+    row = re.search(r"anticipator time constant\s+(\S+) s\s+derived from cycle rate", out)
+    assert row is not None, out
+    assert row[1] == str(round(tau)) == "634"
+    # Smoothing: one cycle period, 3600 / 7 = 514.29 s, shown as 514 s.
+    smoothing = re.search(r"smoothing\s+(\S+) s\s+derived from cycle rate", out)
+    assert smoothing is not None and smoothing[1] == "514"
