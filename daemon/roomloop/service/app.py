@@ -48,7 +48,7 @@ from roomloop.config.models import (
 from roomloop.core.commands import CommandRejected, apply_command
 from roomloop.core.controller import ZoneController
 from roomloop.core.settings import ZoneSettings
-from roomloop.core.state import StateFormatError, ZoneState
+from roomloop.core.state import ZoneState
 from roomloop.core.types import PointSample, ZoneInputs, ZoneOutputs
 from roomloop.io.modbus import ModbusLink
 from roomloop.io.mqtt import MqttPoints
@@ -66,6 +66,7 @@ from roomloop.service.publisher import (
     ZoneView,
     status_topic,
 )
+from roomloop.service.restart import read_output_states, restore_zone
 
 log = structlog.get_logger("roomloop.service")
 
@@ -229,23 +230,17 @@ class Service:
         for name in self.mqtt_points.output_names():
             self._sink[name] = self.mqtt_points
 
-    def _load_zones(self, now: float) -> None:
+    def _load_zones(self, now: float, relays: dict[str, bool | None]) -> None:
         saved = self.store.load()
         for zone in self.site.zones:
             settings = ZoneSettings.from_site(self.site, zone.name)
             controller = ZoneController(settings)
-            state = controller.initial_state(now)
-            raw = saved.get(zone.name)
-            if raw is not None:
-                try:
-                    state = ZoneState.from_json(json.dumps(raw))
-                except StateFormatError as exc:
-                    log.warning("persist.zone_state_rejected", zone=zone.name, reason=str(exc))
-                else:
-                    log.info("persist.zone_restored", zone=zone.name, mode=state.mode)
-                    # The output was held at its safe state from the restart on.
-                    state = controller.resume(state, now, relay_on=zone.safe_state == "on")
+            state = restore_zone(  # restart.py: checked, resumed from the relay as it really is
+                controller, saved.get(zone.name), now, zone=zone.name,
+                relay_on=relays.get(zone.output), safe_on=zone.safe_state == "on",
+            )
             runtime = ZoneRuntime(zone, settings, controller, state, self.tz)
+            runtime.wanted = state.relay_on  # held as found (or safe) until the first decision
             self.zones[zone.name] = runtime
             self._last_saved_key[zone.name] = _persist_key(state)
 
@@ -278,12 +273,10 @@ class Service:
             from roomloop.io.broker import check_broker_files
 
             check_broker_files(self.site.broker)
-        now = self.clock.now()
-        self._load_zones(now)
         log.info(
             "service.starting",
             site=self.site.name,
-            zones=len(self.zones),
+            zones=len(self.site.zones),
             links=len(self.links),
             broker=None
             if self.site.broker is None
@@ -293,6 +286,8 @@ class Service:
         async with contextlib.AsyncExitStack() as stack:
             for link in self.links.values():
                 await stack.enter_async_context(link)
+            relays = await read_output_states(self.links.values())  # restart.py
+            self._load_zones(self.clock.now(), relays)
             control: list[asyncio.Task[None]] = []
             others: list[asyncio.Task[None]] = []
             stopped_cleanly = False
@@ -491,6 +486,7 @@ class Service:
             hold_until=runtime.state.hold_until,
             next_change=next_change if runtime.state.mode == "auto" else None,
             fail_safe_policy=runtime.settings.fail_safe_policy,
+            persistence=self.store.status,
         )
         self.publisher.update(view)
         self._publish_wake.set()
@@ -540,6 +536,7 @@ class Service:
         self, runtime: ZoneRuntime, sink: ModbusLink | MqttPoints, on: bool, decided: bool
     ) -> None:
         point = runtime.zone.output
+        await asyncio.to_thread(self.store.record_switch, runtime.name, runtime.state)  # first
         try:
             state = await sink.set_output(point, on)
         except Exception as exc:  # a bug below us: the poll's re-assert still retries the write
