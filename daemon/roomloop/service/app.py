@@ -50,6 +50,7 @@ from roomloop.core.controller import ZoneController
 from roomloop.core.settings import ZoneSettings
 from roomloop.core.state import ZoneState
 from roomloop.core.types import PointSample, ZoneInputs, ZoneOutputs
+from roomloop.io.eventlog import RateLimitedLog
 from roomloop.io.modbus import ModbusLink
 from roomloop.io.mqtt import MqttPoints
 from roomloop.io.ports import OutputState
@@ -69,6 +70,7 @@ from roomloop.service.publisher import (
 from roomloop.service.restart import read_output_states, restore_zone
 
 log = structlog.get_logger("roomloop.service")
+_answers_log = RateLimitedLog(log, interval_s=60.0, burst=30)  # a command flood: 30/min logged
 
 READY_WAIT_S = 15.0
 """Real seconds to wait for the links before declaring READY=1 anyway."""
@@ -676,7 +678,9 @@ class Service:
             if message.retain and topic.startswith(f"{self.prefix}/zone/"):
                 log.info("command.retained_ignored", topic=topic)
             return
-        log.info("command.answered", topic=topic, answer=answer.payload)
+        _answers_log.event(  # rate-limited: a flood of commands must not flood the journal
+            "command", "command.answered", time.monotonic(), topic=topic, answer=answer.payload
+        )
         client = self._broker.client if self._broker is not None else None
         if client is not None:
             try:
