@@ -91,6 +91,15 @@ def test_a_point_reading_out_of_range_is_refused() -> None:
         ZoneState.from_json(json.dumps(raw))
 
 
+def test_a_hold_ending_more_than_366_days_after_the_restart_is_refused() -> None:
+    controller = ZoneController(SETTINGS)
+    year = 366 * 86400.0
+    for until, kept in ((2000.0 + year, True), (2000.0 + year + 1.0, False), (1e11, False)):
+        raw = _saved(mode="hold", hold_setpoint=21.0, hold_level="comfort", hold_until=until)
+        state = restore_zone(controller, raw, 2000.0, zone="z", relay_on=False, safe_on=False)
+        assert (state.hold_until == until) is kept
+
+
 def test_check_for_zone_names_the_limits() -> None:
     state = ZoneState.from_json(json.dumps(_saved(mode="hold", hold_setpoint=27.0)))
     with pytest.raises(StateFormatError, match=r"27 C is outside the zone's limits 5\.\.26 C"):

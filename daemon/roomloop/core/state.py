@@ -225,13 +225,18 @@ class ZoneState:
 _LEVELS = ("comfort", "standby", "economy", "protection")
 
 
-def check_for_zone(state: ZoneState, settings: ZoneSettings) -> None:
+MAX_HOLD_AHEAD_S = 366 * 86400.0
+"""How far ahead a hold may end (the bound commands enforce, core/commands.py MAX_HOLD_S)."""
+
+
+def check_for_zone(state: ZoneState, settings: ZoneSettings, now: float | None = None) -> None:
     """Refuse a loaded state the zone's settings could never have produced.
 
     Raises :class:`StateFormatError` naming the field: a hold set point outside the
     zone's limits (commands clamp to them, so only a corrupted or hand-edited file, or
     limits narrowed since, hold one; the zone would otherwise heat to the limit with
-    no command to show for it). Values a changed tuning legitimately leaves out of
+    no command to show for it), or, given ``now``, a hold ending more than 366 days
+    ahead (no command can set one). Values a changed tuning legitimately leaves out of
     range (the anticipator above a lowered gain) are not refused here:
     :meth:`ZoneController.resume` clamps them.
     """
@@ -240,6 +245,12 @@ def check_for_zone(state: ZoneState, settings: ZoneSettings) -> None:
         raise StateFormatError(
             f"zone state: hold_setpoint {state.hold_setpoint:g} C is outside the zone's "
             f"limits {low:g}..{high:g} C"
+        )
+    until = state.hold_until
+    if now is not None and until is not None and until > now + MAX_HOLD_AHEAD_S:
+        raise StateFormatError(
+            f"zone state: hold_until {until:.0f} is more than 366 days after the "
+            f"restart at {now:.0f}"
         )
 
 

@@ -88,7 +88,7 @@ def restore_zone(
     if saved is not None:
         try:
             loaded = ZoneState.from_json(json.dumps(saved))
-            check_for_zone(loaded, controller.settings)
+            check_for_zone(loaded, controller.settings, now)
         except StateFormatError as exc:
             log.warning("persist.zone_state_rejected", zone=zone, reason=str(exc))
         except (RecursionError, ValueError, TypeError) as exc:  # not JSON-like at all
