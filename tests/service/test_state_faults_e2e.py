@@ -62,3 +62,33 @@ async def test_a_read_only_state_dir_at_start_still_controls_and_says_persistenc
             finally:
                 await service.stop()
     assert service.process is not None and service.process.returncode is not None
+
+
+async def test_a_switch_the_device_saw_survives_a_sigkill_right_after_it(
+    tmp_path: Path, mosquitto: Any, modbus_tcp_server: Any
+) -> None:
+    """Each switch is made durable before the coil is written (persist.py's switch journal)."""
+    from roomloop.core.state import ZoneState
+    from roomloop.service.persist import StateStore
+
+    server = await modbus_tcp_server(units=(1,))
+    config = tmp_path / "site.yaml"
+    config.write_text(
+        yaml.safe_dump(site_yaml(modbus_port=server.port, broker_port=mosquitto.port))
+    )
+    state_dir = tmp_path / "state"
+    service = ServiceProcess(config, state_dir, SPEED, tmp_path / "service.log", time.time())
+    async with (
+        RoomPlant(server, [15.0], SPEED) as plant,
+        Watcher(mosquitto.host, mosquitto.port, PREFIX) as watcher,
+    ):
+        watcher.guard = service.died
+        await service.start()
+        try:
+            await watcher.wait_for(lambda: plant.rooms[0].coil, 20)
+        finally:
+            await service.stop()  # SIGKILL within a few tens of ms of the coil's write
+    zones = StateStore(state_dir, "test-annex").load()
+    saved = ZoneState.from_json(json.dumps(zones["room0"]))
+    assert saved.relay_on is True and saved.switched_at is not None
+    assert saved.switches and saved.switches[-1] == (saved.switched_at, True)

@@ -198,6 +198,14 @@ def test_a_switch_recorded_but_not_saved_is_applied_at_the_next_load(tmp_path: P
     assert loaded.relay_on and loaded.switched_at == 100.0 and loaded.switches == ((100.0, True),)
 
 
+def test_a_switch_before_the_first_full_save_is_kept(tmp_path: Path) -> None:
+    store = StateStore(tmp_path, "s")
+    assert store.load() == {}
+    assert store.record_switch("z", _state_with_switch(100.0, True))
+    zones = StateStore(tmp_path, "s").load()  # SIGKILL before any state file existed
+    assert ZoneState.from_json(json.dumps(zones["z"])) == _state_with_switch(100.0, True)
+
+
 def test_a_full_save_that_covers_the_journal_empties_it(tmp_path: Path) -> None:
     store = StateStore(tmp_path, "s")
     switched = _state_with_switch(100.0, True)
@@ -215,16 +223,22 @@ def test_a_torn_or_foreign_journal_line_is_ignored(tmp_path: Path) -> None:
     store = StateStore(tmp_path, "s")
     base = ZoneController(SETTINGS).initial_state(0.0)
     store.save({"z": json.loads(base.to_json())}, now=1.0)
+    def line(zone: str, at: Any, on: Any, state: ZoneState) -> str:
+        return json.dumps({"zone": zone, "at": at, "on": on,
+                           "state": json.loads(state.to_json())}) + "\n"
+
+    on_at_100 = _state_with_switch(100.0, True)
     store.journal_path.write_text(
-        '{"zone":"z","at":100.0,"on":true}\n'
-        '{"zone":"z","at":"soon","on":false}\n'
-        '{"zone":"other","at":120.0,"on":false}\n'
+        line("z", 100.0, True, on_at_100)
+        + line("z", "soon", False, _state_with_switch(110.0, False))
+        + line("z", 115.0, False, on_at_100)  # the state does not match the switch
+        + line("other", 120.0, False, _state_with_switch(120.0, False))
         + "[" * 2000 + "\n"
-        '{"zone":"z","at":130.0,"on":fa'
+        + line("z", 130.0, False, _state_with_switch(130.0, False))[:-40]  # torn by the crash
     )
     zones = StateStore(tmp_path, "s").load()
-    loaded = ZoneState.from_json(json.dumps(zones["z"]))
-    assert loaded.relay_on and loaded.switches == ((100.0, True),)
+    assert ZoneState.from_json(json.dumps(zones["z"])) == on_at_100
+    assert zones["other"]["switched_at"] == 120.0  # a zone with no saved state yet
 
 
 # ------------------------------------------------------------------ read-only directory

@@ -10,10 +10,11 @@ never blocks the start.
 
 Relay switches are also made durable the moment they happen, before the device
 is written (:meth:`StateStore.record_switch`): one line appended to
-``<site>.switches`` and synced, far cheaper than rewriting the state file. At
-load, the switches newer than the state file's are applied to it, so the switch
-times that short-cycle protection needs survive a SIGKILL between a switch and the
-next full save. Each full save empties the journal once it covers all of it.
+``<site>.switches`` (the zone's state at the switch) and synced, cheaper than
+rewriting the state file with its directory. At load a zone whose recorded
+switch is newer than its saved one takes the recorded state, so the switch times
+short-cycle protection needs survive a SIGKILL between a switch and the next full
+save (and before the first). A full save that covers the journal empties it.
 
 A state directory that cannot be written (a read-only SD card, a lost mount,
 permissions) does not stop the service either: the zones start fresh (the file,
@@ -112,16 +113,9 @@ class StateStore:
         return "ok" if self.failure is None else f"failed: {self.failure}"
 
     def load(self) -> dict[str, Any]:
-        """The saved zone states by zone name; empty when there is no usable file.
+        """The saved zone states by zone name, newest switches applied; empty if none usable.
 
-        Relay switches are also made durable the moment they happen, before the device
-is written (:meth:`StateStore.record_switch`): one line appended to
-``<site>.switches`` and synced, far cheaper than rewriting the state file. At
-load, the switches newer than the state file's are applied to it, so the switch
-times that short-cycle protection needs survive a SIGKILL between a switch and the
-next full save. Each full save empties the journal once it covers all of it.
-
-A state directory that cannot be written marks persistence failed and loads
+        A state directory that cannot be written marks persistence failed and loads
         nothing: the zones start fresh and control goes on.
         """
         problem = _unwritable(self.directory)
@@ -134,6 +128,13 @@ A state directory that cannot be written marks persistence failed and loads
                 consequence="zones start fresh; commands and switch times are not kept",
             )
             return {}
+        zones = self._load_file()
+        applied = self._apply_journal(zones)
+        if zones:
+            log.info("persist.loaded", path=str(self.path), zones=sorted(zones), switches=applied)
+        return zones
+
+    def _load_file(self) -> dict[str, Any]:
         try:
             text = self.path.read_text(encoding="utf-8")
         except FileNotFoundError:
@@ -159,15 +160,15 @@ A state directory that cannot be written marks persistence failed and loads
             return {}
         zones: dict[str, Any] = document["zones"]
         self._last_written = _dump({**document, "saved_at": None})
-        applied = self._apply_journal(zones)
-        log.info("persist.loaded", path=str(self.path), zones=sorted(zones), switches=applied)
         return zones
 
     def record_switch(self, zone: str, state: ZoneState) -> bool:
         """Make the relay switch in ``state`` durable now; True if written (or already).
 
         Called before the output is written to the device, so a switch the device saw is
-        never lost with the process. Never raises: a failure marks persistence failed.
+        never lost with the process. The line holds the zone's whole state at the switch
+        (a few hundred bytes: one block), so it serves even before the first full save.
+        Never raises: a failure marks persistence failed.
         """
         if state.switched_at is None:
             return False
@@ -175,7 +176,8 @@ A state directory that cannot be written marks persistence failed and loads
         if self._recorded.get(zone) == entry:
             return True
         line = json.dumps(
-            {"zone": zone, "at": entry[0], "on": entry[1]}, separators=(",", ":")
+            {"zone": zone, "at": entry[0], "on": entry[1], "state": json.loads(state.to_json())},
+            separators=(",", ":"),
         ) + "\n"
         with self._lock:
             try:
@@ -195,7 +197,7 @@ A state directory that cannot be written marks persistence failed and loads
         return True
 
     def _apply_journal(self, zones: dict[str, Any]) -> int:
-        """Apply the recorded switches newer than each zone's saved one; how many applied."""
+        """Take each zone's state from its newest recorded switch if that is newer; how many."""
         try:
             text = self.journal_path.read_text(encoding="utf-8", errors="replace")
         except FileNotFoundError:
@@ -209,18 +211,12 @@ A state directory that cannot be written marks persistence failed and loads
             entry = _journal_entry(line)
             if entry is None:
                 continue  # a line cut short by the crash, or not ours
-            zone, at, on = entry
+            zone, at, state = entry
             raw = zones.get(zone)
-            if not isinstance(raw, dict) or not isinstance(raw.get("switches"), list):
-                continue
-            last = raw.get("switched_at")
+            last = raw.get("switched_at") if isinstance(raw, dict) else None
             if isinstance(last, int | float) and not isinstance(last, bool) and at <= last:
                 continue
-            if raw.get("relay_on") is on:
-                continue
-            raw["relay_on"] = on
-            raw["switched_at"] = at
-            raw["switches"] = [*raw["switches"], [at, on]]
+            zones[zone] = state
             applied += 1
         return applied
 
@@ -333,19 +329,22 @@ def _check_document(document: Any, site_name: str) -> str | None:
     return None
 
 
-def _journal_entry(line: str) -> tuple[str, float, bool] | None:
+def _journal_entry(line: str) -> tuple[str, float, dict[str, Any]] | None:
+    """(zone, switch time, zone state) of one journal line; None if it is not a whole one."""
     try:
         item = json.loads(line)
     except (ValueError, RecursionError):
         return None
     if not isinstance(item, dict):
         return None
-    zone, at, on = item.get("zone"), item.get("at"), item.get("on")
-    if not isinstance(zone, str) or not isinstance(on, bool):
+    zone, at, on, state = item.get("zone"), item.get("at"), item.get("on"), item.get("state")
+    if not isinstance(zone, str) or not isinstance(on, bool) or not isinstance(state, dict):
         return None
     if isinstance(at, bool) or not isinstance(at, int | float) or not abs(at) <= MAX_TIME_S:
         return None
-    return zone, float(at), on
+    if state.get("switched_at") != at or state.get("relay_on") is not on:
+        return None
+    return zone, float(at), state
 
 
 def _dump(document: dict[str, Any]) -> str:
