@@ -15,11 +15,28 @@ from pathlib import Path
 
 import pytest
 
+from roomloop.service.lock import fallback_dirs, lock_digest
+
 
 @contextlib.contextmanager
 def read_only_dir(path: Path, files: dict[str, bytes] | None = None) -> Iterator[Path]:
-    """``path`` as a read-only directory holding ``files``; writable again afterwards."""
+    """``path`` as a read-only directory holding ``files``; writable again afterwards.
+
+    The fallback lock files a ``roomloop run`` on it leaves (service/lock.py; in /run
+    for root) are removed afterwards.
+    """
     path.mkdir(parents=True, exist_ok=True)
+    try:
+        with _read_only(path, files) as directory:
+            yield directory
+    finally:
+        for parent in fallback_dirs(path):
+            for leftover in parent.glob(f"roomloop-*-{lock_digest(path)}.lock"):
+                leftover.unlink(missing_ok=True)
+
+
+@contextlib.contextmanager
+def _read_only(path: Path, files: dict[str, bytes] | None) -> Iterator[Path]:
     if os.geteuid() != 0:
         for name, data in (files or {}).items():
             (path / name).write_bytes(data)

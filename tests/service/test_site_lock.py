@@ -15,7 +15,7 @@ import yaml
 from service_rooms import site_yaml
 from state_dirs import read_only_dir
 
-from roomloop.service.lock import LockHeld, acquire_site_lock, fallback_dirs
+from roomloop.service.lock import LockHeld, acquire_site_lock
 
 
 def _config(tmp_path: Path) -> Path:
@@ -110,19 +110,6 @@ def test_a_killed_holder_leaves_no_stale_lock(tmp_path: Path, runs: list[Run]) -
     again.wait_started()
 
 
-@pytest.fixture
-def no_fallback_litter(tmp_path: Path) -> Iterator[None]:
-    """Remove the fallback lock files the read-only cases leave (in /run for root)."""
-    yield
-    for parent in fallback_dirs(tmp_path / "state"):
-        for path in parent.glob("roomloop-*.lock"):
-            if path.stat().st_mtime >= time.time() - 600 and (
-                path.name.startswith(("roomloop-test-annex-", "roomloop-s-"))
-            ):
-                path.unlink(missing_ok=True)
-
-
-@pytest.mark.usefixtures("no_fallback_litter")
 def test_the_lock_works_with_a_read_only_state_dir(tmp_path: Path, runs: list[Run]) -> None:
     config = _config(tmp_path)
     with read_only_dir(tmp_path / "state") as state:
@@ -135,7 +122,6 @@ def test_the_lock_works_with_a_read_only_state_dir(tmp_path: Path, runs: list[Ru
         first.stop()
 
 
-@pytest.mark.usefixtures("no_fallback_litter")
 def test_an_existing_lock_file_in_a_read_only_dir_is_locked_read_only(tmp_path: Path) -> None:
     with read_only_dir(tmp_path / "state", {"s.lock": b"12345\n"}) as state:
         lock = acquire_site_lock("s", state)

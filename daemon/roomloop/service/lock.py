@@ -78,9 +78,8 @@ def acquire_site_lock(site: str, state_dir: str | os.PathLike[str]) -> SiteLock:
     directory = Path(state_dir)
     lock = SiteLock()
     primary = directory / f"{site}.lock"
-    fallbacks = [
-        parent / f"roomloop-{site}-{_digest(directory)}.lock" for parent in fallback_dirs(directory)
-    ]
+    name = f"roomloop-{site}-{lock_digest(directory)}.lock"
+    fallbacks = [parent / name for parent in fallback_dirs(directory)]
     fd, writable = _open(primary)
     if fd is not None:
         _take(lock, primary, fd, writable, site=site, also_named=fallbacks)
@@ -96,7 +95,8 @@ def acquire_site_lock(site: str, state_dir: str | os.PathLike[str]) -> SiteLock:
     return lock
 
 
-def _digest(directory: Path) -> str:
+def lock_digest(directory: Path) -> str:
+    """Names the fallback lock file after the state directory's real path."""
     return hashlib.sha256(str(directory.resolve()).encode()).hexdigest()[:16]
 
 
