@@ -178,6 +178,18 @@ async def _probe_modbus(
         return EXIT_OK if state.verdict == "ok" else EXIT_RUNTIME
 
 
+def payload_text(payload: bytes | bytearray | str, limit: int = 200) -> str:
+    """A payload as the text it is (UTF-8), not as Python bytes; undecodable bytes as ``\\xNN``."""
+    if isinstance(payload, str):
+        text = payload
+    else:
+        text = bytes(payload).decode("utf-8", "backslashreplace")
+    if not text:
+        return "(empty)"
+    shown = "".join(c if c.isprintable() or c == " " else repr(c)[1:-1] for c in text)
+    return shown if len(shown) <= limit else shown[: limit - 3] + "..."
+
+
 def _on_off(value: bool | None) -> str:
     return "on" if value is True else "off" if value is False else "neither on nor off"
 
@@ -191,10 +203,13 @@ async def _probe_mqtt(
     import aiomqtt
 
     from roomloop.io.broker import BrokerConnection, endpoint_of
+    from roomloop.io.broker_errors import describe_broker_error
+    from roomloop.io.client_ids import helper_broker
     from roomloop.io.mqtt import MqttPoints
 
     assert site.broker is not None
-    broker = site.broker
+    # Never the service's client id: the broker would throw the running service off.
+    broker = helper_broker(site.broker, "probe")
     endpoint = endpoint_of(broker)
     inputs = [point] if isinstance(point, MqttInput) else []
     outputs = [point] if isinstance(point, MqttOutput) else []
@@ -215,7 +230,7 @@ async def _probe_mqtt(
                     print("payload      nothing arrived", file=out)
                     return EXIT_RUNTIME
                 sample = points.samples(time.time())[point.name]
-                print(f"payload      {points.last_payload[point.name]!r}", file=out)
+                print(f"payload      {payload_text(points.last_payload[point.name])}", file=out)
                 shown = (
                     "none"
                     if sample.value is None
@@ -226,15 +241,15 @@ async def _probe_mqtt(
                 return EXIT_OK
             return await _probe_mqtt_output(client, points, point, want, out)
     except aiomqtt.MqttError as exc:
-        raise BrokerError(str(exc) or "connection failed", endpoint=endpoint) from None
+        raise BrokerError(describe_broker_error(exc), endpoint=endpoint) from None
 
 
 async def _probe_mqtt_output(
     client: aiomqtt.Client, points: MqttPoints, point: MqttOutput, want: bool | None, out: TextIO
 ) -> int:
     print(
-        f"output       command topic {point.command_topic} (on = {point.on_payload!r},"
-        f" off = {point.off_payload!r}), state topic {point.state_topic or 'none'}",
+        f"output       command topic {point.command_topic} (on = {payload_text(point.on_payload)},"
+        f" off = {payload_text(point.off_payload)}), state topic {point.state_topic or 'none'}",
         file=out,
     )
     if want is None:
@@ -249,16 +264,19 @@ async def _probe_mqtt_output(
                 file=out,
             )
             return EXIT_RUNTIME
-        print(f"payload      {points.last_payload[point.name]!r}", file=out)
+        print(f"payload      {payload_text(points.last_payload[point.name])}", file=out)
         print(f"state        {_on_off(points.output_state(point.name).confirmed)}", file=out)
         return EXIT_OK
     state = await points.set_output(point.name, want)
     payload = point.on_payload if want else point.off_payload
     if state.verdict == "comm-failure":
-        print(f"publish      FAILED: {payload!r} not published: {state.detail}", file=out)
+        print(
+            f"publish      FAILED: {payload_text(payload)} not published: {state.detail}",
+            file=out,
+        )
         print("result       comm-failure (the output was not switched)", file=out)
         return EXIT_RUNTIME
-    print(f"published    {payload!r} (QoS 1)", file=out)
+    print(f"published    {payload_text(payload)} (QoS 1)", file=out)
     if point.state_topic is None:
         print("read back    not configured (no state topic)", file=out)
         return EXIT_OK

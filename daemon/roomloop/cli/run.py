@@ -6,10 +6,13 @@ would end the process at once with the outputs as they were. The state
 directory is ``--state-dir``, else systemd's ``$STATE_DIRECTORY``, else the
 site's ``state_dir``.
 
-Exit codes: 0 stopped on a signal; 1 the state directory is not writable;
-2 a bad site file, a state directory that is a file, or a TLS or password
-file or variable the broker section names that is missing (checked at start,
-before any output is touched, rather than retried for ever).
+Exit codes: 0 stopped on a signal; 1 another process already runs the site
+with this state directory (its pid is named; see :mod:`roomloop.service.lock`);
+2 a bad site file, a state directory that is a file, or a TLS or password file
+or variable the broker section names that is missing (checked at start, before
+any output is touched, rather than retried for ever). A state directory
+that cannot be written is no reason to stop: the zones run, start fresh, and
+their state shows ``persistence: "failed: <reason>"``.
 
 Test hook (not for users, see DEVELOPERS.md): ``ROOMLOOP_CLOCK_SPEED=N`` runs
 the service on a simulated clock N times faster than real time, so the
@@ -31,6 +34,7 @@ import structlog
 from roomloop.config.loader import load_site
 from roomloop.config.models import Site
 from roomloop.service.clock import Clock, RealClock, SimulatedClock
+from roomloop.service.lock import LockHeld, acquire_site_lock
 from roomloop.service.persist import StateDirError, prepare_state_dir
 
 EXIT_OK = 0
@@ -108,8 +112,24 @@ def main(args: argparse.Namespace) -> int:
     try:
         prepare_state_dir(state_dir)
     except StateDirError as exc:
+        if exc.usage:
+            print(f"roomloop run: {exc}", file=sys.stderr)
+            return EXIT_USAGE
+        # A read-only SD card must not leave the zones without even frost protection:
+        # control goes on, the zones start fresh and the state shows persistence failed.
+        print(f"roomloop run: {exc}; running without saving state", file=sys.stderr)
+        log.error("run.state_dir_unusable", state_dir=state_dir, reason=str(exc))
+    try:
+        lock = acquire_site_lock(site.name, state_dir)
+    except LockHeld as exc:
         print(f"roomloop run: {exc}", file=sys.stderr)
-        return EXIT_USAGE if exc.usage else EXIT_RUNTIME
-    log.info("run.start", config=str(args.config), state_dir=state_dir, pid=os.getpid())
-    asyncio.run(_serve(site, state_dir, clock))
+        return EXIT_RUNTIME
+    log.info(
+        "run.start", config=str(args.config), state_dir=state_dir, pid=os.getpid(),
+        lock=[str(p) for p in lock.paths],
+    )
+    try:
+        asyncio.run(_serve(site, state_dir, clock))
+    finally:
+        lock.release()
     return EXIT_OK

@@ -200,14 +200,35 @@ class ZoneController:
             backup=None if s.backup is None else PointState(s.backup.name),
         )
 
-    def resume(self, state: ZoneState, now: float, relay_on: bool = False) -> ZoneState:
-        """Adopt a state loaded from disk after a restart at ``now``.
+    def resume(
+        self,
+        state: ZoneState,
+        now: float,
+        relay_on: bool | None = None,
+        *,
+        safe_on: bool = False,
+    ) -> ZoneState:
+        """Adopt a state loaded from disk (or a fresh one) after a restart at ``now``.
 
-        ``relay_on`` is the output's state while roomloop was down (its safe
-        state). The anticipator decays (or rises) over the gap as if it had run,
-        point memories are kept only for points still configured under the same
-        name, times in the future (a clock set back) are pulled to ``now``, and
-        the gap does not count toward the learned duty.
+        ``relay_on`` is the output's real state, read from the device at the restart;
+        ``None`` when it could not be read: the service then writes the zone's safe
+        state ``safe_on`` at start, and that is the relay from now on. Short-cycle
+        protection stays exact across an unclean stop: the saved state holds every
+        switch (the service saves on each one), so a relay found as saved keeps its
+        saved switch time; a relay that differs from the saved state (switched while
+        roomloop was down, by the old process's stop or a switch it had no time to
+        save, or by the safe-state write now) is recorded as a switch at ``now``, the
+        latest it can have happened, so its minimum on or off time is served from the
+        restart and never cut short. With the relay unknown, the safe state's minimum
+        time runs from ``now`` even when the saved state already had it (a switch lost
+        with the old process would otherwise allow a pulse), but no switch is logged.
+        Nothing here switches the relay: the first step starts from the relay as it is,
+        so a restart makes no pulse.
+
+        The anticipator decays (or rises) over the gap as if it had run with the relay
+        as found, point memories are kept only for points still configured under the
+        same name, times in the future (a clock set back) are pulled to ``now``, and the
+        gap does not count toward the learned duty.
 
         The sensor timeout restarts at ``now`` and a point whose last verdict was
         ``stale`` starts afresh: the readings stopped because roomloop stopped, so
@@ -216,21 +237,25 @@ class ZoneController:
         time. A restart is a cold start for the sensor timeout.
         """
         s = self.settings
+        relay = safe_on if relay_on is None else relay_on
         gap = max(0.0, now - state.last_step_at)
         gain = s.anticipator_gain_k
-        u = gain if relay_on else 0.0
+        u = gain if relay else 0.0
         tau_scale = (
             min(max(state.tau_scale, MIN_TAU_SCALE), MAX_TAU_SCALE) if self._regulate else 1.0
         )
         tau = s.anticipator_time_constant_s * tau_scale
         anticipator = u + (state.anticipator_k - u) * math.exp(-gap / tau)
-        switched_at = state.switched_at
         switches = tuple(sw for sw in state.switches if sw[0] <= now)
-        if relay_on != state.relay_on:
-            switched_at = min(state.last_step_at, now)
-            switches = (*switches, (switched_at, relay_on))[-MAX_SWITCH_LOG:]
-        elif switched_at is not None:
-            switched_at = min(switched_at, now)
+        switched_at = None if state.switched_at is None else min(state.switched_at, now)
+        if relay != state.relay_on:
+            switched_at = now
+            switches = (*switches, (now, relay))[-MAX_SWITCH_LOG:]
+        elif relay_on is None:
+            # The safe-state write at start may still switch the relay (the old process may
+            # have switched it without saving): its minimum time runs from now, though no
+            # switch is logged (the cycle count keeps to the switches known to have happened).
+            switched_at = now
         old_points = {p.name: p for p in state.points}
         points = tuple(_resumed_point(old_points.get(p.name), p.name) for p in s.inputs)
         backup: PointState | None = None
@@ -252,7 +277,7 @@ class ZoneController:
             droop_k=min(max(state.droop_k, 0.0), gain) if s.droop_compensation else 0.0,
             tau_scale=tau_scale,
             cycle_clean=False,
-            relay_on=relay_on,
+            relay_on=relay,
             switched_at=switched_at,
             protection_run=False,
             switches=switches,

@@ -38,16 +38,22 @@ from __future__ import annotations
 import json
 import math
 from dataclasses import dataclass, fields
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from roomloop.errors import RoomloopError
 
 from .types import RELIABILITY_VALUES, Reliability
 
+if TYPE_CHECKING:
+    from .settings import ZoneSettings
+
 STATE_SCHEMA = "roomloop.zone-state"
 STATE_VERSION = 1
 MAX_TIME_S = 253402300799.0
 """The last second of year 9999 (POSIX): the bound of every time field in a saved state."""
+PLAUSIBLE_C = (-100.0, 200.0)
+"""Bounds of any saved temperature (Celsius): no room, pipe or slab reads beyond them, so a
+value outside is a corrupted file, not a measurement."""
 
 
 class StateFormatError(RoomloopError, ValueError):
@@ -158,6 +164,8 @@ class ZoneState:
             data = json.loads(text)
         except (ValueError, UnicodeDecodeError) as exc:
             raise StateFormatError(f"zone state is not JSON: {exc}") from None
+        except RecursionError:
+            raise StateFormatError("zone state is nested too deeply to be ours") from None
         if not isinstance(data, dict):
             raise StateFormatError("zone state is not a JSON object")
         if data.get("schema") != STATE_SCHEMA:
@@ -181,13 +189,13 @@ class ZoneState:
             raise StateFormatError(f"zone state has unknown keys: {', '.join(extra)}")
         return cls(
             mode=r.choice("mode", ("auto", "hold", "off")),
-            hold_setpoint=r.opt_num("hold_setpoint"),
+            hold_setpoint=r.opt_celsius("hold_setpoint"),
             hold_level=r.opt_choice("hold_level", _LEVELS),
             hold_until=r.opt_time("hold_until"),
             level_override=r.opt_choice("level_override", _LEVELS),
             scheduled_level=r.choice("scheduled_level", _LEVELS),
-            anticipator_k=r.num("anticipator_k"),
-            droop_k=r.num("droop_k"),
+            anticipator_k=r.non_negative("anticipator_k"),
+            droop_k=r.non_negative("droop_k"),
             tau_scale=r.positive("tau_scale"),
             cycle_clean=r.flag("cycle_clean"),
             relay_on=r.flag("relay_on"),
@@ -196,25 +204,54 @@ class ZoneState:
             switches=switches,
             started_at=r.time("started_at"),
             last_step_at=r.time("last_step_at"),
-            last_setpoint=r.opt_num("last_setpoint"),
+            last_setpoint=r.opt_celsius("last_setpoint"),
             recovering=int(r.choice("recovering", (-1, 0, 1))),
-            temperature=r.opt_num("temperature"),
+            temperature=r.opt_celsius("temperature"),
             good_at=r.time("good_at"),
             good_since=r.opt_time("good_since"),
             normal=r.flag("normal"),
             fail_safe=r.flag("fail_safe"),
             fail_safe_since=r.opt_time("fail_safe_since"),
-            fail_safe_duty=r.opt_num("fail_safe_duty"),
+            fail_safe_duty=r.opt_fraction("fail_safe_duty"),
             fail_safe_reason=r.opt_text("fail_safe_reason"),
             duty_buckets=buckets,
             duty_current=_triple(r.get("duty_current"), "duty_current"),
             points=tuple(_point_from(item, f"points[{i}]") for i, item in enumerate(points_raw)),
             backup=None if backup_raw is None else _point_from(backup_raw, "backup"),
-            smoothed_c=r.opt_num("smoothed_c") if "smoothed_c" in data else None,
+            smoothed_c=r.opt_celsius("smoothed_c") if "smoothed_c" in data else None,
         )
 
 
 _LEVELS = ("comfort", "standby", "economy", "protection")
+
+
+MAX_HOLD_AHEAD_S = 366 * 86400.0
+"""How far ahead a hold may end (the bound commands enforce, core/commands.py MAX_HOLD_S)."""
+
+
+def check_for_zone(state: ZoneState, settings: ZoneSettings, now: float | None = None) -> None:
+    """Refuse a loaded state the zone's settings could never have produced.
+
+    Raises :class:`StateFormatError` naming the field: a hold set point outside the
+    zone's limits (commands clamp to them, so only a corrupted or hand-edited file, or
+    limits narrowed since, hold one; the zone would otherwise heat to the limit with
+    no command to show for it), or, given ``now``, a hold ending more than 366 days
+    ahead (no command can set one). Values a changed tuning legitimately leaves out of
+    range (the anticipator above a lowered gain) are not refused here:
+    :meth:`ZoneController.resume` clamps them.
+    """
+    low, high = settings.limit_min_c, settings.limit_max_c
+    if state.hold_setpoint is not None and not low <= state.hold_setpoint <= high:
+        raise StateFormatError(
+            f"zone state: hold_setpoint {state.hold_setpoint:g} C is outside the zone's "
+            f"limits {low:g}..{high:g} C"
+        )
+    until = state.hold_until
+    if now is not None and until is not None and until > now + MAX_HOLD_AHEAD_S:
+        raise StateFormatError(
+            f"zone state: hold_until {until:.0f} is more than 366 days after the "
+            f"restart at {now:.0f}"
+        )
 
 
 def _tuples_to_lists(value: Any) -> Any:
@@ -239,11 +276,11 @@ def _point_from(raw: Any, where: str) -> PointState:
         name=r.text("name"),
         reliability=r.choice("reliability", RELIABILITY_VALUES),
         verdict=r.choice("verdict", RELIABILITY_VALUES),
-        value=r.opt_num("value"),
+        value=r.opt_celsius("value"),
         value_at=r.opt_time("value_at"),
         seen_at=r.opt_time("seen_at"),
-        still_value=r.opt_num("still_value"),
-        still_on_s=r.num("still_on_s"),
+        still_value=r.opt_celsius("still_value"),
+        still_on_s=r.non_negative("still_on_s"),
         good_since=r.opt_time("good_since"),
         faulted=r.flag("faulted"),
     )
@@ -280,8 +317,11 @@ def _triple(item: Any, where: str) -> tuple[float, float, float]:
         or len(item) != 3
         or not all(_is_num(v) for v in item)
         or not _is_time(item[0])
+        or not 0.0 <= item[1] <= item[2]
     ):
-        raise StateFormatError(f"zone state: {where} entries are [start, on_s, seen_s]")
+        raise StateFormatError(
+            f"zone state: {where} entries are [start, on_s, seen_s] with 0 <= on_s <= seen_s"
+        )
     return (float(item[0]), float(item[1]), float(item[2]))
 
 
@@ -323,6 +363,25 @@ class _Reader:
 
     def opt_num(self, key: str) -> float | None:
         return None if self.get(key) is None else self.num(key)
+
+    def non_negative(self, key: str) -> float:
+        value = self.num(key)
+        if value < 0:
+            raise self._bad(key, "a number not below 0")
+        return value
+
+    def opt_celsius(self, key: str) -> float | None:
+        value = self.opt_num(key)
+        low, high = PLAUSIBLE_C
+        if value is not None and not low <= value <= high:
+            raise self._bad(key, f"a temperature within {low:g}..{high:g} C")
+        return value
+
+    def opt_fraction(self, key: str) -> float | None:
+        value = self.opt_num(key)
+        if value is not None and not 0.0 <= value <= 1.0:
+            raise self._bad(key, "a fraction within 0..1")
+        return value
 
     def flag(self, key: str) -> bool:
         value = self.get(key)

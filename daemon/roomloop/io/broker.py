@@ -25,6 +25,7 @@ from roomloop.backoff import Backoff
 from roomloop.clock import Clock, RealClock
 from roomloop.config.models import Broker
 from roomloop.errors import BrokerError
+from roomloop.io.broker_errors import describe_broker_error
 from roomloop.io.eventlog import RateLimitedLog, get_logger
 
 log = get_logger("broker")
@@ -225,7 +226,7 @@ class BrokerConnection:
                     "broker.disconnected",
                     self.clock.now(),
                     endpoint=self.endpoint,
-                    reason=str(exc) or type(exc).__name__,
+                    reason=describe_broker_error(exc),  # our words, not aiomqtt's
                     retry_in_s=delay,
                 )
             finally:

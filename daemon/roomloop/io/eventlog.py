@@ -1,9 +1,14 @@
-"""Rate-limited log events: a broken sensor must not flood the journal.
+"""Rate-limited log events: a broken sensor or a command flood must not flood the journal.
 
 The first event for a key (point and problem) is logged at once; repeats
 within ``interval_s`` are counted, and the next event after the interval
 carries ``suppressed=N``. When the point is good again one ``*.recovered``
 event closes the story.
+
+Routine events that may come in a flood (every command answer) go through
+:meth:`RateLimitedLog.event`: up to ``burst`` per ``interval_s`` are logged as
+they come, the rest counted, and the first one logged after the window carries
+``suppressed=N`` (journald's own rate limit would otherwise drop real warnings).
 """
 
 from __future__ import annotations
@@ -18,6 +23,8 @@ import structlog
 class _Entry:
     last_logged: float
     suppressed: int = 0
+    logged: int = 1
+    """Events logged in the window that started at ``last_logged`` (for :meth:`event`)."""
 
 
 @dataclass
@@ -26,7 +33,26 @@ class RateLimitedLog:
 
     logger: Any
     interval_s: float = 300.0
+    burst: int = 1
+    """Events :meth:`event` logs per window before it starts counting."""
     _entries: dict[tuple[str, str], _Entry] = field(default_factory=dict)
+
+    def event(self, key: str, event: str, now: float, level: str = "info", **fields: Any) -> bool:
+        """Log a routine event unless ``burst`` were logged in this window; returns whether."""
+        entry = self._entries.get((key, event))
+        if entry is not None and now - entry.last_logged < self.interval_s:
+            if entry.logged >= self.burst:
+                entry.suppressed += 1
+                return False
+            entry.logged += 1
+        else:
+            suppressed = entry.suppressed if entry is not None else 0
+            self._entries[(key, event)] = _Entry(now)
+            if suppressed:
+                fields["suppressed"] = suppressed
+                fields["suppressed_in_s"] = self.interval_s
+        getattr(self.logger, level)(event, **fields)
+        return True
 
     def problem(self, key: str, event: str, now: float, **fields: Any) -> bool:
         """Log a problem event unless logged recently; returns whether it was logged."""

@@ -307,7 +307,7 @@ class ModbusLink:
                 if problem is None:
                     return response
                 reason = problem
-        raise _RequestFailed(f"{reason} (after {attempts} attempt(s))")
+        raise _RequestFailed(f"{reason} ({attempts} attempt{'' if attempts == 1 else 's'})")
 
     async def _read_registers(
         self,
@@ -607,7 +607,14 @@ class ModbusLink:
 
 
 def _describe(exc: BaseException) -> str:
+    """A failed request in our words: pymodbus's own retry count ("after 0 retries", ours
+    are counted by ``_request``) and its boilerplate are left out."""
     text = str(exc).strip() or type(exc).__name__
+    if "No response received of the last requests" in text:
+        return "no answer to the last requests (pymodbus closes the connection)"
+    if "No response received" in text:
+        return "no answer"
+    text = text.removeprefix("Modbus Error: ").strip()
     return text if len(text) < 200 else text[:197] + "..."
 
 

@@ -59,6 +59,7 @@ from roomloop.service.outputs import Output, OutputWriter, SafeSink
 from roomloop.service.persist import StateStore
 from roomloop.service.persistence import Persistence, restore_states
 from roomloop.service.publisher import StatePublisher, ZoneView
+from roomloop.service.restart import read_output_states
 from roomloop.service.session import BrokerSession
 from roomloop.service.supervisor import Supervisor, cancel_and_wait, watchdog_loop
 from roomloop.service.zones import OnTick, TickReport, ZoneRunner, ZoneRuntime
@@ -117,6 +118,7 @@ class Service:
             self.clock,
             [Output(z.name, z.output, z.safe_state == "on") for z in site.zones],
             sinks,
+            before_write=self._journal_switch,
         )
         self.zones: dict[str, ZoneRuntime] = {}
         """Filled by :meth:`run` from the restored states."""
@@ -190,14 +192,23 @@ class Service:
         sinks.update(dict.fromkeys(mqtt_points.output_names(), mqtt_points))
         return links, mqtt_points, sources, sinks
 
-    def _restore(self) -> None:
-        for name, restored in restore_states(self.site, self.store, self.clock.now()).items():
+    def _restore(self, relays: dict[str, bool | None]) -> None:
+        """The zones' states (saved and checked, or fresh), each resumed from its output as
+        found on the device; each output is held as found until its zone decides."""
+        restored_zones = restore_states(self.site, self.store, self.clock.now(), relays)
+        for name, restored in restored_zones.items():
             zone = self.site.zone(name)
             self.zones[name] = ZoneRuntime(
                 zone, restored.settings, restored.controller, restored.state, self.tz,
                 calendar=self.site.calendar_for(name),
             )
+            self.outputs.hold_as_found(zone.output, restored.state.relay_on)
             self.persistence.saved_as(name, restored.state)
+
+    async def _journal_switch(self, zone: str, point: str, on: bool) -> None:
+        runtime = self.zones.get(zone)
+        if runtime is not None:
+            await asyncio.to_thread(self.store.record_switch, zone, runtime.state)
 
     def _start_tasks(self, start: Starter) -> None:
         """Every task of the service, named; ``control`` ones are cancelled before the
@@ -241,11 +252,10 @@ class Service:
             from roomloop.io.broker import check_broker_files
 
             check_broker_files(self.site.broker)
-        self._restore()
         log.info(
             "service.starting",
             site=self.site.name,
-            zones=len(self.zones),
+            zones=len(self.site.zones),
             links=len(self.links),
             broker=None
             if self.site.broker is None
@@ -255,6 +265,8 @@ class Service:
         async with contextlib.AsyncExitStack() as stack:
             for link in self.links.values():
                 await stack.enter_async_context(link)
+            # Each output read as it is before any zone resumes (restart.py): no start-up pulse.
+            self._restore(await read_output_states(self.links.values()))
             control: list[asyncio.Task[None]] = []
             others: list[asyncio.Task[None]] = []
             stopped_cleanly = False
@@ -335,6 +347,7 @@ class Service:
                 hold_until=report.state.hold_until,
                 next_change=report.next_change if report.state.mode == "auto" else None,
                 fail_safe_policy=runtime.settings.fail_safe_policy,
+                persistence=self.store.status,
             )
         )
         if self.session is not None:

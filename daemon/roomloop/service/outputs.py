@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import asyncio
 import logging
-from collections.abc import Mapping, Sequence
+from collections.abc import Awaitable, Callable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Protocol
 
@@ -36,6 +36,10 @@ STOP_REQUEST_MIN_S = 0.1
 """``clock.io`` seconds at least for each request of the stop's one try per output."""
 REQUESTS_PER_SAFE_WRITE = 2
 """A safe write is a write and a read-back: the budget is shared among that many requests."""
+
+
+BeforeWrite = Callable[[str, str, bool], Awaitable[None]]
+"""``(zone, point, on)``: what the writer awaits before handing a write to the sink."""
 
 
 class SafeSink(Protocol):
@@ -68,9 +72,16 @@ class OutputWriter:
     """Owns what every output should be and writes it; see the module docstring."""
 
     def __init__(
-        self, clock: Clock, outputs: Sequence[Output], sinks: Mapping[str, SafeSink]
+        self,
+        clock: Clock,
+        outputs: Sequence[Output],
+        sinks: Mapping[str, SafeSink],
+        before_write: BeforeWrite | None = None,
     ) -> None:
         self.clock = clock
+        self.before_write = before_write
+        """Awaited before each write: the switch is journalled before the device sees it, so
+        a kill right after the write still knows when the relay switched."""
         self.outputs = {o.point: o for o in outputs}
         self.sinks = dict(sinks)
         self.wanted: dict[str, bool] = {o.point: o.safe_on for o in outputs}
@@ -88,6 +99,14 @@ class OutputWriter:
         self.wanted[point] = on
         self.decided[point] = True
         self._wake.set()
+
+    def hold_as_found(self, point: str, on: bool) -> None:
+        """At start: hold the output as it was found on the device (or its safe state when it
+        could not be read) until its zone decides, so a restart makes no pulse."""
+        if point in self.outputs:
+            self.wanted[point] = on
+            self.decided[point] = False
+            self._wake.set()
 
     def hold_safe(self, point: str) -> None:
         """A zone whose loop broke: its output back to the safe state until it decides again."""
@@ -130,6 +149,11 @@ class OutputWriter:
 
     async def _write(self, point: str, sink: SafeSink, on: bool, decided: bool) -> None:
         zone = self.outputs[point].zone
+        if self.before_write is not None:
+            try:
+                await self.before_write(zone, point, on)
+            except Exception as exc:  # the journal must never stop a write
+                log.warning("output.switch_not_journalled", zone=zone, point=point, error=str(exc))
         try:
             state = await sink.set_output(point, on)
         except Exception as exc:  # a bug below us: the poll's re-assert still retries the write

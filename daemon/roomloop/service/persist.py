@@ -4,8 +4,23 @@ One JSON file per site in the state directory. Saving writes a temporary file
 in the same directory, fsyncs it, renames it over the old one and fsyncs the
 directory, so after a power cut the file is either the old or the new one,
 never half of each. A file that cannot be read as ours (corrupt, another
-program's, another site's, a newer format) is renamed aside with a log event
-and the service starts fresh; it never blocks the start.
+program's, another site's, a newer format, nested too deeply to parse, a
+directory) is renamed aside with a log event and the service starts fresh; it
+never blocks the start.
+
+Relay switches are also made durable the moment they happen, before the device
+is written (:meth:`StateStore.record_switch`): one line appended to
+``<site>.switches`` (the zone's state at the switch) and synced, cheaper than
+rewriting the state file with its directory. At load a zone whose recorded
+switch is newer than its saved one takes the recorded state, so the switch times
+short-cycle protection needs survive a SIGKILL between a switch and the next full
+save (and before the first). A full save that covers the journal empties it.
+
+A state directory that cannot be written (a read-only SD card, a lost mount,
+permissions) does not stop the service either: the zones start fresh (the file,
+if readable, may date from before the directory failed), every save is tried
+and fails, and :attr:`StateStore.status` says ``failed: <reason>`` (published in
+each zone's state as ``persistence``) until a save succeeds again.
 """
 
 from __future__ import annotations
@@ -14,16 +29,22 @@ import contextlib
 import json
 import os
 import tempfile
+import threading
 import time
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import structlog
+
+if TYPE_CHECKING:
+    from roomloop.core.state import ZoneState
 
 log = structlog.get_logger("roomloop.persist")
 
 FORMAT = "roomloop-state"
 VERSION = 1
+MAX_TIME_S = 253402300799.0
+"""The end of year 9999 (as ``roomloop.core.state``): a switch time beyond is not ours."""
 
 
 class StateDirError(Exception):
@@ -77,33 +98,127 @@ class StateStore:
         self.site_name = site_name
         self.path = self.directory / f"{site_name}.state.json"
         self._last_written: str | None = None
+        self.journal_path = self.directory / f"{site_name}.switches"
+        self.failure: str | None = None
+        """Why the state cannot be made durable (``None`` while saves work)."""
+        self._lock = threading.Lock()
+        """Saves run in a worker thread, switch records in another: one at a time."""
+        self._recorded: dict[str, tuple[float, bool]] = {}
+        """Per zone the last switch recorded in the journal since it was last emptied."""
+        self._journal_synced = False
+
+    @property
+    def status(self) -> str:
+        """``ok``, or ``failed: <reason>`` while the state cannot be saved."""
+        return "ok" if self.failure is None else f"failed: {self.failure}"
 
     def load(self) -> dict[str, Any]:
-        """The saved zone states by zone name; empty when there is no usable file."""
+        """The saved zone states by zone name, newest switches applied; empty if none usable.
+
+        A state directory that cannot be written marks persistence failed and loads
+        nothing: the zones start fresh and control goes on.
+        """
+        problem = _unwritable(self.directory)
+        if problem is not None:
+            self._failed(problem)
+            log.error(
+                "persist.failed_at_start",
+                path=str(self.path),
+                reason=problem,
+                consequence="zones start fresh; commands and switch times are not kept",
+            )
+            return {}
+        zones = self._load_file()
+        applied = self._apply_journal(zones)
+        if zones:
+            log.info("persist.loaded", path=str(self.path), zones=sorted(zones), switches=applied)
+        return zones
+
+    def _load_file(self) -> dict[str, Any]:
         try:
             text = self.path.read_text(encoding="utf-8")
         except FileNotFoundError:
             log.info("persist.no_state", path=str(self.path))
             return {}
-        except OSError as exc:
-            log.warning("persist.unreadable", path=str(self.path), error=str(exc))
-            return {}
         except UnicodeDecodeError:
             self._move_aside("not UTF-8 text")
+            return {}
+        except OSError as exc:  # a directory in its place, no permission, an I/O error
+            self._move_aside(f"unreadable ({exc.strerror or exc})")
             return {}
         try:
             document = json.loads(text)
         except json.JSONDecodeError as exc:
             self._move_aside(f"not JSON ({exc.msg} at line {exc.lineno})")
             return {}
+        except RecursionError:
+            self._move_aside("nested too deeply to be a roomloop state file")
+            return {}
         problem = _check_document(document, self.site_name)
         if problem is not None:
             self._move_aside(problem)
             return {}
         zones: dict[str, Any] = document["zones"]
-        log.info("persist.loaded", path=str(self.path), zones=sorted(zones))
         self._last_written = _dump({**document, "saved_at": None})
         return zones
+
+    def record_switch(self, zone: str, state: ZoneState) -> bool:
+        """Make the relay switch in ``state`` durable now; True if written (or already).
+
+        Called before the output is written to the device, so a switch the device saw is
+        never lost with the process. The line holds the zone's whole state at the switch
+        (a few hundred bytes: one block), so it serves even before the first full save.
+        Never raises: a failure marks persistence failed.
+        """
+        if state.switched_at is None:
+            return False
+        entry = (state.switched_at, state.relay_on)
+        if self._recorded.get(zone) == entry:
+            return True
+        line = json.dumps(
+            {"zone": zone, "at": entry[0], "on": entry[1], "state": json.loads(state.to_json())},
+            separators=(",", ":"),
+        ) + "\n"
+        with self._lock:
+            try:
+                fd = os.open(self.journal_path, os.O_WRONLY | os.O_APPEND | os.O_CREAT, 0o644)
+                try:
+                    os.write(fd, line.encode("utf-8"))
+                    os.fdatasync(fd)
+                finally:
+                    os.close(fd)
+                if not self._journal_synced:  # a new journal: make its name durable too
+                    _fsync_directory(self.directory)
+                    self._journal_synced = True
+            except OSError as exc:
+                self._failed(f"cannot write {self.journal_path}: {exc.strerror or exc}")
+                return False
+            self._recorded[zone] = entry
+        return True
+
+    def _apply_journal(self, zones: dict[str, Any]) -> int:
+        """Take each zone's state from its newest recorded switch if that is newer; how many."""
+        try:
+            text = self.journal_path.read_text(encoding="utf-8", errors="replace")
+        except FileNotFoundError:
+            return 0
+        except OSError as exc:
+            log.warning("persist.journal_unreadable", path=str(self.journal_path),
+                        error=exc.strerror or str(exc))
+            return 0
+        applied = 0
+        for line in text.splitlines():
+            entry = _journal_entry(line)
+            if entry is None:
+                continue  # a line cut short by the crash, or not ours
+            zone, at, state = entry
+            raw = zones.get(zone)
+            last = raw.get("switched_at") if isinstance(raw, dict) else None
+            if isinstance(last, int | float) and not isinstance(last, bool) and at <= last:
+                continue
+            zones[zone] = state
+            applied += 1
+        return applied
 
     def save(self, zones: dict[str, Any], now: float) -> bool:
         """Write the zone states if they differ from what was last written; True if written."""
@@ -117,8 +232,21 @@ class StateStore:
         comparable = _dump({**document, "saved_at": None})
         if comparable == self._last_written:
             return False
+        with self._lock:
+            try:
+                self._write(_dump(document).encode("utf-8"))
+            except OSError as exc:
+                self._failed(f"cannot write {self.path}: {exc.strerror or exc}")
+                raise
+            self._empty_journal_if_covered(zones)
+        if self.failure is not None:
+            log.warning("persist.recovered", path=str(self.path), was=self.failure)
+            self.failure = None
+        self._last_written = comparable
+        return True
+
+    def _write(self, data: bytes) -> None:
         self.directory.mkdir(parents=True, exist_ok=True)
-        data = _dump(document).encode("utf-8")
         fd, tmp_name = tempfile.mkstemp(
             prefix=f".{self.path.name}.", suffix=".tmp", dir=self.directory
         )
@@ -133,8 +261,24 @@ class StateStore:
                 os.unlink(tmp_name)
             raise
         _fsync_directory(self.directory)
-        self._last_written = comparable
-        return True
+
+    def _empty_journal_if_covered(self, zones: dict[str, Any]) -> None:
+        """Empty the journal once the state file just written holds every switch in it."""
+        for zone, (at, _on) in self._recorded.items():
+            saved = zones.get(zone)
+            saved_at = saved.get("switched_at") if isinstance(saved, dict) else None
+            if not isinstance(saved_at, int | float) or saved_at < at:
+                return
+        if not self._recorded and not self.journal_path.exists():
+            return
+        with contextlib.suppress(OSError):
+            os.truncate(self.journal_path, 0)
+            self._recorded.clear()
+
+    def _failed(self, reason: str) -> None:
+        if reason != self.failure:
+            log.error("persist.failed", path=str(self.path), reason=reason)
+        self.failure = reason
 
     def _move_aside(self, reason: str) -> None:
         stamp = time.strftime("%Y%m%dT%H%M%S", time.gmtime())
@@ -153,6 +297,26 @@ class StateStore:
         log.warning("persist.moved_aside", path=str(self.path), moved_to=str(target), reason=reason)
 
 
+def _unwritable(directory: Path) -> str | None:
+    """Why nothing can be saved in ``directory`` (tried for real: a read-only mount fools
+    permission checks for root), or ``None``."""
+    if not directory.exists():
+        try:
+            directory.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            return f"state directory {directory} cannot be created: {exc.strerror or exc}"
+    if not directory.is_dir():
+        return f"state directory {directory} is not a directory"
+    try:
+        fd, name = tempfile.mkstemp(prefix=".write-test.", dir=directory)
+    except OSError as exc:
+        return f"state directory {directory} is not writable: {exc.strerror or exc}"
+    os.close(fd)
+    with contextlib.suppress(OSError):
+        os.unlink(name)
+    return None
+
+
 def _check_document(document: Any, site_name: str) -> str | None:
     if not isinstance(document, dict) or document.get("format") != FORMAT:
         return "not a roomloop state file"
@@ -163,6 +327,24 @@ def _check_document(document: Any, site_name: str) -> str | None:
     if not isinstance(document.get("zones"), dict):
         return "no zone states in the file"
     return None
+
+
+def _journal_entry(line: str) -> tuple[str, float, dict[str, Any]] | None:
+    """(zone, switch time, zone state) of one journal line; None if it is not a whole one."""
+    try:
+        item = json.loads(line)
+    except (ValueError, RecursionError):
+        return None
+    if not isinstance(item, dict):
+        return None
+    zone, at, on, state = item.get("zone"), item.get("at"), item.get("on"), item.get("state")
+    if not isinstance(zone, str) or not isinstance(on, bool) or not isinstance(state, dict):
+        return None
+    if isinstance(at, bool) or not isinstance(at, int | float) or not abs(at) <= MAX_TIME_S:
+        return None
+    if state.get("switched_at") != at or state.get("relay_on") is not on:
+        return None
+    return zone, float(at), state
 
 
 def _dump(document: dict[str, Any]) -> str:

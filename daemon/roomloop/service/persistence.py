@@ -21,8 +21,9 @@ from roomloop.clock import Clock, sleep_or_wake
 from roomloop.config.models import Site
 from roomloop.core.controller import ZoneController
 from roomloop.core.settings import ZoneSettings
-from roomloop.core.state import StateFormatError, ZoneState
+from roomloop.core.state import ZoneState
 from roomloop.service.persist import StateStore
+from roomloop.service.restart import restore_zone
 
 log = structlog.get_logger("roomloop.service")
 
@@ -55,24 +56,24 @@ class RestoredZone:
     state: ZoneState
 
 
-def restore_states(site: Site, store: StateStore, now: float) -> dict[str, RestoredZone]:
-    """Each zone's controller and its state: the saved one resumed, or a fresh one."""
+def restore_states(
+    site: Site, store: StateStore, now: float, relays: Mapping[str, bool | None]
+) -> dict[str, RestoredZone]:
+    """Each zone's controller and its state: the saved one checked and resumed from its
+    output as found on the device (``relays``: True/False, None if unknown), or a fresh one."""
     saved = store.load()
     zones: dict[str, RestoredZone] = {}
     for zone in site.zones:
         settings = ZoneSettings.from_site(site, zone.name)
         controller = ZoneController(settings)
-        state = controller.initial_state(now)
-        raw = saved.get(zone.name)
-        if raw is not None:
-            try:
-                state = ZoneState.from_json(json.dumps(raw))
-            except StateFormatError as exc:
-                log.warning("persist.zone_state_rejected", zone=zone.name, reason=str(exc))
-            else:
-                log.info("persist.zone_restored", zone=zone.name, mode=state.mode)
-                # The output was held at its safe state from the restart on.
-                state = controller.resume(state, now, relay_on=zone.safe_state == "on")
+        state = restore_zone(
+            controller,
+            saved.get(zone.name),
+            now,
+            zone=zone.name,
+            relay_on=relays.get(zone.output),
+            safe_on=zone.safe_state == "on",
+        )
         zones[zone.name] = RestoredZone(settings, controller, state)
     return zones
 

@@ -74,6 +74,8 @@ class ZoneView:
     fail_safe_policy: str | None = None
     """The zone's configured fail-safe policy, published whether or not it runs, so a
     dashboard can show what the zone will do before a sensor fails."""
+    persistence: str = "ok"
+    """``ok``, or ``failed: <reason>`` while the state cannot be saved (service/persist.py)."""
 
 
 def state_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, Any]:
@@ -110,6 +112,7 @@ def state_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, Any]
             "level": view.next_change.level,
             "by": view.next_change.by,
         },
+        "persistence": view.persistence,
     }
 
 

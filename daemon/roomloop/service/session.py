@@ -20,6 +20,7 @@ import structlog
 
 from roomloop.clock import Clock, sleep_or_wake, timeout
 from roomloop.config.models import Broker, Zone
+from roomloop.io.eventlog import RateLimitedLog
 from roomloop.io.mqtt import MqttPoints
 from roomloop.service.commands import Command, CommandHandler
 from roomloop.service.publisher import OFFLINE, ONLINE, Message, StatePublisher, status_topic
@@ -28,6 +29,7 @@ if TYPE_CHECKING:
     from roomloop.bms.alarm_book import AlarmBook
 
 log = structlog.get_logger("roomloop.service")
+_answers_log = RateLimitedLog(log, interval_s=60.0, burst=30)
 
 STOP_BROKER_S = 1.0
 """``clock.io`` seconds the last state and ``offline`` may take at stop."""
@@ -138,7 +140,11 @@ class BrokerSession:
             if message.retain and topic.startswith(f"{self.prefix}/zone/"):
                 log.info("command.retained_ignored", topic=topic)
             return
-        log.info("command.answered", topic=topic, answer=answer.payload)
+        # rate-limited: a flood of commands must not flood the journal (summarised after)
+        _answers_log.event(
+            "command", "command.answered", self.clock.monotonic(), topic=topic,
+            answer=answer.payload,
+        )
         client = self.client
         if client is not None:
             try:
