@@ -386,8 +386,12 @@ def _decide(
     target_c = settings.setpoint_for(target_level)
     if target_c <= settings.setpoint_for(scheduled):
         return replace(idle, reason=f"next switch is to {target_level}, not warmer")
-    if state.early_for == switch_at and state.early_since is not None:
-        # Once begun, an early start lasts until its switch.
+    if (
+        state.early_for == switch_at
+        and state.early_since is not None
+        and state.early_since <= now
+    ):
+        # Once begun, an early start lasts until its switch (unless the clock went back).
         return OptimumStartDecision(
             target_level, True, state.early_since, switch_at, state.early_reason or "",
             rate, source, None,
