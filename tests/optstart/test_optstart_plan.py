@@ -38,7 +38,7 @@ def _settings(**kw: float | bool) -> OptimumStartSettings:
 
 
 def _inputs(
-    temperature: float | None = 17.0, mode: str = "auto", level: str = "economy",
+    temperature: float | None = 17.0, *, mode: str = "auto", level: str = "economy",
     target: str = "comfort", outdoor: float | None = None, switch_at: float = SWITCH,
 ) -> OptimumStartInputs:
     return OptimumStartInputs(
@@ -126,7 +126,7 @@ def test_disabled_and_no_temperature_start_nothing_early() -> None:
     latched=st.booleans(),
 )
 def test_never_before_earliest_never_outside_auto_never_cooler(
-    temperature: float, rate: float, earliest: float, dead: float, ahead: float,
+    *, temperature: float, rate: float, earliest: float, dead: float, ahead: float,
     level: str, target: str, mode: str, latched: bool,
 ) -> None:
     """The planner's three promises, on any state it can be in."""
@@ -149,22 +149,26 @@ def test_never_before_earliest_never_outside_auto_never_cooler(
 
 
 def test_warm_up_measured_from_start_to_set_point() -> None:
-    """A warm-up from 17.0 that reaches 19.9 (20 - REACHED_K) 100 min later with 10 min dead
-    time has risen 2.9 K in 90 min of heating: 1.933 K/h."""
+    """A warm-up from 17.0 that dips to 16.9, is 0.2 K above that (17.1) 10 min after the start
+    and reaches 19.9 (20 - REACHED_K) 90 min later: dead time 600 s, rate 2.8 K / 1.5 h."""
     cfg = _settings(enabled=False)
+
+    def comfort(temperature: float) -> OptimumStartInputs:
+        return _inputs(temperature, level="comfort", target="economy", switch_at=1e9)
+
     state, _ = plan(cfg, OptimumStartState(), _inputs(17.0, level="economy"), 0.0)
-    comfort = _inputs(17.0, level="comfort", target="economy", switch_at=1e9)
-    state, _ = plan(cfg, state, comfort, 10.0)
+    state, _ = plan(cfg, state, comfort(17.0), 10.0)
     assert state.warm_up is not None and state.warm_up.start_c == 17.0
-    state, _ = plan(cfg, state, _inputs(19.0, level="comfort", target="economy",
-                                        switch_at=1e9), 3000.0)
-    assert state.warm_up is not None
-    state, _ = plan(cfg, state, _inputs(19.9, level="comfort", target="economy",
-                                        switch_at=1e9), 6010.0)
+    for t, temperature in ((200.0, 16.9), (400.0, 17.0), (610.0, 17.1), (3000.0, 19.0)):
+        state, _ = plan(cfg, state, comfort(temperature), t)
+        assert state.warm_up is not None
+    assert state.warm_up.rose_at == 610.0
+    state, _ = plan(cfg, state, comfort(19.9), 6010.0)
     assert state.warm_up is None
-    assert state.last_rate_k_per_h == pytest.approx(2.9 / 1.5)
+    assert state.last_rate_k_per_h == pytest.approx(2.8 / 1.5)
     rate, source = state.model.rate_at(None, 99.0)
-    assert rate == pytest.approx(2.9 / 1.5) and "1 warm-up" in source
+    assert rate == pytest.approx(2.8 / 1.5) and "1 warm-up" in source
+    assert state.model.dead_time_or(1.0) == pytest.approx(600.0)
 
 
 def test_interrupted_warm_up_teaches_nothing() -> None:

@@ -13,15 +13,18 @@ temperature the inputs that matter [recalled from memory].
 
 Here, per zone:
 
-* ``lead = dead_time + gap / rate``, with ``gap`` = the warmer level's set point (less
-  :data:`REACHED_K`) minus the room temperature now, ``rate`` the learned warm-up rate at
-  the outdoor temperature now, and ``dead_time`` the time before the room starts to rise
-  (transport delay, emitter warm-up);
+* ``lead = dead_time + gap / rate + settle``, with ``gap`` = the warmer level's set point
+  (less :data:`REACHED_K`) minus the room temperature now, ``rate`` the learned warm-up rate
+  at the outdoor temperature now, ``dead_time`` the learned time before the room starts to
+  rise (transport delay, emitter warm-up), and ``settle`` the heating type's margin for the
+  first cycles after a warm-up (a light room on a fast heater dips after it);
 * the early start begins at ``switch_at - lead``, never before ``switch_at - earliest_s``,
   only in mode ``auto``, only for a switch to a warmer level; once begun it lasts until the
   switch (it does not flicker off as the room warms);
 * each warm-up (early or not) is measured from its start to the room reaching the set point
-  (less :data:`REACHED_K`): ``rate = rise / (duration - dead_time)``; the rate goes into an
+  (less :data:`REACHED_K`): the dead time is the time until the room has risen
+  :data:`DEAD_RISE_K` above its lowest since the start, the rate the rest of the rise over the
+  rest of the time; the dead time goes into an exponentially weighted mean, the rate into an
   exponentially weighted mean per outdoor-temperature band (:class:`WarmUpModel`), and the
   estimate at a given outdoor temperature is that band's, else interpolated between the
   nearest learned bands, else the overall mean, else the heating type's initial value.
@@ -41,11 +44,16 @@ Level = Literal["comfort", "standby", "economy", "protection"]
 REACHED_K = 0.1
 """A warm-up has reached the set point when the zone temperature is within this of it (the
 usual sensor resolution, 0.1 K); the plan aims at the same temperature."""
+DEAD_RISE_K = 0.2
+"""The room has started to warm when it is this far above its lowest since the start (two
+steps of a 0.1 K sensor, so one noisy step does not end the dead time)."""
 MIN_RISE_K = 0.5
 """A warm-up of less than this is not measured: the sensor's 0.1 K steps would swamp it."""
 MIN_RATE_K_PER_H = 0.05
 MAX_RATE_K_PER_H = 30.0
 """Bounds of any rate learned or configured: a measured rate outside them is a sensor fault."""
+MAX_DEAD_S = 4 * 3600.0
+"""Longest dead time learned or restored."""
 MAX_RECOVERY_S = 12 * 3600.0
 """A warm-up still running after this is measured as it stands (a lower bound) and closed."""
 BAND_K = 5.0
@@ -64,6 +72,7 @@ class HeatingDefaults:
 
     initial_rate_k_per_h: float
     dead_time_s: float
+    settle_s: float = 0.0
 
 
 HEATING_DEFAULTS: dict[str, HeatingDefaults] = {
@@ -71,9 +80,12 @@ HEATING_DEFAULTS: dict[str, HeatingDefaults] = {
     # really does in a 17 -> 20 C recovery at outdoor -5..10 C (measured by simulation with
     # tests/bench/optimum_start.py's plants), so that the first mornings start early rather
     # than late; dead times about the plant's transport delay plus its emitter's first rise.
+    # Settle margins: a light room on a fast air heater dips for about half an hour after a
+    # warm-up while its cold mass takes heat (seen on the built-in forced-air plant), so it
+    # aims to be warm that much before the switch; an electric convector a few minutes.
     # Common practice, no source: the published method learns the rate, it gives no start value.
-    "forced-air": HeatingDefaults(3.0, 300.0),
-    "electric": HeatingDefaults(3.0, 180.0),
+    "forced-air": HeatingDefaults(3.0, 300.0, 1800.0),
+    "electric": HeatingDefaults(3.0, 180.0, 600.0),
     "hydronic": HeatingDefaults(1.5, 900.0),
     "underfloor": HeatingDefaults(0.4, 2700.0),
     "steam": HeatingDefaults(1.0, 1500.0),
@@ -89,6 +101,9 @@ class OptimumStartSettings:
     """The early start never begins more than this before the switch."""
     initial_rate_k_per_h: float = 1.5
     dead_time_s: float = 900.0
+    """The dead time until one is learned."""
+    settle_s: float = 0.0
+    """Aim to reach the set point this long before the switch."""
     setpoints: tuple[tuple[str, float], ...] = (
         ("comfort", 20.0), ("standby", 18.0), ("economy", 16.0), ("protection", 7.0),
     )
@@ -101,8 +116,10 @@ class OptimumStartSettings:
             raise ValueError(
                 f"initial_rate_k_per_h must be within {MIN_RATE_K_PER_H}..{MAX_RATE_K_PER_H}"
             )
-        if not (math.isfinite(self.dead_time_s) and self.dead_time_s >= 0):
-            raise ValueError(f"dead_time_s must be zero or positive, not {self.dead_time_s!r}")
+        for key in ("dead_time_s", "settle_s"):
+            value = getattr(self, key)
+            if not (math.isfinite(value) and value >= 0):
+                raise ValueError(f"{key} must be zero or positive, not {value!r}")
 
     @classmethod
     def for_heating(
@@ -113,6 +130,7 @@ class OptimumStartSettings:
         earliest_s: float = 3 * 3600.0,
         initial_rate_k_per_h: float | None = None,
         dead_time_s: float | None = None,
+        settle_s: float | None = None,
         setpoints: dict[str, float] | None = None,
     ) -> OptimumStartSettings:
         """Settings with the heating type's defaults for what is not given."""
@@ -124,6 +142,7 @@ class OptimumStartSettings:
                 base.initial_rate_k_per_h if initial_rate_k_per_h is None else initial_rate_k_per_h
             ),
             dead_time_s=base.dead_time_s if dead_time_s is None else dead_time_s,
+            settle_s=base.settle_s if settle_s is None else settle_s,
             setpoints=tuple((setpoints or dict(cls().setpoints)).items()),
         )
 
@@ -152,9 +171,25 @@ class WarmUpModel:
     """A zone's learned warm-up rates: small, frozen, saved as JSON across restarts."""
 
     bands: tuple[Band, ...] = ()
+    dead_time_s: float | None = None
+    """The learned dead time (None: none learned yet, the heating type's value is used)."""
+    dead_count: int = 0
 
-    def learned(self, rate_k_per_h: float, outdoor_c: float | None) -> WarmUpModel:
+    def dead_time_or(self, initial_s: float) -> float:
+        return initial_s if self.dead_time_s is None else self.dead_time_s
+
+    def learned(
+        self, rate_k_per_h: float, outdoor_c: float | None, dead_time_s: float | None = None
+    ) -> WarmUpModel:
         """The model with one more measured warm-up (into its band and into the overall mean)."""
+        dead, dead_count = self.dead_time_s, self.dead_count
+        if dead_time_s is not None:
+            dead_time_s = min(max(dead_time_s, 0.0), MAX_DEAD_S)
+            if dead is None:
+                dead, dead_count = dead_time_s, 1
+            else:
+                weight = max(1.0 / (dead_count + 1), WEIGHT)
+                dead, dead_count = dead + weight * (dead_time_s - dead), dead_count + 1
         rate = min(max(rate_k_per_h, MIN_RATE_K_PER_H), MAX_RATE_K_PER_H)
         keys: list[int | None] = [None]
         if outdoor_c is not None:
@@ -164,7 +199,7 @@ class WarmUpModel:
             old = bands.get(key)
             bands[key] = _updated(old, key, rate)
         ordered = sorted(bands.values(), key=lambda b: -math.inf if b.index is None else b.index)
-        return WarmUpModel(tuple(ordered))
+        return WarmUpModel(tuple(ordered), dead, dead_count)
 
     def rate_at(self, outdoor_c: float | None, initial_k_per_h: float) -> tuple[float, str]:
         """The estimated warm-up rate (K/h) at this outdoor temperature, and where it comes from."""
@@ -204,6 +239,8 @@ class WarmUpModel:
     def to_dict(self) -> dict[str, Any]:
         return {
             "version": STATE_VERSION,
+            "dead_time_s": None if self.dead_time_s is None else round(self.dead_time_s, 3),
+            "dead_count": self.dead_count,
             "bands": [
                 {"band": b.index, "rate_k_per_h": round(b.rate_k_per_h, 6), "count": b.count}
                 for b in self.bands
@@ -246,7 +283,15 @@ class WarmUpModel:
                 raise ValueError(f"warm-up model: band {index!r} twice")
             seen.add(index)
             bands.append(Band(index, float(rate), count))
-        return cls(tuple(bands))
+        dead, dead_count = raw.get("dead_time_s"), raw.get("dead_count", 0)
+        if dead is not None and (
+            not isinstance(dead, int | float) or isinstance(dead, bool)
+            or not 0.0 <= dead <= MAX_DEAD_S
+        ):
+            raise ValueError(f"warm-up model: dead time {dead!r} out of range")
+        if not isinstance(dead_count, int) or isinstance(dead_count, bool) or dead_count < 0:
+            raise ValueError(f"warm-up model: dead_count {dead_count!r} is not a count")
+        return cls(tuple(bands), None if dead is None else float(dead), dead_count)
 
 
 def band_index(outdoor_c: float) -> int:
@@ -278,6 +323,11 @@ class WarmUp:
     target_c: float
     outdoor_c: float | None
     level: str
+    low_c: float
+    """The lowest temperature since the start."""
+    rose_at: float | None = None
+    """When the room had risen DEAD_RISE_K above ``low_c``: the end of the dead time."""
+    rose_c: float | None = None
 
 
 @dataclass(frozen=True, slots=True)
@@ -402,7 +452,10 @@ def _decide(
     if temperature is None:
         return replace(idle, reason="no reliable temperature: no early start")
     gap = target_c - REACHED_K - temperature
-    need = lead_s(gap, rate, settings.dead_time_s)
+    dead = state.model.dead_time_or(settings.dead_time_s)
+    need = lead_s(gap, rate, dead)
+    if need > 0.0:
+        need += settings.settle_s
     idle = replace(idle, lead_s=need)
     if need <= 0.0:
         return replace(idle, reason=f"within {REACHED_K:g} K of the {target_level} set point")
@@ -411,7 +464,8 @@ def _decide(
         return replace(idle, reason=f"early start due {(need / 60):.0f} min before the switch")
     reason = (
         f"{gap:.1f} K to the {target_level} set point at {rate:.2f} K/h ({source}) "
-        f"+ {settings.dead_time_s / 60:.0f} min dead time: {need / 60:.0f} min before the switch"
+        f"+ {dead / 60:.0f} min dead time + {settings.settle_s / 60:.0f} min to settle: "
+        f"{need / 60:.0f} min before the switch"
     )
     if capped:
         reason += f", capped at the earliest start {settings.earliest_s / 60:.0f} min"
@@ -435,11 +489,13 @@ def _measure(
         if inputs.mode != "auto" or level != warm_up.level:
             warm_up = None  # a command or a cooler level interrupted it: nothing to learn
         elif temperature is not None and temperature >= warm_up.target_c - REACHED_K:
-            return _finished(settings, state, warm_up, temperature, now)
+            return _finished(state, warm_up, temperature, now)
         elif now - warm_up.started_at >= MAX_RECOVERY_S:
             if temperature is not None:
-                return _finished(settings, state, warm_up, temperature, now)
+                return _finished(state, warm_up, temperature, now)
             warm_up = None
+        elif temperature is not None:
+            warm_up = _tracked(warm_up, temperature, now)
         return replace(state, warm_up=warm_up)
     previous = state.last_level
     got_warmer = (
@@ -453,20 +509,39 @@ def _measure(
         and temperature is not None
         and target_c - REACHED_K - temperature >= MIN_RISE_K
     ):
-        warm_up = WarmUp(now, temperature, target_c, inputs.outdoor_c, level)
+        warm_up = WarmUp(now, temperature, target_c, inputs.outdoor_c, level, temperature)
     return replace(state, warm_up=warm_up)
 
 
+def _tracked(warm_up: WarmUp, temperature: float, now: float) -> WarmUp:
+    """Follow the dead time: the lowest temperature, then the first clear rise above it."""
+    if warm_up.rose_at is not None:
+        return warm_up
+    if temperature < warm_up.low_c:
+        return replace(warm_up, low_c=temperature)
+    if temperature >= warm_up.low_c + DEAD_RISE_K - 1e-9:
+        return replace(warm_up, rose_at=now, rose_c=temperature)
+    return warm_up
+
+
 def _finished(
-    settings: OptimumStartSettings,
-    state: OptimumStartState,
-    warm_up: WarmUp,
-    temperature: float,
-    now: float,
+    state: OptimumStartState, warm_up: WarmUp, temperature: float, now: float
 ) -> OptimumStartState:
-    rise = min(temperature, warm_up.target_c - REACHED_K) - warm_up.start_c
-    heating_s = now - warm_up.started_at - settings.dead_time_s
-    if rise < MIN_RISE_K or heating_s <= 0.0:
+    end_c = min(temperature, warm_up.target_c - REACHED_K)
+    if end_c - warm_up.start_c < MIN_RISE_K:
+        return replace(state, warm_up=None)
+    if warm_up.rose_at is None or warm_up.rose_c is None:
+        # reached in one step from the dead time: the whole rise over the whole time
+        rose_at, rose_c = now, warm_up.low_c
+        dead = now - warm_up.started_at
+        heating_s = dead
+        rise = end_c - warm_up.low_c
+    else:
+        rose_at, rose_c = warm_up.rose_at, warm_up.rose_c
+        dead = rose_at - warm_up.started_at
+        heating_s = now - rose_at
+        rise = end_c - rose_c
+    if heating_s <= 0.0 or rise <= 0.0:
         return replace(state, warm_up=None)
     rate = rise / (heating_s / 3600.0)
     if not MIN_RATE_K_PER_H <= rate <= MAX_RATE_K_PER_H:
@@ -474,6 +549,6 @@ def _finished(
     return replace(
         state,
         warm_up=None,
-        model=state.model.learned(rate, warm_up.outdoor_c),
+        model=state.model.learned(rate, warm_up.outdoor_c, dead),
         last_rate_k_per_h=rate,
     )
