@@ -94,7 +94,10 @@ class Morning:
     outdoor_c: float
     early_min: float | None = None
     capped: bool = False
-    reason: str = ""
+    start_c: float | None = None
+    """The sensor's reading when the early start began (the gap it had to close)."""
+    reached_min: float | None = None
+    """Minutes before the switch the room first came within 0.5 K (None: not before it)."""
 
 
 @dataclass(slots=True)
@@ -157,6 +160,8 @@ def run_mornings(
     next_score = DAY + SWITCH_HOUR * HOUR
     early_since: float | None = None
     capped = False
+    start_c: float | None = None
+    reached_at: float | None = None
     began = time.perf_counter()
     for k in range(ticks):
         t = start_s + k * tick_s
@@ -166,6 +171,8 @@ def run_mornings(
         level, _ = planner.at(now, mode=state.mode, temperature=temperature, outdoor=outdoor)
         decision = planner.decision
         if decision is not None and decision.early:
+            if early_since is None:
+                start_c = temperature
             early_since = decision.since
             capped = "capped" in decision.reason
         if t >= next_score:
@@ -177,11 +184,19 @@ def run_mornings(
                     outdoor_c=outdoor,
                     early_min=None if early_since is None else (switch_at - early_since) / 60.0,
                     capped=capped,
+                    start_c=start_c,
+                    reached_min=None if reached_at is None else (switch_at - reached_at) / 60.0,
                 )
             )
             early_since = None
+            start_c = None
             capped = False
             next_score += DAY
+        morning = next_score - 4 * HOUR <= t < next_score
+        if morning and reached_at is None and sim.room_c >= COMFORT_C - WITHIN_K:
+            reached_at = now
+        elif not morning:
+            reached_at = None
         reading = sim.read_sensor()
         inputs = ZoneInputs(
             samples=(PointSample("temperature", reading, now),), scheduled_level=level
@@ -213,15 +228,23 @@ def verdict(opt: Run, fixed: Run) -> tuple[bool, bool, str]:
         late = [m for m in opt.mornings if m.room_c < COMFORT_C - WITHIN_K]
         high = [m for m in opt.mornings if m.room_c > COMFORT_C + WITHIN_K]
         late_capped = [m for m in late if m.capped]
+        dipped = [m for m in late if not m.capped and m.reached_min is not None]
+        if dipped:
+            reasons.append(
+                f"{len(dipped)} morning(s) below 19.5 C at the switch after the room had been "
+                "within 0.5 K before it (a dip of the room's own cycling after the warm-up, "
+                "not a late start)"
+            )
         if late_capped:
             reasons.append(
                 f"{len(late_capped)} morning(s) late with the early start capped at the "
                 "earliest start (the plant cannot warm up that far in 3 h)"
             )
-        if len(late) > len(late_capped):
+        slow = len(late) - len(late_capped) - len(dipped)
+        if slow:
             reasons.append(
-                f"{len(late) - len(late_capped)} morning(s) late below the cap (the learned "
-                "rate was too high for that morning)"
+                f"{slow} morning(s) late below the cap (the learned rate was too high for "
+                "that morning)"
             )
         if high:
             reasons.append(f"{len(high)} morning(s) above 20.5 C at the switch (overshoot)")
@@ -274,9 +297,12 @@ def main(argv: Sequence[str] | None = None) -> int:
         if args.mornings:
             for m in opt.mornings:
                 lead = "-" if m.early_min is None else f"{m.early_min:.0f}"
+                start = "-" if m.start_c is None else f"{m.start_c:.1f}"
+                reached = "-" if m.reached_min is None else f"{m.reached_min:.0f}"
                 details.append(
                     f"    day {m.day:>2}: room {m.room_c:6.2f} C at 07:00, outdoor "
-                    f"{m.outdoor_c:5.1f} C, early start {lead} min{' (capped)' if m.capped else ''}"
+                    f"{m.outdoor_c:5.1f} C, early start {lead} min from {start} C"
+                    f"{' (capped)' if m.capped else ''}, within 0.5 K {reached} min before"
                 )
     print("\n".join(details))
     print("all targets met" if all_met else "some targets missed (reasons above)")

@@ -41,7 +41,9 @@ SETPOINTS = (("comfort", 20.0), ("standby", 18.0), ("economy", 17.0), ("protecti
 TARGET_C = 20.0 - REACHED_K
 
 
-def _room(t_on: float | None, t: float, t0: float, t_inf: float, tau: float, dead: float) -> float:
+def _room(
+    t_on: float | None, t: float, *, t0: float, t_inf: float, tau: float, dead: float
+) -> float:
     """The closed-form room temperature at ``t`` for heating switched on at ``t_on``."""
     if t_on is None or t - t_on < dead:
         return t0
@@ -70,7 +72,7 @@ def _morning(
             scheduled_level="economy" if before else "comfort",
             next_switch_at=switch if before else switch + 15 * 3600.0,
             next_level="comfort" if before else "economy",
-            temperature_c=_room(t_on, t, t0, t_inf, tau, dead),
+            temperature_c=_room(t_on, t, t0=t0, t_inf=t_inf, tau=tau, dead=dead),
             outdoor_c=outdoor,
         )
         state, decision = plan(cfg, state, inputs, t)

@@ -187,8 +187,13 @@ def test_model_bands_interpolate_and_fall_back() -> None:
     assert model.rate_at(0.0, 9.0)[0] == pytest.approx(2.0)
     assert model.rate_at(2.5, 9.0)[0] == pytest.approx(1.0 + 2.0 * (10.0 / 15.0))
     assert model.rate_at(20.0, 9.0)[0] == pytest.approx(3.0)  # warmer than any: nearest
-    # colder than any learned band: never faster than the nearest or the overall mean
-    assert model.rate_at(-20.0, 9.0)[0] == pytest.approx(1.0)
+    # colder than any learned band: the line goes on, down to half the slowest band
+    assert model.rate_at(-11.0, 9.0)[0] == pytest.approx(1.0 - 3.5 * 2.0 / 15.0)
+    assert model.rate_at(-20.0, 9.0)[0] == pytest.approx(0.5)
+    # a line that falls as it gets warmer is noise: the nearest band, never faster when colder
+    falling = WarmUpModel().learned(3.0, -7.0).learned(1.0, 8.0)
+    assert falling.rate_at(2.5, 9.0)[0] == pytest.approx(1.0)
+    assert falling.rate_at(-20.0, 9.0)[0] == pytest.approx(2.0)  # min(band 3.0, overall 2.0)
     assert model.rate_at(None, 9.0)[0] == pytest.approx(2.0)  # overall mean of both
     assert WarmUpModel().rate_at(0.0, 1.7) == (1.7, "initial value of the heating type")
 

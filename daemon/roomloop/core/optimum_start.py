@@ -210,24 +210,15 @@ class WarmUpModel:
             own = by_index.get(key)
             if own is not None:
                 return own.rate_k_per_h, f"learned from {own.count} warm-up(s) at {_band_text(key)}"
-            below = [k for k in by_index if k < key]
-            above = [k for k in by_index if k > key]
-            if below and above:
-                lo, hi = by_index[max(below)], by_index[min(above)]
-                assert lo.index is not None and hi.index is not None
-                x = (outdoor_c / BAND_K - 0.5 - lo.index) / (hi.index - lo.index)
-                x = min(max(x, 0.0), 1.0)
-                rate = lo.rate_k_per_h + (hi.rate_k_per_h - lo.rate_k_per_h) * x
-                return rate, (
-                    f"interpolated between warm-ups at {_band_text(lo.index)} "
-                    f"and {_band_text(hi.index)}"
-                )
-            near = by_index[max(below)] if below else by_index[min(above)]
-            assert near.index is not None
+            fitted = _fit(tuple(by_index.values()), outdoor_c)
+            if fitted is not None:
+                return fitted, f"fitted to {len(by_index)} outdoor bands of learned warm-ups"
+            near = min(by_index.values(), key=lambda b: abs(_centre(b) - outdoor_c))
             rate = near.rate_k_per_h
-            if above and not below:
-                # colder than anything learned: the warm-up is slower there, never assume faster
-                rate = min(rate, overall.rate_k_per_h if overall is not None else rate)
+            if outdoor_c < _centre(near) and overall is not None:
+                # colder than the band: the warm-up is slower there, never assume faster
+                rate = min(rate, overall.rate_k_per_h)
+            assert near.index is not None
             return rate, f"nearest learned band {_band_text(near.index)}"
         if overall is not None:
             return overall.rate_k_per_h, f"learned from {overall.count} warm-up(s)"
@@ -292,6 +283,35 @@ class WarmUpModel:
         if not isinstance(dead_count, int) or isinstance(dead_count, bool) or dead_count < 0:
             raise ValueError(f"warm-up model: dead_count {dead_count!r} is not a count")
         return cls(tuple(bands), None if dead is None else float(dead), dead_count)
+
+
+def _centre(band: Band) -> float:
+    assert band.index is not None
+    return (band.index + 0.5) * BAND_K
+
+
+def _fit(bands: tuple[Band, ...], outdoor_c: float) -> float | None:
+    """The rate at ``outdoor_c`` from a straight line through the bands' rates (least squares,
+    weighted by their warm-up counts), or None with fewer than two bands or a line that falls
+    as it gets warmer outdoors (the heater's spare output grows with the outdoor temperature,
+    so the rate must not fall: such a line is noise). Clamped to the learned rates' range."""
+    if len(bands) < 2:
+        return None
+    weights = [float(b.count) for b in bands]
+    xs = [_centre(b) for b in bands]
+    ys = [b.rate_k_per_h for b in bands]
+    total = sum(weights)
+    mx = sum(w * x for w, x in zip(weights, xs, strict=True)) / total
+    my = sum(w * y for w, y in zip(weights, ys, strict=True)) / total
+    sxx = sum(w * (x - mx) ** 2 for w, x in zip(weights, xs, strict=True))
+    sxy = sum(w * (x - mx) * (y - my) for w, x, y in zip(weights, xs, ys, strict=True))
+    if sxx <= 0.0:
+        return None
+    slope = sxy / sxx
+    if slope < 0.0:
+        return None
+    rate = my + slope * (outdoor_c - mx)
+    return min(max(rate, MIN_RATE_K_PER_H, min(ys) / OUTLIER_FACTOR), max(ys))
 
 
 def band_index(outdoor_c: float) -> int:
