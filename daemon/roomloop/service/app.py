@@ -58,8 +58,9 @@ from roomloop.service.clock import Clock, RealClock
 from roomloop.service.commands import Command, CommandHandler
 from roomloop.service.events import zone_events
 from roomloop.service.notify import Progress, notify, watchdog_interval_s
+from roomloop.service.optimum_start import OptimumStartProgram, outdoor_value
 from roomloop.service.persist import StateStore
-from roomloop.service.program import ProgramCursor, Switch
+from roomloop.service.program import Switch
 from roomloop.service.publisher import (
     OFFLINE,
     ONLINE,
@@ -124,7 +125,8 @@ class ZoneRuntime:
         self.decided = False
         self.wake = asyncio.Event()
         self.steps = 0
-        self.program = ProgramCursor(zone.program, tz, zone.default_level, calendar)
+        # optimum start: the program cursor wrapped (same answer while optimum start is off)
+        self.program = OptimumStartProgram.for_zone(zone, settings, tz, calendar)
 
     @property
     def name(self) -> str:
@@ -453,7 +455,10 @@ class Service:
         backup_name = zone.fail_safe.backup_point
         while True:
             now = self.clock.now()
-            level, next_change = runtime.program.at(now)
+            level, next_change = runtime.program.at(  # optimum start: the level to use now
+                now, mode=runtime.state.mode, outdoor=self._outdoor(now),
+                temperature=None if runtime.outputs is None else runtime.outputs.temperature,
+            )
             inputs = ZoneInputs(
                 samples=self._samples(zone.inputs, now),
                 scheduled_level=level,
@@ -476,6 +481,16 @@ class Service:
             self.progress.beat(name)
             runtime.wake.clear()
             await self._sleep_or_wake(zone.tick_s, runtime.wake)
+
+    def _outdoor(self, now: float) -> float | None:
+        """Optimum start: the site's outdoor temperature if its point reads good, else None."""
+        name = self.site.site.outdoor_point
+        if name is None:
+            return None
+        point = self.site.point(name)  # an input: config checks refuse anything else
+        if not isinstance(point, ModbusInput | MqttInput):
+            return None
+        return outdoor_value(self._samples([name], now)[0], now, point.reliability.stale_after_s)
 
     async def _sleep_or_wake(self, seconds: float, wake: asyncio.Event) -> None:
         if wake.is_set():
