@@ -246,3 +246,38 @@ def test_band_record_is_frozen() -> None:
     band = Band(0, 1.0, 1)
     with pytest.raises(AttributeError):
         band.count = 2  # type: ignore[misc]
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    steps=st.lists(
+        st.tuples(
+            st.floats(1.0, 1800.0),  # tick length
+            st.floats(5.0, 25.0),  # zone temperature
+            st.sampled_from(("auto", "auto", "auto", "hold", "off")),
+            st.one_of(st.none(), st.floats(-20.0, 20.0)),  # outdoor
+        ),
+        min_size=1,
+        max_size=60,
+    ),
+    earliest=st.floats(0.0, 5 * 3600.0),
+    rate=st.floats(MIN_RATE_K_PER_H, MAX_RATE_K_PER_H),
+)
+def test_sequences_keep_the_promises(
+    steps: list[tuple[float, float, str, float | None]], earliest: float, rate: float
+) -> None:
+    """Along any run of ticks toward a switch (any tick lengths, temperatures, modes), every
+    early decision lies inside the earliest start, in mode auto, toward the warmer level."""
+    cfg = _settings(earliest_s=earliest, initial_rate_k_per_h=rate)
+    state = OptimumStartState()
+    t = SWITCH - 8 * 3600.0
+    for dt_s, temperature, mode, outdoor in steps:
+        t += dt_s
+        if t >= SWITCH:
+            break
+        state, decision = plan(cfg, state, _inputs(temperature, mode=mode, outdoor=outdoor), t)
+        if decision.early:
+            assert mode == "auto" and decision.level == "comfort"
+            assert decision.since is not None and SWITCH - earliest <= decision.since <= t
+        else:
+            assert decision.level == "economy"
