@@ -80,11 +80,14 @@ HEATING_DEFAULTS: dict[str, HeatingDefaults] = {
     # really does in a 17 -> 20 C recovery at outdoor -5..10 C (measured by simulation with
     # tests/bench/optimum_start.py's plants), so that the first mornings start early rather
     # than late; dead times about the plant's transport delay plus its emitter's first rise.
-    # Settle margins: a light room on a fast air heater dips for about half an hour after a
-    # warm-up while its cold mass takes heat (seen on the built-in forced-air plant), so it
-    # aims to be warm that much before the switch; an electric convector a few minutes.
-    # Common practice, no source: the published method learns the rate, it gives no start value.
-    "forced-air": HeatingDefaults(3.0, 300.0, 1800.0),
+    # Settle margins: the air of a light room on a fast air heater is warm within half an hour,
+    # but its cycles dip below the set point for another hour or two while the cold building
+    # mass takes heat (time constant about 3 h on the built-in forced-air plant), so it aims to
+    # be warm 2 h before the switch (tests/bench/optimum_start.py: 30 min left a third of the
+    # mornings 0.5 K low at the switch, 2 h none of twelve, for 1 % more energy); an electric
+    # convector 10 min. Common practice, no source: the published method learns the rate and
+    # gives no start values.
+    "forced-air": HeatingDefaults(3.0, 300.0, 7200.0),
     "electric": HeatingDefaults(3.0, 180.0, 600.0),
     "hydronic": HeatingDefaults(1.5, 900.0),
     "underfloor": HeatingDefaults(0.4, 2700.0),
