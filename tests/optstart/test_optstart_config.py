@@ -15,7 +15,7 @@ from roomloop.core.optimum_start import HEATING_DEFAULTS, WarmUpModel
 from roomloop.core.settings import ZoneSettings
 from roomloop.core.types import PointSample
 from roomloop.errors import ConfigError
-from roomloop.service.optimum_start import OptimumStartProgram, outdoor_value
+from roomloop.service.optimum_start import OptimumStartProgram, outdoor_value, published
 
 SITE = """\
 site:
@@ -128,3 +128,21 @@ def test_outdoor_value_is_taken_only_when_good_and_fresh() -> None:
     assert outdoor_value(PointSample("yard", None, None, "comm-failure"), now, 120.0) is None
     assert outdoor_value(PointSample("yard", 80.0, 990.0, "over-range"), now, 120.0) is None
     assert outdoor_value(None, now, 120.0) is None
+
+
+def test_published_fields(tmp_path: Path) -> None:
+    """What the zone's state JSON carries as ``early_start``: local ISO times, the site's units."""
+    site = _site(tmp_path, optimum="    optimum_start: {enabled: true}")
+    vienna = ZoneInfo("Europe/Vienna")
+    settings = ZoneSettings.from_site(site, "room")
+    program = OptimumStartProgram.for_zone(site.zones[0], settings, vienna)
+    assert published(None, vienna) is None
+    seven = dt.datetime(2026, 1, 5, 7, 0, tzinfo=vienna).timestamp()
+    program.at(seven - 3600.0, mode="auto", temperature=17.0)
+    fields = published(program.decision, vienna, "F")
+    assert fields is not None
+    assert fields["active"] is True and fields["level"] == "comfort"
+    assert fields["since"] == "2026-01-05T06:00:00+01:00"
+    assert fields["switch_at"] == "2026-01-05T07:00:00+01:00"
+    assert fields["rate_per_h"] == pytest.approx(1.5 * 9.0 / 5.0)  # hydronic's initial 1.5 K/h
+    assert "capped" not in fields["reason"] and "K/h" in fields["reason"]

@@ -15,7 +15,9 @@ model is :attr:`model` (a frozen record with ``to_json``/``from_json``) for the 
 
 from __future__ import annotations
 
+import datetime as dt
 from collections.abc import Sequence
+from typing import Any
 from zoneinfo import ZoneInfo
 
 from roomloop.config.models import CalendarEntry, Level, Zone
@@ -58,6 +60,34 @@ def outdoor_value(sample: PointSample | None, now: float, stale_after_s: float) 
     if sample.transport != "ok" or now - sample.received_at > stale_after_s:
         return None
     return sample.value
+
+
+def published(
+    decision: OptimumStartDecision | None, tz: ZoneInfo, units: str = "C"
+) -> dict[str, Any] | None:
+    """The ``early_start`` object of a zone's state JSON (None while optimum start is off):
+    whether an early start runs, since when, for which switch and why, and the warm-up rate
+    the plan uses (K/h, or F degrees per hour on an F site)."""
+    if decision is None:
+        return None
+
+    def when(posix: float | None) -> str | None:
+        if posix is None:
+            return None
+        return dt.datetime.fromtimestamp(posix, tz).isoformat(timespec="seconds")
+
+    rate = decision.rate_k_per_h
+    if rate is not None and units == "F":
+        rate *= 9.0 / 5.0
+    return {
+        "active": decision.early,
+        "since": when(decision.since),
+        "switch_at": when(decision.switch_at),
+        "level": decision.level,
+        "reason": decision.reason,
+        "rate_per_h": None if rate is None else round(rate, 3),
+        "rate_source": decision.rate_source,
+    }
 
 
 class OptimumStartProgram:
