@@ -281,3 +281,14 @@ def test_sequences_keep_the_promises(
             assert decision.since is not None and SWITCH - earliest <= decision.since <= t
         else:
             assert decision.level == "economy"
+
+
+def test_a_jump_to_the_set_point_teaches_nothing() -> None:
+    """A reading that jumps from 17 to 20 in one tick (a sensor swapped, a probe in the sun) is no
+    warm-up: there was no first 0.2 K rise to end a dead time."""
+    cfg = _settings(enabled=False)
+    state, _ = plan(cfg, OptimumStartState(), _inputs(17.0, level="economy"), 0.0)
+    state, _ = plan(cfg, state, _inputs(17.0, level="comfort", switch_at=1e9), 10.0)
+    state, _ = plan(cfg, state, _inputs(17.1, level="comfort", switch_at=1e9), 600.0)
+    state, _ = plan(cfg, state, _inputs(20.0, level="comfort", switch_at=1e9), 610.0)
+    assert state.warm_up is None and state.model == WarmUpModel()

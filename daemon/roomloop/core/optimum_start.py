@@ -554,16 +554,11 @@ def _finished(
     if end_c - warm_up.start_c < MIN_RISE_K:
         return replace(state, warm_up=None)
     if warm_up.rose_at is None or warm_up.rose_c is None:
-        # reached in one step from the dead time: the whole rise over the whole time
-        rose_at, rose_c = now, warm_up.low_c
-        dead = now - warm_up.started_at
-        heating_s = dead
-        rise = end_c - warm_up.low_c
-    else:
-        rose_at, rose_c = warm_up.rose_at, warm_up.rose_c
-        dead = rose_at - warm_up.started_at
-        heating_s = now - rose_at
-        rise = end_c - rose_c
+        # the whole rise in one step, without a first 0.2 K: a sensor jump, not a warm-up
+        return replace(state, warm_up=None)
+    dead = warm_up.rose_at - warm_up.started_at
+    heating_s = now - warm_up.rose_at
+    rise = end_c - warm_up.rose_c
     if heating_s <= 0.0 or rise <= 0.0:
         return replace(state, warm_up=None)
     rate = rise / (heating_s / 3600.0)
