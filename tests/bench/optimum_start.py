@@ -102,6 +102,8 @@ class Morning:
     """The sensor's reading when the early start began (the gap it had to close)."""
     reached_min: float | None = None
     """Minutes before the switch the room first came within 0.5 K (None: not before it)."""
+    swing_k: float = 0.0
+    """Half the room's range over the 2 h after the switch: its own cycling at comfort."""
 
 
 @dataclass(slots=True)
@@ -166,6 +168,7 @@ def run_mornings(
     capped = False
     start_c: float | None = None
     reached_at: float | None = None
+    after: list[float] = []
     began = time.perf_counter()
     for k in range(ticks):
         t = start_s + k * tick_s
@@ -179,6 +182,11 @@ def run_mornings(
                 start_c = temperature
             early_since = decision.since
             capped = "capped" in decision.reason
+        if run.mornings and next_score - DAY <= t < next_score - DAY + 2 * HOUR:
+            after.append(sim.room_c)
+        elif after:
+            run.mornings[-1].swing_k = (max(after) - min(after)) / 2.0
+            after = []
         if t >= next_score:
             switch_at = EPOCH + next_score
             run.mornings.append(
@@ -234,10 +242,11 @@ def verdict(opt: Run, fixed: Run) -> tuple[bool, bool, str]:
         late_capped = [m for m in late if m.capped]
         dipped = [m for m in late if not m.capped and m.reached_min is not None]
         if dipped:
+            swing = sorted(m.swing_k for m in opt.mornings)[len(opt.mornings) // 2]
             reasons.append(
                 f"{len(dipped)} morning(s) below 19.5 C at the switch after the room had been "
-                "within 0.5 K before it (a dip of the room's own cycling after the warm-up, "
-                "not a late start)"
+                "within 0.5 K before it (a dip of the room's own cycling, not a late start: "
+                f"its median swing in the 2 h after the switch is +-{swing:.2f} K)"
             )
         if late_capped:
             reasons.append(
