@@ -76,10 +76,11 @@ class HeatingDefaults:
 
 
 HEATING_DEFAULTS: dict[str, HeatingDefaults] = {
-    # Initial rates: on the slow side of what the type's built-in plant (roomloop/plant/builtin)
-    # really does in a 17 -> 20 C recovery at outdoor -5..10 C (measured by simulation with
-    # tests/bench/optimum_start.py's plants), so that the first mornings start early rather
-    # than late; dead times about the plant's transport delay plus its emitter's first rise.
+    # Initial rates: at or below the slowest the type's built-in plant (roomloop/plant/builtin)
+    # learned in tests/bench/optimum_start.py's month (17 -> 20 C at outdoor -10..10 C:
+    # forced-air 2.6-4.1 K/h, electric 1.8-2.1, hydronic 1.6-2.2, underfloor 0.33-0.58, steam
+    # 1.7-5.9), so that the first mornings start early rather than late; dead times about the
+    # plant's transport delay plus its emitter's first rise.
     # Settle margins: the air of a light room on a fast air heater is warm within half an hour,
     # but its cycles dip below the set point for another hour or two while the cold building
     # mass takes heat (time constant about 3 h on the built-in forced-air plant), so it aims to
@@ -87,8 +88,8 @@ HEATING_DEFAULTS: dict[str, HeatingDefaults] = {
     # mornings 0.5 K low at the switch, 2 h none of twelve, for 1 % more energy); an electric
     # convector 10 min. Common practice, no source: the published method learns the rate and
     # gives no start values.
-    "forced-air": HeatingDefaults(3.0, 300.0, 7200.0),
-    "electric": HeatingDefaults(3.0, 180.0, 600.0),
+    "forced-air": HeatingDefaults(2.0, 300.0, 7200.0),
+    "electric": HeatingDefaults(1.5, 180.0, 600.0),
     "hydronic": HeatingDefaults(1.5, 900.0),
     "underfloor": HeatingDefaults(0.4, 2700.0),
     "steam": HeatingDefaults(1.0, 1500.0),
