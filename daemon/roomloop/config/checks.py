@@ -103,6 +103,7 @@ def check_parts(parts: SiteParts) -> list[Finding]:
     findings += _zone_references(parts)
     findings += _bms_face(parts)
     findings += _point_topics(parts)
+    findings += _outdoor_point(parts)
     for index, zone in parts.zones:
         findings += _setpoints(index, zone, parts.units)
         findings += _tuning(index, zone, parts.units)
@@ -165,6 +166,24 @@ def _one_based_registers(parts: SiteParts) -> list[Finding]:
             )
         )
     return findings
+
+
+def _outdoor_point(parts: SiteParts) -> list[Finding]:
+    """The site's outdoor point exists and is an input (a relay gives no temperature)."""
+    if parts.site is None or parts.site.outdoor_point is None:
+        return []
+    name = parts.site.outdoor_point
+    if name in parts.invalid_names.get("points", set()):
+        return []
+    where: KeyPath = ("site", "outdoor_point")
+    for _, point in parts.points:
+        if point.name == name:
+            if isinstance(point, ModbusOutput | MqttOutput):
+                return [Finding(where, f"point {name!r} is an output; name an input point")]
+            return []
+    inputs = (p.name for _, p in parts.points if isinstance(p, ModbusInput | MqttInput))
+    known = ", ".join(sorted(inputs))
+    return [Finding(where, f"unknown point {name!r} (input points: {known or 'none'})")]
 
 
 # --------------------------------------------------------------------------- formatting

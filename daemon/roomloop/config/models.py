@@ -242,6 +242,9 @@ class SiteInfo(Strict):
     units: Literal["C", "F"] = "C"
     timezone: str = "UTC"
     state_dir: str = "/var/lib/roomloop"
+    outdoor_point: Name | None = None
+    """An input point giving the outdoor temperature (optional): optimum start learns each
+    zone's warm-up rate as a function of it."""
 
     @field_validator("timezone")
     @classmethod
@@ -835,6 +838,24 @@ class CalendarEntry(Strict):
         return self.zones is None or zone in self.zones
 
 
+class OptimumStart(Strict):
+    """Optimum start: in mode ``auto``, heat early before a program switch to a warmer level
+    so that the room reaches the new set point at the switch, by a learned warm-up rate."""
+
+    enabled: bool = False
+    earliest_s: Annotated[float, Field(ge=0, le=86400, allow_inf_nan=False)] = 10800.0
+    """The early start never begins more than this before the switch (3 h: the usual
+    maximum of an optimal start, ASHRAE Guideline 36 [recalled from memory])."""
+    initial_rate_k_per_h: Annotated[float, Field(ge=0.05, le=30, allow_inf_nan=False)] | None = (
+        None
+    )
+    """The warm-up rate (K/h) used until the zone has learned its own; left out: the heating
+    type's value."""
+    dead_time_s: Annotated[float, Field(ge=0, le=14400, allow_inf_nan=False)] | None = None
+    """Time from the start of heating until the room starts to warm; left out: the heating
+    type's value."""
+
+
 class Zone(Strict):
     """A controlled space: inputs, one output, a heating type, set points, tuning, fail-safe."""
 
@@ -857,6 +878,7 @@ class Zone(Strict):
     tick_s: Annotated[Float, Field(ge=1, le=300)] = 10.0
     safe_state: Literal["off", "on"] = "off"
     """The output's state at start, at stop and when roomloop cannot decide."""
+    optimum_start: OptimumStart = OptimumStart()
 
     _tuning: Tuning | None = PrivateAttr(default=None)
     _origins: dict[str, str] = PrivateAttr(default_factory=dict)

@@ -125,6 +125,11 @@ class Service:
         self.runner = ZoneRunner(
             self.clock, self.zones, sources, self.outputs, self.progress, units=self.units
         )
+        outdoor = site.site.outdoor_point
+        if outdoor is not None:
+            point = site.point(outdoor)  # an input: the config checks refuse anything else
+            if isinstance(point, ModbusInput | MqttInput):
+                self.runner.outdoor_point = (outdoor, point.reliability.stale_after_s)
         self.supervisor = Supervisor(self.clock, on_failure=self._task_failed)
         self.restarts = self.supervisor.restarts
         """Restarts per task name (tests and status)."""

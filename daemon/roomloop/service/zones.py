@@ -28,7 +28,8 @@ from roomloop.core.types import PointSample, ZoneInputs, ZoneOutputs
 from roomloop.io.ports import InputSource
 from roomloop.service.events import zone_events
 from roomloop.service.notify import Progress
-from roomloop.service.program import ProgramCursor, Switch
+from roomloop.service.optimum_start import OptimumStartProgram, outdoor_value
+from roomloop.service.program import Switch
 
 log = structlog.get_logger("roomloop.service")
 
@@ -78,7 +79,8 @@ class ZoneRuntime:
         self.decided = False
         self.wake = asyncio.Event()
         self.steps = 0
-        self.program = ProgramCursor(zone.program, tz, zone.default_level, calendar)
+        # the program cursor wrapped by optimum start (the same answer while it is off)
+        self.program = OptimumStartProgram.for_zone(zone, settings, tz, calendar)
 
     @property
     def name(self) -> str:
@@ -140,6 +142,16 @@ class ZoneRunner:
             runtime.decided = False
             self.outputs.hold_safe(runtime.zone.output)
 
+    outdoor_point: tuple[str, float] | None = None
+    """The site's outdoor point and its ``stale_after_s`` (optimum start), if it has one."""
+
+    def _outdoor(self, now: float) -> float | None:
+        """The site's outdoor temperature if its point reads good, else None."""
+        if self.outdoor_point is None:
+            return None
+        name, stale_after_s = self.outdoor_point
+        return outdoor_value(self.samples([name], now)[0], now, stale_after_s)
+
     def samples(self, names: Sequence[str], now: float) -> tuple[PointSample, ...]:
         """The zone's samples by point name (``comm-failure`` for one no source has)."""
         cache: dict[int, dict[str, PointSample]] = {}
@@ -164,7 +176,10 @@ class ZoneRunner:
         backup_name = zone.fail_safe.backup_point
         while True:
             now = self.clock.now()
-            level, next_change = runtime.program.at(now)
+            level, next_change = runtime.program.at(  # optimum start: the level to use now
+                now, mode=runtime.state.mode, outdoor=self._outdoor(now),
+                temperature=None if runtime.outputs is None else runtime.outputs.temperature,
+            )
             inputs = ZoneInputs(
                 samples=self.samples(zone.inputs, now),
                 scheduled_level=level,
