@@ -1,4 +1,4 @@
-"""The zone state: JSON round trip from any point of a run, bounded size, fast builders."""
+"""The zone state: JSON round trip from any point of a run, bounded size, fast constructors."""
 
 from __future__ import annotations
 
@@ -8,8 +8,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from roomloop.core import ZoneController, ZoneOutputs, ZoneState
-from roomloop.core.fastbuild import positional_builder
+from roomloop.core import ZoneController, ZoneOutputs, ZoneState, records
 from roomloop.core.state import PointState
 
 from .helpers import run
@@ -42,11 +41,22 @@ def test_state_stays_bounded_over_days() -> None:
     assert len(state.to_json()) < 4000
 
 
-def test_fast_builders_equal_the_dataclass_init() -> None:
+def test_fast_constructors_equal_the_dataclass_init() -> None:
     point = PointState("t", "ok", "ok", 20.0, 1.0, 1.0, 20.0, 3.0, 0.0, False)
-    assert positional_builder(PointState)(*dataclasses.astuple(point)) == point
+    assert records.point_state(**_fields(point)) == point
     out = ZoneOutputs(True, "cut-in", 19.0, 20.0, "comfort", "auto", 0.1, 0.2, {"t": "ok"})
-    values = [getattr(out, f.name) for f in dataclasses.fields(out)]
-    assert positional_builder(ZoneOutputs)(*values) == out
+    assert records.zone_outputs(**_fields(out)) == out
+    trace = run(ZoneController(zone_settings()), lambda now, on: 19.0 + now / 3600.0,
+                end=7200.0, tick=60.0)
+    state = trace[-1][2]
+    built = records.zone_state(**_fields(state))
+    assert built == state and built is not state
+    assert dataclasses.replace(built, mode="off").mode == "off"
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        built.mode = "off"  # type: ignore[misc]
     with pytest.raises(TypeError):
-        positional_builder(dict)
+        records.slot_setters(dict)
+
+
+def _fields(obj: object) -> dict[str, object]:
+    return {f.name: getattr(obj, f.name) for f in dataclasses.fields(obj)}  # type: ignore[arg-type]
