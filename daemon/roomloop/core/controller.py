@@ -196,8 +196,7 @@ class ZoneController:
             s, state, good_at, good_since, now
         )
         recovering, edge = recovery.track(k.half_k, state, target, temperature, left_fail_safe)
-        if edge is not None and k.smoothing_s > 0.0:
-            assert temperature is not None
+        if edge is not None and temperature is not None and k.smoothing_s > 0.0:
             smoothed = smoothing.from_edge(k.smoothing_s, state, temperature, edge, dt)
         forced, deep = protection.judge(
             k, state, mode, temperature if temperature is not None else backup_value
@@ -218,27 +217,21 @@ class ZoneController:
         if want != was_on and relay.short_cycle_may_hold(rule, deep):
             on, held, reason = short_cycle.hold(s, state, want, reason, now)
 
-        # ordinary control: what regulation, droop and the learned duty may learn from
+        # ordinary control: what regulation and droop may learn from
         ordinary = (
             temperature is not None and not fail_safe and not held and not forced and not mode_off
         )
-        cycle_clean = state.cycle_clean and ordinary and recovering == 0
-        tau_scale = state.tau_scale
-        switches = state.switches
-        switched_at = state.switched_at
+        cycling = ordinary and recovering == 0
+        tau_scale, cycle_clean = state.tau_scale, state.cycle_clean and cycling
+        switched_at, switches = state.switched_at, state.switches
         if on != was_on:
             if on:
-                cut_in = reason == "cut-in"
-                if cut_in:
-                    tau_scale = regulation.at_switch_on(
-                        k, state, now, clean=cycle_clean, at_default_level=level == k.default_level
-                    )
-                cycle_clean = ordinary and recovering == 0 and cut_in
-            switched_at = now
-            switches = short_cycle.logged(switches, now, on)
+                tau_scale, cycle_clean = regulation.at_switch_on(
+                    k, state, now, ordinary=cycling, reason=reason, level=level
+                )
+            switched_at, switches = now, short_cycle.logged(switches, now, on)
             recovering = recovery.ended_by_switch(recovering, reason)
-        if ordinary and recovering == 0:
-            assert temperature is not None
+        if ordinary and recovering == 0 and temperature is not None:
             b = droop.integrated(s, b, target, temperature, dt)
         duty = failsafe.learn(state, on_s, dt, now, k.learn_s)
         figures_1h = figures.last_hour(switches, on, state.started_at, now)

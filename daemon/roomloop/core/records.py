@@ -31,9 +31,17 @@ def slot_setters(cls: type) -> tuple[Setter, ...]:
 
 
 _new = object.__new__
-_POINT = slot_setters(PointState)
-_STATE = slot_setters(ZoneState)
-_OUTPUTS = slot_setters(ZoneOutputs)
+(_P_NAME, _P_RELIABILITY, _P_VERDICT, _P_VALUE, _P_VALUE_AT, _P_SEEN_AT, _P_STILL_VALUE,
+ _P_STILL_ON_S, _P_GOOD_SINCE, _P_FAULTED) = slot_setters(PointState)
+(_S_MODE, _S_HOLD_SETPOINT, _S_HOLD_LEVEL, _S_HOLD_UNTIL, _S_LEVEL_OVERRIDE, _S_SCHEDULED_LEVEL,
+ _S_ANTICIPATOR_K, _S_DROOP_K, _S_TAU_SCALE, _S_CYCLE_CLEAN, _S_RELAY_ON, _S_SWITCHED_AT,
+ _S_PROTECTION_RUN, _S_SWITCHES, _S_STARTED_AT, _S_LAST_STEP_AT, _S_LAST_SETPOINT, _S_RECOVERING,
+ _S_TEMPERATURE, _S_GOOD_AT, _S_GOOD_SINCE, _S_NORMAL, _S_FAIL_SAFE, _S_FAIL_SAFE_SINCE,
+ _S_FAIL_SAFE_DUTY, _S_FAIL_SAFE_REASON, _S_DUTY_BUCKETS, _S_DUTY_CURRENT, _S_POINTS, _S_BACKUP,
+ _S_SMOOTHED_C) = slot_setters(ZoneState)
+(_O_DEMAND, _O_REASON, _O_TEMPERATURE, _O_SETPOINT, _O_LEVEL, _O_MODE, _O_ANTICIPATOR_K,
+ _O_DROOP_K, _O_RELIABILITY, _O_FAIL_SAFE, _O_FAIL_SAFE_POLICY, _O_FAIL_SAFE_REASON,
+ _O_ON_FRACTION_1H, _O_CYCLES_1H) = slot_setters(ZoneOutputs)
 
 
 # PointState's groups
@@ -51,19 +59,17 @@ def point_state(
     name: str, judgement: Judgement, accepted: Accepted, stillness: Stillness, trust: Trust
 ) -> PointState:
     """A :class:`PointState` from its field groups."""
-    (s_name, s_reliability, s_verdict, s_value, s_value_at, s_seen_at, s_still_value,
-     s_still_on_s, s_good_since, s_faulted) = _POINT
     obj = _new(PointState)
-    s_name(obj, name)
-    s_reliability(obj, judgement[0])
-    s_verdict(obj, judgement[1])
-    s_value(obj, accepted[0])
-    s_value_at(obj, accepted[1])
-    s_seen_at(obj, accepted[2])
-    s_still_value(obj, stillness[0])
-    s_still_on_s(obj, stillness[1])
-    s_good_since(obj, trust[0])
-    s_faulted(obj, trust[1])
+    _P_NAME(obj, name)
+    _P_RELIABILITY(obj, judgement[0])
+    _P_VERDICT(obj, judgement[1])
+    _P_VALUE(obj, accepted[0])
+    _P_VALUE_AT(obj, accepted[1])
+    _P_SEEN_AT(obj, accepted[2])
+    _P_STILL_VALUE(obj, stillness[0])
+    _P_STILL_ON_S(obj, stillness[1])
+    _P_GOOD_SINCE(obj, trust[0])
+    _P_FAULTED(obj, trust[1])
     return obj
 
 
@@ -97,44 +103,38 @@ def zone_state(  # noqa: PLR0917 - one argument per section of the record
     points: PointFields,
 ) -> ZoneState:
     """A :class:`ZoneState` from its sections, each in field order."""
-    (s_mode, s_hold_setpoint, s_hold_level, s_hold_until, s_level_override, s_scheduled_level,
-     s_anticipator_k, s_droop_k, s_tau_scale, s_cycle_clean, s_relay_on, s_switched_at,
-     s_protection_run, s_switches, s_started_at, s_last_step_at, s_last_setpoint, s_recovering,
-     s_temperature, s_good_at, s_good_since, s_normal, s_fail_safe, s_fail_safe_since,
-     s_fail_safe_duty, s_fail_safe_reason, s_duty_buckets, s_duty_current, s_points, s_backup,
-     s_smoothed_c) = _STATE
     obj = _new(ZoneState)
-    s_mode(obj, commands[0])
-    s_hold_setpoint(obj, commands[1])
-    s_hold_level(obj, commands[2])
-    s_hold_until(obj, commands[3])
-    s_level_override(obj, commands[4])
-    s_scheduled_level(obj, commands[5])
-    s_anticipator_k(obj, terms[0])
-    s_droop_k(obj, terms[1])
-    s_tau_scale(obj, terms[2])
-    s_cycle_clean(obj, terms[3])
-    s_relay_on(obj, relay[0])
-    s_switched_at(obj, relay[1])
-    s_protection_run(obj, relay[2])
-    s_switches(obj, relay[3])
-    s_started_at(obj, times[0])
-    s_last_step_at(obj, times[1])
-    s_last_setpoint(obj, times[2])
-    s_recovering(obj, times[3])
-    s_temperature(obj, temperature[0])
-    s_good_at(obj, temperature[1])
-    s_good_since(obj, temperature[2])
-    s_normal(obj, temperature[3])
-    s_fail_safe(obj, fail_safe[0])
-    s_fail_safe_since(obj, fail_safe[1])
-    s_fail_safe_duty(obj, fail_safe[2])
-    s_fail_safe_reason(obj, fail_safe[3])
-    s_duty_buckets(obj, duty[0])
-    s_duty_current(obj, duty[1])
-    s_points(obj, points[0])
-    s_backup(obj, points[1])
-    s_smoothed_c(obj, points[2])
+    _S_MODE(obj, commands[0])
+    _S_HOLD_SETPOINT(obj, commands[1])
+    _S_HOLD_LEVEL(obj, commands[2])
+    _S_HOLD_UNTIL(obj, commands[3])
+    _S_LEVEL_OVERRIDE(obj, commands[4])
+    _S_SCHEDULED_LEVEL(obj, commands[5])
+    _S_ANTICIPATOR_K(obj, terms[0])
+    _S_DROOP_K(obj, terms[1])
+    _S_TAU_SCALE(obj, terms[2])
+    _S_CYCLE_CLEAN(obj, terms[3])
+    _S_RELAY_ON(obj, relay[0])
+    _S_SWITCHED_AT(obj, relay[1])
+    _S_PROTECTION_RUN(obj, relay[2])
+    _S_SWITCHES(obj, relay[3])
+    _S_STARTED_AT(obj, times[0])
+    _S_LAST_STEP_AT(obj, times[1])
+    _S_LAST_SETPOINT(obj, times[2])
+    _S_RECOVERING(obj, times[3])
+    _S_TEMPERATURE(obj, temperature[0])
+    _S_GOOD_AT(obj, temperature[1])
+    _S_GOOD_SINCE(obj, temperature[2])
+    _S_NORMAL(obj, temperature[3])
+    _S_FAIL_SAFE(obj, fail_safe[0])
+    _S_FAIL_SAFE_SINCE(obj, fail_safe[1])
+    _S_FAIL_SAFE_DUTY(obj, fail_safe[2])
+    _S_FAIL_SAFE_REASON(obj, fail_safe[3])
+    _S_DUTY_BUCKETS(obj, duty[0])
+    _S_DUTY_CURRENT(obj, duty[1])
+    _S_POINTS(obj, points[0])
+    _S_BACKUP(obj, points[1])
+    _S_SMOOTHED_C(obj, points[2])
     return obj
 
 
@@ -157,22 +157,19 @@ def zone_outputs(
     figures: Figures,
 ) -> ZoneOutputs:
     """A :class:`ZoneOutputs` from its groups, each in field order."""
-    (s_demand, s_reason, s_temperature, s_setpoint, s_level, s_mode, s_anticipator_k, s_droop_k,
-     s_reliability, s_fail_safe, s_fail_safe_policy, s_fail_safe_reason, s_on_fraction_1h,
-     s_cycles_1h) = _OUTPUTS
     obj = _new(ZoneOutputs)
-    s_demand(obj, decision[0])
-    s_reason(obj, decision[1])
-    s_temperature(obj, shown[0])
-    s_setpoint(obj, shown[1])
-    s_level(obj, shown[2])
-    s_mode(obj, shown[3])
-    s_anticipator_k(obj, shown[4])
-    s_droop_k(obj, shown[5])
-    s_reliability(obj, reliability)
-    s_fail_safe(obj, fail_safe[0])
-    s_fail_safe_policy(obj, fail_safe[1])
-    s_fail_safe_reason(obj, fail_safe[2])
-    s_on_fraction_1h(obj, figures[0])
-    s_cycles_1h(obj, figures[1])
+    _O_DEMAND(obj, decision[0])
+    _O_REASON(obj, decision[1])
+    _O_TEMPERATURE(obj, shown[0])
+    _O_SETPOINT(obj, shown[1])
+    _O_LEVEL(obj, shown[2])
+    _O_MODE(obj, shown[3])
+    _O_ANTICIPATOR_K(obj, shown[4])
+    _O_DROOP_K(obj, shown[5])
+    _O_RELIABILITY(obj, reliability)
+    _O_FAIL_SAFE(obj, fail_safe[0])
+    _O_FAIL_SAFE_POLICY(obj, fail_safe[1])
+    _O_FAIL_SAFE_REASON(obj, fail_safe[2])
+    _O_ON_FRACTION_1H(obj, figures[0])
+    _O_CYCLES_1H(obj, figures[1])
     return obj

@@ -49,7 +49,7 @@ def reading_verdict(cfg: PointSettings, value: float | None, transport: Transpor
     return "ok"
 
 
-def evaluate_point(
+def evaluate_point(  # noqa: PLR0912, PLR0915 - the verdicts in their order; per point per tick
     cfg: PointSettings,
     st: PointState,
     sample: PointSample | None,

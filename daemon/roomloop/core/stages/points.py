@@ -10,7 +10,7 @@ first trusted point in the configured order).
 from __future__ import annotations
 
 from ..reliability import evaluate_point
-from ..settings import ZoneSettings
+from ..settings import PointSettings, ZoneSettings
 from ..state import PointState, ZoneState
 from ..types import PointSample, Reliability, ZoneInputs
 
@@ -40,11 +40,14 @@ def judge(
     """
     samples = inputs.samples
     old = state.points
+    cfgs = s.inputs
+    if len(cfgs) == 1 and s.backup is None:
+        return _judge_one(cfgs[0], old, samples, now, relay_on_s)
     n_old = len(old)
     points: list[PointState] = []
     values: list[float] = []
     reliability: dict[str, Reliability] = {}
-    for i, cfg in enumerate(s.inputs):
+    for i, cfg in enumerate(cfgs):
         name = cfg.name
         memory = old[i] if i < n_old else None
         sample = None
@@ -79,6 +82,26 @@ def judge(
         if backup.reliability == "ok":
             backup_value = backup.value
     return tuple(points), reliability, combine(s.combine, values), backup, backup_value
+
+
+def _judge_one(
+    cfg: PointSettings,
+    old: tuple[PointState, ...],
+    samples: tuple[PointSample, ...],
+    now: float,
+    relay_on_s: float,
+) -> Judged:
+    """:func:`judge` for the common zone: one input point, no backup point."""
+    name = cfg.name
+    memory = old[0] if old and old[0].name == name else PointState(name)
+    if samples and samples[0].name == name:
+        sample: PointSample | None = samples[0]
+    else:
+        sample = sample_named(samples, name)
+    point = evaluate_point(cfg, memory, sample, now, relay_on_s)
+    reliability = point.reliability
+    temperature = point.value if reliability == "ok" else None
+    return (point,), {name: reliability}, temperature, None, None
 
 
 def combine(rule: str, values: list[float]) -> float | None:

@@ -26,14 +26,7 @@ def track(
     recovering = state.recovering
     last_setpoint = state.last_setpoint
     if last_setpoint is None or setpoint != last_setpoint or restart:
-        ref = temperature if temperature is not None else state.temperature
-        if ref is None:
-            return (1 if last_setpoint is None or setpoint > last_setpoint else -1), None
-        if ref < setpoint - half_k:
-            return 1, None
-        if ref > setpoint + half_k:
-            return -1, None
-        return 0, None
+        return started(half_k, last_setpoint, setpoint, temperature, state.temperature), None
     if recovering == 0 or temperature is None:
         return recovering, None
     if recovering > 0 and temperature >= setpoint - half_k:
@@ -41,6 +34,24 @@ def track(
     if recovering < 0 and temperature <= setpoint + half_k:
         return 0, setpoint + half_k
     return recovering, None
+
+
+def started(
+    half_k: float,
+    last_setpoint: float | None,
+    setpoint: float,
+    temperature: float | None,
+    last_temperature: float | None,
+) -> int:
+    """The recovery a (new) set point starts, judged on ``T`` (or the last trusted one)."""
+    ref = temperature if temperature is not None else last_temperature
+    if ref is None:
+        return 1 if last_setpoint is None or setpoint > last_setpoint else -1
+    if ref < setpoint - half_k:
+        return 1
+    if ref > setpoint + half_k:
+        return -1
+    return 0
 
 
 def ended_by_switch(recovering: int, reason: Reason) -> int:

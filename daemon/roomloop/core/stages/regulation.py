@@ -21,6 +21,7 @@ from __future__ import annotations
 from typing import TYPE_CHECKING
 
 from ..state import ZoneState
+from ..types import Reason
 from .short_cycle import HOUR_S, ons_since
 
 if TYPE_CHECKING:
@@ -33,26 +34,31 @@ GUARD_CPH = 1.0
 
 
 def at_switch_on(
-    k: LawConstants, state: ZoneState, now: float, *, clean: bool, at_default_level: bool
-) -> float:
-    """The time-constant scale at a switch-on by the band (``cut-in``) at ``now``.
+    k: LawConstants, state: ZoneState, now: float, *, ordinary: bool, reason: Reason, level: str
+) -> tuple[float, bool]:
+    """(time-constant scale, the new cycle is ordinary so far) at a switch-on at ``now``.
 
-    ``clean``: the cycle that ends here was ordinary control throughout (and this tick
-    too); only such a cycle, at the zone's default level, adjusts the scale.
+    ``ordinary``: this tick was ordinary control (no recovery, protection, fail-safe or
+    short-cycle hold). A cycle runs from one band switch-on (``cut-in``) to the next; one
+    that was ordinary throughout, at the zone's default level, adjusts the scale.
     """
+    cut_in = reason == "cut-in"
     switches = state.switches
     if (
-        clean
+        cut_in
+        and ordinary
+        and state.cycle_clean
         and k.regulate
-        and at_default_level
+        and level == k.default_level
         and len(switches) >= 2
         and not switches[-1][1]
         and switches[-2][1]
     ):
-        return regulated(
+        scale = regulated(
             k, state.tau_scale, now - switches[-2][0], ons_since(switches, now - HOUR_S) + 1
         )
-    return state.tau_scale
+        return scale, True
+    return state.tau_scale, ordinary and cut_in
 
 
 def regulated(k: LawConstants, scale: float, period: float, ons_in_hour: int = 0) -> float:
