@@ -18,9 +18,11 @@ CORE_MODULES = (
     "roomloop.core.controller",
     "roomloop.core.commands",
     "roomloop.core.failsafe",
+    "roomloop.core.records",
     "roomloop.core.reliability",
     "roomloop.core.settings",
     "roomloop.core.sizing",
+    "roomloop.core.stages.constants",
     "roomloop.core.state",
     "roomloop.core.types",
 )

@@ -15,6 +15,8 @@ import pytest
 
 from roomloop.core import ZoneController, ZoneState
 from roomloop.core.settings import SettingsError
+from roomloop.core.stages.constants import LawConstants
+from roomloop.core.stages.regulation import regulated
 from roomloop.core.state import StateFormatError
 
 from .helpers import FAST_POINT, FirstOrderPlant, run, sample, settings
@@ -151,13 +153,13 @@ def test_regulation_adapts_only_at_the_default_level() -> None:
 
 
 def test_regulation_never_shortens_the_time_constant_past_the_rate_plus_one() -> None:
-    controller = ZoneController(settings())  # forced-air: 5 cph, cycle 720 s
+    law = LawConstants.of(settings())  # forced-air: 5 cph, cycle 720 s
     # a slow cycle (900 s against 720 s) asks for a shorter time constant
     slow = 900.0
-    assert controller._regulated(1.0, slow, ons_in_hour=5) < 1.0
-    assert controller._regulated(1.0, slow, ons_in_hour=6) == 1.0
+    assert regulated(law, 1.0, slow, ons_in_hour=5) < 1.0
+    assert regulated(law, 1.0, slow, ons_in_hour=6) == 1.0
     # lengthening is always allowed (it lowers the rate)
-    assert controller._regulated(1.0, 500.0, ons_in_hour=6) > 1.0
+    assert regulated(law, 1.0, 500.0, ons_in_hour=6) > 1.0
 
 
 def test_state_with_and_without_the_smoothed_temperature_loads() -> None:

@@ -1,4 +1,4 @@
-"""The zone state: JSON round trip from any point of a run, bounded size, fast builders."""
+"""The zone state: JSON round trip from any point of a run, bounded size, fast constructors."""
 
 from __future__ import annotations
 
@@ -8,8 +8,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from roomloop.core import ZoneController, ZoneOutputs, ZoneState
-from roomloop.core.fastbuild import positional_builder
+from roomloop.core import ZoneController, ZoneOutputs, ZoneState, records
 from roomloop.core.state import PointState
 
 from .helpers import run
@@ -42,11 +41,34 @@ def test_state_stays_bounded_over_days() -> None:
     assert len(state.to_json()) < 4000
 
 
-def test_fast_builders_equal_the_dataclass_init() -> None:
+def test_fast_constructors_equal_the_dataclass_init() -> None:
     point = PointState("t", "ok", "ok", 20.0, 1.0, 1.0, 20.0, 3.0, 0.0, False)
-    assert positional_builder(PointState)(*dataclasses.astuple(point)) == point
+    name, *rest = _sections(point, (1, 2, 3, 2, 2))
+    assert records.point_state(name[0], *rest) == point  # type: ignore[arg-type]
     out = ZoneOutputs(True, "cut-in", 19.0, 20.0, "comfort", "auto", 0.1, 0.2, {"t": "ok"})
-    values = [getattr(out, f.name) for f in dataclasses.fields(out)]
-    assert positional_builder(ZoneOutputs)(*values) == out
+    decision, shown, reliability, fail_safe, figures = _sections(out, (2, 6, 1, 3, 2))
+    built_out = records.zone_outputs(
+        decision, shown, reliability[0], fail_safe, figures  # type: ignore[arg-type]
+    )
+    assert built_out == out
+    trace = run(ZoneController(zone_settings()), lambda now, on: 19.0 + now / 3600.0,
+                end=7200.0, tick=60.0)
+    state = trace[-1][2]
+    built = records.zone_state(*_sections(state, (6, 4, 4, 4, 4, 4, 2, 3)))  # type: ignore[arg-type]
+    assert built == state and built is not state
+    assert dataclasses.replace(built, mode="off").mode == "off"
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        built.mode = "off"  # type: ignore[misc]
     with pytest.raises(TypeError):
-        positional_builder(dict)
+        records.slot_setters(dict)
+
+
+def _sections(obj: object, sizes: tuple[int, ...]) -> list[tuple[object, ...]]:
+    """The record's field values in order, cut into sections of ``sizes``."""
+    values = [getattr(obj, f.name) for f in dataclasses.fields(obj)]  # type: ignore[arg-type]
+    assert sum(sizes) == len(values)
+    out, start = [], 0
+    for size in sizes:
+        out.append(tuple(values[start : start + size]))
+        start += size
+    return out

@@ -30,6 +30,8 @@ from roomloop.config.models import (
     MqttOutput,
     Site,
 )
+from roomloop.core.reliability import reading_verdict
+from roomloop.core.settings import PointSettings
 from roomloop.errors import BrokerError
 from roomloop.io.codec import order_name
 from roomloop.log import configure_logging
@@ -140,7 +142,9 @@ async def _probe_modbus(
             value = reading.decoded.value
             shown = "none" if value is None else temperature_text(value, units)
             print(f"value        {shown}", file=out)
-            verdict = reading.decoded.transport
+            verdict = reading_verdict(
+                PointSettings.from_point(point), value, reading.decoded.transport
+            )
             note = f" ({reading.decoded.detail})" if reading.decoded.detail else ""
             print(f"reliability  {verdict}{note}", file=out)
             return EXIT_OK
@@ -237,7 +241,10 @@ async def _probe_mqtt(
                     else temperature_text(sample.value, site.site.units)
                 )
                 print(f"value        {shown}", file=out)
-                print(f"reliability  {sample.transport}", file=out)
+                verdict = reading_verdict(
+                    PointSettings.from_point(point), sample.value, sample.transport
+                )
+                print(f"reliability  {verdict}", file=out)
                 return EXIT_OK
             return await _probe_mqtt_output(client, points, point, want, out)
     except aiomqtt.MqttError as exc:

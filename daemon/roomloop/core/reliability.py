@@ -1,13 +1,16 @@
 """Point reliability: may this reading be used to control the zone?
 
 Pure functions over :class:`~roomloop.core.state.PointState`; the vocabulary is
-BACnet's reliability property (ASHRAE 135, REFERENCES.md). A reading is judged
-once (when its ``received_at`` is new); its verdict is, in order:
+BACnet's reliability property (ASHRAE 135, REFERENCES.md). This is the only place
+that judges a reading: the I/O layer and the simulator deliver transport facts only
+(:class:`~roomloop.core.types.PointSample`). A reading's verdict is, in order:
 
 1. the I/O layer's transport verdict (``comm-failure``, or ``over-range`` /
    ``under-range`` when it saw a configured raw sentinel);
-2. ``stale`` when the reading is older than ``stale_after_s`` (judged every tick);
-3. ``under-range`` / ``over-range`` against the point's valid range;
+2. ``under-range`` / ``over-range`` against the point's valid range (a value outside
+   it is never used, however fresh or old);
+3. ``stale`` when the reading is older than ``stale_after_s`` (judged every tick);
+   a reading judged before (the same ``received_at``) keeps its verdict;
 4. ``implausible`` when it moved away from the last accepted reading faster than
    ``max_rate_k_per_min`` (a probe's power-on 85.0 C is the classic case,
    REFERENCES.md). The rate is taken against the last *accepted* reading over
@@ -26,15 +29,27 @@ faulted, so start-up needs no recovery time.
 
 from __future__ import annotations
 
-from .fastbuild import positional_builder
+from .records import point_state as _new_point
 from .settings import PointSettings
 from .state import PointState
-from .types import PointSample, Reliability
-
-_new_point = positional_builder(PointState)
+from .types import PointSample, Reliability, Transport
 
 
-def evaluate_point(
+def reading_verdict(cfg: PointSettings, value: float | None, transport: Transport) -> Reliability:
+    """What one reading says on its own: the transport verdict, else the range (``probe``
+    shows it; :func:`evaluate_point` adds staleness, rate, stuck and recovery over time)."""
+    if transport != "ok":
+        return transport
+    if value is None:
+        return "stale"
+    if value < cfg.valid_low_c:
+        return "under-range"
+    if value > cfg.valid_high_c:
+        return "over-range"
+    return "ok"
+
+
+def evaluate_point(  # noqa: PLR0912, PLR0915 - the verdicts in their order; per point per tick
     cfg: PointSettings,
     st: PointState,
     sample: PointSample | None,
@@ -53,12 +68,20 @@ def evaluate_point(
         verdict = transport if transport != "ok" else "stale"
         if verdict == "stale" and value is None and not st.faulted:
             # Nothing delivered yet since start: not a fault.
-            return _new_point(cfg.name, "stale", "stale", None, None, None, None, 0.0, None, False)
+            return _new_point(
+                cfg.name, ("stale", "stale"), (None, None, None), (None, 0.0), (None, False)
+            )
     else:
         received_at = sample.received_at
         reading = sample.value
         if sample.transport != "ok":
             verdict = sample.transport
+            seen_at = received_at
+        elif reading < cfg.valid_low_c:
+            verdict = "under-range"
+            seen_at = received_at
+        elif reading > cfg.valid_high_c:
+            verdict = "over-range"
             seen_at = received_at
         elif now - received_at > cfg.stale_after_s:
             verdict = "stale"
@@ -71,11 +94,7 @@ def evaluate_point(
                 verdict = "stuck" if still_on_s >= cfg.stuck_after_s else "ok"
         else:
             seen_at = received_at
-            if reading < cfg.valid_low_c:
-                verdict = "under-range"
-            elif reading > cfg.valid_high_c:
-                verdict = "over-range"
-            elif (
+            if (
                 value is not None
                 and value_at is not None
                 and abs(reading - value) * 60.0
@@ -102,9 +121,10 @@ def evaluate_point(
         else:
             reliability = "ok"
         return _new_point(
-            cfg.name, reliability, "ok", value, value_at, seen_at,
-            still_value, still_on_s, good_since, faulted,
+            cfg.name, (reliability, "ok"), (value, value_at, seen_at), (still_value, still_on_s),
+            (good_since, faulted),
         )
     return _new_point(
-        cfg.name, verdict, verdict, value, value_at, seen_at, still_value, still_on_s, None, True
+        cfg.name, (verdict, verdict), (value, value_at, seen_at), (still_value, still_on_s),
+        (None, True),
     )

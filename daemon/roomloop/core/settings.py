@@ -127,6 +127,11 @@ class ZoneSettings:
     tick_s: float = 10.0
 
     def __post_init__(self) -> None:
+        problems = [*self._name_problems(), *self._number_problems()]
+        if problems:
+            raise SettingsError(f"zone {self.name!r}: " + "; ".join(problems))
+
+    def _name_problems(self) -> list[str]:
         problems: list[str] = []
         if not self.inputs:
             problems.append("a zone needs at least one input point")
@@ -138,6 +143,10 @@ class ZoneSettings:
             problems.append(f"mode {self.initial_mode!r} is unknown")
         if self.default_level not in LEVEL_NAMES:
             problems.append(f"level {self.default_level!r} is unknown")
+        return problems
+
+    def _number_problems(self) -> list[str]:
+        problems: list[str] = []
         positive = {
             "differential_k": self.differential_k,
             "anticipator_time_constant_s": self.anticipator_time_constant_s,
@@ -161,8 +170,7 @@ class ZoneSettings:
             problems.append("limit_min_c must not exceed limit_max_c")
         if not 0.0 <= self.min_duty <= self.max_duty <= 1.0:
             problems.append("need 0 <= min_duty <= max_duty <= 1")
-        if problems:
-            raise SettingsError(f"zone {self.name!r}: " + "; ".join(problems))
+        return problems
 
     def setpoint_for(self, level: str) -> float:
         """The configured set point of a level (not clamped)."""

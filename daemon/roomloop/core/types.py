@@ -20,22 +20,50 @@ RELIABILITY_VALUES: tuple[Reliability, ...] = (
     "ok", "stale", "comm-failure", "over-range", "under-range", "implausible", "stuck",
 )
 
+Transport = Literal["ok", "comm-failure", "over-range", "under-range"]
+"""What the I/O layer may say of a reading: ``ok`` (a value arrived), ``comm-failure`` (no
+answer, an undecodable reply, a bad payload), or the verdict a device itself signalled with
+a raw sentinel value (or an infinite float, which carries no value either). Range,
+staleness, rate and stuck are the core's judgement (:mod:`roomloop.core.reliability`)."""
+
+
+BandReason = Literal["cut-in", "cut-out", "on-to-cut-out", "off-to-cut-in"]
+"""The switching band decided: it switched the relay on (``cut-in``) or off (``cut-out``), or
+holds it where it is until the other edge (``on-to-cut-out``, ``off-to-cut-in``)."""
+
+Reason = Literal[
+    "cut-in", "cut-out", "on-to-cut-out", "off-to-cut-in",
+    "last-temperature:cut-in", "last-temperature:cut-out",
+    "last-temperature:on-to-cut-out", "last-temperature:off-to-cut-in",
+    "min-on", "min-off", "max-cycles",
+    "protection", "mode-off", "no-temperature",
+    "fail-safe:off", "fail-safe:fixed-duty", "fail-safe:learned-duty",
+]
+"""The rule that decided roomloop's relay this tick (published as the state's ``reason``):
+the band (:data:`BandReason`), the same on the last trusted temperature while readings are
+missing (``last-temperature:``), short-cycle protection holding the relay (``min-on``,
+``min-off``, ``max-cycles``), ``protection``, ``mode-off``, ``no-temperature`` (never had a
+reading), or fail-safe with its policy."""
+
+BaselineReason = Literal["hold", "anticipator-cut-out", "pulse", "pause"]
+"""Further reasons of the simulator's baseline controllers (:mod:`roomloop.plant.baselines`)."""
+
 
 @dataclass(frozen=True, slots=True)
 class PointSample:
-    """The latest reading of one input point as the I/O layer delivered it.
+    """The latest reading of one input point as the I/O layer delivered it: transport facts only.
 
-    ``value`` is in Celsius (already decoded, scaled and converted) or ``None``
-    when the last attempt failed. ``received_at`` is when ``value`` arrived (POSIX
-    seconds), so the core can judge staleness itself. ``transport`` is what the
-    I/O layer knows: ``ok``, ``comm-failure``, or a range/sentinel verdict it
-    made from the raw value (``over-range``, ``under-range``).
+    ``value`` is in Celsius (decoded, scaled and converted, never judged against a
+    range) or ``None`` when the last attempt brought no number. ``received_at`` is
+    when the attempt ended (POSIX seconds; ``None``: nothing yet), so the core
+    judges staleness itself. ``raw`` is the number as the device sent it, for logs.
     """
 
     name: str
     value: float | None
     received_at: float | None
-    transport: Reliability = "ok"
+    transport: Transport = "ok"
+    raw: float | None = None
 
 
 @dataclass(frozen=True, slots=True)
@@ -43,10 +71,12 @@ class ZoneInputs:
     """Everything the zone step needs besides its state and the time."""
 
     samples: tuple[PointSample, ...]
-    """One per configured input point, in the zone's configured order."""
+    """The zone's input points' samples, matched to its configured points by name (order and
+    extra samples do not matter; a configured point without a sample has no reading)."""
     scheduled_level: Literal["comfort", "standby", "economy", "protection"] = "comfort"
     """The level the weekly program picks now (the service evaluates the program)."""
     backup: PointSample | None = None
+    """The backup point's sample (also matched by name; it may be in ``samples`` instead)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -54,8 +84,8 @@ class ZoneOutputs:
     """The decision of one tick and everything the published state shows."""
 
     demand: bool
-    reason: str
-    """Which rule decided, e.g. ``cut-out``, ``min-on``, ``protection``, ``fail-safe:off``."""
+    reason: Reason | BaselineReason
+    """Which rule decided (:data:`Reason`), e.g. ``cut-out``, ``min-on``, ``fail-safe:off``."""
     temperature: float | None
     setpoint: float
     level: str

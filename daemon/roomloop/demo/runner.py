@@ -205,7 +205,7 @@ def status_row(zone: str, room_c: float, report: TickReport | None) -> str:
     o = report.outputs
     sensor = "--" if o.temperature is None else f"{o.temperature:.1f}"
     relay = "ON" if o.demand else "off"
-    reason = o.reason
+    reason: str = o.reason
     if o.fail_safe:
         reason = f"FAIL-SAFE {reason}"
     return (

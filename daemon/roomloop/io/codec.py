@@ -1,4 +1,4 @@
-"""Register decoding: Modbus registers to a Celsius value and a verdict, and back.
+"""Register decoding: Modbus registers to a Celsius value and the transport facts, and back.
 
 Pure functions, no pymodbus: the planner, the links, ``probe``, the demo's plant
 server and the tests all share one definition of what a register pair means.
@@ -27,7 +27,7 @@ from dataclasses import dataclass
 from typing import Literal
 
 from roomloop.config.models import DATA_TYPE_REGISTERS, ModbusInput
-from roomloop.core.types import Reliability
+from roomloop.core.types import Transport
 
 DataType = Literal["int16", "uint16", "int32", "uint32", "float32"]
 Order = Literal["big", "little"]
@@ -41,15 +41,16 @@ class CodecError(ValueError):
 
 @dataclass(frozen=True, slots=True)
 class Decoded:
-    """What one point's registers mean.
+    """What one point's registers mean, before any judgement of the value.
 
-    ``value`` is Celsius, or ``None`` when there is no usable reading (a sentinel,
-    NaN). A range verdict keeps the value so commissioning can show it; the core
-    must honour ``transport`` and not use it. ``detail`` says why, for the log.
+    ``value`` is Celsius, or ``None`` when the registers hold no number (a sentinel,
+    NaN, infinity); ``transport`` is ``ok`` whenever there is a value, even one far
+    outside the valid range: the core judges range (:mod:`roomloop.core.reliability`).
+    ``detail`` says why there is no value, for the log.
     """
 
     value: float | None
-    transport: Reliability
+    transport: Transport
     raw: int | float
     detail: str | None = None
 
@@ -131,16 +132,6 @@ def from_celsius(value: float, unit: Literal["C", "F"]) -> float:
     return value * 9.0 / 5.0 + 32.0 if unit == "F" else value
 
 
-def range_verdict(celsius: float, valid_range: tuple[float, float]) -> Reliability:
-    """``ok`` inside ``valid_range`` (inclusive), else ``under-range`` or ``over-range``."""
-    low, high = valid_range
-    if celsius < low:
-        return "under-range"
-    if celsius > high:
-        return "over-range"
-    return "ok"
-
-
 def matched_sentinel(registers: Sequence[int], point: ModbusInput) -> int | None:
     """The configured 'no reading' value the raw registers match, or None.
 
@@ -167,13 +158,13 @@ def is_sentinel(registers: Sequence[int], point: ModbusInput) -> bool:
 
 
 def decode_point(point: ModbusInput, registers: Sequence[int]) -> Decoded:
-    """Decode one input point's registers into Celsius and a verdict; never raises for bad data.
+    """Decode one input point's registers into Celsius and a transport verdict; never raises.
 
-    Verdicts: a sentinel gives no value and the verdict configured for it, or
-    else ``over-range`` or ``under-range`` by which half of the valid range its
-    scaled value falls in (0x7FFF above, 0x8000/0x8001 below); NaN gives no value
-    and ``comm-failure``; +-inf gives no value and over/under-range; a finite
-    value outside ``valid_range`` keeps the value with the range verdict.
+    A sentinel gives no value and the verdict configured for it, or else ``over-range``
+    or ``under-range`` by which half of the valid range its scaled value falls in (0x7FFF
+    above, 0x8000/0x8001 below); NaN gives no value and ``comm-failure``; +-inf (or a value
+    that overflows when scaled) gives no value and over/under-range. Any finite value is
+    ``ok``, whatever its range: that judgement is the core's.
     """
     try:
         raw = decode_raw(registers, point.data_type, point.word_order, point.byte_order)
@@ -182,7 +173,7 @@ def decode_point(point: ModbusInput, registers: Sequence[int]) -> Decoded:
     sentinel = matched_sentinel(registers, point)
     if sentinel is not None:
         configured = point.sentinel_verdict(sentinel)
-        verdict: Reliability
+        verdict: Transport
         if configured is not None:
             verdict = configured
         else:
@@ -199,9 +190,7 @@ def decode_point(point: ModbusInput, registers: Sequence[int]) -> Decoded:
     celsius = to_celsius(raw * point.scale + point.offset, point.unit)
     if not math.isfinite(celsius):
         return Decoded(None, "over-range" if celsius > 0 else "under-range", raw, "overflows")
-    verdict = range_verdict(celsius, point.valid_range)
-    detail = None if verdict == "ok" else f"{celsius:.2f} C outside {point.valid_range}"
-    return Decoded(celsius, verdict, raw, detail)
+    return Decoded(celsius, "ok", raw)
 
 
 def encode_point(point: ModbusInput, celsius: float) -> list[int]:

@@ -31,7 +31,7 @@ from roomloop.errors import DeviceError
 from roomloop.io.codec import Decoded, decode_point
 from roomloop.io.eventlog import RateLimitedLog, get_logger
 from roomloop.io.planner import Read, plan_reads
-from roomloop.io.ports import OutputState, aged
+from roomloop.io.ports import OutputState
 
 log = get_logger("modbus")
 
@@ -344,11 +344,8 @@ class ModbusLink:
         return tuple(self.inputs)
 
     def samples(self, now: float) -> dict[str, PointSample]:
-        """Latest sample per input point; ``ok`` older than ``stale_after_s`` becomes ``stale``."""
-        return {
-            name: aged(sample, self.inputs[name].reliability.stale_after_s, now)
-            for name, sample in self._samples.items()
-        }
+        """Latest sample per input point, as it arrived (the core judges its age)."""
+        return dict(self._samples)
 
     async def poll(self) -> list[PointSample]:
         """One cycle: every planned read once; returns the new sample of every input point.
@@ -391,7 +388,9 @@ class ModbusLink:
                 regs = registers[part.offset : part.offset + part.count]
                 decoded = decode_point(part.point, regs)
                 self._note_decoded(part.point, regs, decoded, now)
-                fresh.append(PointSample(part.point.name, decoded.value, now, decoded.transport))
+                fresh.append(
+                    PointSample(part.point.name, decoded.value, now, decoded.transport, decoded.raw)
+                )
         for sample in fresh:
             self._samples[sample.name] = sample
         return fresh

@@ -8,9 +8,10 @@ when it is lost, and calls :meth:`MqttPoints.tick` now and then so read-backs
 time out and commands are re-asserted.
 
 Nothing a payload contains can crash this: garbage, truncated JSON, NaN,
-infinity, wrong types and huge payloads become a reliability verdict on the
-point and one rate-limited log event naming the point, the topic and the raw
-payload.
+infinity, wrong types and huge payloads become a ``comm-failure`` sample and one
+rate-limited log event naming the point, the topic and the raw payload. A number
+is delivered in Celsius as it came, with its arrival time: range and staleness are
+the core's judgement (:mod:`roomloop.core.reliability`).
 """
 
 from __future__ import annotations
@@ -23,10 +24,10 @@ from typing import Any, Protocol
 
 from roomloop.clock import Clock, RealClock, wait_for
 from roomloop.config.models import MqttInput, MqttOutput
-from roomloop.core.types import PointSample, Reliability
-from roomloop.io.codec import range_verdict, to_celsius
+from roomloop.core.types import PointSample, Transport
+from roomloop.io.codec import to_celsius
 from roomloop.io.eventlog import RateLimitedLog, get_logger
-from roomloop.io.ports import OutputState, OutputVerdict, aged
+from roomloop.io.ports import OutputState, OutputVerdict
 
 log = get_logger("mqtt")
 
@@ -49,10 +50,10 @@ class Publisher(Protocol):
 
 @dataclass(frozen=True, slots=True)
 class Parsed:
-    """One input message judged: Celsius (or None) and a verdict."""
+    """One input message read: Celsius (or None) and the transport verdict."""
 
     value: float | None
-    transport: Reliability
+    transport: Transport
     raw: float | None
     detail: str | None = None
 
@@ -118,7 +119,7 @@ def parse_payload(payload: bytes | bytearray | str, field: str | None) -> float:
 
 
 def judge_payload(point: MqttInput, payload: bytes | bytearray | str) -> Parsed:
-    """Parse, scale, convert to Celsius and judge against the valid range; never raises."""
+    """Parse, scale and convert to Celsius; never raises. Any finite number is ``ok``."""
     try:
         raw = parse_payload(payload, point.field)
     except PayloadError as exc:
@@ -126,9 +127,7 @@ def judge_payload(point: MqttInput, payload: bytes | bytearray | str) -> Parsed:
     celsius = to_celsius(raw * point.scale + point.offset, point.unit)
     if not math.isfinite(celsius):
         return Parsed(None, "over-range" if celsius > 0 else "under-range", raw, "overflows")
-    verdict = range_verdict(celsius, point.valid_range)
-    detail = None if verdict == "ok" else f"{celsius:.2f} C outside {point.valid_range}"
-    return Parsed(celsius, verdict, raw, detail)
+    return Parsed(celsius, "ok", raw)
 
 
 Payload = bytes | bytearray | str | int | float | None
@@ -174,7 +173,7 @@ class MqttPoints:
         self._clock = self.clock.now
         self._events = RateLimitedLog(log, log_interval_s)
         self._samples: dict[str, PointSample] = {
-            name: PointSample(name, None, None, "stale") for name in self.inputs
+            name: PointSample(name, None, None) for name in self.inputs
         }
         self._outputs = {name: OutputState(name) for name in self.outputs}
         self._published_on_this_connection: set[str] = set()
@@ -207,7 +206,9 @@ class MqttPoints:
     def _ingest(self, point: MqttInput, payload: bytes, now: float) -> None:
         self.last_payload[point.name] = payload[:256]
         parsed = judge_payload(point, payload)
-        self._samples[point.name] = PointSample(point.name, parsed.value, now, parsed.transport)
+        self._samples[point.name] = PointSample(
+            point.name, parsed.value, now, parsed.transport, parsed.raw
+        )
         if parsed.transport == "ok":
             self._events.recovered(
                 point.name, "mqtt.point_recovered", point=point.name, topic=point.topic
@@ -231,11 +232,8 @@ class MqttPoints:
         return tuple(self.inputs)
 
     def samples(self, now: float) -> dict[str, PointSample]:
-        """Latest sample per input point; none yet or older than ``stale_after_s``: ``stale``."""
-        return {
-            name: aged(sample, self.inputs[name].reliability.stale_after_s, now)
-            for name, sample in self._samples.items()
-        }
+        """Latest sample per input point (none yet: no value, no arrival time)."""
+        return dict(self._samples)
 
     # ------------------------------------------------------------------ outputs
 

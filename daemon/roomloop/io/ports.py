@@ -8,7 +8,7 @@ the device confirmed it. The service never needs to know which one it has.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from typing import Literal, Protocol, runtime_checkable
 
 from roomloop.core.types import PointSample
@@ -41,8 +41,8 @@ class InputSource(Protocol):
     def input_names(self) -> tuple[str, ...]: ...
 
     def samples(self, now: float) -> dict[str, PointSample]:
-        """The latest sample of every input point; a reading older than its
-        ``stale_after_s`` at ``now`` comes back with transport ``stale``."""
+        """The latest sample of every input point, as it arrived (transport facts only:
+        the core judges range and staleness from ``value`` and ``received_at``)."""
         ...
 
 
@@ -58,12 +58,3 @@ class OutputSink(Protocol):
 
     def output_state(self, name: str) -> OutputState: ...
 
-
-def aged(sample: PointSample, stale_after_s: float, now: float) -> PointSample:
-    """The sample as of ``now``: an ``ok`` one older than ``stale_after_s``, or one that
-    never arrived, reads ``stale``; any other verdict stands as the device gave it."""
-    if sample.transport == "ok" and (
-        sample.received_at is None or now - sample.received_at > stale_after_s
-    ):
-        return replace(sample, transport="stale")
-    return sample

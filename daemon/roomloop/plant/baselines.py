@@ -25,7 +25,7 @@ import math
 from dataclasses import dataclass, replace
 
 from roomloop.core.settings import ZoneSettings
-from roomloop.core.types import PointSample, ZoneInputs, ZoneOutputs
+from roomloop.core.types import BaselineReason, PointSample, Reason, ZoneInputs, ZoneOutputs
 
 BASELINE_NAMES: tuple[str, ...] = ("plain", "electromechanical", "time-proportional")
 
@@ -46,7 +46,7 @@ def measured_temperature(samples: tuple[PointSample, ...]) -> float | None:
 def _outputs(
     *,
     demand: bool,
-    reason: str,
+    reason: Reason | BaselineReason,
     temperature: float | None,
     setpoint: float,
     level: str,
@@ -100,6 +100,7 @@ class PlainController:
         s = self.settings
         setpoint = clamped_setpoint(s, inputs.scheduled_level)
         temperature = measured_temperature(inputs.samples)
+        reason: Reason | BaselineReason
         if temperature is None:
             want, reason = False, "no-temperature"
         elif temperature <= setpoint - s.differential_k / 2:
@@ -218,6 +219,7 @@ class ElectromechanicalController:
                 element += (temperature - element) * (
                     1.0 - math.exp(-dt / b.element_time_constant_s)
                 )
+        reason: Reason | BaselineReason
         if element is None:
             demand, reason = False, "no-temperature"
         else:

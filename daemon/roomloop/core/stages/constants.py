@@ -1,0 +1,71 @@
+"""What a zone's settings imply for every step, computed once per controller."""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass
+
+from ..settings import ZoneSettings
+from ..types import Reason
+from .regulation import GUARD_CPH
+from .setpoint import level_setpoints
+from .short_cycle import HOUR_S
+
+
+@dataclass(frozen=True, slots=True)
+class LawConstants:
+    """Per-settings constants of the control law (a frozen record, read on every tick)."""
+
+    half_k: float
+    """Half the differential: the band is ``S -/+ half_k``."""
+    gain_k: float
+    time_constant_s: float
+    """The anticipator's configured time constant (before cycle-rate regulation)."""
+    smoothing_s: float
+    """Time constant of the switching temperature's smoothing; 0: none (see :mod:`.smoothing`)."""
+    max_lag_k: float
+    """How far the smoothed temperature may lag the reading (the differential)."""
+    regulate: bool
+    """Cycle-rate regulation is on (see :mod:`.regulation`)."""
+    target_period_s: float
+    guard_ons: float
+    """Switch-ons in the sliding hour at which regulation stops shortening the time constant."""
+    learn_s: float
+    protection_c: float
+    protection_in_off: bool
+    default_level: str
+    level_setpoints: Mapping[str, float]
+    """Each level's set point, clamped to the zone's limits."""
+    fail_safe_reason: Reason
+    """The reason published while fail-safe drives the relay (``fail-safe:<policy>``)."""
+
+    @classmethod
+    def of(cls, s: ZoneSettings) -> LawConstants:
+        strong = s.anticipator_gain_k > s.differential_k
+        target_period = HOUR_S / s.cycle_rate_cph
+        # Smoothing only where the anticipator cycles the relay by itself (G > D): a plain
+        # hysteresis (or a weak anticipator) needs the room's own ripple to switch.
+        smoothing = (
+            0.0 if not strong else target_period if s.smoothing_s is None else s.smoothing_s
+        )
+        reasons: dict[str, Reason] = {
+            "off": "fail-safe:off",
+            "fixed-duty": "fail-safe:fixed-duty",
+            "learned-duty": "fail-safe:learned-duty",
+        }
+        return cls(
+            half_k=s.differential_k / 2.0,
+            gain_k=s.anticipator_gain_k,
+            time_constant_s=s.anticipator_time_constant_s,
+            smoothing_s=smoothing,
+            max_lag_k=s.differential_k,
+            regulate=s.cycle_rate_regulation and strong,
+            target_period_s=target_period,
+            guard_ons=s.cycle_rate_cph + GUARD_CPH,
+            learn_s=s.learn_hours * HOUR_S,
+            protection_c=s.protection_c,
+            protection_in_off=s.protection_in_off,
+            default_level=s.default_level,
+            level_setpoints=level_setpoints(s),
+            fail_safe_reason=reasons[s.fail_safe_policy],
+        )
