@@ -36,6 +36,7 @@ from yaml.nodes import MappingNode, Node, ScalarNode, SequenceNode
 from roomloop.config.checks import Finding, SiteParts, check_parts
 from roomloop.config.models import (
     Broker,
+    History,
     Link,
     Logging,
     Point,
@@ -515,6 +516,7 @@ _SECTIONS: dict[str, Any] = {
     "points": Point,
     "zones": Zone,
     "logging": Logging,
+    "history": History,
 }
 _LIST_SECTIONS = ("links", "points", "zones")
 _REQUIRED = ("site", "zones")
@@ -594,6 +596,9 @@ def site_from_data(
                     file, lines.line(("site",)), "site", "must be a mapping with at least 'name'"
                 )
             )
+
+    if data.get("history") is not None:  # checked alone: no cross-references
+        validate("history", data["history"], ("history",))
 
     for section in _LIST_SECTIONS:
         items = data.get(section)

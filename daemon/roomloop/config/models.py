@@ -572,6 +572,9 @@ class Zone(Strict):
     tick_s: Annotated[float, Field(ge=1, le=300)] = 10.0
     safe_state: Literal["off", "on"] = "off"
     """The output's state at start, at stop and when roomloop cannot decide."""
+    heater_w: Annotated[float, Field(gt=0, le=1e7, allow_inf_nan=False)] | None = None
+    """The heat output while the relay is closed (W), if known: energy figures in
+    ``report`` and the scale of the plant ``tune`` identifies."""
 
     _tuning: Tuning | None = PrivateAttr(default=None)
     _origins: dict[str, str] = PrivateAttr(default_factory=dict)
@@ -601,6 +604,16 @@ class Logging(Strict):
     """``auto``: JSON lines for journald when stdout is not a terminal, readable lines on one."""
 
 
+class History(Strict):
+    """Each zone's trajectory, kept in SQLite under the state directory (``history``)."""
+
+    enabled: bool = True
+    commit_s: Annotated[float, Field(ge=1, le=3600, allow_inf_nan=False)] = 60.0
+    """At most one commit this often: an SD card sees one write per batch, not one per tick."""
+    keep_days: Annotated[float, Field(gt=0, le=3660, allow_inf_nan=False)] = 60.0
+    """Rows older than this are pruned."""
+
+
 class Site(Strict):
     """One YAML file, one daemon process."""
 
@@ -610,6 +623,7 @@ class Site(Strict):
     points: list[Point] = []
     zones: Annotated[list[Zone], Field(min_length=1)]
     logging: Logging = Logging()
+    history: History = History()
 
     @property
     def name(self) -> str:
