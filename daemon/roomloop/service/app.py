@@ -50,6 +50,7 @@ from roomloop.core.controller import ZoneController
 from roomloop.core.settings import ZoneSettings
 from roomloop.core.state import StateFormatError, ZoneState
 from roomloop.core.types import PointSample, ZoneInputs, ZoneOutputs
+from roomloop.history.recorder import HistoryRecorder
 from roomloop.io.modbus import ModbusLink
 from roomloop.io.mqtt import MqttPoints
 from roomloop.io.ports import OutputState
@@ -191,6 +192,10 @@ class Service:
         self._write_in_flight: asyncio.Future[bool] | None = None
         self._broker: Any = None
         self.commands: CommandHandler | None = None
+        # history (issue 11): one recorder, entered in run(), fed after each zone step
+        self.history = HistoryRecorder.for_site(
+            site, state_dir if state_dir is not None else site.site.state_dir
+        )
 
     # ------------------------------------------------------------------ wiring
 
@@ -293,6 +298,8 @@ class Service:
         async with contextlib.AsyncExitStack() as stack:
             for link in self.links.values():
                 await stack.enter_async_context(link)
+            if self.history is not None:  # history: writer thread, flushed at stop
+                await stack.enter_async_context(self.history)
             control: list[asyncio.Task[None]] = []
             others: list[asyncio.Task[None]] = []
             stopped_cleanly = False
@@ -460,6 +467,8 @@ class Service:
                 runtime.decided = True
                 self._outputs_wake.set()
             self._after_step(runtime, outputs, now, next_change)
+            if self.history is not None:  # history: queue the tick, never waits
+                self.history.record(runtime.name, now, outputs, runtime.state)
             self.progress.beat(name)
             runtime.wake.clear()
             await self._sleep_or_wake(zone.tick_s, runtime.wake)
