@@ -144,7 +144,7 @@ async def test_full_queue_drops_and_counts_without_blocking(tmp_path: Path) -> N
 
 async def test_full_disk_is_logged_and_recording_goes_on(tmp_path: Path) -> None:
     outputs, state = _outputs_and_state()
-    recorder = HistoryRecorder(tmp_path / "h.sqlite", commit_s=0.05, max_pages=8)
+    recorder = HistoryRecorder(tmp_path / "h.sqlite", commit_s=0.05, max_pages=16)
     rng = random.Random(5)
     with capture_logs() as events:
         async with recorder:
@@ -154,7 +154,7 @@ async def test_full_disk_is_logged_and_recording_goes_on(tmp_path: Path) -> None
                 if k % 100 == 0:
                     await asyncio.sleep(0.06)
     failed = [e for e in events if e["event"] == "history.write_failed"]
-    assert failed, "the page limit was never reached"
+    assert failed, [e["event"] for e in events]
     assert "full" in failed[0]["error"]
     assert recorder.written > 0  # what fitted before the disk filled is there
     assert len(read_zone(tmp_path / "h.sqlite", "room")) == recorder.written
@@ -234,6 +234,21 @@ def test_kill_9_during_writes_loses_at_most_the_last_batch(tmp_path: Path) -> No
     assert recorded - len(kept) <= 0.2 / 0.005 * 3
 
 
+def _fill(path: Path, max_pages: int) -> None:
+    """A history file as full as its page limit lets it be (the next new page fails)."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    db = HistoryFile(path, max_pages=max_pages)
+    rng = random.Random(3)
+    try:
+        for day in range(10_000):
+            ticks = [_tick(day * 86400.0 + 10 * k, 15 + 10 * rng.random()) for k in range(50)]
+            db.write({"filler": ticks})
+    except sqlite3.OperationalError as exc:
+        assert "full" in str(exc)
+    finally:
+        db.close()
+
+
 async def test_service_keeps_controlling_with_a_full_history_disk(
     tmp_path: Path, modbus_tcp_server: Any
 ) -> None:
@@ -247,16 +262,21 @@ async def test_service_keeps_controlling_with_a_full_history_disk(
     service = Service(site, clock=SimulatedClock(SPEED), state_dir=tmp_path / "state")
     assert service.history is not None
     assert service.history.path == history_path(tmp_path / "state", site.name)
-    service.history = HistoryRecorder(service.history.path, commit_s=0.05, max_pages=8)
+    path = service.history.path
+    service.history = HistoryRecorder(path, commit_s=0.05, max_pages=40)
     stop = asyncio.Event()
     with capture_logs() as events:
         async with RoomPlant(server, [15.0], SPEED) as plant:
             task = asyncio.create_task(service.run(stop))
+            await until(lambda: service.history is not None and service.history.written > 5, 30)
+            # another writer takes every page there is: the disk is full now
+            await asyncio.to_thread(_fill, path, 40)
             await until(lambda: service.history is not None and service.history.failures > 0, 30)
             steps = service.zones["room0"].steps
             await until(lambda: plant.rooms[0].coil, 20)  # cold room: heat goes on regardless
             await until(lambda: service.zones["room0"].steps > steps + 5, 20)
             stop.set()
             await asyncio.wait_for(task, 15)
-    assert any(e["event"] == "history.write_failed" for e in events)
+    failed = [e for e in events if e["event"] == "history.write_failed"]
+    assert failed and "full" in failed[0]["error"]
     assert not [e for e in events if e["event"] == "service.task_failed"]

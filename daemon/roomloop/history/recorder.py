@@ -46,6 +46,7 @@ log = structlog.get_logger("roomloop.history")
 QUEUE_TICKS = 50_000
 """Ticks the queue holds: at a 10 s tick, 20 zones for about 7 hours of a stalled disk."""
 DROP_LOG_EVERY = 1000
+LOG_FAILURES_EVERY = 100
 RETRY_OPEN_S = 30.0
 """Real seconds between attempts to open a history file that could not be opened."""
 PRUNE_EVERY_S = 3600.0
@@ -54,6 +55,21 @@ STOP_WAIT_S = 3.0
 """Real seconds the final flush at stop may take before the service goes on without it."""
 
 _STOP = object()
+
+
+class _Damaged(sqlite3.DatabaseError):
+    """The file opens but fails SQLite's integrity check."""
+
+
+def _damaged(exc: sqlite3.DatabaseError) -> bool:
+    """Whether an error means the file itself is bad (not ours, corrupt), not the disk."""
+    if isinstance(exc, _Damaged):
+        return True
+    name = getattr(exc, "sqlite_errorname", "")
+    if name in ("SQLITE_CORRUPT", "SQLITE_NOTADB"):
+        return True
+    text = str(exc)
+    return "schema" in text and "is not" in text  # HistoryFile: another schema version
 
 
 def tick_from(zone_at: float, outputs: ZoneOutputs, state: ZoneState) -> Tick:
@@ -102,6 +118,7 @@ class HistoryRecorder:
         self.commits = 0
         self.failures = 0
         self.moved_aside: list[Path] = []
+        self._failing = 0
 
     @classmethod
     def for_site(cls, site: Any, state_dir: str | Path) -> HistoryRecorder | None:
@@ -214,12 +231,12 @@ class HistoryRecorder:
                         log.info("history.opened", path=str(self.path))
                     return db
                 db.close()
-                raise sqlite3.DatabaseError(f"integrity check: {problem}")
-            except sqlite3.OperationalError as exc:
-                self.failures += 1
-                log.error("history.unavailable", path=str(self.path), error=str(exc))
-                return None
+                raise _Damaged(f"integrity check: {problem}")
             except sqlite3.DatabaseError as exc:
+                if not _damaged(exc):  # cannot open, disk full, locked: try again later
+                    self.failures += 1
+                    log.error("history.unavailable", path=str(self.path), error=str(exc))
+                    return None
                 if attempt == 1 or not self._move_aside(str(exc)):
                     self.failures += 1
                     log.error("history.unavailable", path=str(self.path), error=str(exc))
@@ -254,21 +271,32 @@ class HistoryRecorder:
             batches.setdefault(zone, []).append(tick)
         try:
             self.written += db.write(batches)
-        except sqlite3.OperationalError as exc:  # disk full, I/O error, locked: try again later
+        except sqlite3.DatabaseError as exc:
+            if _damaged(exc):  # the file went bad under us
+                self.failures += 1
+                with contextlib.suppress(sqlite3.Error):
+                    db.close()
+                self._move_aside(str(exc))
+                self._bound_pending(pending)
+                return None
+            # disk full, I/O error, locked: try again at the next commit; logged when it
+            # starts and then every LOG_FAILURES_EVERY tries, not at every commit
             self.failures += 1
-            log.error(
-                "history.write_failed", path=str(self.path), error=str(exc), ticks=len(pending)
-            )
+            self._failing += 1
+            if self._failing == 1 or self._failing % LOG_FAILURES_EVERY == 0:
+                log.error(
+                    "history.write_failed",
+                    path=str(self.path),
+                    error=str(exc),
+                    ticks=len(pending),
+                    tries=self._failing,
+                )
             self._bound_pending(pending)
             return db
-        except sqlite3.DatabaseError as exc:  # the file went bad under us
-            self.failures += 1
-            with contextlib.suppress(sqlite3.Error):
-                db.close()
-            self._move_aside(str(exc))
-            self._bound_pending(pending)
-            return None
         self.commits += 1
+        if self._failing:
+            log.info("history.write_recovered", path=str(self.path), after_tries=self._failing)
+            self._failing = 0
         self._last_at = max(self._last_at, *(t.at for _, t in pending))
         pending.clear()
         return db

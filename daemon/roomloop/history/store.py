@@ -24,6 +24,10 @@ from pathlib import Path
 
 SCHEMA_VERSION = 1
 CHUNK_FORMAT = 1
+CHUNK_TICKS = 720
+"""Most ticks in one chunk: two hours at a 10 s tick."""
+CHUNK_SPAN_S = 7200.0
+"""Longest time one chunk spans (pruning removes whole chunks)."""
 NONE_INT = -(2**31)
 """Stands for a missing value in a packed int32 column."""
 
@@ -72,7 +76,7 @@ class ZoneHistory:
     zone: str
     time: list[float] = field(default_factory=list)
     temperature: list[float | None] = field(default_factory=list)
-    setpoint: list[float] = field(default_factory=list)
+    setpoint: list[float | None] = field(default_factory=list)
     level: list[str] = field(default_factory=list)
     mode: list[str] = field(default_factory=list)
     relay: list[bool] = field(default_factory=list)
@@ -83,6 +87,8 @@ class ZoneHistory:
     points: dict[str, list[tuple[float | None, str]]] = field(default_factory=dict)
     """Per point name, per tick: (value, reliability); ``(None, "absent")`` where the point
     was not part of the zone at that tick."""
+    outdoor: list[float | None] | None = None
+    """Outdoor temperature per tick, when known (an imported CSV's ``outdoor`` column)."""
 
     def __len__(self) -> int:
         return len(self.time)
@@ -215,6 +221,8 @@ class HistoryFile:
         self.path = Path(path)
         self.db = sqlite3.connect(self.path, timeout=5.0, isolation_level=None)
         try:
+            if max_pages is not None:  # tests: small pages (set before the first table)
+                self.db.execute("PRAGMA page_size=512")
             self.db.execute("PRAGMA journal_mode=WAL")
             # WAL + NORMAL: a commit survives a killed process (it is in the OS's cache);
             # only a power cut may lose the last batches. One fsync per checkpoint, not
@@ -231,6 +239,8 @@ class HistoryFile:
             elif row[0] != str(SCHEMA_VERSION):
                 raise sqlite3.DatabaseError(f"history schema {row[0]} is not {SCHEMA_VERSION}")
             self._ids: dict[str, int] = dict(self.db.execute("SELECT text, id FROM names"))
+            self._open: dict[str, list[Tick]] = {}
+            """Each zone's newest chunk, still growing (see :meth:`write`)."""
         except BaseException:
             self.db.close()
             raise
@@ -247,18 +257,22 @@ class HistoryFile:
 
     def _name_ids(self, texts: Iterable[str]) -> dict[str, int]:
         for text in texts:
-            if text not in self._ids:
-                cur = self.db.execute("INSERT INTO names (text) VALUES (?)", (text,))
-                assert cur.lastrowid is not None
-                self._ids[text] = cur.lastrowid
+            if text not in self._ids:  # (another writer may have added it meanwhile)
+                self.db.execute("INSERT OR IGNORE INTO names (text) VALUES (?)", (text,))
+                row = self.db.execute("SELECT id FROM names WHERE text = ?", (text,)).fetchone()
+                self._ids[text] = int(row[0])
         return self._ids
 
     def write(self, batches: dict[str, list[Tick]]) -> int:
         """Write one batch (per zone, its ticks in order) in one transaction; ticks written.
 
-        A zone's ticks are split where its set of points changes (one layout per chunk).
+        A zone's newest chunk stays open: the next batch is appended to it and the row
+        rewritten, up to ``CHUNK_TICKS`` ticks or ``CHUNK_SPAN_S``, so chunks are large
+        (and compress well) however often the writer commits. A chunk is closed where the
+        zone's set of points changes (one layout per chunk).
         """
         written = 0
+        still_open = dict(self._open)
         self.db.execute("BEGIN")
         try:
             for zone, ticks in batches.items():
@@ -268,24 +282,37 @@ class HistoryFile:
                     texts.update(p[0] for p in t.points)
                     texts.update(p[2] for p in t.points)
                 ids = self._name_ids(sorted(texts))
-                start = 0
-                for k in range(1, len(ticks) + 1):
-                    if k == len(ticks) or _layout(ticks[k]) != _layout(ticks[start]):
-                        part = ticks[start:k]
-                        self.db.execute(
-                            "INSERT OR REPLACE INTO chunks (zone, t0, t1, n, data) "
-                            "VALUES (?, ?, ?, ?, ?)",
-                            (ids[zone], part[0].at, part[-1].at, len(part), pack_chunk(part, ids)),
-                        )
-                        written += len(part)
-                        start = k
+                current = list(still_open.get(zone, ()))
+                for i, tick in enumerate(ticks):
+                    if current and (
+                        len(current) >= CHUNK_TICKS
+                        or tick.at - current[0].at >= CHUNK_SPAN_S
+                        or _layout(tick) != _layout(current[0])
+                    ):
+                        current = []
+                    current.append(tick)
+                    if (
+                        i + 1 == len(ticks)
+                        or len(current) >= CHUNK_TICKS
+                        or _layout(ticks[i + 1]) != _layout(current[0])
+                    ):
+                        self._put(ids, zone, current)
+                    written += 1
+                still_open[zone] = current
             self.db.execute("COMMIT")
         except BaseException:
             if self.db.in_transaction:
                 self.db.execute("ROLLBACK")
             self._ids = dict(self.db.execute("SELECT text, id FROM names"))
             raise
+        self._open = still_open
         return written
+
+    def _put(self, ids: dict[str, int], zone: str, ticks: list[Tick]) -> None:
+        self.db.execute(
+            "INSERT OR REPLACE INTO chunks (zone, t0, t1, n, data) VALUES (?, ?, ?, ?, ?)",
+            (ids[zone], ticks[0].at, ticks[-1].at, len(ticks), pack_chunk(ticks, ids)),
+        )
 
     def prune(self, before: float) -> int:
         """Delete the chunks that end before ``before`` (POSIX seconds); chunks deleted."""
