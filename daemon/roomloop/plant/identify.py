@@ -80,6 +80,9 @@ class Series:
     y: Any
     outdoor: Any | None
     resolution_k: float
+    tick_s: float = 0.0
+    """The history's own tick: the readings averaged into a step sit at its start + (step
+    - tick) / 2 on average, so the model's output is read there too (see ``_Problem``)."""
 
 
 @dataclass
@@ -153,7 +156,8 @@ def prepare(history: ZoneHistory, *, step_s: float = STEP_S) -> Series:
             outdoor = None
     steps = np.diff(np.unique(np.round(temp[np.isfinite(temp)], 4)))
     resolution = float(np.min(steps)) if steps.size else 0.0
-    return Series(step_s, t0, u, y, outdoor, round(resolution, 4))
+    tick = float(np.median(np.diff(t))) if t.size > 1 else step_s
+    return Series(step_s, t0, u, y, outdoor, round(resolution, 4), min(tick, step_s))
 
 
 def check_data(history: ZoneHistory) -> list[str]:
@@ -340,6 +344,10 @@ class _Problem:
             fixed = fixed + model.response(p["H"] * s.outdoor[:length], 1)
         load = model.responses(hats, 1)
         cols = np.concatenate([load, model.free(length)], axis=1)
+        w = (s.step_s - s.tick_s) / (2.0 * s.step_s)
+        if w > 0:  # read the output where the step's readings sit on average
+            fixed = (1.0 - w) * fixed + w * np.append(fixed[1:], fixed[-1])
+            cols = (1.0 - w) * cols + w * np.vstack([cols[1:], cols[-1:]])
         return fixed, cols
 
     def solve(self, x: Any) -> tuple[Any, Any, Any]:
