@@ -1,4 +1,4 @@
-"""The ``roomloop`` command line: check, simulate, probe, run, demo.
+"""The ``roomloop`` command line: check, simulate, probe, run, demo, history, report, tune.
 
 Exit codes (DESIGN.md): 0 ok, 1 runtime failure, 2 usage or config error.
 Each sub-command lives in its own module and is imported only when used, so
@@ -11,7 +11,7 @@ import argparse
 import importlib
 import sys
 import textwrap
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 
 from roomloop import __version__
 from roomloop.errors import ConfigError, RoomloopError
@@ -158,7 +158,43 @@ def build_parser() -> argparse.ArgumentParser:
     demo.add_argument(
         "--plot", metavar="OUT.png", help="write a plot of every zone (needs the 'plot' extra)"
     )
+    _add_history_commands(add)
     return parser
+
+
+def _add_history_commands(add: Callable[[str, str], argparse.ArgumentParser]) -> None:
+    """history, report, tune: the zone history the service keeps, and what is learnt from it."""
+
+    def site_zone(cmd: argparse.ArgumentParser, zone_required: bool) -> None:
+        cmd.add_argument("-c", "--config", required=True, metavar="SITE.yaml", help="the site file")
+        cmd.add_argument("--zone", required=zone_required, metavar="NAME", help="the zone")
+        cmd.add_argument(
+            "--state-dir", metavar="DIR", help="where the history is (default: as for 'run')"
+        )
+
+    hist = add("history", "export a zone's history (what the service recorded) as CSV")
+    site_zone(hist, True)
+    hist.add_argument("--since", metavar="WHEN", help="24h, 7d, a date or date-time, or POSIX s")
+    hist.add_argument("--until", metavar="WHEN", help="same forms as --since")
+    hist.add_argument(
+        "--csv", required=True, metavar="OUT.csv", help="the file to write ('-': stdout)"
+    )
+
+    report = add("report", "per zone and day: control accuracy, cycles, on-time, energy, faults")
+    site_zone(report, False)
+    report.add_argument("--since", metavar="WHEN", help="24h, 7d, a date or date-time")
+    report.add_argument("--until", metavar="WHEN", help="same forms as --since")
+    report.add_argument("--history", metavar="FILE.csv", help="read this CSV (needs --zone)")
+    report.add_argument("--plot", metavar="OUT.png", help="write a plot (needs matplotlib)")
+
+    tune = add("tune", "identify a zone's plant from its history and recommend its tuning")
+    site_zone(tune, True)
+    tune.add_argument("--since", metavar="WHEN", help="24h, 7d, a date or date-time")
+    tune.add_argument("--history", metavar="FILE.csv", help="read this CSV instead")
+    tune.add_argument("--write-plant", metavar="OUT.yaml", help="write the identified plant file")
+    tune.add_argument(
+        "--no-recommend", action="store_true", help="identify only (skip the tuning search)"
+    )
 
 
 _COMMANDS = {
@@ -168,6 +204,9 @@ _COMMANDS = {
     "run": "roomloop.cli.run",
     "demo": "roomloop.cli.demo",
     "bms-map": "roomloop.cli.bms_map",
+    "history": "roomloop.cli.history",
+    "report": "roomloop.cli.report",
+    "tune": "roomloop.cli.tune",
 }
 
 

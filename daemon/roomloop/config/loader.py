@@ -41,6 +41,7 @@ from roomloop.config.models import (
     Bms,
     Broker,
     CalendarEntry,
+    History,
     Link,
     Logging,
     Point,
@@ -750,6 +751,7 @@ _SECTIONS: dict[str, Any] = {
     "logging": Logging,
     "bms": Bms,
     "alarms": Alarms,
+    "history": History,
 }
 _LIST_SECTIONS = ("links", "points", "zones", "calendar")
 _REQUIRED = ("site", "zones")
@@ -838,6 +840,9 @@ def _validated(
                     file, lines.line(("site",)), "site", "must be a mapping with at least 'name'"
                 )
             )
+
+    if data.get("history") is not None:  # checked alone: no cross-references
+        validate("history", data["history"], ("history",))
 
     for section in _LIST_SECTIONS:
         items, shape = _list_section(data, section, file, lines)

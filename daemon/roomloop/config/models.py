@@ -843,15 +843,15 @@ class OptimumStart(Strict):
     so that the room reaches the new set point at the switch, by a learned warm-up rate."""
 
     enabled: bool = False
-    earliest_s: Annotated[float, Field(ge=0, le=86400, allow_inf_nan=False)] = 10800.0
+    earliest_s: Annotated[Float, Field(ge=0, le=86400)] = 10800.0
     """The early start never begins more than this before the switch (3 h: the usual
     maximum of an optimal start, ASHRAE Guideline 36 [recalled from memory])."""
-    initial_rate_k_per_h: Annotated[float, Field(ge=0.05, le=30, allow_inf_nan=False)] | None = (
+    initial_rate_k_per_h: Annotated[Float, Field(ge=0.05, le=30)] | None = (
         None
     )
     """The warm-up rate (K/h) used until the zone has learned its own; left out: the heating
     type's value."""
-    dead_time_s: Annotated[float, Field(ge=0, le=14400, allow_inf_nan=False)] | None = None
+    dead_time_s: Annotated[Float, Field(ge=0, le=14400)] | None = None
     """Time from the start of heating until the room starts to warm; left out: the heating
     type's value."""
 
@@ -879,6 +879,9 @@ class Zone(Strict):
     safe_state: Literal["off", "on"] = "off"
     """The output's state at start, at stop and when roomloop cannot decide."""
     optimum_start: OptimumStart = OptimumStart()
+    heater_w: Annotated[Float, Field(gt=0, le=1e7)] | None = None
+    """The heat output while the relay is closed (W), if known: energy figures in
+    ``report`` and the scale of the plant ``tune`` identifies."""
 
     _tuning: Tuning | None = PrivateAttr(default=None)
     _origins: dict[str, str] = PrivateAttr(default_factory=dict)
@@ -974,11 +977,11 @@ class BmsRtu(Strict):
     """The BMS face as a Modbus RTU slave on a serial port (line settings as for a link)."""
 
     device: Annotated[str, Field(min_length=1)]
-    unit_id: Annotated[int, Field(ge=1, le=247)] = 1
+    unit_id: Annotated[Int, Field(ge=1, le=247)] = 1
     """The slave address the BMS polls; requests for any other address get no answer."""
-    baud: int = 9600
+    baud: Int = 9600
     parity: Literal["N", "E", "O"] = "E"
-    data_bits: int = 8
+    data_bits: Int = 8
     stop_bits: Literal[1, 2] = 1
 
     @field_validator("data_bits")
@@ -1004,7 +1007,7 @@ class Bms(Strict):
 
     address: str = "127.0.0.1"
     """Where the Modbus TCP server listens: loopback unless an address is given."""
-    port: Annotated[int, Field(ge=1, le=65535)] = 1502
+    port: Annotated[Int, Field(ge=1, le=65535)] = 1502
     tcp: bool = True
     """Serve Modbus TCP (false: the RTU slave only)."""
     allow_clients: list[ClientNetwork] = []
@@ -1015,10 +1018,10 @@ class Bms(Strict):
     """Temperatures as int16 in tenths, or IEEE 754 float32 over two registers."""
     word_order: Literal["big", "little"] = "big"
     """float32 only: ``big`` sends the high word first (ABCD), ``little`` the low word (CDAB)."""
-    base_address: Annotated[int, Field(ge=0, le=MODBUS_MAX_ADDRESS)] = 0
-    zone_block: Annotated[int, Field(ge=1, le=1000)] = 100
+    base_address: Annotated[Int, Field(ge=0, le=MODBUS_MAX_ADDRESS)] = 0
+    zone_block: Annotated[Int, Field(ge=1, le=1000)] = 100
     """Registers per zone: zone ``i`` (file order) starts at ``base_address + i * zone_block``."""
-    write_rate_per_min: Annotated[int, Field(ge=1, le=600)] = 30
+    write_rate_per_min: Annotated[Int, Field(ge=1, le=600)] = 30
     """Writes per zone and minute; more answer exception 6 (busy), like MQTT's rate limit."""
     rtu: BmsRtu | None = None
 
@@ -1056,15 +1059,15 @@ class Alarms(Strict):
     """Too cold: below the set point by more than this for ``delay_s``."""
     warm_band_k: Annotated[TemperatureDelta, Field(gt=0, le=20)] = 2.0
     """Too warm: above the set point by more than this for ``delay_s``."""
-    delay_s: Annotated[float, Field(ge=0, le=86400, allow_inf_nan=False)] = 600.0
+    delay_s: Annotated[Float, Field(ge=0, le=86400)] = 600.0
     clear_k: Annotated[TemperatureDelta, Field(ge=0, le=5)] = 0.5
     """Hysteresis: a temperature alarm clears once back inside its band by this much."""
-    suppress_s_per_k: Annotated[float, Field(ge=0, le=36000, allow_inf_nan=False)] = 1080.0
+    suppress_s_per_k: Annotated[Float, Field(ge=0, le=36000)] = 1080.0
     """Temperature alarms wait this long per K of a set-point change (the room needs time)."""
-    suppress_max_s: Annotated[float, Field(ge=0, le=86400, allow_inf_nan=False)] = 7200.0
-    sensor_fault_s: Annotated[float, Field(ge=0, le=7 * 86400, allow_inf_nan=False)] = 900.0
+    suppress_max_s: Annotated[Float, Field(ge=0, le=86400)] = 7200.0
+    sensor_fault_s: Annotated[Float, Field(ge=0, le=7 * 86400)] = 900.0
     """An input point unreliable this long raises ``sensor-fault``."""
-    output_unconfirmed_s: Annotated[float, Field(ge=0, le=86400, allow_inf_nan=False)] = 120.0
+    output_unconfirmed_s: Annotated[Float, Field(ge=0, le=86400)] = 120.0
     """The output's read-back disagreeing this long raises ``output-unconfirmed``."""
 
     @model_validator(mode="after")
@@ -1072,6 +1075,14 @@ class Alarms(Strict):
         if self.clear_k >= min(self.cold_band_k, self.warm_band_k):
             raise ValueError("clear_k must be smaller than cold_band_k and warm_band_k")
         return self
+class History(Strict):
+    """Each zone's trajectory, kept in SQLite under the state directory (``history``)."""
+
+    enabled: bool = True
+    commit_s: Annotated[Float, Field(ge=1, le=3600)] = 60.0
+    """At most one commit this often: an SD card sees one write per batch, not one per tick."""
+    keep_days: Annotated[Float, Field(gt=0, le=3660)] = 60.0
+    """Rows older than this are pruned."""
 
 
 class Site(Strict):
@@ -1087,6 +1098,7 @@ class Site(Strict):
     logging: Logging = Logging()
     bms: Bms | None = None
     alarms: Alarms = Alarms()
+    history: History = History()
 
     @property
     def name(self) -> str:

@@ -50,6 +50,7 @@ from roomloop.config.models import (
     Site,
 )
 from roomloop.core.commands import CommandRejected
+from roomloop.history.recorder import HistoryRecorder
 from roomloop.io.modbus import ModbusLink
 from roomloop.io.mqtt import MqttPoints
 from roomloop.io.ports import InputSource
@@ -156,6 +157,11 @@ class Service:
         # After each step: the published view, persistence, then the embedder's hook.
         self.runner.subscribe(self._publish_step)
         self.runner.subscribe(lambda r: self.persistence.note(r.zone, r.state))
+        self.history = HistoryRecorder.for_site(
+            site, state_dir if state_dir is not None else site.site.state_dir
+        )
+        """Each zone's ticks into SQLite off the control path (None: ``history`` disabled)."""
+        self.runner.subscribe(self._record_history)
         if on_tick is not None:
             self.runner.subscribe(on_tick)
         self.runner.on_command(lambda _zone: self.persistence.mark_dirty())
@@ -270,6 +276,8 @@ class Service:
         async with contextlib.AsyncExitStack() as stack:
             for link in self.links.values():
                 await stack.enter_async_context(link)
+            if self.history is not None:  # its writer thread; flushed (bounded) at the exit
+                await stack.enter_async_context(self.history)
             # Each output read as it is before any zone resumes (restart.py): no start-up pulse.
             self._restore(await read_output_states(self.links.values()))
             control: list[asyncio.Task[None]] = []
@@ -365,6 +373,10 @@ class Service:
         zones = ServiceZones(self.zones, self.alarms, self.clock.now)
         face = BmsFace(self.site, zones, self.apply_command, clock=self.clock.now)
         await face.run(sleep=self.clock.sleep)
+
+    def _record_history(self, report: TickReport) -> None:
+        if self.history is not None:
+            self.history.record(report.zone, report.at, report.outputs, report.state)
 
     def _check_links(self) -> None:
         """Zones start once every link was polled once (answered or not); READY once all answer."""

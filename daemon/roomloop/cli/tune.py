@@ -1,0 +1,191 @@
+"""``roomloop tune -c SITE --zone Z [--history FILE.csv] [--write-plant OUT.yaml]``.
+
+Identifies the zone's plant from its history (:mod:`roomloop.plant.identify`, scipy
+from the optional ``tune`` extra), reports the fitted parameters with their
+uncertainty, the RMS residual and a verdict on the data, optionally writes the plant
+file ``simulate --plant`` reads, and runs the standard protocol on the identified
+plant over candidate tunings, printing today's tuning and the best side by side with
+the site-file lines to paste.
+Exit codes: 0 ok; 1 no history, or the data cannot support an identification (the
+reason is printed); 2 a bad site file or CSV, an unknown zone, numpy/scipy missing.
+"""
+
+from __future__ import annotations
+
+import argparse
+import dataclasses
+import importlib.util
+import sys
+
+from roomloop.cli.outputs import output_path_problem
+from roomloop.config.loader import load_site
+from roomloop.history.source import HistoryUnavailable, load_history, parse_bound
+
+EXIT_OK = 0
+EXIT_RUNTIME = 1
+EXIT_USAGE = 2
+SCIPY_MISSING = (
+    "tune needs numpy and scipy, which are not installed: pip install 'roomloop[tune]' "
+    "(or pip install '.[tune]' in the roomloop checkout)"
+)
+PARAM_TEXT = {
+    "Ce": ("emitter capacity", "J/K"),
+    "Ke": ("emitter conductance", "W/K"),
+    "Cr": ("room capacity", "J/K"),
+    "H": ("loss to outdoors", "W/K"),
+    "Cm": ("mass capacity", "J/K"),
+    "Km": ("mass conductance", "W/K"),
+    "tau_s": ("sensor lag", "s"),
+    "delay_s": ("transport delay", "s"),
+}
+
+
+def _fail(message: str, code: int) -> int:
+    print(f"roomloop tune: {message}", file=sys.stderr)
+    return code
+
+
+def _have_scipy() -> bool:
+    try:
+        return all(importlib.util.find_spec(m) is not None for m in ("numpy", "scipy"))
+    except ValueError:
+        return False
+
+
+def main(args: argparse.Namespace) -> int:
+    site = load_site(args.config)  # ConfigError: the CLI front prints it, exit 2
+    names = [z.name for z in site.zones]
+    if args.zone not in names:
+        return _fail(f"no zone {args.zone!r} in {args.config} (zones: {', '.join(names)})", 2)
+    if args.write_plant:
+        problem = output_path_problem("--write-plant", args.write_plant)
+        if problem:
+            return _fail(problem, EXIT_USAGE)
+    if not _have_scipy():
+        return _fail(SCIPY_MISSING, EXIT_USAGE)
+    from zoneinfo import ZoneInfo
+
+    from roomloop.plant.identify import IdentificationRefused, identify, plant_yaml, to_plant_spec
+
+    zone = site.zone(args.zone)
+    tz = ZoneInfo(site.site.timezone)
+    try:
+        since = parse_bound(args.since, tz, "--since")
+    except ValueError as exc:
+        return _fail(str(exc), EXIT_USAGE)
+    try:
+        history = load_history(
+            site, args.zone, state_dir=args.state_dir, csv_path=args.history, since=since
+        )
+    except HistoryUnavailable as exc:
+        return _fail(str(exc), EXIT_RUNTIME)
+    try:
+        fit, tried, series = identify(history, heater_w=zone.heater_w, heating=zone.heating)
+    except IdentificationRefused as exc:
+        return _fail(f"refused: {exc}", EXIT_RUNTIME)
+    hours = (history.time[-1] - history.time[0]) / 3600.0
+    print(
+        f"zone {zone.name} ({zone.heating}): {hours:.1f} h of history, "
+        f"{'with' if fit.outdoor else 'without'} outdoor temperature"
+        + ("" if fit.outdoor else " (an unknown slowly varying load is fitted instead)")
+    )
+    print(
+        "structures tried: "
+        + ", ".join(f"{f.structure} (RMS {f.rms_k:.3f} K)" for f in tried)
+        + f"; chosen: {fit.structure}"
+    )
+    if not fit.heater_known:
+        print(f"heater_w not set: capacities and conductances on a {fit.heater_w:.0f} W scale")
+    for key, value in fit.params.items():
+        label, unit = PARAM_TEXT[key]
+        sd = fit.rel_sd[key]
+        spread = f"+- {sd:.0f} s" if key == "delay_s" else f"+- {100 * sd:.0f} %"
+        print(f"  {label:<20} {value:>12.4g} {unit:<4} {spread}")
+    taus = ", ".join(f"{k} {v / 3600:.2f} h" for k, v in fit.node_time_constants_s().items())
+    print(f"  time constants: {taus}")
+    verdict = (
+        "good" if fit.determined and fit.rms_k < 0.15
+        else "fair" if fit.rms_k < 0.3
+        else "poor: do not trust this plant"
+    )
+    print(f"RMS residual {fit.rms_k:.3f} K over {fit.points} points; verdict: {verdict}")
+    for note in fit.notes:
+        if not note.endswith("evaluations"):
+            print(f"note: {note}")
+    spec = to_plant_spec(
+        fit, name=f"{zone.name}-identified", resolution_k=series.resolution_k or 0.1
+    )
+    if args.write_plant:
+        source = args.history or f"the history of site {site.name}"
+        try:
+            with open(args.write_plant, "w", encoding="utf-8") as out:
+                out.write(plant_yaml(spec, fit, source))
+        except OSError as exc:
+            return _fail(f"cannot write {args.write_plant}: {exc.strerror or exc}", EXIT_RUNTIME)
+        print(f"plant written to {args.write_plant} (roomloop simulate --plant reads it)")
+    if not args.no_recommend:
+        print(recommend(site, zone.name, spec))
+    return EXIT_OK
+
+
+def recommend(site: object, zone_name: str, spec: object) -> str:
+    """The standard protocol on the identified plant: today's tuning and candidates."""
+    from roomloop.core.controller import ZoneController
+    from roomloop.core.settings import ZoneSettings
+    from roomloop.core.sizing import time_constant_for_cycle_rate
+    from roomloop.plant.protocol import protocol_settings, run_protocol
+
+    base = protocol_settings(ZoneSettings.from_site(site, zone_name))  # type: ignore[arg-type]
+    cap = float(base.max_cycles_per_hour)
+
+    def run(settings: ZoneSettings) -> tuple[float, object]:
+        result = run_protocol(ZoneController(settings), spec)  # type: ignore[arg-type]
+        o = result.overall
+        over = max(0.0, o.cycles_per_hour - cap)
+        return o.control_accuracy_k + 0.3 * max(0.0, o.overshoot_k) + over, o
+
+    today_score, today = run(base)
+    best = (today_score, today, base)
+    d = base.differential_k
+    for gain in (1.5, 2.5, 3.5):
+        if gain <= d:
+            continue
+        for cph in sorted({max(1.0, round(cap * f)) for f in (0.5, 0.75, 1.0)}):
+            if base.min_on_s + base.min_off_s > 3600.0 / cph:
+                continue
+            for droop in (3600.0, 10800.0):
+                tau = time_constant_for_cycle_rate(cph, gain, d)
+                cand = dataclasses.replace(
+                    base, anticipator_gain_k=gain, cycle_rate_cph=cph,
+                    anticipator_time_constant_s=tau, droop_time_s=droop,
+                )
+                score, o = run(cand)
+                if score < best[0] - 1e-9:
+                    best = (score, o, cand)
+    _, o_best, s_best = best
+    rows = [
+        "predicted on the identified plant (standard protocol, true room air):",
+        f"{'':<24} {'today':>10} {'recommended':>12}",
+    ]
+    for label, key, fmt in (
+        ("control accuracy K", "control_accuracy_k", "{:.2f}"),
+        ("recovery overshoot K", "overshoot_k", "{:+.2f}"),
+        ("cycles per hour", "cycles_per_hour", "{:.1f}"),
+        ("energy kWh", "energy_kwh", "{:.2f}"),
+    ):
+        rows.append(
+            f"{label:<24} {fmt.format(getattr(today, key)):>10} "
+            f"{fmt.format(getattr(o_best, key)):>12}"
+        )
+    if s_best is base:
+        rows.append("today's tuning is already the best of the candidates: nothing to change")
+        return "\n".join(rows)
+    rows += [
+        "site-file lines to paste (zone " + zone_name + "):",
+        "    tuning:",
+        f"      differential_k: {s_best.differential_k:g}",
+        f"      anticipator_gain_k: {s_best.anticipator_gain_k:g}",
+        f"      cycle_rate_cph: {s_best.cycle_rate_cph:g}",
+        f"      droop_time_s: {s_best.droop_time_s:g}",
+    ]
+    return "\n".join(rows)

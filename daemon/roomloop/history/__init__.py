@@ -1,0 +1,1 @@
+"""Zone history: recorded by the daemon in SQLite, read by ``history``, ``report`` and ``tune``."""

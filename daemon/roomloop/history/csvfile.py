@@ -1,0 +1,215 @@
+"""A zone's history as CSV: written by ``roomloop history --csv``, read by ``--history FILE``.
+
+Columns (DESIGN.md glossary, "history"): ``time,temperature,relay`` required,
+``setpoint``, ``outdoor`` and ``fail_safe`` optional, in any order. ``time`` is
+ISO 8601 (with an offset, or without one in the site's time zone) or POSIX
+seconds; temperatures are in the site's units (``C`` or ``F``); ``relay`` and
+``fail_safe`` are ``0`` or ``1``. An empty ``temperature`` is a tick without a
+reliable temperature. Rows must go forward in time.
+
+Every mistake is one line ``FILE:LINE: message`` (:class:`CsvError`, exit 2).
+"""
+
+from __future__ import annotations
+
+import csv
+import datetime as dt
+import math
+from collections.abc import Iterable
+from pathlib import Path
+from typing import TextIO
+from zoneinfo import ZoneInfo
+
+from roomloop.errors import ConfigError, ConfigProblem
+from roomloop.history.store import ZoneHistory
+
+REQUIRED = ("time", "temperature", "relay")
+OPTIONAL = ("setpoint", "outdoor", "fail_safe")
+EXPORTED = ("time", "temperature", "relay", "setpoint", "fail_safe")
+
+
+class CsvError(ConfigError):
+    """A history CSV the tools cannot read: every problem as ``FILE:LINE: message``."""
+
+
+def _to_site(value_c: float, units: str) -> float:
+    return value_c * 9.0 / 5.0 + 32.0 if units == "F" else value_c
+
+
+def _from_site(value: float, units: str) -> float:
+    return (value - 32.0) * 5.0 / 9.0 if units == "F" else value
+
+
+def write_csv(history: ZoneHistory, out: TextIO, *, tz: ZoneInfo, units: str) -> int:
+    """Write ``history`` as CSV (times in ``tz`` with their offset); rows written."""
+    writer = csv.writer(out, lineterminator="\n")
+    writer.writerow(EXPORTED)
+    for k, at in enumerate(history.time):
+        when = dt.datetime.fromtimestamp(at, tz).isoformat(timespec="seconds")
+        temp = history.temperature[k]
+        setpoint = history.setpoint[k]
+        writer.writerow(
+            (
+                when,
+                "" if temp is None else f"{_to_site(temp, units):.3f}",
+                1 if history.relay[k] else 0,
+                "" if setpoint is None else f"{_to_site(setpoint, units):.3f}",
+                1 if history.fail_safe[k] else 0,
+            )
+        )
+    return len(history.time)
+
+
+def parse_time(text: str, tz: ZoneInfo) -> float:
+    """ISO 8601 (with an offset, or in ``tz``) or POSIX seconds, to POSIX seconds."""
+    text = text.strip()
+    try:
+        value = float(text)
+    except ValueError:
+        pass
+    else:
+        if not math.isfinite(value):
+            raise ValueError(f"{text!r} is not a time")
+        return value
+    try:
+        when = dt.datetime.fromisoformat(text)
+    except ValueError:
+        raise ValueError(
+            f"{text!r} is not a time (ISO 8601 such as 2026-01-05T07:00:00+01:00, "
+            "or POSIX seconds)"
+        ) from None
+    if when.tzinfo is None:
+        when = when.replace(tzinfo=tz)
+    return when.timestamp()
+
+
+def _flag(text: str, column: str) -> bool:
+    value = text.strip()
+    if value in ("0", "1"):
+        return value == "1"
+    raise ValueError(f"{column} must be 0 or 1, not {text!r}")
+
+
+def _number(text: str, column: str, *, empty_ok: bool) -> float | None:
+    value = text.strip()
+    if not value:
+        if empty_ok:
+            return None
+        raise ValueError(f"{column} is empty")
+    try:
+        number = float(value)
+    except ValueError:
+        raise ValueError(f"{column} {text!r} is not a number") from None
+    if not math.isfinite(number):
+        raise ValueError(f"{column} {text!r} is not a finite number")
+    return number
+
+
+def read_csv(path: str | Path, *, zone: str, tz: ZoneInfo, units: str) -> ZoneHistory:
+    """Read a history CSV into a :class:`ZoneHistory` (Celsius inside); :class:`CsvError`."""
+    name = str(path)
+    try:
+        with open(path, newline="", encoding="utf-8") as handle:
+            return _read(handle, name, zone=zone, tz=tz, units=units)
+    except OSError as exc:
+        raise CsvError(
+            [ConfigProblem(name, None, "", f"cannot read: {exc.strerror or exc}")]
+        ) from None
+    except UnicodeDecodeError:
+        raise CsvError(
+            [ConfigProblem(name, None, "", "not a text file (UTF-8 CSV expected)")]
+        ) from None
+
+
+def _problem(file: str, line: int, message: str) -> ConfigProblem:
+    return ConfigProblem(file, line, "", message)
+
+
+def _read(handle: Iterable[str], file: str, *, zone: str, tz: ZoneInfo, units: str) -> ZoneHistory:
+    reader = csv.reader(handle)
+    try:
+        header = next(reader)
+    except StopIteration:
+        raise CsvError(
+            [_problem(file, 1, "empty file: the header time,temperature,relay is missing")]
+        ) from None
+    except csv.Error as exc:
+        raise CsvError([_problem(file, 1, str(exc))]) from None
+    columns = [h.strip().lower() for h in header]
+    problems: list[ConfigProblem] = []
+    missing = [c for c in REQUIRED if c not in columns]
+    unknown = [c for c in columns if c not in REQUIRED + OPTIONAL]
+    if missing:
+        problems.append(
+            _problem(file, 1, f"missing column(s) {', '.join(missing)} (header: "
+                     "time,temperature,relay[,setpoint][,outdoor][,fail_safe])")
+        )
+    if unknown:
+        problems.append(
+            _problem(file, 1, f"unknown column(s) {', '.join(unknown)} (known: "
+                     + ", ".join(REQUIRED + OPTIONAL) + ")")
+        )
+    if len(set(columns)) != len(columns):
+        problems.append(_problem(file, 1, "a column is named twice"))
+    if problems:
+        raise CsvError(problems)
+    index = {c: columns.index(c) for c in columns}
+    out = ZoneHistory(zone)
+    if "outdoor" in index:
+        out.outdoor = []
+    last: float | None = None
+    try:
+        for row in reader:
+            line = reader.line_num
+            if not row or all(not cell.strip() for cell in row):
+                continue
+            if len(row) != len(columns):
+                problems.append(
+                    _problem(file, line, f"{len(row)} fields, the header has {len(columns)}")
+                )
+                continue
+            try:
+                at = parse_time(row[index["time"]], tz)
+                temp = _number(row[index["temperature"]], "temperature", empty_ok=True)
+                relay = _flag(row[index["relay"]], "relay")
+                setpoint = (
+                    _number(row[index["setpoint"]], "setpoint", empty_ok=True)
+                    if "setpoint" in index
+                    else None
+                )
+                outdoor = (
+                    _number(row[index["outdoor"]], "outdoor", empty_ok=True)
+                    if "outdoor" in index
+                    else None
+                )
+                fail_safe = (
+                    _flag(row[index["fail_safe"]], "fail_safe") if "fail_safe" in index else False
+                )
+            except ValueError as exc:
+                problems.append(_problem(file, line, str(exc)))
+                continue
+            if last is not None and at <= last:
+                problems.append(
+                    _problem(file, line, "time does not go forward (rows must be in time order)")
+                )
+                continue
+            last = at
+            out.time.append(at)
+            out.temperature.append(None if temp is None else _from_site(temp, units))
+            out.relay.append(relay)
+            out.setpoint.append(None if setpoint is None else _from_site(setpoint, units))
+            if out.outdoor is not None:
+                out.outdoor.append(None if outdoor is None else _from_site(outdoor, units))
+            out.fail_safe.append(fail_safe)
+            out.level.append("")
+            out.mode.append("")
+            out.anticipator_k.append(0.0)
+            out.droop_k.append(0.0)
+            out.reason.append("")
+            if len(problems) >= 20:
+                break
+    except csv.Error as exc:
+        problems.append(_problem(file, reader.line_num, str(exc)))
+    if problems:
+        raise CsvError(problems)
+    return out

@@ -1,0 +1,318 @@
+"""The daemon's history recorder: ``record()`` on the event loop, the disk in a thread.
+
+``record(zone, at, outputs, state)`` is all a zone loop calls after its step: it
+builds one small :class:`~roomloop.history.store.Tick` and puts it on a bounded
+queue, never waiting. A writer thread takes the ticks, commits them in one
+transaction at most every ``history.commit_s`` (real seconds: the SD card's
+clock), and prunes rows older than ``history.keep_days`` (on the recorded times,
+so a simulated clock prunes by its own days).
+
+Nothing here may stop control:
+
+- a full queue (the disk is slower than the ticks) drops the tick and counts it,
+  logged as ``history.dropped`` (the first, then every ``DROP_LOG_EVERY``);
+- a failed write (disk full, I/O error) logs ``history.write_failed``; its ticks
+  are kept for the next try up to the queue's bound, the oldest dropped beyond it;
+- a damaged file (not a database, malformed) is renamed aside to
+  ``<file>.damaged-<time>`` with ``history.damaged_moved_aside`` and a new one is
+  started.
+
+Lifecycle::
+
+    async with HistoryRecorder(path, commit_s=60, keep_days=60) as history:
+        ...  history.record(zone, now, outputs, state) after each step
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import os
+import queue
+import sqlite3
+import threading
+import time
+from pathlib import Path
+from typing import Any
+
+import structlog
+
+from roomloop.core.state import ZoneState
+from roomloop.core.types import ZoneOutputs
+from roomloop.history.store import HistoryFile, Tick, history_path
+
+log = structlog.get_logger("roomloop.history")
+
+QUEUE_TICKS = 50_000
+"""Ticks the queue holds: at a 10 s tick, 20 zones for about 7 hours of a stalled disk."""
+DROP_LOG_EVERY = 1000
+LOG_FAILURES_EVERY = 100
+RETRY_OPEN_S = 30.0
+"""Real seconds between attempts to open a history file that could not be opened."""
+PRUNE_EVERY_S = 3600.0
+"""Real seconds between prunes (and the first one at the first commit)."""
+STOP_WAIT_S = 3.0
+"""Real seconds the final flush at stop may take before the service goes on without it."""
+
+_STOP = object()
+
+
+class _Damaged(sqlite3.DatabaseError):
+    """The file opens but fails SQLite's integrity check."""
+
+
+def _damaged(exc: sqlite3.DatabaseError) -> bool:
+    """Whether an error means the file itself is bad (not ours, corrupt), not the disk."""
+    if isinstance(exc, _Damaged):
+        return True
+    name = getattr(exc, "sqlite_errorname", "")
+    if name in ("SQLITE_CORRUPT", "SQLITE_NOTADB"):
+        return True
+    text = str(exc)
+    return "schema" in text and "is not" in text  # HistoryFile: another schema version
+
+
+def tick_from(zone_at: float, outputs: ZoneOutputs, state: ZoneState) -> Tick:
+    """The tick to record from one zone step's outputs and new state."""
+    points = tuple(
+        (p.name, p.value, outputs.reliability.get(p.name, p.reliability)) for p in state.points
+    )
+    return Tick(
+        at=zone_at,
+        temperature=outputs.temperature,
+        setpoint=outputs.setpoint,
+        level=outputs.level,
+        mode=outputs.mode,
+        relay=outputs.demand,
+        anticipator_k=outputs.anticipator_k,
+        droop_k=outputs.droop_k,
+        fail_safe=outputs.fail_safe,
+        reason=outputs.reason,
+        points=points,
+    )
+
+
+class HistoryRecorder:
+    """Records every zone's ticks into the site's history file, off the event loop."""
+
+    def __init__(
+        self,
+        path: str | Path,
+        *,
+        commit_s: float = 60.0,
+        keep_days: float = 60.0,
+        queue_ticks: int = QUEUE_TICKS,
+        max_pages: int | None = None,
+    ) -> None:
+        self.path = Path(path)
+        self.commit_s = commit_s
+        self.keep_days = keep_days
+        self.max_pages = max_pages
+        """Tests only: SQLite's page limit, a small disk that really fills up."""
+        self._queue: queue.Queue[Any] = queue.Queue(maxsize=queue_ticks)
+        self._bound = queue_ticks
+        self._thread: threading.Thread | None = None
+        self.dropped = 0
+        """Ticks lost: queue full, or beyond the bound while the disk refused them."""
+        self.written = 0
+        self.commits = 0
+        self.failures = 0
+        self.moved_aside: list[Path] = []
+        self._failing = 0
+
+    @classmethod
+    def for_site(cls, site: Any, state_dir: str | Path) -> HistoryRecorder | None:
+        """The recorder a site's ``history:`` section asks for (None when disabled)."""
+        settings = site.history
+        if not settings.enabled:
+            return None
+        return cls(
+            history_path(state_dir, site.name),
+            commit_s=settings.commit_s,
+            keep_days=settings.keep_days,
+        )
+
+    # ------------------------------------------------------------------ event loop side
+
+    def record(self, zone: str, at: float, outputs: ZoneOutputs, state: ZoneState) -> None:
+        """Queue one zone tick; never blocks (a full queue drops it, counted and logged)."""
+        try:
+            self._queue.put_nowait((zone, tick_from(at, outputs, state)))
+        except queue.Full:
+            self.dropped += 1
+            if self.dropped == 1 or self.dropped % DROP_LOG_EVERY == 0:
+                log.warning("history.dropped", dropped=self.dropped, reason="queue full")
+
+    def start(self) -> None:
+        self._thread = threading.Thread(target=self._run, name="history-writer", daemon=True)
+        self._thread.start()
+
+    def stop(self, timeout_s: float = STOP_WAIT_S) -> None:
+        """Flush what is queued and end the writer (bounded); blocking: call from a thread."""
+        if self._thread is None:
+            return
+        deadline = time.monotonic() + timeout_s
+        while True:
+            try:
+                self._queue.put(_STOP, timeout=0.1)
+                break
+            except queue.Full:
+                if time.monotonic() > deadline:
+                    break
+        self._thread.join(max(0.0, deadline - time.monotonic()))
+        if self._thread.is_alive():
+            log.warning("history.stop_timed_out", within_s=timeout_s)
+        self._thread = None
+
+    async def __aenter__(self) -> HistoryRecorder:
+        self.start()
+        return self
+
+    async def __aexit__(self, *exc: object) -> None:
+        await asyncio.to_thread(self.stop)
+
+    # ------------------------------------------------------------------ writer thread
+
+    def _run(self) -> None:
+        db: HistoryFile | None = None
+        pending: list[tuple[str, Tick]] = []
+        last_commit = time.monotonic()
+        next_open = 0.0
+        next_prune = 0.0
+        stopping = False
+        try:
+            while not stopping:
+                timeout = max(0.0, last_commit + self.commit_s - time.monotonic())
+                try:
+                    item = self._queue.get(timeout=timeout)
+                except queue.Empty:
+                    item = None
+                while item is not None:
+                    if item is _STOP:
+                        stopping = True
+                        break
+                    pending.append(item)
+                    try:
+                        item = self._queue.get_nowait()
+                    except queue.Empty:
+                        item = None
+                if not stopping and time.monotonic() < last_commit + self.commit_s:
+                    continue
+                last_commit = time.monotonic()
+                if not pending:
+                    continue
+                if db is None and time.monotonic() >= next_open:
+                    db = self._open()
+                    if db is None:
+                        next_open = time.monotonic() + RETRY_OPEN_S
+                if db is None:
+                    self._bound_pending(pending)
+                    continue
+                db = self._commit(db, pending)
+                if db is not None and not pending and time.monotonic() >= next_prune:
+                    next_prune = time.monotonic() + PRUNE_EVERY_S
+                    self._prune(db, last_at=self._last_at)
+        finally:
+            if db is not None:
+                with contextlib.suppress(sqlite3.Error):
+                    db.close()
+
+    _last_at: float = 0.0
+
+    def _open(self) -> HistoryFile | None:
+        """Open (or create) the file; a damaged one is moved aside and a new one started."""
+        for attempt in range(2):
+            try:
+                self.path.parent.mkdir(parents=True, exist_ok=True)
+                db = HistoryFile(self.path, max_pages=self.max_pages)
+                problem = db.check()
+                if problem == "ok":
+                    if attempt == 0:
+                        log.info("history.opened", path=str(self.path))
+                    return db
+                db.close()
+                raise _Damaged(f"integrity check: {problem}")
+            except sqlite3.DatabaseError as exc:
+                if not _damaged(exc):  # cannot open, disk full, locked: try again later
+                    self.failures += 1
+                    log.error("history.unavailable", path=str(self.path), error=str(exc))
+                    return None
+                if attempt == 1 or not self._move_aside(str(exc)):
+                    self.failures += 1
+                    log.error("history.unavailable", path=str(self.path), error=str(exc))
+                    return None
+            except OSError as exc:
+                self.failures += 1
+                log.error("history.unavailable", path=str(self.path), error=str(exc))
+                return None
+        return None
+
+    def _move_aside(self, reason: str) -> bool:
+        stamp = time.strftime("%Y%m%dT%H%M%S", time.gmtime())
+        target = self.path.with_name(f"{self.path.name}.damaged-{stamp}")
+        try:
+            os.replace(self.path, target)
+            for suffix in ("-wal", "-shm"):
+                side = Path(f"{self.path}{suffix}")
+                if side.exists():
+                    os.replace(side, Path(f"{target}{suffix}"))
+        except OSError as exc:
+            log.error("history.move_aside_failed", path=str(self.path), error=str(exc))
+            return False
+        self.moved_aside.append(target)
+        log.error(
+            "history.damaged_moved_aside", path=str(self.path), moved_to=str(target), reason=reason
+        )
+        return True
+
+    def _commit(self, db: HistoryFile, pending: list[tuple[str, Tick]]) -> HistoryFile | None:
+        batches: dict[str, list[Tick]] = {}
+        for zone, tick in pending:
+            batches.setdefault(zone, []).append(tick)
+        try:
+            self.written += db.write(batches)
+        except sqlite3.DatabaseError as exc:
+            if _damaged(exc):  # the file went bad under us
+                self.failures += 1
+                with contextlib.suppress(sqlite3.Error):
+                    db.close()
+                self._move_aside(str(exc))
+                self._bound_pending(pending)
+                return None
+            # disk full, I/O error, locked: try again at the next commit; logged when it
+            # starts and then every LOG_FAILURES_EVERY tries, not at every commit
+            self.failures += 1
+            self._failing += 1
+            if self._failing == 1 or self._failing % LOG_FAILURES_EVERY == 0:
+                log.error(
+                    "history.write_failed",
+                    path=str(self.path),
+                    error=str(exc),
+                    ticks=len(pending),
+                    tries=self._failing,
+                )
+            self._bound_pending(pending)
+            return db
+        self.commits += 1
+        if self._failing:
+            log.info("history.write_recovered", path=str(self.path), after_tries=self._failing)
+            self._failing = 0
+        self._last_at = max(self._last_at, *(t.at for _, t in pending))
+        pending.clear()
+        return db
+
+    def _bound_pending(self, pending: list[tuple[str, Tick]]) -> None:
+        excess = len(pending) - self._bound
+        if excess > 0:
+            del pending[:excess]
+            self.dropped += excess
+            log.warning("history.dropped", dropped=self.dropped, reason="not written in time")
+
+    def _prune(self, db: HistoryFile, *, last_at: float) -> None:
+        try:
+            removed = db.prune(last_at - self.keep_days * 86400.0)
+        except sqlite3.Error as exc:
+            log.warning("history.prune_failed", error=str(exc))
+            return
+        if removed:
+            log.info("history.pruned", chunks=removed, keep_days=self.keep_days)

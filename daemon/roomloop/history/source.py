@@ -1,0 +1,139 @@
+"""Where ``history``, ``report`` and ``tune`` get a zone's history: the site's file or a CSV.
+
+``--since`` / ``--until`` take a span back from the end of the history (``24h``,
+``7d``, ``90m``), a date or date-time (ISO 8601, in the site's time zone unless it
+has an offset) or POSIX seconds. A span counts back from the newest tick, so a
+history recorded on the demo's fast clock reads the same way as a real one.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from dataclasses import dataclass
+from pathlib import Path
+from zoneinfo import ZoneInfo
+
+from roomloop.config.models import Site
+from roomloop.errors import RoomloopError
+from roomloop.history.csvfile import parse_time, read_csv
+from roomloop.history.store import HistoryFile, ZoneHistory, history_path
+
+_SPAN = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*([mhdw])\s*$")
+_UNIT_S = {"m": 60.0, "h": 3600.0, "d": 86400.0, "w": 604800.0}
+
+
+class HistoryUnavailable(RoomloopError):
+    """No history to read: no file, no such zone in it, or nothing in the window."""
+
+
+@dataclass(frozen=True, slots=True)
+class Bound:
+    """A window bound: an absolute time, or a span back from the newest tick."""
+
+    at: float | None = None
+    back_s: float | None = None
+
+    def resolve(self, newest: float) -> float | None:
+        if self.back_s is not None:
+            return newest - self.back_s
+        return self.at
+
+
+def parse_bound(text: str | None, tz: ZoneInfo, option: str) -> Bound:
+    """``24h``/``7d``/``90m``/``2w``, an ISO date or date-time, or POSIX seconds."""
+    if text is None:
+        return Bound()
+    match = _SPAN.match(text)
+    if match:
+        return Bound(back_s=float(match.group(1)) * _UNIT_S[match.group(2)])
+    try:
+        return Bound(at=parse_time(text, tz))
+    except ValueError:
+        raise ValueError(
+            f"{option} {text!r}: give a span back from the end of the history (24h, 7d, 90m), "
+            "a date or date-time (2026-01-05, 2026-01-05T07:00), or POSIX seconds"
+        ) from None
+
+
+def site_history_path(site: Site, state_dir: str | None) -> Path:
+    """The history file of ``site``: under ``state_dir`` if given, else $STATE_DIRECTORY,
+    else the site's own ``state_dir`` (the same order ``run`` uses)."""
+    if state_dir:
+        directory = state_dir
+    elif os.environ.get("STATE_DIRECTORY"):
+        directory = os.environ["STATE_DIRECTORY"].split(":")[0]
+    else:
+        directory = site.site.state_dir
+    return history_path(directory, site.name)
+
+
+def load_history(
+    site: Site,
+    zone: str,
+    *,
+    state_dir: str | None = None,
+    csv_path: str | None = None,
+    since: Bound = Bound(),
+    until: Bound = Bound(),
+) -> ZoneHistory:
+    """The zone's history in the window, from ``csv_path`` or from the site's history file.
+
+    Raises :class:`HistoryUnavailable` (one clear line) when there is nothing to read, and
+    :class:`~roomloop.history.csvfile.CsvError` for a bad CSV.
+    """
+    tz = ZoneInfo(site.site.timezone)
+    if csv_path is not None:
+        full = read_csv(csv_path, zone=zone, tz=tz, units=site.site.units)
+        where = csv_path
+    else:
+        path = site_history_path(site, state_dir)
+        if not path.exists():
+            raise HistoryUnavailable(
+                f"no history file {path} (the service keeps one while it runs with "
+                "history enabled; or give --state-dir, or --history FILE.csv)"
+            )
+        db = HistoryFile(path)
+        try:
+            zones = db.zones()
+            if zone not in zones:
+                raise HistoryUnavailable(
+                    f"no history of zone {zone!r} in {path} (zones there: "
+                    + (", ".join(zones) or "none")
+                    + ")"
+                )
+            full = db.read(zone)
+        finally:
+            db.close()
+        where = str(path)
+    if not full.time:
+        raise HistoryUnavailable(f"{where}: no ticks of zone {zone!r}")
+    newest = full.time[-1]
+    lo = since.resolve(newest)
+    hi = until.resolve(newest)
+    if lo is None and hi is None:
+        return full
+    out = window(full, lo, hi)
+    if not out.time:
+        raise HistoryUnavailable(f"{where}: no ticks of zone {zone!r} in the window asked for")
+    return out
+
+
+def window(history: ZoneHistory, lo: float | None, hi: float | None) -> ZoneHistory:
+    """The ticks with ``lo <= time < hi`` (either bound may be None)."""
+    keep = [
+        k
+        for k, at in enumerate(history.time)
+        if (lo is None or at >= lo) and (hi is None or at < hi)
+    ]
+    out = ZoneHistory(history.zone)
+    for name in (
+        "time", "temperature", "setpoint", "level", "mode", "relay", "anticipator_k",
+        "droop_k", "fail_safe", "reason",
+    ):
+        column = getattr(history, name)
+        setattr(out, name, [column[k] for k in keep])
+    out.points = {name: [col[k] for k in keep] for name, col in history.points.items()}
+    if history.outdoor is not None:
+        out.outdoor = [history.outdoor[k] for k in keep]
+    return out

@@ -1,0 +1,134 @@
+"""Identification of a zone's plant (``roomloop tune``) against outside sources.
+
+- A single-node room against Newton's law of cooling in closed form (REFERENCES.md:
+  T(t) = T_a + (T0 - T_a) e^(-t/tau) [published]); the data are made from the closed
+  form itself, not by roomloop's simulator.
+- scipy.optimize.curve_fit as the reference for the same fit (an independent numerical
+  reference, [published] library).
+- Identification on simulated history (the simulator's built-in hydronic plant, a week
+  at a 10 s tick, seeded noise and 0.1 K sensor steps): the identified plant predicts an
+  unseen eighth day within 0.1 K RMS, and the slow time constants the week excites (the
+  mass node's and the building's) come back within 15 %.
+- Refusals: too little data, no switching, a stuck sensor.
+- The daemon's path imports no numpy.
+"""
+
+from __future__ import annotations
+
+import math
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy import optimize
+
+from roomloop.history.store import ZoneHistory
+from roomloop.plant.identify import IdentificationRefused, check_data, fit_on, identify, predict
+from roomloop.plant.loader import load_plant
+
+sys.path.insert(0, str(Path(__file__).parent))
+from simulated_history import simulate
+
+
+def _newton_history(tau: float, t_a: float, t_inf: float, hours: float) -> ZoneHistory:
+    """Relay on 2 h / off 2 h; each stretch follows the closed form exactly (10 s tick)."""
+    h = ZoneHistory("room")
+    temp = 15.0
+    for k in range(int(hours * 360)):
+        t = k * 10.0
+        on = (t // 7200) % 2 == 0
+        h.time.append(1e9 + t)
+        h.temperature.append(temp)
+        h.relay.append(on)
+        h.setpoint.append(20.0)
+        h.fail_safe.append(False)
+        for col, v in ((h.level, ""), (h.mode, ""), (h.reason, "")):
+            col.append(v)
+        h.anticipator_k.append(0.0)
+        h.droop_k.append(0.0)
+        target = t_inf if on else t_a
+        temp = target + (temp - target) * math.exp(-10.0 / tau)
+    h.outdoor = [t_a] * len(h.time)
+    return h
+
+
+def test_single_node_room_against_newtons_law_of_cooling() -> None:
+    """tau = C / H = 2e6 / 100 = 20000 s; T_inf - T_a = P / H = 2000 / 100 = 20 K (derived
+    from the single-node model; the closed form is Newton's law of cooling)."""
+    history = _newton_history(tau=20000.0, t_a=5.0, t_inf=25.0, hours=48)
+    fit, _, _ = identify(history, heater_w=2000.0, structures=("room",))
+    # the sensor lag and delay are free: the data have none, the fit must find ~none
+    assert fit.params["Cr"] / fit.params["H"] == pytest.approx(20000.0, rel=0.01)
+    assert fit.params["H"] == pytest.approx(100.0, rel=0.01)
+    assert fit.rms_k < 0.01
+
+
+def test_scipy_curve_fit_is_the_reference_on_the_same_cooling() -> None:
+    """The closed-form cooling fitted by scipy.optimize.curve_fit and by roomloop agree."""
+    history = _newton_history(tau=20000.0, t_a=5.0, t_inf=25.0, hours=48)
+    t = np.array(history.time) - history.time[0]
+    y = np.array(history.temperature, dtype=float)
+    off = (t >= 7200) & (t < 14400)  # the first cooling stretch
+    ts, ys = t[off] - 7200, y[off]
+
+    def cooling(tt: np.ndarray, tau: float, t0: float) -> np.ndarray:
+        return 5.0 + (t0 - 5.0) * np.exp(-tt / tau)
+
+    (tau_ref, _), _ = optimize.curve_fit(cooling, ts, ys, p0=(5000.0, 20.0))
+    assert tau_ref == pytest.approx(20000.0, rel=1e-6)  # exact data, exact answer
+    fit, _, _ = identify(history, heater_w=2000.0, structures=("room",))
+    assert fit.params["Cr"] / fit.params["H"] == pytest.approx(tau_ref, rel=0.01)
+
+
+@pytest.mark.slow
+def test_hydronic_week_predicts_an_unseen_day() -> None:
+    plant = load_plant("hydronic")
+    sim = simulate(plant, days=8, seed=3)
+    fit, series, until = fit_on(
+        sim.history, 7 * 86400.0, heater_w=plant.heater_w, heating="hydronic"
+    )
+    yp = predict(fit, series, until)
+    unseen = np.isfinite(series.y)
+    unseen[:until] = False
+    rms = float(np.sqrt(np.mean((yp[unseen] - series.y[unseen]) ** 2)))
+    assert rms < 0.1, rms
+    true = plant.node_time_constants_s()
+    nodes = fit.node_time_constants_s()
+    assert nodes["mass"] == pytest.approx(true[("mass", "capacity_j_per_k")], rel=0.15)
+    building = (
+        plant.room.capacity_j_per_k + plant.mass.capacity_j_per_k  # type: ignore[union-attr]
+        + plant.emitter.capacity_j_per_k  # type: ignore[union-attr]
+    ) / plant.room.loss_w_per_k
+    assert nodes["building"] == pytest.approx(building, rel=0.15)
+    assert fit.params["H"] == pytest.approx(plant.room.loss_w_per_k, rel=0.15)
+
+
+def test_refusals_name_the_reason() -> None:
+    short = _newton_history(tau=20000.0, t_a=5.0, t_inf=25.0, hours=10)
+    assert any("too little data" in r for r in check_data(short))
+    flat = _newton_history(tau=20000.0, t_a=5.0, t_inf=25.0, hours=48)
+    flat.relay = [True] * len(flat.relay)
+    assert any("too little excitation" in r for r in check_data(flat))
+    stuck = _newton_history(tau=20000.0, t_a=5.0, t_inf=25.0, hours=48)
+    stuck.temperature = [20.0] * len(stuck.temperature)
+    assert any("stuck sensor" in r for r in check_data(stuck))
+    failsafe = _newton_history(tau=20000.0, t_a=5.0, t_inf=25.0, hours=48)
+    failsafe.fail_safe = [True] * len(failsafe.fail_safe)
+    with pytest.raises(IdentificationRefused, match="outside fail-safe"):
+        identify(failsafe, heater_w=2000.0)
+
+
+def test_daemon_path_imports_no_numpy() -> None:
+    code = (
+        "import sys\n"
+        "import roomloop.cli, roomloop.cli.run, roomloop.service.app, roomloop.history.recorder\n"
+        "import roomloop.cli.history, roomloop.cli.report, roomloop.cli.tune\n"
+        "bad = [m for m in ('numpy', 'scipy') if m in sys.modules]\n"
+        "print(bad); sys.exit(1 if bad else 0)\n"
+    )
+    done = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, timeout=60, check=False
+    )
+    assert done.returncode == 0, done.stdout + done.stderr
