@@ -37,6 +37,7 @@ from roomloop.config.checks import Finding, SiteParts, check_parts
 from roomloop.config.models import (
     Broker,
     CalendarEntry,
+    HeatSource,
     Link,
     Logging,
     Point,
@@ -519,9 +520,10 @@ _SECTIONS: dict[str, Any] = {
     "points": Point,
     "zones": Zone,
     "calendar": CalendarEntry,
+    "heat_sources": HeatSource,
     "logging": Logging,
 }
-_LIST_SECTIONS = ("links", "points", "zones", "calendar")
+_LIST_SECTIONS = ("links", "points", "zones", "calendar", "heat_sources")
 _REQUIRED = ("site", "zones")
 
 _ADAPTERS: dict[str, TypeAdapter[Any]] = {name: TypeAdapter(tp) for name, tp in _SECTIONS.items()}
