@@ -27,16 +27,17 @@ valve still takes its time to close.
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Sequence
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from roomloop.core.settings import ZoneSettings
 from roomloop.core.source import SourceInputs, SourceLogic, SourceSettings, ZoneDemand
 from roomloop.core.types import Controller, PointSample, ZoneInputs
 from roomloop.plant.controllers import make_controller
 from roomloop.plant.figures import OverallFigures, PhaseFigures, overall_figures, window_figures
-from roomloop.plant.loader import load_plant
+from roomloop.plant.loader import PLANT_FOR_HEATING, load_plant
 from roomloop.plant.model import PlantSimulation
 from roomloop.plant.protocol import (
     COMFORT_C,
@@ -51,6 +52,9 @@ from roomloop.plant.protocol import (
     run_protocol,
 )
 from roomloop.plant.spec import PlantSpec
+
+if TYPE_CHECKING:
+    from roomloop.config.models import Site
 
 
 @dataclass(frozen=True, slots=True)
@@ -322,6 +326,10 @@ ESTATES: tuple[str, ...] = ("two-zone", "three-zone")
 
 def _room(name: str, heating: str, plant: str, actuator_s: float) -> Room:
     settings = protocol_settings(ZoneSettings.for_heating_type(heating, name=name))
+    return _room_of(settings, plant, actuator_s)
+
+
+def _room_of(settings: ZoneSettings, plant: str, actuator_s: float) -> Room:
     spec = load_plant(plant)
     # The built-in plant's transport delay counts the actuator's opening; here the actuator
     # is modelled on its own, so the pipe run is what stays.
@@ -350,6 +358,34 @@ def builtin_estate(name: str) -> Estate:
     return Estate(name, tuple(rooms), source)
 
 
+def estate_from_site(
+    site: Site, source_name: str, *, actuator_s: float | None = None
+) -> tuple[Estate, tuple[str, ...]]:
+    """The estate of one heat source of a site: every local zone it serves, each with its own
+    settings at its own comfort and economy set points and its heating type's built-in plant;
+    and the remote zones it serves (not simulated: another site runs them).
+
+    ``actuator_s`` is how long the valves really take (default: the source's
+    ``valve_opening_s``, i.e. the configuration is right). ``KeyError`` for an unknown source.
+    """
+    config = next((hs for hs in site.heat_sources if hs.name == source_name), None)
+    if config is None:
+        raise KeyError(source_name)
+    source = SourceSettings.from_config(config)
+    actuator = source.valve_opening_s if actuator_s is None else actuator_s
+    rooms = []
+    for name in config.local_zones:
+        zone = ZoneSettings.from_site(site, name)
+        settings = protocol_settings(zone, comfort_c=zone.comfort_c, economy_c=zone.economy_c)
+        rooms.append(_room_of(settings, PLANT_FOR_HEATING[zone.heating], actuator))
+    local = tuple(r.name for r in rooms)
+    return (
+        Estate(f"{site.name}/{source_name}", tuple(rooms),
+               dataclasses.replace(source, zones=local)),
+        tuple(config.remote_zones),
+    )
+
+
 __all__ = [
     "COMFORT_C",
     "ECONOMY_C",
@@ -358,5 +394,6 @@ __all__ = [
     "EstateResult",
     "Room",
     "builtin_estate",
+    "estate_from_site",
     "run_estate",
 ]
