@@ -135,6 +135,16 @@ class ZoneDemand:
     """The zone calls for frost protection (its controller's reason is ``protection``)."""
 
 
+def local_demand(zone: str, demand: bool, reason: str, now: float) -> ZoneDemand:
+    """A local zone's call from its controller's outputs of this tick (``ZoneOutputs.demand``
+    and ``.reason``): heard now, always online; a frost-protection call (``protection``, also
+    while riding on the last temperature) says so."""
+    return ZoneDemand(
+        zone, demand, heard_at=now, online=True,
+        protection=demand and reason.rsplit(":", 1)[-1] == "protection",
+    )
+
+
 @dataclass(frozen=True, slots=True)
 class SourceInputs:
     demands: tuple[ZoneDemand, ...]

@@ -33,7 +33,13 @@ from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
 from roomloop.core.settings import ZoneSettings
-from roomloop.core.source import SourceInputs, SourceLogic, SourceSettings, ZoneDemand
+from roomloop.core.source import (
+    SourceInputs,
+    SourceLogic,
+    SourceSettings,
+    ZoneDemand,
+    local_demand,
+)
 from roomloop.core.types import Controller, PointSample, ZoneInputs
 from roomloop.plant.controllers import make_controller
 from roomloop.plant.figures import OverallFigures, PhaseFigures, overall_figures, window_figures
@@ -225,10 +231,7 @@ def run_estate(estate: Estate, *, seed: int = 1, tick_s: float = TICK_S) -> Esta
             states[i], out = controllers[i].step(states[i], inputs, now)
             traces[i].room_c.append(sim.room_c)
             traces[i].demand.append(out.demand)
-            demands.append(
-                ZoneDemand(room.name, out.demand, heard_at=now,
-                           protection=out.reason == "protection")
-            )
+            demands.append(local_demand(room.name, out.demand, out.reason, now))
         source_state, source_out = logic.step(source_state, SourceInputs(tuple(demands)), now)
         enable.append(source_out.enable)
         pump.append(source_out.pump)
