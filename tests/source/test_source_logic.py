@@ -176,3 +176,14 @@ def test_missing_remote_zone_is_stale_and_fixed_duty_runs_a_duty_cycle() -> None
 
 def _fields(settings: SourceSettings) -> dict[str, object]:
     return {name: getattr(settings, name) for name in settings.__slots__}  # type: ignore[attr-defined]
+
+
+def test_local_demand_from_controller_outputs() -> None:
+    from roomloop.core.source import local_demand
+
+    assert local_demand("office", True, "protection", T0) == ZoneDemand(
+        "office", True, heard_at=T0, online=True, protection=True
+    )
+    assert local_demand("office", True, "last-temperature:protection", T0).protection
+    assert not local_demand("office", True, "cut-in", T0).protection
+    assert not local_demand("office", False, "protection", T0).protection  # held off: no call

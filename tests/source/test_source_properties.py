@@ -171,3 +171,39 @@ def test_a_call_of_a_single_tick_never_starts_the_source(
     runs = [[(1, c) for c in calls], [(500, False)], [(500, False)]]
     _, ticks, _ = _simulate(timing, runs, tick_s)
     assert not any(t.out.enable for t in ticks)
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    timing=timings,
+    heard=st.lists(
+        st.tuples(st.booleans(), st.booleans(), st.integers(0, 900)), min_size=5, max_size=60
+    ),
+    policy=st.sampled_from(["ignore", "assume-calling", "fixed-duty"]),
+)
+def test_stale_remote_zones_are_reported_and_follow_the_policy(
+    timing: dict[str, object], heard: list[tuple[bool, bool, int]], policy: str
+) -> None:
+    """Each tick a remote zone is heard or not (online, calling, age of its last message):
+    it is reported stale exactly when offline or silent past the timeout, and a stale zone
+    under ``ignore`` never calls, under ``assume-calling`` always calls."""
+    s = SourceSettings(name="s", zones=("north/a",), stale_policy=policy,  # type: ignore[arg-type]
+                       stale_timeout_s=300, **timing)  # type: ignore[arg-type]
+
+    def demands(now: float) -> list[ZoneDemand]:
+        online, calling, age = heard[round((now - T0) / 30.0) % len(heard)]
+        return [ZoneDemand("north/a", calling, heard_at=now - age, online=online)]
+
+    ticks = run(s, demands, ticks=len(heard), tick_s=30.0)
+    for tick in ticks:
+        (d,) = tick.demands
+        assert d.heard_at is not None
+        stale = not d.online or tick.now - d.heard_at > 300
+        assert tick.out.stale == (("north/a",) if stale else ())
+        calls = "north/a" in tick.out.calling
+        if not stale:
+            assert calls is d.calling
+        elif policy == "ignore":
+            assert not calls
+        elif policy == "assume-calling":
+            assert calls
