@@ -301,7 +301,8 @@ class SourceLogic:
         valve_until = calls.since[first] + s.valve_opening_s
         if now < valve_until:
             return state, _out(False, "valve-opening", waiting_for=first, waiting_until=valve_until)
-        off_until = (state.stopped_at or -math.inf) + s.min_off_s
+        stopped = -math.inf if state.stopped_at is None else state.stopped_at
+        off_until = stopped + s.min_off_s
         if now < off_until:
             return state, _out(False, "min-off", lockout="min-off", lockout_until=off_until)
         if len(state.starts) >= s.max_starts_per_hour and not calls.protection:
