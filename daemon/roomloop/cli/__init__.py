@@ -108,6 +108,25 @@ def build_parser() -> argparse.ArgumentParser:
     sim.add_argument("--json", metavar="OUT.json", help="write the figures as JSON")
     sim.add_argument("--plot", metavar="OUT.png", help="write a plot (needs the 'plot' extra)")
 
+    estate = add(
+        "simulate-source",
+        "run the zones sharing one heat source on the standard protocol, each also alone",
+    )
+    which = estate.add_mutually_exclusive_group(required=True)
+    which.add_argument("-c", "--config", metavar="SITE.yaml", help="take the source from this site")
+    which.add_argument(
+        "--example", choices=["two-zone", "three-zone"], help="a built-in estate (no site needed)"
+    )
+    estate.add_argument("--source", metavar="NAME", help="the heat source to simulate (with -c)")
+    estate.add_argument(
+        "--actuator-s",
+        type=float,
+        metavar="S",
+        help="how long the valves really take to open (default: the source's valve_opening_s)",
+    )
+    estate.add_argument("--seed", type=int, default=1, help="seed of the sensor noise (default 1)")
+    estate.add_argument("--json", metavar="OUT.json", help="write the figures as JSON")
+
     probe = add(
         "probe",
         "commissioning: read one point (or switch an output) and show raw and decoded values",
@@ -200,6 +219,7 @@ def _add_history_commands(add: Callable[[str, str], argparse.ArgumentParser]) ->
 _COMMANDS = {
     "check": "roomloop.cli.check",
     "simulate": "roomloop.cli.simulate",
+    "simulate-source": "roomloop.cli.simulate_source",
     "probe": "roomloop.cli.probe",
     "run": "roomloop.cli.run",
     "demo": "roomloop.cli.demo",

@@ -21,6 +21,7 @@ from roomloop.config.models import (
     BYTE_LETTERS,
     LEVELS,
     Broker,
+    HeatSource,
     ModbusInput,
     ModbusOutput,
     ModbusRtuLink,
@@ -111,6 +112,12 @@ def print_site(site: Site, out: TextIO) -> None:
         until = f"{entry.end} (whole day)" if whole_day else entry.end
         zones = "every zone" if entry.zones is None else ", ".join(entry.zones)
         w(f"  {entry.name}: {entry.start} to {until}: {entry.level}, {zones}\n")
+
+    w("\nheat sources\n")
+    if not site.heat_sources:
+        w("  (none)\n")
+    for source in site.heat_sources:
+        _heat_source(source, site.topic_prefix, w)
 
 
 def _broker_text(broker: Broker | None, site: Site) -> str:
@@ -277,3 +284,37 @@ def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:
 
 def _days(days: list[str] | str) -> str:
     return days if isinstance(days, str) else ",".join(days)
+
+
+def _heat_source(source: HeatSource, prefix: str, write: Callable[[str], object]) -> None:
+    pump = f"pump {source.pump_output}" if source.pump_output else "no pump output"
+    write(f"  {source.name}: {source.kind}, enable {source.output}, {pump}\n")
+    write(f"    serves: {', '.join(source.zones)}\n")
+    for text in source.remote_zones:
+        site, zone = text.split("/", 1)
+        write(f"    {text}: heard on {source.remote_prefix(site)}/zone/{zone}/demand\n")
+    if source.remote_zones:
+        stale = source.remote_stale
+        policy: str = stale.policy
+        if stale.policy == "fixed-duty":
+            policy += f" {stale.duty:.0%} of {_n(stale.period_s)} s"
+        write(
+            f"    stale remote zone (site offline, or silent {_n(stale.timeout_s)} s): {policy}\n"
+        )
+    write(f"    state on {prefix}/source/{source.name}/state\n")
+    timing = source.effective
+    origins = source.origins
+    rows = [
+        ("valve opening", f"{_n(timing.valve_opening_s)} s", "valve_opening_s"),
+        ("pump pre-run", f"{_n(timing.pump_pre_run_s)} s", "pump_pre_run_s"),
+        ("pump overrun", f"{_n(timing.pump_overrun_s)} s", "pump_overrun_s"),
+        ("minimum on", f"{_n(timing.min_on_s)} s", "min_on_s"),
+        ("minimum off", f"{_n(timing.min_off_s)} s", "min_off_s"),
+        ("most starts per hour", str(timing.max_starts_per_hour), "max_starts_per_hour"),
+        ("pump exercise after", f"{_n(timing.pump_exercise_after_s / 3600)} h idle",
+         "pump_exercise_after_s"),
+        ("pump exercise run", f"{_n(timing.pump_exercise_s)} s", "pump_exercise_s"),
+    ]
+    write("    timing:\n")
+    for label, value, key in rows:
+        write(f"      {label:<27} {value:<14} {origins.get(key, '')}\n")

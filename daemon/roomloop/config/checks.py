@@ -24,6 +24,7 @@ from roomloop.config.models import (
     Bms,
     Broker,
     CalendarEntry,
+    HeatSource,
     Logging,
     ModbusInput,
     ModbusOutput,
@@ -62,6 +63,7 @@ class SiteParts:
     points: list[tuple[int, AnyPoint]] = field(default_factory=list)
     zones: list[tuple[int, Zone]] = field(default_factory=list)
     calendar: list[tuple[int, CalendarEntry]] = field(default_factory=list)
+    heat_sources: list[tuple[int, HeatSource]] = field(default_factory=list)
     invalid_names: dict[str, set[str]] = field(default_factory=dict)
     """Names of items that failed validation: not reported again as unknown."""
     bms: Bms | None = None
@@ -81,6 +83,7 @@ class SiteParts:
             calendar=list(enumerate(site.calendar)),
             bms=site.bms,
             alarms=site.alarms,
+            heat_sources=list(enumerate(site.heat_sources)),
         )
 
 
@@ -104,6 +107,7 @@ def check_parts(parts: SiteParts) -> list[Finding]:
     findings += _bms_face(parts)
     findings += _point_topics(parts)
     findings += _outdoor_point(parts)
+    findings += check_heat_sources(parts)
     for index, zone in parts.zones:
         findings += _setpoints(index, zone, parts.units)
         findings += _tuning(index, zone, parts.units)
@@ -629,4 +633,101 @@ def _program(index: int, zone: Zone) -> list[Finding]:
                 )
                 break
             seen.setdefault(key, k)
+    return findings
+
+
+# --------------------------------------------------------------------------- heat sources
+
+
+def check_heat_sources(parts: SiteParts) -> list[Finding]:
+    """A heat source's references and conflicts.
+
+    Refused: a local zone that does not exist, a remote ``SITE/ZONE`` of this very site or
+    without a broker, a zone served by two sources, an enable or pump output that is not an
+    output or that a zone or another source already switches, a remote prefix for a site
+    none of the source's zones names.
+    """
+    findings = _duplicate_names("heat_sources", parts.heat_sources)
+    findings += _served_zones(parts)
+    findings += _source_outputs(parts)
+    return findings
+
+
+def _served_zones(parts: SiteParts) -> list[Finding]:
+    known = {zone.name for _, zone in parts.zones} | parts.invalid_names.get("zones", set())
+    here = parts.site.name if parts.site is not None else None
+    served: dict[str, str] = {}
+    findings: list[Finding] = []
+    for index, source in parts.heat_sources:
+        remote_sites: set[str] = set()
+        for position, text in enumerate(source.zones):
+            where: KeyPath = ("heat_sources", index, "zones", position)
+            site, zone = text.split("/", 1) if "/" in text else (None, text)
+            problem = None
+            if site is None and zone not in known:
+                problem = f"no zone named {zone!r} (zones: {', '.join(sorted(known)) or 'none'})"
+            elif site is not None and site == here:
+                problem = f"{site!r} is this site: write the local zone as {zone!r}"
+            elif site is not None and not parts.broker_present:
+                problem = (
+                    f"remote zone {text!r} is heard over MQTT: the site needs a 'broker' section"
+                )
+            elif text in served:
+                problem = (
+                    f"zone {text!r} is already served by heat source {served[text]!r}; a zone "
+                    "has one heat source"
+                )
+            if site is not None:
+                remote_sites.add(site)
+            if problem is not None:
+                findings.append(Finding(where, problem))
+            else:
+                served[text] = source.name
+        for site in source.remote_prefixes:
+            if site not in remote_sites:
+                findings.append(
+                    Finding(
+                        ("heat_sources", index, "remote_prefixes", site),
+                        f"no zone of site {site!r} is served by this source (zones: "
+                        f"{', '.join(source.zones)})",
+                    )
+                )
+    return findings
+
+
+def _source_outputs(parts: SiteParts) -> list[Finding]:
+    points = {point.name: point for _, point in parts.points}
+    bad_points = parts.invalid_names.get("points", set())
+    known = ", ".join(sorted(points)) or "none defined"
+    users: dict[str, str] = {zone.output: f"zone {zone.name!r}" for _, zone in parts.zones}
+    findings: list[Finding] = []
+    for index, source in parts.heat_sources:
+        for key in ("output", "pump_output"):
+            name = getattr(source, key)
+            if name is None:
+                continue
+            where: KeyPath = ("heat_sources", index, key)
+            point = points.get(name)
+            what = "enable" if key == "output" else "pump"
+            if point is None:
+                if name not in bad_points:
+                    findings.append(Finding(where, f"unknown point {name!r} (points: {known})"))
+            elif isinstance(point, ModbusInput | MqttInput):
+                findings.append(
+                    Finding(
+                        where,
+                        f"{name!r} is an input ({point.type}); a source's {what} output must be "
+                        "a relay output",
+                    )
+                )
+            elif name in users:
+                findings.append(
+                    Finding(
+                        where,
+                        f"output {name!r} is already switched by {users[name]}; a source's "
+                        f"{what} output is its own relay",
+                    )
+                )
+            else:
+                users[name] = f"heat source {source.name!r} ({key})"
     return findings

@@ -41,6 +41,7 @@ from roomloop.config.models import (
     Bms,
     Broker,
     CalendarEntry,
+    HeatSource,
     History,
     Link,
     Logging,
@@ -748,12 +749,13 @@ _SECTIONS: dict[str, Any] = {
     "points": Point,
     "zones": Zone,
     "calendar": CalendarEntry,
+    "heat_sources": HeatSource,
     "logging": Logging,
     "bms": Bms,
     "alarms": Alarms,
     "history": History,
 }
-_LIST_SECTIONS = ("links", "points", "zones", "calendar")
+_LIST_SECTIONS = ("links", "points", "zones", "calendar", "heat_sources")
 _REQUIRED = ("site", "zones")
 
 _ADAPTERS: dict[str, TypeAdapter[Any]] = {name: TypeAdapter(tp) for name, tp in _SECTIONS.items()}

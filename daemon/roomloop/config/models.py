@@ -942,6 +942,203 @@ def resolve_tuning(heating: HeatingType, given: TuningInput) -> tuple[Tuning, di
         values["anticipator_time_constant_s"] = tau
         origins["anticipator_time_constant_s"] = "derived from cycle rate"
     return Tuning.model_validate(values), origins
+# --------------------------------------------------------------------------- heat sources
+
+SourceKind = Literal["boiler", "heat-pump", "electric"]
+StalePolicy = Literal["ignore", "assume-calling", "fixed-duty"]
+
+SOURCE_TIMING_KEYS = (
+    "valve_opening_s",
+    "pump_pre_run_s",
+    "pump_overrun_s",
+    "min_on_s",
+    "min_off_s",
+    "max_starts_per_hour",
+    "pump_exercise_after_s",
+    "pump_exercise_s",
+)
+
+SOURCE_DEFAULTS: dict[str, dict[str, float]] = {
+    # Each value with where it comes from (the tags of ../shared/REFERENCES.md).
+    "boiler": {
+        # Thermal (wax) manifold actuators open in about 2-5 min: common practice, no source.
+        "valve_opening_s": 180.0,
+        # A boiler's pump starts with the burner: common practice, no source.
+        "pump_pre_run_s": 0.0,
+        # Pump overrun after a boiler stops about 2-5 min, often set by the boiler maker:
+        # common practice, no source.
+        "pump_overrun_s": 180.0,
+        # Burner minimum run and anti-cycling pause of a few minutes: recalled from memory.
+        "min_on_s": 120.0,
+        "min_off_s": 180.0,
+        # At most 6 burner starts an hour: common practice, no source.
+        "max_starts_per_hour": 6,
+        # A daily pump kick against seizing in summer, about a minute: recalled from memory.
+        "pump_exercise_after_s": 86400.0,
+        "pump_exercise_s": 60.0,
+    },
+    "heat-pump": {
+        # Same manifold actuators as for a boiler: common practice, no source.
+        "valve_opening_s": 180.0,
+        # Flow established (the unit's flow switch proven) before the compressor starts:
+        # common practice, no source.
+        "pump_pre_run_s": 60.0,
+        # Little residual heat in a heat pump's condenser, but the unit may defrost or run
+        # its own overrun: common practice, no source.
+        "pump_overrun_s": 120.0,
+        # Compressor minimum run about 5-10 min (oil return): recalled from memory.
+        "min_on_s": 360.0,
+        # Compressor anti-short-cycle: at least 3-5 min off between starts: common practice,
+        # no source.
+        "min_off_s": 300.0,
+        # 3-4 starts per hour for small compressors: common practice, no source.
+        "max_starts_per_hour": 3,
+        "pump_exercise_after_s": 86400.0,
+        "pump_exercise_s": 60.0,
+    },
+    "electric": {
+        "valve_opening_s": 180.0,
+        # An electric flow boiler heats at once and keeps little heat: common practice,
+        # no source.
+        "pump_pre_run_s": 0.0,
+        "pump_overrun_s": 60.0,
+        # Contactor wear bounds the cycling, not the heater: common practice, no source.
+        "min_on_s": 60.0,
+        "min_off_s": 60.0,
+        "max_starts_per_hour": 12,
+        "pump_exercise_after_s": 86400.0,
+        "pump_exercise_s": 60.0,
+    },
+}
+"""Timing defaults of each source kind; a heat source's ``timing`` overrides any of them."""
+
+_NAME_RE = r"[a-z0-9][a-z0-9_-]{0,63}"
+_SERVED = re.compile(rf"(?:(?P<site>{_NAME_RE})/)?(?P<zone>{_NAME_RE})")
+
+
+def served_zone_parts(text: str) -> tuple[str | None, str]:
+    """``"office"`` -> ``(None, "office")``; ``"north/office"`` -> ``("north", "office")``."""
+    match = _SERVED.fullmatch(text)
+    if match is None:
+        raise ValueError(
+            f"{text!r} is not a zone name or SITE/ZONE (lower case, digits, '-' and '_')"
+        )
+    return match.group("site"), match.group("zone")
+
+
+class SourceTimingInput(Strict):
+    """A heat source's timing as written; whatever is left out comes from its kind."""
+
+    valve_opening_s: Annotated[Float, Field(ge=0, le=1800)] | None = None
+    """The source fires only once the first calling zone's valve has been open this long."""
+    pump_pre_run_s: Annotated[Float, Field(ge=0, le=600)] | None = None
+    pump_overrun_s: Annotated[Float, Field(ge=0, le=3600)] | None = None
+    min_on_s: Annotated[Float, Field(ge=0, le=7200)] | None = None
+    min_off_s: Annotated[Float, Field(ge=0, le=7200)] | None = None
+    max_starts_per_hour: Annotated[Int, Field(ge=1, le=60)] | None = None
+    pump_exercise_after_s: Annotated[Float, Field(ge=3600, le=30 * 86400)] | None = None
+    """The pump runs ``pump_exercise_s`` after it has been idle this long (against seizing)."""
+    pump_exercise_s: Annotated[Float, Field(ge=0, le=900)] | None = None
+
+
+class SourceTiming(BaseModel):
+    """Effective timing of a heat source: every value set."""
+
+    model_config = ConfigDict(frozen=True)
+
+    valve_opening_s: float
+    pump_pre_run_s: float
+    pump_overrun_s: float
+    min_on_s: float
+    min_off_s: float
+    max_starts_per_hour: int
+    pump_exercise_after_s: float
+    pump_exercise_s: float
+
+
+class RemoteStale(Strict):
+    """What a source does with a remote zone whose demand it can no longer trust: the zone's
+    daemon is offline (its last will) or nothing came from the zone for ``timeout_s``."""
+
+    policy: StalePolicy = "fixed-duty"
+    timeout_s: Annotated[Float, Field(ge=10, le=86400)] = 300.0
+    """Longer than the remote site's ``publish_interval_s`` (its state is re-sent that often)."""
+    duty: Fraction = 0.3
+    """``fixed-duty``: the stale zone counts as calling this fraction of each period."""
+    period_s: Annotated[Float, Field(ge=60, le=14400)] = 1200.0
+
+
+def _topic_prefix(value: str) -> str:
+    if not value or value.startswith("/") or value.endswith("/") or any(c in value for c in "#+"):
+        raise ValueError("a topic prefix has no leading or trailing '/', and no '#' or '+'")
+    return value
+
+
+class HeatSource(Strict):
+    """A boiler, heat pump or electric source with an enable output and an optional pump,
+    serving local zones (``office``) or zones of other sites on the broker (``SITE/ZONE``)."""
+
+    name: Name
+    kind: SourceKind
+    output: Name
+    """The source's enable output (a relay point)."""
+    pump_output: Name | None = None
+    zones: Annotated[list[str], Field(min_length=1)]
+    timing: SourceTimingInput = SourceTimingInput()
+    remote_stale: RemoteStale = RemoteStale()
+    remote_prefixes: dict[Name, str] = {}
+    """Topic prefix of a remote site whose zones this source serves; default ``roomloop/<SITE>``."""
+
+    _timing: SourceTiming | None = PrivateAttr(default=None)
+    _origins: dict[str, str] = PrivateAttr(default_factory=dict)
+
+    @field_validator("zones")
+    @classmethod
+    def _served(cls, value: list[str]) -> list[str]:
+        for text in value:
+            served_zone_parts(text)
+        if len(set(value)) != len(value):
+            raise ValueError("a zone is listed twice")
+        return value
+
+    @field_validator("remote_prefixes")
+    @classmethod
+    def _prefixes(cls, value: dict[str, str]) -> dict[str, str]:
+        for prefix in value.values():
+            _topic_prefix(prefix)
+        return value
+
+    def model_post_init(self, context: Any, /) -> None:
+        defaults = SOURCE_DEFAULTS[self.kind]
+        values: dict[str, Any] = {}
+        for key in SOURCE_TIMING_KEYS:
+            given = getattr(self.timing, key)
+            values[key] = defaults[key] if given is None else given
+            self._origins[key] = f"kind {self.kind}" if given is None else "file"
+        self._timing = SourceTiming(**values)
+
+    @property
+    def effective(self) -> SourceTiming:
+        """The timing the source logic uses, kind defaults filled in."""
+        assert self._timing is not None
+        return self._timing
+
+    @property
+    def origins(self) -> dict[str, str]:
+        """For each timing key: ``file`` or ``kind <kind>``."""
+        return dict(self._origins)
+
+    @property
+    def local_zones(self) -> list[str]:
+        return [z for z in self.zones if "/" not in z]
+
+    @property
+    def remote_zones(self) -> list[str]:
+        return [z for z in self.zones if "/" in z]
+
+    def remote_prefix(self, site: str) -> str:
+        """The topic prefix the remote ``site`` publishes under."""
+        return self.remote_prefixes.get(site, f"roomloop/{site}")
 
 
 class Logging(Strict):
@@ -1095,6 +1292,8 @@ class Site(Strict):
     zones: Annotated[list[Zone], Field(min_length=1)]
     calendar: list[CalendarEntry] = []
     """Holidays and one-off events: date ranges whose level replaces the weekly program."""
+    heat_sources: list[HeatSource] = []
+    """Boilers, heat pumps and electric sources fired on the demand of the zones they serve."""
     logging: Logging = Logging()
     bms: Bms | None = None
     alarms: Alarms = Alarms()
