@@ -264,3 +264,22 @@ def test_an_unexpected_error_while_applying_is_answered_as_refused() -> None:
     answer = h.handle("p/zone/studio/cmd/mode", b"hold", retained=False, now=NOW, monotonic=0.0)
     assert answer is not None
     assert json.loads(answer.payload) == {"field": "mode", "ok": False, "reason": "internal error"}
+
+
+def test_an_answer_says_when_the_command_cannot_be_made_durable() -> None:
+    rec = Recorder()
+    status = ["ok"]
+    h = CommandHandler(
+        "roomloop/annex", {"studio": ZONE}, rec, units="C", tz=VIENNA, rate_per_min=30,
+        durability=lambda: status[0],
+    )
+    topic = "roomloop/annex/zone/studio/cmd/setpoint"
+    answer = h.handle(topic, b"22", retained=False, now=NOW, monotonic=0.0)
+    assert answer is not None and "durable" not in json.loads(answer.payload)
+    status[0] = "failed: the state directory is not writable"
+    answer = h.handle(topic, b"23", retained=False, now=NOW, monotonic=1.0)
+    assert answer is not None
+    body = json.loads(answer.payload)
+    assert body["ok"] is True and body["durable"] is False
+    assert "not writable" in body["warning"] and "restart" in body["warning"]
+    assert [c.value for c in rec.applied] == [22.0, 23.0]

@@ -56,6 +56,12 @@ async def test_a_read_only_state_dir_at_start_still_controls_and_says_persistenc
                 assert state["mode"] == "auto" and state["demand"] is True
                 assert state["persistence"].startswith("failed: "), state
                 assert "not writable" in state["persistence"]
+                # A command is applied, and its answer says it cannot be made durable now.
+                before = len(watcher.results)
+                await watcher.command("room0", "setpoint", "21.5")
+                answer = await watcher.answer(before)
+                assert answer["ok"] is True and answer["durable"] is False, answer
+                assert "holds until a restart" in answer["warning"], answer
                 events = [e["event"] for e in service.log_events()]
                 assert "persist.failed_at_start" in events
                 assert "service.ready" in events or "service.starting" in events

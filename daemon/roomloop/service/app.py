@@ -153,6 +153,7 @@ class Service:
                 tz=self.tz,
                 refusals=(CommandRejected,),
                 alarms=self.alarms,
+                durability=lambda: self.store.status,
             )
         # After each step: the published view, persistence, then the embedder's hook.
         self.runner.subscribe(self._publish_step)

@@ -218,10 +218,14 @@ class CommandHandler:
         tz: ZoneInfo,
         rate_per_min: int,
         refusals: tuple[type[Exception], ...] = (),
+        durability: Callable[[], str] | None = None,
     ) -> None:
         self.prefix = prefix
         self.zones = zones
         self.apply = apply
+        self.durability = durability
+        """``ok``, or why an applied command cannot be saved now (the state store's status):
+        the answer then says the command holds only until a restart."""
         self.units = units
         self.tz = tz
         self.limit = RateLimit(rate_per_min)
@@ -265,6 +269,15 @@ class CommandHandler:
                 answer.update(ok=False, reason="internal error")
             else:
                 answer.update(ok=True, value=shown)
+                status = "ok" if self.durability is None else self.durability()
+                if status != "ok":
+                    answer.update(
+                        durable=False,
+                        warning=(
+                            "applied, but the zone state cannot be saved now (persistence "
+                            f"{status}): it holds until a restart; saving is retried"
+                        ),
+                    )
         return Answer(result_topic(self.prefix, zone.name), json.dumps(answer))
 
 

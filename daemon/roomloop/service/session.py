@@ -59,6 +59,7 @@ class BrokerSession:
         tz: ZoneInfo,
         refusals: tuple[type[Exception], ...],
         alarms: AlarmBook | None = None,
+        durability: Callable[[], str] | None = None,
     ) -> None:
         from roomloop.io.broker import BrokerConnection, LastWill
 
@@ -76,6 +77,7 @@ class BrokerSession:
             tz=tz,
             rate_per_min=broker.command_rate_per_min,
             refusals=refusals,
+            durability=durability,
         )
         self.connection = BrokerConnection(
             broker,
