@@ -6,6 +6,7 @@ import asyncio
 import contextlib
 import socket
 import ssl
+import time
 from pathlib import Path
 from typing import Any
 
@@ -206,3 +207,25 @@ async def test_last_will_published_when_the_process_dies(mosquitto: Any) -> None
         if process.returncode is None:
             process.kill()
         await process.wait()
+
+
+@pytest.mark.needs_mosquitto
+async def test_a_broker_that_returns_is_reconnected_without_waiting_out_the_long_pause(
+    mosquitto: Any,
+) -> None:
+    mosquitto.stop()  # down long enough that the pause has grown to its maximum
+    conn = BrokerConnection(
+        Broker(host=mosquitto.host, port=mosquitto.port), backoff_min_s=30.0, backoff_max_s=30.0
+    )
+    task = asyncio.create_task(conn.run(lambda _message: None))
+    try:
+        await asyncio.sleep(0.5)  # the first attempt failed: a 30 s pause has begun
+        assert conn.connections == 0
+        mosquitto.start()
+        returned = time.monotonic()
+        await asyncio.wait_for(conn.connected.wait(), 10.0)  # far less than the 30 s pause
+        assert time.monotonic() - returned < 10.0 and conn.connections == 1
+    finally:
+        task.cancel()
+        with contextlib.suppress(asyncio.CancelledError):
+            await task

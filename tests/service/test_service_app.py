@@ -226,6 +226,32 @@ async def test_ready_waits_for_the_links_but_only_so_long(tmp_path: Path) -> Non
     assert ready and ready[0]["links_down"] == ["rooms"]
 
 
+async def test_a_device_that_takes_the_connection_but_never_answers_is_a_link_down(
+    tmp_path: Path,
+) -> None:
+    # A gateway that accepts TCP and then stays silent: connected, but nothing answers.
+    async def silent(reader: asyncio.StreamReader, writer: asyncio.StreamWriter) -> None:
+        with contextlib.suppress(Exception):
+            while await reader.read(256):
+                pass
+        writer.close()
+
+    server = await asyncio.start_server(silent, "127.0.0.1", 0)
+    port = server.sockets[0].getsockname()[1]
+    clock = VirtualClock()
+    site = make_site(tmp_path, port)
+    service = Service(site, clock=clock, state_dir=tmp_path / "state", ready_wait_s=30.0)
+    try:
+        with capture_logs() as events:
+            async with running(service):
+                await until(clock, service.ready.is_set, 600)
+                assert service.links["rooms"].connected and not service.links["rooms"].up
+    finally:
+        server.close()
+    ready = [e for e in events if e["event"] == "service.ready"]
+    assert ready and ready[0]["links_down"] == ["rooms"]
+
+
 async def test_a_missing_broker_tls_file_stops_the_start_before_any_output_moves(
     tmp_path: Path, modbus_tcp_server: Any
 ) -> None:

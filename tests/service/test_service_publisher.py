@@ -116,3 +116,12 @@ def test_a_view_that_cannot_render_is_skipped_and_the_others_still_go_out() -> N
     topics = [m.topic for m in pub.due(AT)]
     assert "p/zone/studio/state" in topics and len(topics) == 6
     assert not any("/broken/" in t for t in topics)
+
+
+def test_a_read_back_is_not_shown_as_confirmed_while_the_device_cannot_be_reached() -> None:
+    # the last read-back said on, then the write failed: what the relay is now is unknown
+    down = dataclasses.replace(VIEW, output_verdict="comm-failure", output_confirmed=True)
+    assert state_payload(down, units="C", tz=VIENNA)["output"] == {
+        "point": "relay", "verdict": "comm-failure", "confirmed": None
+    }
+    assert state_payload(VIEW, units="C", tz=VIENNA)["output"]["confirmed"] is True

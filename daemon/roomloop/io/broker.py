@@ -11,6 +11,7 @@ certificate or an unreachable broker never ends the loop, they are logged.
 from __future__ import annotations
 
 import asyncio
+import contextlib
 import inspect
 import os
 import ssl
@@ -22,7 +23,7 @@ from typing import Any
 import aiomqtt
 
 from roomloop.backoff import Backoff
-from roomloop.clock import Clock, RealClock
+from roomloop.clock import Clock, RealClock, timeout
 from roomloop.config.models import Broker
 from roomloop.errors import BrokerError
 from roomloop.io.broker_errors import describe_broker_error
@@ -159,6 +160,10 @@ async def _call(hook: Callable[..., Any] | None, arg: Any) -> None:
         await result
 
 
+PROBE_EVERY_S = 1.0
+"""How often a reconnect pause looks whether the broker's port takes a connection again."""
+
+
 class BrokerConnection:
     """One broker connection, kept up until cancelled.
 
@@ -235,8 +240,41 @@ class BrokerConnection:
                 self.connected.clear()
                 if was_connected:
                     await _call_noarg(on_disconnect)
-            await self.clock.io.sleep(delay)
+            await self._pause(delay)
             delay = backoff.after(delay)
+
+    async def _pause(self, delay: float) -> None:
+        """The backoff's pause, cut short once the broker's port takes a connection again: a
+        broker back after a long outage is reconnected within about ``PROBE_EVERY_S``, not
+        after the rest of a pause that grew to ``backoff_max_s``."""
+        clock = self.clock.io
+        end = clock.monotonic() + delay
+        # Only a broker that was away is let in early: one that takes the connection but
+        # refuses us (a password, a limit) waits the pause out.
+        seen_closed = not await self._port_open()
+        while True:
+            left = end - clock.monotonic()
+            if left <= 0:
+                return
+            await clock.sleep(min(PROBE_EVERY_S, left))
+            if clock.monotonic() >= end:
+                return
+            if await self._port_open():
+                if seen_closed:
+                    return
+            else:
+                seen_closed = True
+
+    async def _port_open(self) -> bool:
+        try:
+            async with timeout(self.clock.io, PROBE_EVERY_S):
+                _reader, writer = await asyncio.open_connection(self.broker.host, self.broker.port)
+        except (OSError, TimeoutError):
+            return False
+        writer.close()
+        with contextlib.suppress(OSError):
+            await writer.wait_closed()
+        return True
 
 
 async def _call_noarg(hook: Callable[[], Awaitable[None] | None] | None) -> None:

@@ -153,6 +153,8 @@ class ModbusLink:
         """One write-and-read-back at a time per output, so a re-assert of the old state
         can never interleave with the write of a new decision."""
         self.cycles = 0
+        self.answering = True
+        """Whether the last poll got at least one answer (True until a poll says otherwise)."""
         """Completed poll cycles (tests and status use it)."""
         self.requests = 0
         """Requests sent, retries included."""
@@ -171,6 +173,12 @@ class ModbusLink:
     @property
     def connected(self) -> bool:
         return bool(self._client is not None and self._client.connected)
+
+    @property
+    def up(self) -> bool:
+        """Connected, and its last poll had an answer (a device may take the TCP connection
+        and never answer; a link without reads counts as up once connected)."""
+        return self.connected and self.answering
 
     async def __aenter__(self) -> ModbusLink:
         _quiet_pymodbus()
@@ -354,6 +362,7 @@ class ModbusLink:
         the time of the failed attempt); the other reads go on.
         """
         fresh: list[PointSample] = []
+        answered = 0
         for read in self.plan:
             try:
                 registers = await self._read_registers(
@@ -378,6 +387,7 @@ class ModbusLink:
                     fresh.append(PointSample(name, None, now, "comm-failure"))
                 continue
             now = self._clock()
+            answered += 1
             self._events.recovered(
                 f"read:{read.unit_id}:{read.table}:{read.address}",
                 "modbus.read_recovered",
@@ -393,6 +403,8 @@ class ModbusLink:
                 )
         for sample in fresh:
             self._samples[sample.name] = sample
+        if self.plan:
+            self.answering = answered > 0
         return fresh
 
     def _note_decoded(

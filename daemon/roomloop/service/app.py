@@ -384,7 +384,7 @@ class Service:
         links = self.links.values()
         if all(link.cycles > 0 for link in links):
             self.runner.inputs_ready.set()
-            if all(link.connected for link in links):
+            if all(link.up for link in links):
                 self._links_up.set()
 
     async def _ready_once(self) -> None:
@@ -394,7 +394,7 @@ class Service:
                 async with timeout(self.clock, self.ready_wait_s):
                     await self._links_up.wait()
         self.runner.inputs_ready.set()
-        down = [name for name, link in self.links.items() if not link.connected]
+        down = [name for name, link in self.links.items() if not link.up]
         self.ready.set()
         notify("READY=1", f"STATUS=controlling {len(self.zones)} zone(s)")
         log.info("service.ready", zones=len(self.zones), links_down=down)

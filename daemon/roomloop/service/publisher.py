@@ -103,7 +103,8 @@ def state_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, Any]
         "output": {
             "point": view.output_point,
             "verdict": view.output_verdict,
-            "confirmed": view.output_confirmed,
+            # what the device last read back; unknown (null) while it cannot be reached
+            "confirmed": None if view.output_verdict == "comm-failure" else view.output_confirmed,
         },
         "next_change": None
         if view.next_change is None
