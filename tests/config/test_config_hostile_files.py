@@ -92,3 +92,15 @@ def test_a_tab_gets_indent_with_spaces(capsys: pytest.CaptureFixture[str], tmp_p
     err = capsys.readouterr().err.strip()
     assert err.startswith(f"{path}:2:1: YAML syntax error: ")
     assert err.endswith("(indent with spaces, not tabs)")
+
+
+def test_an_alias_that_contains_itself_is_named_where_it_starts(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    site = tmp_path / "alias.yaml"
+    site.write_text("site: {name: x}\nzones:\n  - &a [*a]\n")
+    assert main(["check", "-c", str(site)]) == 2
+    err = capsys.readouterr().err
+    assert "nested more than 64 levels deep below here" in err
+    assert "[0][0][0][0]" not in err  # not 64 indices in a row
+    assert "Traceback" not in err

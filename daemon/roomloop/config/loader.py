@@ -181,7 +181,11 @@ class _Builder:
         self.lines.value_lines.setdefault(path, node.start_mark.line + 1)
         self._built += 1
         if depth > MAX_DEPTH:
-            self._problem(node, path, "nested too deeply (an alias that refers to itself?)")
+            # named where the nesting starts, not by 64 indices (an alias that contains itself)
+            self._problem(
+                node, path[:3], f"nested more than 64 levels deep below here ({len(path)} levels; "
+                "an alias that refers to itself?)"
+            )
             return None
         if self._built > MAX_VALUES:
             if self._built == MAX_VALUES + 1:
