@@ -72,6 +72,12 @@ async def test_zone_takes_the_warmer_level_at_the_early_start(
         assert decision.since is not None and decision.since >= switch - 3600.0
         assert "capped at the earliest start" in decision.reason
         assert switch - 3600.0 <= first.at < switch
+        # the published state says when the early start began and why
+        from roomloop.service.publisher import state_payload
+
+        view = next(v for v in service.publisher.views() if v.zone == "room0")
+        early = state_payload(view, units="C", tz=service.tz)["early_start"]
+        assert early is not None and early["active"] is True and early["reason"], early
         assert all(t.outputs.level == "economy" for t in ticks if t.at < switch - 3600.0)
         assert any(t.at < switch - 3600.0 for t in ticks)
         # the warm-up it learns from goes into the band of the site's outdoor point (-5..0 C)

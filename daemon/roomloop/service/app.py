@@ -362,6 +362,7 @@ class Service:
                 next_change=report.next_change if report.state.mode == "auto" else None,
                 fail_safe_policy=runtime.settings.fail_safe_policy,
                 persistence=self.store.status,
+                early_start=runtime.program.decision,
             )
         )
         if self.session is not None:

@@ -19,7 +19,9 @@ from zoneinfo import ZoneInfo
 
 import structlog
 
+from roomloop.core.optimum_start import OptimumStartDecision
 from roomloop.core.types import ZoneOutputs
+from roomloop.service.optimum_start import published
 from roomloop.service.program import Switch
 from roomloop.units import from_celsius
 
@@ -75,6 +77,8 @@ class ZoneView:
     """The zone's configured fail-safe policy, published whether or not it runs, so a
     dashboard can show what the zone will do before a sensor fails."""
     persistence: str = "ok"
+    early_start: OptimumStartDecision | None = None
+    """Optimum start's decision (``service.optimum_start``), None while it is off."""
     """``ok``, or ``failed: <reason>`` while the state cannot be saved (service/persist.py)."""
 
 
@@ -114,6 +118,7 @@ def state_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, Any]
             "by": view.next_change.by,
         },
         "persistence": view.persistence,
+        "early_start": published(view.early_start, tz, units),
     }
 
 
