@@ -282,8 +282,9 @@ class ModbusTcpLink(ModbusLinkBase):
     port: Annotated[Int, Field(ge=1, le=65535)] = 502
 
 
-class ModbusRtuLink(ModbusLinkBase):
-    type: Literal["modbus-rtu"]
+class SerialLine(Strict):
+    """A Modbus RTU serial line's settings: a link's, and the BMS face's RTU slave's."""
+
     device: Annotated[str, Field(min_length=1)]
     baud: Int = 9600
     parity: Literal["N", "E", "O"] = "E"
@@ -311,6 +312,10 @@ class ModbusRtuLink(ModbusLinkBase):
                 + ", ".join(str(b) for b in BAUD_RATES)
             )
         return value
+
+
+class ModbusRtuLink(ModbusLinkBase, SerialLine):
+    type: Literal["modbus-rtu"]
 
 
 Link = Annotated[ModbusTcpLink | ModbusRtuLink, Field(discriminator="type")]
@@ -1170,33 +1175,11 @@ def _ip_network(value: str) -> str:
 ClientNetwork = Annotated[str, AfterValidator(_ip_network)]
 
 
-class BmsRtu(Strict):
+class BmsRtu(SerialLine):
     """The BMS face as a Modbus RTU slave on a serial port (line settings as for a link)."""
 
-    device: Annotated[str, Field(min_length=1)]
     unit_id: Annotated[Int, Field(ge=1, le=247)] = 1
     """The slave address the BMS polls; requests for any other address get no answer."""
-    baud: Int = 9600
-    parity: Literal["N", "E", "O"] = "E"
-    data_bits: Int = 8
-    stop_bits: Literal[1, 2] = 1
-
-    @field_validator("data_bits")
-    @classmethod
-    def _rtu_data_bits(cls, value: int) -> int:
-        if value != 8:
-            raise ValueError(f"Modbus RTU sends 8 data bits per character, not {value}")
-        return value
-
-    @field_validator("baud")
-    @classmethod
-    def _standard_baud(cls, value: int) -> int:
-        if value not in BAUD_RATES:
-            raise ValueError(
-                f"{value} is not a standard baud rate; use one of "
-                + ", ".join(str(b) for b in BAUD_RATES)
-            )
-        return value
 
 
 class Bms(Strict):
