@@ -155,7 +155,7 @@ def expected_words(run: Running, zone: str, payload: dict[str, Any]) -> dict[str
         "fail_safe": int(payload["fail_safe"]),
         "fail_safe_minutes_today": 0,
         "alarms": 0,
-        "output_confirmed": {None: 2, False: 0, True: 1}[payload["output"]["confirmed"]],
+        "output_confirmed": {"ok": 1, "mismatch": 0}.get(payload["output"]["verdict"], 2),
         **{
             f"reliability.{name}": RELIABILITY_VALUES.index(verdict)
             for name, verdict in payload["reliability"].items()

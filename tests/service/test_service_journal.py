@@ -38,3 +38,25 @@ async def test_a_failed_output_write_is_logged_as_such(
     switched = [e for e in events if e["event"] == "output.switched"]
     # nothing was switched while the device refused: every 'switched' names a confirmed write
     assert all(e["verdict"] != "comm-failure" for e in switched)
+
+
+async def test_a_relay_that_reads_back_off_as_commanded_raises_no_output_alarm(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    # A warm room: the relay is off and reads back off, as commanded. That is agreement,
+    # not an output that "disagrees" (the read-back's value is not its verdict).
+    server = await modbus_tcp_server()
+    data = site_yaml(modbus_port=server.port, broker_port=1)
+    del data["broker"]
+    path = tmp_path / "site.yaml"
+    path.write_text(yaml.safe_dump(data))
+    clock = VirtualClock()
+    service = Service(load_site(path), clock=clock, state_dir=tmp_path / "s")
+    with capture_logs() as events:
+        async with RoomPlant(server, [24.0], clock) as plant, running(service):
+            start = clock.monotonic()
+            await until(clock, lambda: clock.monotonic() - start > 900.0, 1200.0)
+            assert not plant.rooms[0].coil
+    raised = [e for e in events if e["event"] == "alarm.raised"]
+    assert not [e for e in raised if e["kind"] == "output-unconfirmed"], raised
+    assert service.alarms.confirmed["room0"] is True  # the BMS register reads "agrees"

@@ -344,12 +344,9 @@ class Service:
         runtime = self.zones[report.zone]
         point = runtime.zone.output
         out_state = self.outputs.state(point)
-        self.alarms.observe(
-            report.zone,
-            report.outputs,
-            output_confirmed=None if out_state is None else out_state.confirmed,
-            now=report.at,
-        )
+        # whether the read-back agrees with what was written (None: not known, no read-back)
+        agrees = {"ok": True, "mismatch": False}.get(out_state.verdict) if out_state else None
+        self.alarms.observe(report.zone, report.outputs, output_confirmed=agrees, now=report.at)
         self.publisher.update(
             ZoneView(
                 zone=report.zone,
