@@ -21,7 +21,8 @@ def matplotlib_available() -> bool:
 
 
 def write_demo_plot(result: DemoResult, path: str | os.PathLike[str]) -> None:
-    """Room air (true), sensor, set point, relay, fail-safe and the silent-sensor span per zone.
+    """Room air (true), sensor, set point, the relay on its own strip, and fail-safe, per zone,
+    against the site's clock times (the text log's).
 
     Raises :class:`PlotUnavailable` without matplotlib, ``OSError`` if the file is unwritable.
     """
@@ -33,36 +34,39 @@ def write_demo_plot(result: DemoResult, path: str | os.PathLike[str]) -> None:
     except ImportError as exc:
         raise PlotUnavailable(str(exc)) from None
 
+    import datetime as dt
+    from zoneinfo import ZoneInfo
+
+    import matplotlib.dates as mdates
+
     timeline = result.timeline
+    tz = ZoneInfo(result.site.site.timezone)
     zones = list(result.traces)
-    fig, axes = plt.subplots(len(zones), 1, figsize=(12, 3.2 * len(zones)), sharex=True)
-    if len(zones) == 1:
-        axes = [axes]
+    # per zone: temperatures on a tall axis, the relay on its own strip below it
+    fig, axes = plt.subplots(
+        2 * len(zones), 1, figsize=(12, 3.6 * len(zones)), sharex=True,
+        gridspec_kw={"height_ratios": [4, 1] * len(zones)},
+    )
 
-    def hours(at: float) -> float:
-        return (at - timeline.start) / 3600.0
+    def clock(at: float) -> dt.datetime:
+        """The instant as the text log's clock shows it: the site's local time."""
+        return dt.datetime.fromtimestamp(at, tz)
 
-    for ax, name in zip(axes, zones, strict=True):
+    for index, name in enumerate(zones):
+        ax, relay_ax = axes[2 * index], axes[2 * index + 1]
         trace = result.traces[name]
         record = result.records[name]
-        t = [hours(result.started_at + s) for s in trace.time_s]
-        relay_ax = ax.twinx()
+        t = [clock(result.started_at + s) for s in trace.time_s]
         relay_ax.fill_between(
-            t,
-            [1.0 if on else 0.0 for on in trace.relay],
-            step="post",
-            color="tab:orange",
-            alpha=0.25,
-            lw=0,
-            label="relay on",
+            t, [1.0 if on else 0.0 for on in trace.relay], step="post", color="tab:orange", lw=0
         )
-        relay_ax.set_ylim(0, 4)
-        relay_ax.set_yticks([])
+        relay_ax.set_ylim(0, 1)
+        relay_ax.set_yticks([0, 1], ["off", "on"])
+        relay_ax.set_ylabel("relay")
         ax.plot(t, trace.sensor_c, color="tab:gray", lw=0.6, label="sensor reading")
         ax.plot(t, trace.room_c, color="tab:red", lw=1.0, label="room air (true)")
-        ht = [hours(at) for at, _, _, _ in record.history]
         ax.plot(
-            ht,
+            [clock(at) for at, _, _, _ in record.history],
             [sp for _, sp, _, _ in record.history],
             color="black",
             lw=1.0,
@@ -71,23 +75,27 @@ def write_demo_plot(result: DemoResult, path: str | os.PathLike[str]) -> None:
             label="set point",
         )
         in_fs = False
-        fs_from = 0.0
+        fs_from = clock(timeline.start)
         for at, _, fail_safe, _ in record.history:
             if fail_safe and not in_fs:
-                in_fs, fs_from = True, hours(at)
+                in_fs, fs_from = True, clock(at)
             elif in_fs and not fail_safe:
                 in_fs = False
-                ax.axvspan(fs_from, hours(at), color="tab:red", alpha=0.10)
+                for each in (ax, relay_ax):
+                    each.axvspan(fs_from, clock(at), color="tab:red", alpha=0.10)
         if in_fs and record.history:
-            ax.axvspan(fs_from, hours(record.history[-1][0]), color="tab:red", alpha=0.10)
-        ax.axvline(hours(timeline.switch_at), color="tab:blue", lw=0.8, ls=":")
+            for each in (ax, relay_ax):
+                each.axvspan(fs_from, clock(record.history[-1][0]), color="tab:red", alpha=0.10)
+        for each in (ax, relay_ax):
+            each.axvline(clock(timeline.switch_at), color="tab:blue", lw=0.8, ls=":")
         ax.set_ylabel("C")
         heating = next(s.heating for s in result.summaries if s.zone == name)
         ax.set_title(f"{name} ({heating})", fontsize=10, loc="left")
-        handles, labels = ax.get_legend_handles_labels()
-        relay_handles, relay_labels = relay_ax.get_legend_handles_labels()
-        ax.legend(handles + relay_handles, labels + relay_labels, loc="lower right", fontsize=8)
-    axes[-1].set_xlabel("simulated hours (dotted: program switch; red: fail-safe)")
+        ax.legend(loc="lower right", fontsize=8)
+    axes[-1].xaxis.set_major_formatter(mdates.DateFormatter("%H:%M", tz=tz))  # type: ignore[no-untyped-call]
+    axes[-1].set_xlabel(
+        f"site time ({tz.key}), as in the text log (dotted: program switch; red: fail-safe)"
+    )
     fig.suptitle(f"roomloop demo: {result.site.name}", fontsize=11)
     fig.tight_layout()
     try:
