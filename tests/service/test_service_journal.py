@@ -18,16 +18,21 @@ from roomloop.config.loader import load_site
 from roomloop.service.app import Service
 
 
+def _one_room_service(tmp_path: Path, modbus_port: int, clock: VirtualClock) -> Service:
+    """The test site's one room on the Modbus test server, without a broker."""
+    data = site_yaml(modbus_port=modbus_port, broker_port=1)
+    del data["broker"]
+    path = tmp_path / "site.yaml"
+    path.write_text(yaml.safe_dump(data))
+    return Service(load_site(path), clock=clock, state_dir=tmp_path / "s")
+
+
 async def test_a_failed_output_write_is_logged_as_such(
     tmp_path: Path, modbus_tcp_server: Any
 ) -> None:
     server = await modbus_tcp_server()
-    data = site_yaml(modbus_port=server.port, broker_port=1)
-    del data["broker"]
-    path = tmp_path / "site.yaml"
-    path.write_text(yaml.safe_dump(data))
     clock = VirtualClock()
-    service = Service(load_site(path), clock=clock, state_dir=tmp_path / "s")
+    service = _one_room_service(tmp_path, server.port, clock)
     with capture_logs() as events:
         async with RoomPlant(server, [17.0], clock), running(service):
             server.exception_code = 4  # from now on the device refuses everything
@@ -46,12 +51,8 @@ async def test_a_relay_that_reads_back_off_as_commanded_raises_no_output_alarm(
     # A warm room: the relay is off and reads back off, as commanded. That is agreement,
     # not an output that "disagrees" (the read-back's value is not its verdict).
     server = await modbus_tcp_server()
-    data = site_yaml(modbus_port=server.port, broker_port=1)
-    del data["broker"]
-    path = tmp_path / "site.yaml"
-    path.write_text(yaml.safe_dump(data))
     clock = VirtualClock()
-    service = Service(load_site(path), clock=clock, state_dir=tmp_path / "s")
+    service = _one_room_service(tmp_path, server.port, clock)
     with capture_logs() as events:
         async with RoomPlant(server, [24.0], clock) as plant, running(service):
             start = clock.monotonic()
