@@ -159,7 +159,10 @@ def test_handler_applies_answers_and_ignores_retained_and_foreign() -> None:
     answer = h.handle(topic, b"22", retained=False, now=NOW, monotonic=0.0)
     assert answer is not None and answer.topic == "roomloop/annex/zone/studio/cmd/result"
     assert json.loads(answer.payload) == {"field": "setpoint", "ok": True, "value": 22.0}
-    assert h.handle(topic, b"23", retained=True, now=NOW, monotonic=0.0) is None
+    retained = h.handle(topic, b"23", retained=True, now=NOW, monotonic=0.0)
+    assert retained is not None and json.loads(retained.payload)["ok"] is False
+    assert "retained" in json.loads(retained.payload)["reason"]
+    assert h.handle(topic, b"", retained=True, now=NOW, monotonic=0.0) is None  # a deletion
     assert h.handle("roomloop/other/zone/studio/cmd/mode", b"off", retained=False, now=NOW,
                     monotonic=0.0) is None
     assert [c.value for c in rec.applied] == [22.0]

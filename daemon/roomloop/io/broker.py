@@ -137,6 +137,9 @@ def client_options(
         "username": broker.username,
         "password": read_password(broker, env),
         "timeout": 10.0,
+        # MQTT 5: a subscription can ask for the retain flag as published (session.py),
+        # so a retained command is known as one whenever it arrives (docs/topics.md).
+        "protocol": aiomqtt.ProtocolVersion.V5,
     }
     if will is not None:
         options["will"] = aiomqtt.Will(will.topic, will.payload, qos=will.qos, retain=will.retain)

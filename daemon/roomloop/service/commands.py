@@ -9,8 +9,12 @@ to ``<prefix>/zone/<zone>/cmd/result``:
 ``{"field": ..., "ok": true, "value": ...}`` or ``{"field": ..., "ok": false,
 "reason": ...}``. A refused command changes nothing.
 
-Retained commands are ignored: a stale retained message must not reprogram a
-zone when the service starts. Commands are rate-limited per zone.
+Retained commands are ignored, whenever they arrive (the session subscribes with
+MQTT 5's retain-as-published option, so one published while we are subscribed still
+carries its flag): a stale retained message must not reprogram a zone when the service
+starts. Each is logged and refused on ``cmd/result``; an empty retained payload (the
+broker's deletion of a retained message) is no command and is not answered. Commands
+are rate-limited per zone.
 """
 
 from __future__ import annotations
@@ -239,8 +243,10 @@ class CommandHandler:
     ) -> Answer | None:
         """Check, apply and answer one message; ``monotonic`` is real time for the rate limit."""
         where = parse_topic(self.prefix, topic)
-        if where is None or retained:
+        if where is None:
             return None
+        if retained:
+            return self._retained(where, topic, payload, monotonic)
         zone = self.zones.get(where.zone)
         if zone is None:
             return self._unknown_zone(where, monotonic)
@@ -280,6 +286,25 @@ class CommandHandler:
                     )
         return Answer(result_topic(self.prefix, zone.name), json.dumps(answer))
 
+
+    def _retained(
+        self, where: CommandTopic, topic: str, payload: bytes, monotonic: float
+    ) -> Answer | None:
+        """A retained command, delivered at subscription or while subscribed: never applied
+        (a stale one must not reprogram a zone at every start), logged and refused. An empty
+        retained payload deletes the broker's retained message: it is no command at all."""
+        if not payload:
+            return None
+        key = where.zone if where.zone in self.zones else UNKNOWN_ZONE_KEY
+        if not self.limit.allow(key, monotonic):
+            return None
+        log.info("command.retained_ignored", topic=topic)
+        reason = (
+            "retained commands are ignored: publish commands without the retain flag "
+            "(an empty retained message on this topic deletes the retained one)"
+        )
+        body = json.dumps({"field": where.field, "ok": False, "reason": reason})
+        return Answer(result_topic(self.prefix, where.zone[:64]), body)
 
     def _unknown_zone(self, where: CommandTopic, monotonic: float) -> Answer | None:
         """A command for a zone this site does not have: refused on that zone's result topic

@@ -17,6 +17,7 @@ from zoneinfo import ZoneInfo
 
 import aiomqtt
 import structlog
+from paho.mqtt.subscribeoptions import SubscribeOptions
 
 from roomloop.clock import Clock, sleep_or_wake, timeout
 from roomloop.config.models import Broker, Zone
@@ -104,7 +105,11 @@ class BrokerSession:
 
     async def _on_connect(self, client: Any) -> None:
         topics = [*self.commands.topics(), *self.mqtt_points.topics()]
-        for topic in topics:
+        for topic in self.commands.topics():
+            # Retain as published (MQTT 5): a retained command published while we are
+            # subscribed still arrives marked retained, so it is ignored like the others.
+            await client.subscribe(topic, options=SubscribeOptions(qos=1, retainAsPublished=True))
+        for topic in self.mqtt_points.topics():
             await client.subscribe(topic, qos=1)
         await client.publish(status_topic(self.prefix), ONLINE, qos=1, retain=True)
         self.publisher.forget_sent()
@@ -139,8 +144,6 @@ class BrokerSession:
             monotonic=self.clock.monotonic(),
         )
         if answer is None:
-            if message.retain and topic.startswith(f"{self.prefix}/zone/"):
-                log.info("command.retained_ignored", topic=topic)
             return
         # rate-limited: a flood of commands must not flood the journal (summarised after)
         _answers_log.event(
