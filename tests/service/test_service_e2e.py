@@ -112,7 +112,9 @@ async def test_demand_reaches_the_coil_commands_are_answered_and_checked(rig: Ri
     assert w.retained.get(f"{PREFIX}/zone/room0/state") is not None
     await w.wait_for(lambda: w.text("zone/room0/setpoint") == "20.00", 5)
     await w.wait_for(lambda: w.text("zone/room0/demand") == "true", 5)
-    assert not w.results, "the retained command was acted on"
+    # The retained command was refused (and answered), not acted on.
+    assert [r["ok"] for r in w.results] == [False], w.results
+    assert "retained" in w.results[0]["reason"]
 
     # A set point below the room's temperature stops the heat, and is answered.
     n = len(w.results)

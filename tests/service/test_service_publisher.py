@@ -8,7 +8,15 @@ from zoneinfo import ZoneInfo
 
 from roomloop.core.types import ZoneOutputs
 from roomloop.service.program import Switch
-from roomloop.service.publisher import StatePublisher, ZoneView, plain_fields, state_payload
+from roomloop.core.state import ZoneState
+from roomloop.service.publisher import (
+    Override,
+    StatePublisher,
+    ZoneView,
+    override_of,
+    plain_fields,
+    state_payload,
+)
 
 VIENNA = ZoneInfo("Europe/Vienna")
 AT = 1_800_000_000.0  # 2027-01-15T08:00:00Z = 09:00 in Vienna
@@ -48,7 +56,9 @@ def test_state_json_carries_everything_a_dashboard_needs() -> None:
     assert payload["next_change"] == {
         "at": "2027-01-15T10:00:00+01:00", "level": "economy", "by": "program"
     }
-    assert payload["output"] == {"point": "relay", "verdict": "ok", "confirmed": True}
+    assert payload["output"] == {
+        "point": "relay", "commanded": None, "read_back": True, "agrees": True, "verdict": "ok"
+    }
     json.dumps(payload, allow_nan=False)
 
 
@@ -80,8 +90,9 @@ def test_plain_fields() -> None:
         "mode": "auto",
         "level": "comfort",
     }
+    # No value is an empty payload (docs/topics.md), never a word a gauge would try to read.
     unknown = dataclasses.replace(VIEW, outputs=dataclasses.replace(OUT, temperature=None))
-    assert plain_fields(unknown, units="C")["temperature"] == "unknown"
+    assert plain_fields(unknown, units="C")["temperature"] == ""
 
 
 def _send_all(pub: StatePublisher, now: float) -> list[str]:
@@ -118,10 +129,93 @@ def test_a_view_that_cannot_render_is_skipped_and_the_others_still_go_out() -> N
     assert not any("/broken/" in t for t in topics)
 
 
-def test_a_read_back_is_not_shown_as_confirmed_while_the_device_cannot_be_reached() -> None:
+def test_a_read_back_is_not_shown_while_the_device_cannot_be_reached() -> None:
     # the last read-back said on, then the write failed: what the relay is now is unknown
-    down = dataclasses.replace(VIEW, output_verdict="comm-failure", output_confirmed=True)
+    down = dataclasses.replace(
+        VIEW, output_verdict="comm-failure", output_read_back=True, output_commanded=False
+    )
     assert state_payload(down, units="C", tz=VIENNA)["output"] == {
-        "point": "relay", "verdict": "comm-failure", "confirmed": None
+        "point": "relay", "commanded": False, "read_back": None, "agrees": None,
+        "verdict": "comm-failure",
     }
-    assert state_payload(VIEW, units="C", tz=VIENNA)["output"]["confirmed"] is True
+    assert state_payload(VIEW, units="C", tz=VIENNA)["output"]["read_back"] is True
+
+
+def test_a_relay_reading_back_off_as_commanded_agrees() -> None:
+    # "confirmed": false used to say this: the relay's value (off), read as an error.
+    off = dataclasses.replace(VIEW, output_read_back=False, output_commanded=False)
+    output = state_payload(off, units="C", tz=VIENNA)["output"]
+    assert (output["commanded"], output["read_back"], output["agrees"]) == (False, False, True)
+    wrong = dataclasses.replace(off, output_verdict="mismatch", output_commanded=True)
+    output = state_payload(wrong, units="C", tz=VIENNA)["output"]
+    assert (output["commanded"], output["read_back"], output["agrees"]) == (True, False, False)
+    # No read-back configured: nothing to agree with.
+    blind = dataclasses.replace(off, output_verdict="unverified", output_read_back=None)
+    assert state_payload(blind, units="C", tz=VIENNA)["output"]["agrees"] is None
+
+
+def test_the_hours_figures_say_how_much_of_the_hour_they_cover() -> None:
+    # one minute after the start the on-fraction is over 60 s, not over an hour
+    early = dataclasses.replace(VIEW, window_1h_s=60.4)
+    assert state_payload(early, units="C", tz=VIENNA)["window_1h_s"] == 60
+    assert state_payload(VIEW, units="C", tz=VIENNA)["window_1h_s"] == 3600
+
+
+def _state(**changes: object) -> ZoneState:
+    from roomloop.config.models import Limits, ModbusInput, Zone
+    from roomloop.core.controller import ZoneController
+    from roomloop.core.settings import ZoneSettings
+
+    zone = Zone(name="studio", inputs=["t"], output="r", heating="hydronic",
+                limits=Limits(min=5, max=26))
+    settings = ZoneSettings.from_zone(
+        zone, {"t": ModbusInput(type="modbus-input", name="t", link="l", address=0)}
+    )
+    return dataclasses.replace(ZoneController(settings).initial_state(AT), **changes)
+
+
+SWITCH = Switch(AT + 3600, "economy")
+
+
+def test_the_override_says_what_sets_the_zone_aside_and_until_when() -> None:
+    assert override_of(_state(), SWITCH) is None
+    assert override_of(_state(mode="off"), SWITCH) is None
+    # a level chosen in auto lasts until the program's level changes
+    assert override_of(_state(level_override="economy"), SWITCH) == Override(
+        "level", "next-change", AT + 3600
+    )
+    assert override_of(_state(level_override="economy"), None) == Override("level", "never", None)
+    held = _state(mode="hold", hold_setpoint=21.0, hold_level="comfort")
+    assert override_of(held, SWITCH) == Override("setpoint", "never", None)
+    assert override_of(dataclasses.replace(held, hold_until=AT + 3600), SWITCH) == Override(
+        "setpoint", "next-change", AT + 3600
+    )
+    assert override_of(dataclasses.replace(held, hold_until=AT + 60), SWITCH) == Override(
+        "setpoint", "time", AT + 60
+    )
+    at_level = _state(mode="hold", hold_level="standby")
+    assert override_of(at_level, SWITCH) == Override("level", "never", None)
+
+
+def test_a_hold_at_a_number_reads_no_level() -> None:
+    # Held at 21 C from comfort: the set point is the hold's, not comfort's.
+    held = dataclasses.replace(
+        VIEW,
+        outputs=dataclasses.replace(OUT, setpoint=21.0, mode="hold"),
+        override=Override("setpoint", "never", None),
+        program_level="comfort",
+    )
+    payload = state_payload(held, units="C", tz=VIENNA)
+    assert (payload["level"], payload["program_level"], payload["setpoint"]) == (
+        None, "comfort", 21.0
+    )
+    assert payload["override"] == {"kind": "setpoint", "ends": "never", "until": None}
+    assert plain_fields(held, units="C")["level"] == ""
+    # Held at a level: that level's set point is in force, and the level says so.
+    at_level = dataclasses.replace(
+        held, outputs=dataclasses.replace(OUT, level="economy", mode="hold"),
+        override=Override("level", "time", AT + 600),
+    )
+    payload = state_payload(at_level, units="C", tz=VIENNA)
+    assert payload["level"] == "economy"
+    assert payload["override"]["until"] == "2027-01-15T09:10:00+01:00"

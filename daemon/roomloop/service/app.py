@@ -59,7 +59,7 @@ from roomloop.service.notify import Progress, notify, watchdog_interval_s
 from roomloop.service.outputs import Output, OutputWriter, SafeSink
 from roomloop.service.persist import StateStore
 from roomloop.service.persistence import Persistence, restore_states
-from roomloop.service.publisher import StatePublisher, ZoneView
+from roomloop.service.publisher import StatePublisher, ZoneView, output_agrees, override_of
 from roomloop.service.restart import read_output_states
 from roomloop.service.session import BrokerSession
 from roomloop.service.supervisor import Supervisor, cancel_and_wait, watchdog_loop
@@ -344,22 +344,28 @@ class Service:
         runtime = self.zones[report.zone]
         point = runtime.zone.output
         out_state = self.outputs.state(point)
+        verdict = None if out_state is None else out_state.verdict
         # whether the read-back agrees with what was written (None: not known, no read-back)
-        agrees = {"ok": True, "mismatch": False}.get(out_state.verdict) if out_state else None
+        agrees = output_agrees(verdict)
         self.alarms.observe(report.zone, report.outputs, output_confirmed=agrees, now=report.at)
+        state = report.state
         self.publisher.update(
             ZoneView(
                 zone=report.zone,
                 outputs=report.outputs,
                 at=report.at,
                 output_point=point,
-                output_verdict=None if out_state is None else out_state.verdict,
-                output_confirmed=None if out_state is None else out_state.confirmed,
-                hold_until=report.state.hold_until,
-                next_change=report.next_change if report.state.mode == "auto" else None,
+                output_verdict=verdict,
+                output_read_back=None if out_state is None else out_state.confirmed,
+                hold_until=state.hold_until,
+                next_change=report.next_change if state.mode == "auto" else None,
                 fail_safe_policy=runtime.settings.fail_safe_policy,
                 persistence=self.store.status,
                 early_start=runtime.program.decision,
+                output_commanded=None if out_state is None else out_state.wanted,
+                override=override_of(state, report.next_change),
+                program_level=state.scheduled_level,
+                window_1h_s=min(3600.0, max(0.0, report.at - state.started_at)),
             )
         )
         if self.session is not None:

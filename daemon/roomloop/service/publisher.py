@@ -14,12 +14,13 @@ import datetime as dt
 import json
 from collections.abc import Iterable
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Literal
 from zoneinfo import ZoneInfo
 
 import structlog
 
 from roomloop.core.optimum_start import OptimumStartDecision
+from roomloop.core.state import ZoneState
 from roomloop.core.types import ZoneOutputs
 from roomloop.service.optimum_start import published
 from roomloop.service.program import Switch
@@ -60,6 +61,46 @@ def iso(posix: float, tz: ZoneInfo) -> str:
     return dt.datetime.fromtimestamp(posix, tz).isoformat(timespec="seconds")
 
 
+OverrideKind = Literal["setpoint", "level"]
+Ends = Literal["next-change", "time", "never"]
+
+
+@dataclass(frozen=True, slots=True)
+class Override:
+    """A command that sets the zone aside from its program, and when it ends."""
+
+    kind: OverrideKind
+    """``setpoint``: a held number; ``level``: a level's set point chosen by command."""
+    ends: Ends
+    """``next-change``: at the program's next change; ``time``: at ``until``; ``never``:
+    until another command."""
+    until: float | None
+    """When it ends (POSIX seconds), None for ``never``."""
+
+
+def override_of(state: ZoneState, program_next: Switch | None) -> Override | None:
+    """What overrides the zone's program now (None: the program rules, or the zone is off).
+
+    A level set in ``auto`` lasts until the program's level next changes; a hold until its
+    ``hold_until``, which is the program's next change when the command asked for that
+    (``until: next-change``) or happens to name that instant: either way the hold ends when
+    the program switches, and the state says so.
+    """
+    if state.mode == "auto" and state.level_override is not None:
+        if program_next is None:
+            return Override("level", "never", None)
+        return Override("level", "next-change", program_next.at)
+    if state.mode != "hold":
+        return None
+    kind: OverrideKind = "setpoint" if state.hold_setpoint is not None else "level"
+    until = state.hold_until
+    if until is None:
+        return Override(kind, "never", None)
+    if program_next is not None and until == program_next.at:
+        return Override(kind, "next-change", until)
+    return Override(kind, "time", until)
+
+
 @dataclass(frozen=True, slots=True)
 class ZoneView:
     """One zone's latest decision plus what the service adds around it."""
@@ -70,16 +111,38 @@ class ZoneView:
     """When the decision was taken (POSIX seconds, on the service's clock)."""
     output_point: str
     output_verdict: str | None = None
-    output_confirmed: bool | None = None
+    output_read_back: bool | None = None
+    """What the device last reported its output to be (None: unknown or no read-back)."""
     hold_until: float | None = None
     next_change: Switch | None = None
     fail_safe_policy: str | None = None
     """The zone's configured fail-safe policy, published whether or not it runs, so a
     dashboard can show what the zone will do before a sensor fails."""
     persistence: str = "ok"
+    """``ok``, or ``failed: <reason>`` while the state cannot be saved (service/persist.py)."""
     early_start: OptimumStartDecision | None = None
     """Optimum start's decision (``service.optimum_start``), None while it is off."""
-    """``ok``, or ``failed: <reason>`` while the state cannot be saved (service/persist.py)."""
+    output_commanded: bool | None = None
+    """What the service last wrote to the output (None: nothing yet)."""
+    override: Override | None = None
+    program_level: str | None = None
+    """The level the program (weekly, calendar, optimum start) asks for now."""
+    window_1h_s: float = 3600.0
+    """Seconds of the last hour the hour's figures cover (less in the first hour)."""
+
+
+def output_agrees(verdict: str | None) -> bool | None:
+    """Whether the output's read-back agrees with what was written (None: not known: no
+    read-back configured, not read back yet, or the device cannot be reached). The alarms
+    and the BMS face use this verdict."""
+    return {"ok": True, "mismatch": False}.get(verdict) if verdict is not None else None
+
+
+def shown_level(view: ZoneView) -> str | None:
+    """The level whose set point is in force; None while a held number is."""
+    if view.override is not None and view.override.kind == "setpoint":
+        return None
+    return view.outputs.level
 
 
 def state_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, Any]:
@@ -91,8 +154,16 @@ def state_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, Any]
         "units": units,
         "temperature": _abs(out.temperature, units),
         "setpoint": _abs(out.setpoint, units),
-        "level": out.level,
+        "level": shown_level(view),
+        "program_level": view.program_level,
         "mode": out.mode,
+        "override": None
+        if view.override is None
+        else {
+            "kind": view.override.kind,
+            "ends": view.override.ends,
+            "until": None if view.override.until is None else iso(view.override.until, tz),
+        },
         "hold_until": None if view.hold_until is None else iso(view.hold_until, tz),
         "demand": out.demand,
         "reason": out.reason,
@@ -104,11 +175,14 @@ def state_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, Any]
         "fail_safe_reason": out.fail_safe_reason,
         "on_fraction_1h": round(out.on_fraction_1h, 3),
         "cycles_1h": out.cycles_1h,
+        "window_1h_s": round(view.window_1h_s),
         "output": {
             "point": view.output_point,
-            "verdict": view.output_verdict,
+            "commanded": view.output_commanded,
             # what the device last read back; unknown (null) while it cannot be reached
-            "confirmed": None if view.output_verdict == "comm-failure" else view.output_confirmed,
+            "read_back": None if view.output_verdict == "comm-failure" else view.output_read_back,
+            "agrees": output_agrees(view.output_verdict),
+            "verdict": view.output_verdict,
         },
         "next_change": None
         if view.next_change is None
@@ -122,17 +196,23 @@ def state_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, Any]
     }
 
 
+NO_VALUE = ""
+"""A plain topic with no value carries an empty payload (docs/topics.md): retained, it
+deletes the broker's retained message, so a late subscriber sees no value either."""
+
+
 def plain_fields(view: ZoneView, *, units: str) -> dict[str, str]:
-    """The plain retained per-field values for dashboards."""
+    """The plain retained per-field values for dashboards (:data:`NO_VALUE` for none)."""
     out = view.outputs
     temperature = _abs(out.temperature, units)
     setpoint = _abs(out.setpoint, units)
+    level = shown_level(view)
     return {
-        "temperature": "unknown" if temperature is None else f"{temperature:.2f}",
+        "temperature": NO_VALUE if temperature is None else f"{temperature:.2f}",
         "setpoint": f"{setpoint:.2f}",
         "demand": "true" if out.demand else "false",
         "mode": out.mode,
-        "level": out.level,
+        "level": NO_VALUE if level is None else level,
     }
 
 
@@ -141,7 +221,7 @@ def _significant(payload: dict[str, Any]) -> str:
     keep = {
         k: v
         for k, v in payload.items()
-        if k not in ("timestamp", "anticipator", "droop", "on_fraction_1h")
+        if k not in ("timestamp", "anticipator", "droop", "on_fraction_1h", "window_1h_s")
     }
     if isinstance(keep.get("temperature"), float):
         keep["temperature"] = round(keep["temperature"], 1)
