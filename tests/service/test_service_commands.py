@@ -18,6 +18,7 @@ from roomloop.config.models import Limits, ModbusInput, Zone
 from roomloop.core.commands import CommandRejected, apply_command
 from roomloop.core.controller import ZoneController
 from roomloop.core.settings import ZoneSettings
+from roomloop.core.state import ZoneState
 from roomloop.service.commands import (
     Command,
     CommandHandler,
@@ -49,7 +50,9 @@ def parse(field: str, payload: bytes | str, units: str = "C") -> Command:
     raw = payload.encode() if isinstance(payload, str) else payload
     command = parse_command(ZONE, field, raw, units=units, tz=VIENNA, now=NOW)
     state = ZoneController(SETTINGS).initial_state(NOW)
-    apply_command(SETTINGS, state, command.field, command.value, NOW, units=units)
+    apply_command(
+        SETTINGS, state, command.field, command.value, NOW, units=units, until=command.until
+    )
     return command
 
 
@@ -74,7 +77,13 @@ def test_setpoint_in_fahrenheit_is_converted_and_checked_in_the_sites_units() ->
         ("setpoint", "[21]", "not a list"),
         ("setpoint", "26.5", "outside the zone's limits 5 to 26 C"),
         ("setpoint", "4.9", "outside"),
-        ("setpoint", '{"value": 21, "until": 3}', '{"value": ...}'),
+        ("setpoint", '{"value": 21, "for": 3}', '{"value": ...}'),
+        ("setpoint", '{"until": "none"}', '{"value": ...}'),
+        ("setpoint", '{"value": 21, "until": 3}', "until 3 is in the past"),
+        ("setpoint", '{"value": 21, "until": "soon"}', "until 'soon' is not a time"),
+        ("mode", '{"value": "hold", "until": "none"}', "until goes with setpoint or level"),
+        ("level", '{"value": "economy", "until": "next-change"}', "never changes level"),
+        ("hold_until", "next-change", "never changes level"),
         ("setpoint", "", "empty payload"),
         ("setpoint", b"\xff\xfe", "UTF-8"),
         ("setpoint", "9" * 2000, "too large"),
@@ -136,7 +145,9 @@ class Recorder:
         self.state = ZoneController(SETTINGS).initial_state(NOW)
 
     def __call__(self, command: Command) -> None:
-        self.state = apply_command(SETTINGS, self.state, command.field, command.value, NOW)
+        self.state = apply_command(
+            SETTINGS, self.state, command.field, command.value, NOW, until=command.until
+        )
         self.applied.append(command)
 
 
@@ -286,3 +297,66 @@ def test_an_answer_says_when_the_command_cannot_be_made_durable() -> None:
     assert body["ok"] is True and body["durable"] is False
     assert "not writable" in body["warning"] and "restart" in body["warning"]
     assert [c.value for c in rec.applied] == [22.0, 23.0]
+
+
+NEXT = NOW + 2 * 3600.0
+"""The program's next change in the tests below."""
+
+
+def parse_with_program(
+    field: str, payload: str, state: ZoneState | None = None
+) -> tuple[Command, ZoneState]:
+    """Parse with a program that next changes at :data:`NEXT`; apply to a fresh (auto) state."""
+    command = parse_command(
+        ZONE, field, payload.encode(), units="C", tz=VIENNA, now=NOW, program_next=lambda: NEXT
+    )
+    before = ZoneController(SETTINGS).initial_state(NOW) if state is None else state
+    after = apply_command(
+        SETTINGS, before, command.field, command.value, NOW, until=command.until
+    )
+    return command, after
+
+
+def test_a_set_point_until_the_programs_next_change() -> None:
+    command, state = parse_with_program("setpoint", '{"value": 22.5, "until": "next-change"}')
+    assert (command.value, command.until, command.ends) == (22.5, NEXT, "next-change")
+    assert (state.mode, state.hold_setpoint, state.hold_until) == ("hold", 22.5, NEXT)
+
+
+def test_a_level_with_an_end_is_a_hold_at_that_level_in_any_mode() -> None:
+    # 2027-01-15 18:00 in Vienna = 17:00 UTC
+    command, state = parse_with_program(
+        "level", '{"value": "economy", "until": "2027-01-15T18:00"}'
+    )
+    assert (command.until, command.ends) == (NOW + 9 * 3600, "time")
+    assert (state.mode, state.hold_level, state.hold_setpoint, state.level_override) == (
+        "hold", "economy", None, None
+    )
+    # "until": none asks for a hold without end, even in auto (where a bare level is an
+    # override to the next change)
+    command, state = parse_with_program("level", '{"value": "standby", "until": "none"}')
+    assert (command.until, command.ends) == (None, "never")
+    assert (state.mode, state.hold_level, state.hold_until) == ("hold", "standby", None)
+
+
+def test_hold_until_next_change_and_the_answer_says_how_the_hold_ends() -> None:
+    command, state = parse_with_program("hold_until", "next-change")
+    assert (command.value, command.ends) == (NEXT, "next-change")
+    assert (state.mode, state.hold_until) == ("hold", NEXT)
+    rec = Recorder()
+    h = CommandHandler(
+        "p", {"studio": ZONE}, rec, units="C", tz=VIENNA, rate_per_min=30,
+        program_next=lambda zone, now: NEXT,
+    )
+    answer = h.handle(
+        "p/zone/studio/cmd/setpoint", b'{"value": 21, "until": "next-change"}',
+        retained=False, now=NOW, monotonic=0.0,
+    )
+    assert answer is not None
+    assert json.loads(answer.payload) == {
+        "field": "setpoint", "ok": True, "value": 21.0, "ends": "next-change",
+        "until": "2027-01-15T11:00:00+01:00",
+    }
+    answer = h.handle("p/zone/studio/cmd/setpoint", b"21.5", retained=False, now=NOW,
+                      monotonic=1.0)
+    assert answer is not None and "ends" not in json.loads(answer.payload)

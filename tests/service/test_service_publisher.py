@@ -6,9 +6,9 @@ import dataclasses
 import json
 from zoneinfo import ZoneInfo
 
+from roomloop.core.state import ZoneState
 from roomloop.core.types import ZoneOutputs
 from roomloop.service.program import Switch
-from roomloop.core.state import ZoneState
 from roomloop.service.publisher import (
     Override,
     StatePublisher,

@@ -23,16 +23,22 @@ Fields:
   a hold at the set point in force now; in ``off`` it is refused (there is
   nothing to hold).
 
+``setpoint`` and ``level`` also take an end, ``until`` (the same checks as
+``hold_until``; the service turns ``next-change`` into the program's next change):
+then, in any mode, the command is a hold at that set point or level ending at
+``until`` (None: never), set in one step, so a refused end changes nothing either.
+
 The next :meth:`ZoneController.step` clamps and applies the result, so a
 command never has to wait for a tick to be validated.
 """
 
 from __future__ import annotations
 
+import enum
 import json
 import math
 from dataclasses import replace
-from typing import Any
+from typing import Any, Final
 
 from roomloop.errors import RoomloopError
 from roomloop.units import from_celsius
@@ -45,6 +51,18 @@ LIMIT_TOLERANCE_K = 1e-6
 """A set point this close to a limit is the limit (82.4 F converts to 28.000000000000004 C)."""
 MAX_HOLD_S = 366 * 86400.0
 """Farthest ``hold_until`` ahead of now: a year is a real plan; 1e300 breaks every date display."""
+
+
+class Unset(enum.Enum):
+    """The type of :data:`UNSET`."""
+
+    UNSET = "unset"
+
+
+UNSET: Final = Unset.UNSET
+"""No ``until`` given with a command (``None`` is given: a hold without end)."""
+UNTIL_FIELDS = ("setpoint", "level")
+"""The commands that take an ``until``."""
 
 
 class CommandRejected(RoomloopError):
@@ -82,8 +100,14 @@ def apply_command(
     now: float,
     *,
     units: str = "C",
+    until: float | Unset | None = UNSET,
 ) -> ZoneState:
-    """Return ``state`` with the command applied, or raise :class:`CommandRejected`."""
+    """Return ``state`` with the command applied, or raise :class:`CommandRejected`.
+
+    ``until`` (``setpoint`` and ``level`` only): make it a hold that ends then (None: never).
+    """
+    if until is not UNSET:
+        return _with_end(settings, state, field, value, until=until, now=now, units=units)
     if field == "setpoint":
         number = _number(field, value)
         low, high = settings.limit_min_c, settings.limit_max_c
@@ -146,18 +170,7 @@ def apply_command(
             level_override=None,
         )
     if field == "hold_until":
-        until = _optional_number(field, value)
-        if until is not None and until <= now:
-            raise CommandRejected(
-                field,
-                f"hold_until {until:.0f} is in the past: it must be in the future (now {now:.0f})",
-            )
-        if until is not None and until > now + MAX_HOLD_S:
-            raise CommandRejected(
-                field,
-                f"{until:.0f} is more than 366 days ahead (latest {now + MAX_HOLD_S:.0f}); "
-                "use null for an indefinite hold",
-            )
+        until = _checked_end(field, _optional_number(field, value), now)
         if state.mode == "off":
             raise CommandRejected(field, "the zone is off; set a mode, set point or level first")
         if state.mode == "auto":
@@ -172,6 +185,48 @@ def apply_command(
         return replace(state, hold_until=until)
     raise CommandRejected(
         field, f"unknown field {field!r}; use one of {', '.join(COMMAND_FIELDS)}"
+    )
+
+
+def _checked_end(
+    field: str, until: float | None, now: float, what: str = "hold_until"
+) -> float | None:
+    """``until`` if it is a fit end for a hold: in the future, at most a year ahead."""
+    if until is not None and until <= now:
+        raise CommandRejected(
+            field,
+            f"{what} {until:.0f} is in the past: it must be in the future (now {now:.0f})",
+        )
+    if until is not None and until > now + MAX_HOLD_S:
+        raise CommandRejected(
+            field,
+            f"{until:.0f} is more than 366 days ahead (latest {now + MAX_HOLD_S:.0f}); "
+            "use null for an indefinite hold",
+        )
+    return until
+
+
+def _with_end(
+    settings: ZoneSettings,
+    state: ZoneState,
+    field: str,
+    value: object,
+    *,
+    until: float | None,
+    now: float,
+    units: str,
+) -> ZoneState:
+    """``setpoint`` or ``level`` as a hold ending at ``until``, in one step."""
+    if field not in UNTIL_FIELDS:
+        raise CommandRejected(field, f"until goes with {' or '.join(UNTIL_FIELDS)} only")
+    end = _checked_end(field, None if until is None else _number(field, until), now, "until")
+    if field == "setpoint":
+        held = apply_command(settings, state, field, value, now, units=units)
+        return replace(held, hold_until=end)
+    level = _word(field, value, LEVEL_NAMES)
+    return replace(
+        state, mode="hold", hold_setpoint=None, hold_level=level, hold_until=end,
+        level_override=None,
     )
 
 

@@ -154,6 +154,7 @@ class Service:
                 refusals=(CommandRejected,),
                 alarms=self.alarms,
                 durability=lambda: self.store.status,
+                program_next=self._program_next,
             )
         # After each step: the published view, persistence, then the embedder's hook.
         self.runner.subscribe(self._publish_step)
@@ -329,7 +330,15 @@ class Service:
     # ------------------------------------------------------------------ glue
 
     def _apply_parsed(self, command: Command) -> None:
-        self.runner.apply_command(command.zone, command.field, command.value)
+        self.runner.apply_command(command.zone, command.field, command.value, until=command.until)
+
+    def _program_next(self, zone: str, now: float) -> float | None:
+        """When the zone's program next changes level (None: never), for ``next-change``."""
+        runtime = self.zones.get(zone)
+        if runtime is None:
+            return None
+        change = runtime.program.cursor.at(now)[1]
+        return None if change is None else change.at
 
     def _task_failed(self, task: str) -> None:
         if task.startswith("zone:"):

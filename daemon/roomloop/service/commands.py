@@ -1,7 +1,10 @@
 """Commands from the broker: ``<prefix>/zone/<zone>/cmd/<field>``, checked, applied, answered.
 
 A command is a plain payload (``21.5``, ``hold``) or JSON (``21.5``,
-``"hold"``, ``{"value": 21.5}``). It is parsed here, from the site's units and
+``"hold"``, ``{"value": 21.5}``); ``setpoint`` and ``level`` may name the end of
+their hold, ``{"value": 21.5, "until": "next-change"}`` (the program's next change),
+a time, or ``none`` (no end), and ``hold_until`` takes ``next-change`` too
+(docs/topics.md). It is parsed here, from the site's units and
 local time into Celsius and POSIX seconds; the control core alone checks it
 (limits, words, how far ahead: :mod:`roomloop.core.commands`) as it applies it,
 and its refusal is the answer's reason. Whatever the outcome, one answer goes
@@ -25,18 +28,22 @@ import json
 import math
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Literal
 from zoneinfo import ZoneInfo
 
 import structlog
 
 from roomloop.config.models import Zone
+from roomloop.core.commands import UNSET, UNTIL_FIELDS, Unset
 from roomloop.service.publisher import iso
 from roomloop.units import from_celsius, to_celsius
 
 log = structlog.get_logger("roomloop.service")
 
 FIELDS = ("setpoint", "mode", "level", "hold_until")
+NEXT_CHANGE = "next-change"
+"""The word for "until the program's next change" (``until`` and ``hold_until``)."""
+Ends = Literal["next-change", "time", "never"]
 MAX_PAYLOAD_BYTES = 1024
 RESULT = "result"
 
@@ -52,6 +59,10 @@ class Command:
     zone: str
     field: str
     value: Any
+    until: float | Unset | None = UNSET
+    """The end of a ``setpoint`` or ``level`` hold (POSIX seconds, None: never), if given."""
+    ends: Ends | None = None
+    """How the command's hold ends, when it names an end (``until`` or ``hold_until``)."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -84,7 +95,8 @@ def parse_topic(prefix: str, topic: str) -> CommandTopic | None:
     return CommandTopic(parts[0], parts[2])
 
 
-def _payload_value(payload: bytes) -> Any:
+def _payload_value(payload: bytes) -> tuple[Any, Any]:
+    """The payload's value and its ``until`` (:data:`UNSET` when it has none)."""
     if len(payload) > MAX_PAYLOAD_BYTES:
         raise Refused(f"payload of {len(payload)} bytes is too large")
     try:
@@ -96,12 +108,15 @@ def _payload_value(payload: bytes) -> Any:
     try:
         value = json.loads(text)
     except (ValueError, RecursionError):
-        return text  # a plain payload
+        return text, UNSET  # a plain payload
     if isinstance(value, dict):
-        if set(value) != {"value"}:
-            raise Refused('a JSON object payload is {"value": ...} and nothing else')
-        value = value["value"]
-    return value
+        if "value" not in value or not set(value) <= {"value", "until"}:
+            raise Refused(
+                'a JSON object payload is {"value": ...}, for setpoint and level '
+                'optionally with "until"'
+            )
+        return value["value"], value.get("until", UNSET)
+    return value, UNSET
 
 
 def _number(value: Any, what: str) -> float:
@@ -147,23 +162,79 @@ def parse_time(value: Any, tz: ZoneInfo) -> float | None:
     return _number(value, "hold_until")
 
 
+def parse_end(
+    value: Any, tz: ZoneInfo, program_next: Callable[[], float | None], what: str
+) -> tuple[float | None, Ends]:
+    """An end for a hold: ``next-change`` (the program's next change), a time (as
+    :func:`parse_time`) or none; with what kind of end it is."""
+    if isinstance(value, str) and value.strip().lower() == NEXT_CHANGE:
+        at = program_next()
+        if at is None:
+            raise Refused(
+                f"{what} next-change: the zone's program never changes level; "
+                "give a time, or none for a hold without end"
+            )
+        return at, "next-change"
+    try:
+        at = parse_time(value, tz)
+    except Refused as exc:
+        raise Refused(str(exc).replace("hold_until", what, 1)) from None
+    return at, "never" if at is None else "time"
+
+
 def parse_command(
-    zone: Zone, field: str, payload: bytes, *, units: str, tz: ZoneInfo, now: float
+    zone: Zone,
+    field: str,
+    payload: bytes,
+    *,
+    units: str,
+    tz: ZoneInfo,
+    now: float,
+    program_next: Callable[[], float | None] = lambda: None,
 ) -> Command:
     """Parse one command's payload into the core's terms; :class:`Refused` if it cannot be read.
 
     Only the payload's form is checked here (size, UTF-8, a number where a number goes,
-    a time for ``hold_until``); whether the value is allowed (limits, words, how far
-    ahead) is for the core's :func:`~roomloop.core.commands.apply_command` alone.
+    a time for ``hold_until`` and ``until``); whether the value is allowed (limits, words,
+    how far ahead) is for the core's :func:`~roomloop.core.commands.apply_command` alone.
+    ``program_next`` gives the program's next change (POSIX seconds, None: never), what
+    ``next-change`` stands for.
     """
     if field not in FIELDS:
         return Command(zone.name, field, None)  # the core refuses it, naming the fields
-    value = _payload_value(payload)
+    value, until_raw = _payload_value(payload)
+    until: float | Unset | None = UNSET
+    ends: Ends | None = None
+    if until_raw is not UNSET:
+        if field not in UNTIL_FIELDS:
+            raise Refused(f"until goes with {' or '.join(UNTIL_FIELDS)} only")
+        until, ends = parse_end(until_raw, tz, program_next, "until")
     if field == "setpoint":
-        return Command(zone.name, field, to_celsius(_number(value, "setpoint"), units))
+        celsius = to_celsius(_number(value, "setpoint"), units)
+        return Command(zone.name, field, celsius, until, ends)
     if field in ("mode", "level"):
-        return Command(zone.name, field, value)
-    return Command(zone.name, field, parse_time(value, tz))
+        return Command(zone.name, field, value, until, ends)
+    at, ends = parse_end(value, tz, program_next, "hold_until")
+    return Command(zone.name, field, at, UNSET, ends)
+
+
+def shown_end(command: Command, tz: ZoneInfo) -> dict[str, Any]:
+    """What an answer adds for a command with an end: ``until`` (local ISO 8601, or None)
+    and ``ends`` (``next-change``, ``time`` or ``never``); nothing for one without."""
+    if command.ends is None:
+        return {}
+    shown: dict[str, Any] = {"ends": command.ends}
+    if command.field != "hold_until":  # (hold_until's value is the time itself)
+        until = command.until
+        shown["until"] = None if not isinstance(until, float) else _shown_time(until, tz)
+    return shown
+
+
+def _shown_time(posix: float, tz: ZoneInfo) -> Any:
+    try:
+        return iso(posix, tz)
+    except (OverflowError, ValueError, OSError):  # far beyond any date: the core refuses it
+        return posix
 
 
 def shown_value(command: Command, *, units: str, tz: ZoneInfo) -> Any:
@@ -173,10 +244,7 @@ def shown_value(command: Command, *, units: str, tz: ZoneInfo) -> Any:
     if command.field == "hold_until":
         if command.value is None:
             return None
-        try:
-            return iso(float(command.value), tz)
-        except (OverflowError, ValueError, OSError):  # far beyond any date: the core refuses it
-            return float(command.value)
+        return _shown_time(float(command.value), tz)
     if isinstance(command.value, str):
         return command.value.strip().lower()  # as the core reads a word
     return command.value
@@ -223,10 +291,14 @@ class CommandHandler:
         rate_per_min: int,
         refusals: tuple[type[Exception], ...] = (),
         durability: Callable[[], str] | None = None,
+        program_next: Callable[[str, float], float | None] | None = None,
     ) -> None:
         self.prefix = prefix
         self.zones = zones
         self.apply = apply
+        self.program_next = program_next
+        """``(zone, now)`` -> the zone's program's next change (None: never), for
+        ``next-change``; without it a zone's program is taken never to change."""
         self.durability = durability
         """``ok``, or why an applied command cannot be saved now (the state store's status):
         the answer then says the command holds only until a restart."""
@@ -237,6 +309,9 @@ class CommandHandler:
 
     def topics(self) -> tuple[str, ...]:
         return (command_filter(self.prefix),)
+
+    def _program_next(self, zone: str, now: float) -> float | None:
+        return None if self.program_next is None else self.program_next(zone, now)
 
     def handle(
         self, topic: str, payload: bytes, *, retained: bool, now: float, monotonic: float
@@ -258,10 +333,12 @@ class CommandHandler:
         else:
             try:
                 command = parse_command(
-                    zone, where.field, payload, units=self.units, tz=self.tz, now=now
+                    zone, where.field, payload, units=self.units, tz=self.tz, now=now,
+                    program_next=lambda: self._program_next(zone.name, now),
                 )
                 # Shown before it is applied: a value that cannot be shown is not applied.
                 shown = shown_value(command, units=self.units, tz=self.tz)
+                end = shown_end(command, self.tz)
                 self.apply(command)
             except self.refusals as exc:
                 answer.update(ok=False, reason=_reason(exc))
@@ -274,7 +351,7 @@ class CommandHandler:
                 )
                 answer.update(ok=False, reason="internal error")
             else:
-                answer.update(ok=True, value=shown)
+                answer.update(ok=True, value=shown, **end)
                 status = "ok" if self.durability is None else self.durability()
                 if status != "ok":
                     answer.update(

@@ -61,6 +61,7 @@ class BrokerSession:
         refusals: tuple[type[Exception], ...],
         alarms: AlarmBook | None = None,
         durability: Callable[[], str] | None = None,
+        program_next: Callable[[str, float], float | None] | None = None,
     ) -> None:
         from roomloop.io.broker import BrokerConnection, LastWill
 
@@ -79,6 +80,7 @@ class BrokerSession:
             rate_per_min=broker.command_rate_per_min,
             refusals=refusals,
             durability=durability,
+            program_next=program_next,
         )
         self.connection = BrokerConnection(
             broker,

@@ -20,7 +20,7 @@ import structlog
 
 from roomloop.clock import Clock, sleep_or_wake
 from roomloop.config.models import CalendarEntry, Zone
-from roomloop.core.commands import apply_command
+from roomloop.core.commands import UNSET, Unset, apply_command
 from roomloop.core.controller import ZoneController
 from roomloop.core.settings import ZoneSettings
 from roomloop.core.state import ZoneState
@@ -119,8 +119,11 @@ class ZoneRunner:
         """Call ``hook(zone)`` after each applied command (persistence saves it soon)."""
         self._on_command.append(hook)
 
-    def apply_command(self, zone: str, field: str, value: Any) -> None:
-        """Apply a command to a zone now (the broker's handler and in-process callers).
+    def apply_command(
+        self, zone: str, field: str, value: Any, *, until: float | Unset | None = UNSET
+    ) -> None:
+        """Apply a command to a zone now (the broker's handler and in-process callers);
+        ``until``: the end of a ``setpoint`` or ``level`` hold (None: never).
 
         Raises :class:`~roomloop.core.commands.CommandRejected` when the control core
         refuses it; nothing changes then. The zone steps at once.
@@ -128,9 +131,12 @@ class ZoneRunner:
         runtime = self.zones[zone]
         now = self.clock.now()
         runtime.state = apply_command(
-            runtime.settings, runtime.state, field, value, now, units=self.units
+            runtime.settings, runtime.state, field, value, now, units=self.units, until=until
         )
-        log.info("command.applied", zone=zone, field=field, value=value)
+        if until is UNSET:
+            log.info("command.applied", zone=zone, field=field, value=value)
+        else:
+            log.info("command.applied", zone=zone, field=field, value=value, until=until)
         for hook in self._on_command:
             hook(zone)
         runtime.wake.set()
