@@ -55,6 +55,7 @@ from roomloop.io.modbus import ModbusLink
 from roomloop.io.mqtt import MqttPoints
 from roomloop.io.ports import InputSource
 from roomloop.service.commands import Command
+from roomloop.service.description import description_payload
 from roomloop.service.notify import Progress, notify, watchdog_interval_s
 from roomloop.service.outputs import Output, OutputWriter, SafeSink
 from roomloop.service.persist import StateStore
@@ -216,6 +217,13 @@ class Service:
                 calendar=self.site.calendar_for(name),
             )
             self.outputs.hold_as_found(zone.output, restored.state.relay_on)
+            self.publisher.describe(
+                name,
+                description_payload(
+                    zone, restored.settings, units=self.units,
+                    publish_interval_s=self.publisher.interval_s,
+                ),
+            )
             self.persistence.saved_as(name, restored.state)
 
     async def _journal_switch(self, zone: str, point: str, on: bool) -> None:

@@ -31,6 +31,7 @@ log = structlog.get_logger("roomloop.service")
 ONLINE = "online"
 OFFLINE = "offline"
 PLAIN_FIELDS = ("temperature", "setpoint", "demand", "mode", "level")
+DESCRIPTION = "description"
 RENDER_LOG_EVERY_S = 300.0
 """Real seconds between two log events about the same zone's view that fails to render."""
 
@@ -244,12 +245,17 @@ class StatePublisher:
         self.tz = tz
         self.interval_s = interval_s
         self._views: dict[str, ZoneView] = {}
+        self._descriptions: dict[str, str] = {}
         self._sent_state: dict[str, tuple[str, float]] = {}
         self._sent_fields: dict[tuple[str, str], str] = {}
         self._render_logged: dict[str, float] = {}
 
     def update(self, view: ZoneView) -> None:
         self._views[view.zone] = view
+
+    def describe(self, zone: str, payload: dict[str, Any]) -> None:
+        """The zone's retained description (service/description.py): sent once per connection."""
+        self._descriptions[zone] = json.dumps(payload)
 
     def views(self) -> Iterable[ZoneView]:
         return self._views.values()
@@ -262,6 +268,9 @@ class StatePublisher:
     def due(self, now: float) -> list[Message]:
         """Messages to send now; call :meth:`sent` for each one the broker acknowledged."""
         messages: list[Message] = []
+        for zone, text in self._descriptions.items():
+            if self._sent_fields.get((zone, DESCRIPTION)) != text:
+                messages.append(Message(field_topic(self.prefix, zone, DESCRIPTION), text))
         for zone, view in self._views.items():
             try:
                 payload = state_payload(view, units=self.units, tz=self.tz)
