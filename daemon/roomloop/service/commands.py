@@ -138,8 +138,9 @@ def _number(value: Any, what: str) -> float:
     return number
 
 
-def parse_time(value: Any, tz: ZoneInfo) -> float | None:
-    """``hold_until``: ISO 8601 (local to the site without an offset), POSIX seconds, or none."""
+def parse_time(value: Any, tz: ZoneInfo, what: str = "hold_until") -> float | None:
+    """A hold's end: ISO 8601 (local to the site without an offset), POSIX seconds, or none;
+    ``what`` names it in a refusal."""
     if value is None or (isinstance(value, str) and value.strip().lower() in ("none", "null")):
         return None
     if isinstance(value, str):
@@ -147,19 +148,19 @@ def parse_time(value: Any, tz: ZoneInfo) -> float | None:
             when = dt.datetime.fromisoformat(value.strip())
         except ValueError:
             try:
-                return _number(value, "hold_until")
+                return _number(value, what)
             except Refused:
                 raise Refused(
-                    f"hold_until {value[:40]!r} is not a time (ISO 8601 such as "
-                    "2026-12-24T18:00, POSIX seconds, or none)"
+                    f"{what} {value[:40]!r} is not a time (ISO 8601 such as "
+                    f"2026-12-24T18:00, POSIX seconds, {NEXT_CHANGE} or none)"
                 ) from None
         if when.tzinfo is None:
             when = when.replace(tzinfo=tz)
         try:
             return when.timestamp()
         except (OverflowError, ValueError, OSError):
-            raise Refused(f"hold_until {value[:40]!r} is out of range") from None
-    return _number(value, "hold_until")
+            raise Refused(f"{what} {value[:40]!r} is out of range") from None
+    return _number(value, what)
 
 
 def parse_end(
@@ -175,10 +176,7 @@ def parse_end(
                 "give a time, or none for a hold without end"
             )
         return at, "next-change"
-    try:
-        at = parse_time(value, tz)
-    except Refused as exc:
-        raise Refused(str(exc).replace("hold_until", what, 1)) from None
+    at = parse_time(value, tz, what)
     return at, "never" if at is None else "time"
 
 
