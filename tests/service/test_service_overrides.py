@@ -47,6 +47,8 @@ async def test_a_set_point_until_the_next_change_ends_when_the_program_switches(
         assert (state["level"], state["program_level"], state["override"]) == (
             "economy", "economy", None
         )
+        # Just started: the hour's figures cover the seconds since the start, not an hour.
+        assert 0 <= state["window_1h_s"] <= 60, state["window_1h_s"]
 
         n = len(w.results)
         await w.command("room0", "setpoint", '{"value": 23, "until": "next-change"}')
@@ -73,6 +75,7 @@ async def test_a_set_point_until_the_next_change_ends_when_the_program_switches(
         state = w.state()
         assert state is not None
         assert (state["setpoint"], state["level"], state["override"]) == (20.0, "comfort", None)
+        assert 20 * 60 <= state["window_1h_s"] < 3600
         await w.wait_for(lambda: w.text("zone/room0/level") == "comfort", 10)
 
         # A bare level in auto lasts until the program's next change too, and says so.
