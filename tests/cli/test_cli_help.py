@@ -6,7 +6,18 @@ import pytest
 
 from roomloop.cli import main
 
-COMMANDS = ["check", "simulate", "probe", "run", "demo"]
+COMMANDS = [
+    "check",
+    "simulate",
+    "simulate-source",
+    "probe",
+    "bms-map",
+    "run",
+    "demo",
+    "history",
+    "report",
+    "tune",
+]
 
 
 def _help(capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch, *argv: str) -> str:
@@ -55,3 +66,17 @@ def test_the_help_states_the_demos_ranges_and_the_heating_types(
     assert "above 0 and at most 3600" in demo
     simulate = " ".join(_help(capsys, monkeypatch, "simulate").split())
     assert "forced-air, hydronic, underfloor, electric, steam" in simulate
+
+
+def test_every_sub_command_is_in_the_help_checks() -> None:
+    import argparse
+
+    from roomloop.cli import build_parser
+
+    parser = build_parser()
+    commands = next(
+        action.choices
+        for action in parser._actions
+        if isinstance(action, argparse._SubParsersAction)
+    )
+    assert sorted(commands) == sorted(COMMANDS)

@@ -44,6 +44,7 @@ from roomloop.core.state import ZoneState
 from roomloop.core.types import ZoneOutputs
 from roomloop.service.commands import Answer, RateLimit, result_topic
 from roomloop.service.publisher import Message, iso
+from roomloop.units import from_celsius
 
 log = structlog.get_logger("roomloop.alarm")
 
@@ -133,7 +134,7 @@ class AlarmBook:
     def _shown(self, alarm: Alarm) -> Any:
         value = alarm.value
         if alarm.kind in TEMPERATURE_KINDS and isinstance(value, float) and self.units == "F":
-            return round(value * 9.0 / 5.0 + 32.0, 2)
+            return round(from_celsius(value, "F"), 2)
         return value
 
     def payload(self, zone: str, alarm: Alarm) -> dict[str, Any]:

@@ -27,6 +27,7 @@ from roomloop.config.models import LEVELS, Bms, Site, Zone
 from roomloop.core.alarms import ALARM_KINDS
 from roomloop.core.state import ZoneState
 from roomloop.core.types import RELIABILITY_VALUES, ZoneOutputs
+from roomloop.units import delta_from_kelvin, from_celsius, to_celsius
 
 ILLEGAL_FUNCTION = 1
 ILLEGAL_ADDRESS = 2
@@ -279,9 +280,9 @@ class RegisterMap:
         if register.kind in ("temperature", "delta"):
             number = None if value is None else float(value)
             if number is not None and register.kind == "temperature" and self.units == "F":
-                number = number * 9.0 / 5.0 + 32.0
+                number = from_celsius(number, "F")
             elif number is not None and register.kind == "delta" and self.units == "F":
-                number = number * 9.0 / 5.0
+                number = delta_from_kelvin(number, "F")
             if self.analog_words == 2:
                 return encode_float32(math.nan if number is None else number, self.bms.word_order)
             return [NOT_AVAILABLE_INT16 if number is None else encode_int16x10(number)]
@@ -416,7 +417,7 @@ class RegisterMap:
         if register.kind == "temperature":
             celsius = float(value)
             if self.units == "F":
-                celsius = (celsius - 32.0) * 5.0 / 9.0
+                celsius = to_celsius(celsius, "F")
             if register.field == "comfort_setpoint":
                 low, high = zone.limits.min, zone.limits.max
                 if not low - 1e-6 <= celsius <= high + 1e-6:

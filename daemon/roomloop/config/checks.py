@@ -36,6 +36,7 @@ from roomloop.config.models import (
     SiteInfo,
     Zone,
 )
+from roomloop.units import delta_from_kelvin, from_celsius
 
 KeyPath = tuple[str | int, ...]
 AnyPoint = ModbusInput | MqttInput | ModbusOutput | MqttOutput
@@ -195,14 +196,13 @@ def _outdoor_point(parts: SiteParts) -> list[Finding]:
 
 def temperature_text(celsius: float, units: str) -> str:
     """An absolute temperature as the user typed it: ``20 °C`` or ``68 °F``."""
-    value = celsius * 9.0 / 5.0 + 32.0 if units == "F" else celsius
-    return f"{_num(value)} °{units}"
+    return f"{_num(from_celsius(celsius, units))} °{units}"
 
 
 def delta_text(kelvin: float, units: str) -> str:
     """A temperature difference in the site's units: ``0.5 K`` or ``0.9 °F``."""
     if units == "F":
-        return f"{_num(kelvin * 9.0 / 5.0)} °F"
+        return f"{_num(delta_from_kelvin(kelvin, units))} °F"
     return f"{_num(kelvin)} K"
 
 

@@ -51,6 +51,7 @@ from roomloop.config.models import (
     Zone,
 )
 from roomloop.errors import ConfigError, ConfigProblem
+from roomloop.units import delta_from_kelvin
 
 KeyPath = tuple[str | int, ...]
 """A location in the document: mapping keys (str) and list indices (int)."""
@@ -554,7 +555,7 @@ def _fahrenheit_bound(error: Mapping[str, Any], path: KeyPath, units: str) -> st
     if not isinstance(limit, int | float):
         return None
     return (
-        f"input should be {words} {round(limit * 1.8, 4):g} °F ({limit:g} K) "
+        f"input should be {words} {round(delta_from_kelvin(limit, units), 4):g} °F ({limit:g} K) "
         f"(got {_show(error.get('input'))})"
     )
 

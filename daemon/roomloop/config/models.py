@@ -37,6 +37,7 @@ from pydantic import (
 from pydantic import Strict as StrictType
 
 from roomloop.config.presets import PRESET_KEYS, PRESETS, time_constant_for_cycle_rate
+from roomloop.units import delta_from_kelvin, delta_to_kelvin, from_celsius, to_celsius
 
 # --------------------------------------------------------------------------- units
 
@@ -51,25 +52,25 @@ def _units(context: Any) -> str:
 
 def _abs_in(value: Any, info: ValidationInfo) -> Any:
     if _units(info.context) == "F" and _is_number(value):
-        return (float(value) - 32.0) * 5.0 / 9.0
+        return to_celsius(float(value), "F")
     return value
 
 
 def _delta_in(value: Any, info: ValidationInfo) -> Any:
     if _units(info.context) == "F" and _is_number(value):
-        return float(value) * 5.0 / 9.0
+        return delta_to_kelvin(float(value), "F")
     return value
 
 
 def _abs_out(value: float, info: SerializationInfo) -> float:
     if _units(info.context) == "F":
-        return value * 9.0 / 5.0 + 32.0
+        return from_celsius(value, "F")
     return value
 
 
 def _delta_out(value: float, info: SerializationInfo) -> float:
     if _units(info.context) == "F":
-        return value * 9.0 / 5.0
+        return delta_from_kelvin(value, "F")
     return value
 
 

@@ -27,6 +27,7 @@ from dataclasses import dataclass, replace
 
 from roomloop.config.models import Alarms
 from roomloop.errors import RoomloopError
+from roomloop.units import delta_from_kelvin, from_celsius
 
 ALARM_KINDS = (
     "too-cold",
@@ -181,13 +182,13 @@ class _Condition:
 
 def _delta_text(settings: AlarmSettings, kelvin: float) -> str:
     if settings.units == "F":
-        return f"{kelvin * 9.0 / 5.0:g} F"
+        return f"{delta_from_kelvin(kelvin, 'F'):g} F"
     return f"{kelvin:g} K"
 
 
 def _temperature_text(settings: AlarmSettings, celsius: float) -> str:
     if settings.units == "F":
-        return f"{celsius * 9.0 / 5.0 + 32.0:.1f} F"
+        return f"{from_celsius(celsius, 'F'):.1f} F"
     return f"{celsius:.1f} C"
 
 

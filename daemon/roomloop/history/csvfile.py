@@ -22,6 +22,7 @@ from zoneinfo import ZoneInfo
 
 from roomloop.errors import ConfigError, ConfigProblem
 from roomloop.history.store import ZoneHistory
+from roomloop.units import from_celsius, to_celsius
 
 REQUIRED = ("time", "temperature", "relay")
 OPTIONAL = ("setpoint", "outdoor", "fail_safe")
@@ -33,11 +34,11 @@ class CsvError(ConfigError):
 
 
 def _to_site(value_c: float, units: str) -> float:
-    return value_c * 9.0 / 5.0 + 32.0 if units == "F" else value_c
+    return from_celsius(value_c, units)
 
 
 def _from_site(value: float, units: str) -> float:
-    return (value - 32.0) * 5.0 / 9.0 if units == "F" else value
+    return to_celsius(value, units)
 
 
 def write_csv(history: ZoneHistory, out: TextIO, *, tz: ZoneInfo, units: str) -> int:

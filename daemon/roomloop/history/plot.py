@@ -12,6 +12,7 @@ from collections.abc import Sequence
 from zoneinfo import ZoneInfo
 
 from roomloop.history.store import ZoneHistory
+from roomloop.units import delta_from_kelvin, from_celsius
 
 
 class PlotUnavailable(Exception):
@@ -54,9 +55,9 @@ def write_history_plot(
     def site_t(value: float | None) -> float:
         if value is None:
             return float("nan")
-        return value * 9.0 / 5.0 + 32.0 if units == "F" else value
+        return from_celsius(value, units)
 
-    delta = 9.0 / 5.0 if units == "F" else 1.0
+    delta = delta_from_kelvin(1.0, units)
     rows = len(histories)
     fig, axes = plt.subplots(
         3 * rows,

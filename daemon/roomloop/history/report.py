@@ -25,6 +25,7 @@ from zoneinfo import ZoneInfo
 
 from roomloop.history.store import ZoneHistory
 from roomloop.plant.figures import window_figures
+from roomloop.units import delta_from_kelvin
 
 SETTLE_S = 3600.0
 MIN_STRETCH_S = 3600.0
@@ -173,7 +174,7 @@ def format_report(
     zone: str, heating: str, days: Sequence[DayFigures], *, units: str, tick_s: float
 ) -> str:
     """A readable table of one zone's days (differences in K, or F degrees on an F site)."""
-    scale = 9.0 / 5.0 if units == "F" else 1.0
+    scale = delta_from_kelvin(1.0, units)
     unit = "F" if units == "F" else "K"
 
     def d(value: float | None, fmt: str = "{:.2f}") -> str:

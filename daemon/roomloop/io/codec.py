@@ -28,6 +28,7 @@ from typing import Literal
 
 from roomloop.config.models import DATA_TYPE_REGISTERS, ModbusInput
 from roomloop.core.types import Transport
+from roomloop.units import from_celsius, to_celsius
 
 DataType = Literal["int16", "uint16", "int32", "uint32", "float32"]
 Order = Literal["big", "little"]
@@ -122,14 +123,6 @@ def encode_raw(
 def unsigned_raw(registers: Sequence[int], word_order: Order, byte_order: Order) -> int:
     """The registers as one unsigned integer in ABCD order (what sentinels are compared with)."""
     return int.from_bytes(registers_to_bytes(registers, word_order, byte_order), "big")
-
-
-def to_celsius(value: float, unit: Literal["C", "F"]) -> float:
-    return (value - 32.0) * 5.0 / 9.0 if unit == "F" else value
-
-
-def from_celsius(value: float, unit: Literal["C", "F"]) -> float:
-    return value * 9.0 / 5.0 + 32.0 if unit == "F" else value
 
 
 def matched_sentinel(registers: Sequence[int], point: ModbusInput) -> int | None:

@@ -25,9 +25,9 @@ from typing import Any, Protocol
 from roomloop.clock import Clock, RealClock, wait_for
 from roomloop.config.models import MqttInput, MqttOutput
 from roomloop.core.types import PointSample, Transport
-from roomloop.io.codec import to_celsius
 from roomloop.io.eventlog import RateLimitedLog, get_logger
 from roomloop.io.ports import OutputState, OutputVerdict
+from roomloop.units import to_celsius
 
 log = get_logger("mqtt")
 

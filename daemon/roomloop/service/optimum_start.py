@@ -32,6 +32,7 @@ from roomloop.core.optimum_start import (
 from roomloop.core.settings import ZoneSettings
 from roomloop.core.types import PointSample
 from roomloop.service.program import ProgramCursor, Switch
+from roomloop.units import delta_from_kelvin
 
 
 def settings_for_zone(zone: Zone, settings: ZoneSettings) -> OptimumStartSettings:
@@ -78,7 +79,7 @@ def published(
 
     rate = decision.rate_k_per_h
     if rate is not None and units == "F":
-        rate *= 9.0 / 5.0
+        rate = delta_from_kelvin(rate, "F")
     return {
         "active": decision.early,
         "since": when(decision.since),

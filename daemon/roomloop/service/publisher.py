@@ -24,7 +24,7 @@ from roomloop.core.state import ZoneState
 from roomloop.core.types import ZoneOutputs
 from roomloop.service.optimum_start import published
 from roomloop.service.program import Switch
-from roomloop.units import from_celsius
+from roomloop.units import delta_from_kelvin, from_celsius
 
 log = structlog.get_logger("roomloop.service")
 
@@ -55,7 +55,7 @@ def _abs(value: float | None, units: str, digits: int = 2) -> float | None:
 
 
 def _delta(value: float, units: str, digits: int = 3) -> float:
-    return round(value * 9.0 / 5.0 if units == "F" else value, digits)
+    return round(delta_from_kelvin(value, units), digits)
 
 
 def iso(posix: float, tz: ZoneInfo) -> str:
