@@ -15,7 +15,7 @@ from roomloop.core.alarms import ALARM_KINDS
 from roomloop.core.commands import MAX_HOLD_S
 from roomloop.core.settings import LEVEL_NAMES, MODE_NAMES, ZoneSettings
 from roomloop.service.commands import FIELDS
-from roomloop.units import from_celsius
+from roomloop.units import delta_from_kelvin, from_celsius
 
 ACK = "ack"
 
@@ -25,7 +25,7 @@ def _abs(celsius: float, units: str) -> float:
 
 
 def _delta(kelvin: float, units: str) -> float:
-    return round(kelvin * 9.0 / 5.0 if units == "F" else kelvin, 3)
+    return round(delta_from_kelvin(kelvin, units), 3)
 
 
 def description_payload(
