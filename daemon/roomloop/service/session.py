@@ -110,7 +110,9 @@ class BrokerSession:
         for topic in self.commands.topics():
             # Retain as published (MQTT 5): a retained command published while we are
             # subscribed still arrives marked retained, so it is ignored like the others.
-            await client.subscribe(topic, options=SubscribeOptions(qos=1, retainAsPublished=True))
+            # No local: our own answers on cmd/result do not come back to us.
+            options = SubscribeOptions(qos=1, noLocal=True, retainAsPublished=True)
+            await client.subscribe(topic, options=options)
         for topic in self.mqtt_points.topics():
             await client.subscribe(topic, qos=1)
         await client.publish(status_topic(self.prefix), ONLINE, qos=1, retain=True)
