@@ -379,7 +379,7 @@ class CommandHandler:
             "(an empty retained message on this topic deletes the retained one)"
         )
         body = json.dumps({"field": where.field, "ok": False, "reason": reason})
-        return Answer(result_topic(self.prefix, where.zone[:64]), body)
+        return Answer(result_topic(self.prefix, where.zone), body)
 
     def _unknown_zone(self, where: CommandTopic, monotonic: float) -> Answer | None:
         """A command for a zone this site does not have: refused on that zone's result topic
