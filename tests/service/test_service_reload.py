@@ -1,0 +1,110 @@
+"""SIGHUP reloads the site file of a real ``roomloop run`` (mosquitto, a pymodbus server).
+
+A bad file is refused with its problems in the log and changes nothing; a good one
+changes a set point, adds a zone and removes one, while a kept zone keeps its hold
+and its relay, which is never written off around the reload (no off/on pulse).
+The service runs on the paced clock (``ROOMLOOP_CLOCK_SPEED``); every wait is bounded.
+"""
+
+from __future__ import annotations
+
+import signal
+import time
+from pathlib import Path
+from typing import Any
+
+import pytest
+import yaml
+from service_rooms import RoomPlant, ServiceProcess, Watcher, site_yaml
+
+pytestmark = [pytest.mark.needs_mosquitto, pytest.mark.slow]
+
+SPEED = 120.0
+PREFIX = "roomloop/test-annex"
+
+
+def _site(modbus_port: int, broker_port: int, zones: int, room1_comfort: float) -> dict[str, Any]:
+    site = site_yaml(modbus_port=modbus_port, broker_port=broker_port, zones=zones)
+    site["zones"][1]["setpoints"]["comfort"] = room1_comfort
+    return site
+
+
+def _events(service: ServiceProcess, name: str) -> list[dict[str, Any]]:
+    return [e for e in service.log_events() if e.get("event") == name]
+
+
+async def test_sighup_reloads_a_good_file_and_refuses_a_bad_one(
+    tmp_path: Path, mosquitto: Any, modbus_tcp_server: Any
+) -> None:
+    server = await modbus_tcp_server(units=(1,))
+    coil_writes: list[tuple[int, bool]] = []
+
+    def record(function_code: int, address: int, values: list[Any]) -> None:
+        if function_code in (5, 15):
+            coil_writes.extend((address + i, bool(v)) for i, v in enumerate(values))
+
+    server.write_filter = record
+    config = tmp_path / "site.yaml"
+    config.write_text(yaml.safe_dump(_site(server.port, mosquitto.port, 2, 20.0)))
+    service = ServiceProcess(
+        config, tmp_path / "state", SPEED, tmp_path / "service.log", origin=time.time()
+    )
+    async with (
+        RoomPlant(server, [17.0, 17.0, 17.0], SPEED) as plant,
+        Watcher(mosquitto.host, mosquitto.port, PREFIX) as w,
+    ):
+        w.guard = service.died
+        plant.frozen = True  # the rooms stay at 17 C: room0's demand never ends by itself
+        try:
+            await service.start()
+            await w.wait_for(lambda: w.text("status") == "online", 15)
+            n = len(w.results)
+            await w.command("room0", "setpoint", "23")
+            assert (await w.answer(n))["ok"] is True
+            await w.wait_for(lambda: (w.state("room0") or {}).get("mode") == "hold", 10)
+            await w.wait_for(lambda: (0, True) in coil_writes, 15)
+            await w.wait_for(lambda: (w.state("room1") or {}).get("setpoint") == 20.0, 10)
+            writes_before = len(coil_writes)
+
+            # A bad file: refused, its problem named (file, line, key path), nothing changes.
+            bad = _site(server.port, mosquitto.port, 3, 21.5)
+            bad["zones"][1]["tick_s"] = -5
+            config.write_text(yaml.safe_dump(bad))
+            service.process.send_signal(signal.SIGHUP)  # type: ignore[union-attr]
+            await w.wait_for(lambda: bool(_events(service, "reload.refused")), 10)
+            problems = _events(service, "reload.problem")
+            assert problems, "the refusal names no problem"
+            assert problems[0]["file"] == str(config)
+            assert isinstance(problems[0]["line"], int)
+            assert "tick_s" in problems[0]["key"]
+            assert not _events(service, "service.reloading")
+            assert f"{PREFIX}/zone/room2/state" not in w.latest
+            assert (w.state("room1") or {}).get("setpoint") == 20.0
+
+            # A good file: room1's comfort set point changes, room2 is added.
+            config.write_text(yaml.safe_dump(_site(server.port, mosquitto.port, 3, 21.5)))
+            service.process.send_signal(signal.SIGHUP)  # type: ignore[union-attr]
+            await w.wait_for(lambda: len(_events(service, "service.reloaded")) == 1, 15)
+            await w.wait_for(lambda: (w.state("room1") or {}).get("setpoint") == 21.5, 10)
+            await w.wait_for(lambda: (w.state("room2") or {}).get("demand") is True, 10)
+            await w.wait_for(lambda: (2, True) in coil_writes, 10)
+            kept = w.state("room0") or {}
+            assert kept.get("mode") == "hold" and kept.get("setpoint") == 23.0, kept
+            assert (w.state("room2") or {}).get("mode") == "auto"  # fresh
+
+            # room2 removed again: its relay goes to its safe state (off), its topics cleared.
+            config.write_text(yaml.safe_dump(_site(server.port, mosquitto.port, 2, 21.5)))
+            service.process.send_signal(signal.SIGHUP)  # type: ignore[union-attr]
+            await w.wait_for(lambda: len(_events(service, "service.reloaded")) == 2, 15)
+            await w.wait_for(lambda: w.latest.get(f"{PREFIX}/zone/room2/state") == b"", 10)
+            assert (await server.get_coils(2, 1)) == [False]
+            await w.wait_for(lambda: (w.state("room0") or {}).get("demand") is True, 10)
+            kept = w.state("room0") or {}
+            assert kept.get("mode") == "hold" and kept.get("setpoint") == 23.0, kept
+            # the kept zone's relay was never written off: no pulse at either reload
+            assert (0, False) not in coil_writes[writes_before:], coil_writes
+            assert (await server.get_coils(0, 1)) == [True]
+            code = await service.signal(signal.SIGTERM)
+            assert code == 0
+        finally:
+            await service.stop()
