@@ -108,3 +108,20 @@ async def test_sighup_reloads_a_good_file_and_refuses_a_bad_one(
             assert code == 0
         finally:
             await service.stop()
+
+
+def test_a_reload_that_renames_the_site_is_refused(tmp_path: Path) -> None:
+    # the name keys the site lock and the state file: only a restart may change it
+    from roomloop.config.loader import load_site
+    from roomloop.service.reload import check_reload
+
+    config = tmp_path / "site.yaml"
+    site = site_yaml(modbus_port=1502, broker_port=1883, zones=1)
+    config.write_text(yaml.safe_dump(site))
+    running = load_site(config)
+    assert check_reload(config, running) is not None
+    site["site"]["name"] = "test-annex-2"
+    config.write_text(yaml.safe_dump(site))
+    assert check_reload(config, running) is None
+    config.unlink()
+    assert check_reload(config, running) is None  # a missing file: refused, not raised
