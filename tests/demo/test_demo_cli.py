@@ -84,6 +84,9 @@ def _assert_short_run(out: str, plot: Path) -> None:
     # The silent sensor: comm-failure, fail-safe engaged, and recovered.
     assert "meeting-room: its sensor (unit 12) goes silent" in out
     assert "modbus.read_failed" in out
+    # the repeated failure folded: a reminder counts what it left out, the recovery sums up
+    assert re.search(r"modbus\.read_failed .* suppressed=\d+ failing_for_s=300\.0", out), out
+    assert re.search(r"modbus\.read_recovered .* failed_for_s=\d+\.\d failures=\d+", out), out
     assert "exception reply 11 (gateway target device failed to respond)" in out
     engaged = out.index("meeting-room: FAIL-SAFE engaged (learned-duty)")
     ended = out.index("meeting-room: fail-safe ended")
