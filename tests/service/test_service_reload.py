@@ -3,11 +3,13 @@
 A bad file is refused with its problems in the log and changes nothing; a good one
 changes a set point, adds a zone and removes one, while a kept zone keeps its hold
 and its relay, which is never written off around the reload (no off/on pulse).
-The service runs on the paced clock (``ROOMLOOP_CLOCK_SPEED``); every wait is bounded.
+The process runs on the paced clock (``ROOMLOOP_CLOCK_SPEED``); the in-process test of the
+same seam on the virtual clock checks the kept anticipator. Every wait is bounded.
 """
 
 from __future__ import annotations
 
+import asyncio
 import signal
 import time
 from pathlib import Path
@@ -15,9 +17,12 @@ from typing import Any
 
 import pytest
 import yaml
-from service_rooms import RoomPlant, ServiceProcess, Watcher, site_yaml
+from service_rooms import RoomPlant, ServiceProcess, Watcher, site_yaml, until
 
-pytestmark = [pytest.mark.needs_mosquitto, pytest.mark.slow]
+from roomloop.clock import VirtualClock, wait_for
+from roomloop.config.loader import load_site
+from roomloop.service.reload import check_reload, serve
+from roomloop.service.zones import TickReport
 
 SPEED = 120.0
 PREFIX = "roomloop/test-annex"
@@ -33,6 +38,8 @@ def _events(service: ServiceProcess, name: str) -> list[dict[str, Any]]:
     return [e for e in service.log_events() if e.get("event") == name]
 
 
+@pytest.mark.needs_mosquitto
+@pytest.mark.slow
 async def test_sighup_reloads_a_good_file_and_refuses_a_bad_one(
     tmp_path: Path, mosquitto: Any, modbus_tcp_server: Any
 ) -> None:
@@ -112,9 +119,6 @@ async def test_sighup_reloads_a_good_file_and_refuses_a_bad_one(
 
 def test_a_reload_that_renames_the_site_is_refused(tmp_path: Path) -> None:
     # the name keys the site lock and the state file: only a restart may change it
-    from roomloop.config.loader import load_site
-    from roomloop.service.reload import check_reload
-
     config = tmp_path / "site.yaml"
     site = site_yaml(modbus_port=1502, broker_port=1883, zones=1)
     config.write_text(yaml.safe_dump(site))
@@ -125,3 +129,54 @@ def test_a_reload_that_renames_the_site_is_refused(tmp_path: Path) -> None:
     assert check_reload(config, running) is None
     config.unlink()
     assert check_reload(config, running) is None  # a missing file: refused, not raised
+
+
+async def test_a_reload_keeps_a_running_zones_anticipator_and_relay(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    # In-process on the virtual clock: the reload's seam (reload.serve) without the signal.
+    clock = VirtualClock()
+    server = await modbus_tcp_server()
+    coil_writes: list[tuple[int, bool]] = []
+    server.write_filter = lambda fc, address, values: coil_writes.extend(
+        (address + i, bool(v)) for i, v in enumerate(values) if fc in (5, 15)
+    )
+
+    def write(room1_comfort: float) -> None:
+        site = _site(server.port, 1883, 2, room1_comfort)
+        del site["broker"]
+        config.write_text(yaml.safe_dump(site))
+
+    config = tmp_path / "site.yaml"
+    write(20.0)
+    ticks: list[TickReport] = []
+    stop, reload = asyncio.Event(), asyncio.Event()
+    async with RoomPlant(server, [15.0, 17.0], clock) as plant:
+        plant.frozen = True  # room0 stays cold: its relay has no reason to switch off
+        task = asyncio.create_task(
+            serve(config, load_site(config), stop=stop, reload=reload,
+                  state_dir=tmp_path / "state", clock=clock, on_tick=ticks.append)
+        )
+        try:
+            room0 = lambda: [t for t in ticks if t.zone == "room0"]  # noqa: E731
+            await until(clock, lambda: len(room0()) >= 30 and room0()[-1].state.relay_on)
+            before = room0()[-1]
+            assert before.outputs.anticipator_k > 0.2  # heat built up while on
+            write(21.5)
+            reload.set()
+            reloaded_at, writes_at_reload = clock.now(), len(coil_writes)
+            await until(clock, lambda: any(
+                t.zone == "room1" and t.at > reloaded_at and t.outputs.setpoint == 21.5
+                for t in ticks
+            ))
+            after = next(t for t in room0() if t.at > reloaded_at)
+            around_reload = coil_writes[writes_at_reload:]
+        finally:
+            stop.set()
+            await wait_for(clock, task, 30.0)
+    # a fresh state would start the anticipator at 0; the kept one goes on where it was
+    # (one tick of heat-up/decay between the two steps at most)
+    assert after.state.relay_on and after.outputs.demand
+    assert after.outputs.anticipator_k == pytest.approx(before.outputs.anticipator_k, rel=0.1)
+    assert after.state.switched_at == before.state.switched_at
+    assert (0, False) not in around_reload, around_reload  # no off/on pulse at the reload

@@ -51,6 +51,7 @@ from roomloop.service.supervisor import cancel_and_wait
 
 if TYPE_CHECKING:
     from roomloop.service.app import Service
+    from roomloop.service.zones import OnTick
 
 log = structlog.get_logger("roomloop.service")
 
@@ -212,13 +213,17 @@ async def serve(
     reload: asyncio.Event,
     state_dir: str | Path,
     clock: Clock,
+    on_tick: OnTick | None = None,
 ) -> None:
-    """Run the site until ``stop``; on ``reload`` check ``path`` and, if good, rebuild on it."""
+    """Run the site until ``stop``; on ``reload`` check ``path`` and, if good, rebuild on it
+    (``on_tick``: the embedder's per-step hook, given to every service in turn)."""
     from roomloop.service.app import Service
 
     carried: Carried | None = None
     while True:
-        service = Service(site, clock=clock, state_dir=state_dir, carried=carried)
+        service = Service(
+            site, clock=clock, state_dir=state_dir, carried=carried, on_tick=on_tick
+        )
         ending = asyncio.Event()
         running = asyncio.create_task(service.run(ending), name="service")
         handover = await _until_reload(
