@@ -84,6 +84,9 @@ def _assert_short_run(out: str, plot: Path) -> None:
     # The silent sensor: comm-failure, fail-safe engaged, and recovered.
     assert "meeting-room: its sensor (unit 12) goes silent" in out
     assert "modbus.read_failed" in out
+    # the repeated failure folded: a reminder counts what it left out, the recovery sums up
+    assert re.search(r"modbus\.read_failed .* suppressed=\d+ failing_for_s=300\.0", out), out
+    assert re.search(r"modbus\.read_recovered .* failed_for_s=\d+\.\d failures=\d+", out), out
     assert "exception reply 11 (gateway target device failed to respond)" in out
     engaged = out.index("meeting-room: FAIL-SAFE engaged (learned-duty)")
     ended = out.index("meeting-room: fail-safe ended")
@@ -153,6 +156,56 @@ def test_a_signal_stops_cleanly_with_outputs_safe(signum: signal.Signals, said: 
         "kitchen off: every output in its safe state" in out
     )
     assert set(_summary_rows(out)) == set(ZONES)
+    assert "Traceback" not in err
+
+
+def test_ctrl_c_after_the_switch_marks_windows_partial_or_not_reached() -> None:
+    # Ctrl-C between the 07:00 switch and 09:48, where the accuracy window begins: the
+    # overshoot/reach window is partial (its covered time named), CA and cyc/h not reached.
+    process = subprocess.Popen(
+        _demo("--hours", "8", "--speed", "2000"),  # status every 30 simulated min
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        env=_env(),
+    )
+    assert process.stdout is not None
+    seen: list[str] = []
+    after_switch = re.compile(r"^\[(07:[3-5]\d|08:[0-4]\d)\] small-hall ")
+    try:
+        selector = selectors.DefaultSelector()
+        selector.register(process.stdout, selectors.EVENT_READ)
+        deadline = time.monotonic() + 45.0
+        while time.monotonic() < deadline:
+            if not selector.select(timeout=max(0.0, deadline - time.monotonic())):
+                break
+            line = process.stdout.readline()
+            if not line:
+                break
+            seen.append(line)
+            if after_switch.match(line):
+                break
+        assert any(after_switch.match(line) for line in seen), "".join(seen)
+        process.send_signal(signal.SIGINT)
+        rest, err = process.communicate(timeout=30.0)
+    finally:
+        if process.poll() is None:
+            process.kill()
+            process.communicate(timeout=10.0)
+    out = "".join(seen) + rest
+    assert process.returncode == 0, out + err
+    assert "demo stopped early" in out
+    rows = _summary_rows(out)
+    assert set(rows) == set(ZONES)
+    for zone, cells in rows.items():
+        _heating, ca, cph, overshoot, _reach, _kwh, _fail_safe = cells
+        assert (ca, cph) == ("n/r", "n/r"), (zone, cells)  # no figure for a window not run
+        assert math.isfinite(float(overshoot)), (zone, cells)  # the partial window's figure
+    stopped = re.search(r"the run stopped at (\d\d:\d\d)", out)
+    assert stopped is not None, out
+    assert "07:00" < stopped.group(1) < "09:48"
+    assert "the second half of the comfort stretch: not reached" in out
+    assert f"after the 07:00 switch until 12:36: partial, only 07:00-{stopped.group(1)} ran" in out
     assert "Traceback" not in err
 
 

@@ -96,3 +96,35 @@ async def test_plant_server_serves_sensors_and_silences_one_unit() -> None:
         stepping.cancel()
         await asyncio.gather(stepping, return_exceptions=True)
         await server.stop()
+
+
+def test_a_run_stopped_early_has_no_figures_for_the_windows_it_did_not_reach() -> None:
+    # A run stopped an hour after the 07:00 switch, with a plant trace that kept going (as if
+    # the stop had not cut it): the accuracy window (second half of the comfort stretch) was
+    # never reached, so it has no figure; the switch's window covers only what ran.
+    from roomloop.demo.summary import format_summary, summarize_zone
+
+    site = demo_site(1502, "/tmp/unused")
+    tz = ZoneInfo(site.site.timezone)
+    t = Timeline.for_run(8.0, site.zone("meeting-room"), tz)
+    steps = int((t.end - t.start) / STEP_S)
+    trace = PlantTrace(
+        time_s=[i * STEP_S for i in range(steps)],
+        room_c=[18.0 + 2.5 * i / steps for i in range(steps)],
+        sensor_c=[0.0] * steps,
+        relay=[i % 6 < 3 for i in range(steps)],
+    )
+    stopped = t.switch_at + 3600.0
+    row = summarize_zone(
+        "meeting-room", "hydronic", trace, started_at=t.start, timeline=t,
+        comfort_c=20.0, heater_w=1000.0, fail_safe_s=0.0, ended_at=stopped,
+    )
+    assert row.control_accuracy_k is None and row.cycles_per_hour is None
+    # the room reached 18 + 2.5 * (share of the run that had gone by at the stop)
+    ran_share = (stopped - t.start) / (t.end - t.start)
+    assert row.overshoot_k == pytest.approx(18.0 + 2.5 * ran_share - 20.0, abs=0.01)
+    text = format_summary([row], t, tz, 20.0, stopped)
+    assert "n/r" in text.splitlines()[1]
+    assert "the comfort stretch: not reached (the run stopped at 08:00)" in text
+    partial = "after the 07:00 switch until 12:36: partial, only 07:00-08:00 ran (60 of 336 min)"
+    assert partial in text

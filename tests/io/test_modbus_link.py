@@ -339,6 +339,38 @@ async def test_broken_sensor_logs_are_rate_limited(modbus_tcp_server: Any) -> No
     assert [e["event"] for e in events].count("modbus.point_recovered") == 1
 
 
+async def test_an_hour_of_the_same_read_failure_is_folded_into_a_few_lines(
+    modbus_tcp_server: Any,
+) -> None:
+    # A sensor behind a gateway silent for an hour, polled every 10 s: the first failure in
+    # full, reminders further and further apart, and the recovery says how long and how often.
+    server = await modbus_tcp_server()
+    await server.set_registers("input", 0, [0x00D7])
+    clock = VirtualClock(start=0.0)
+    link = ModbusLink(tcp_link(server), [inp("room", 0, scale=0.1)], clock=clock)
+    with capture_logs() as events:
+        async with link:
+            server.exception_code = 11  # gateway target device failed to respond
+            for _ in range(360):
+                clock.advance(10)
+                assert (await link.poll())[0].transport == "comm-failure"
+            server.exception_code = 6  # another failure (server device busy): said at once
+            clock.advance(10)
+            await link.poll()
+            server.exception_code = None
+            clock.advance(10)
+            assert (await link.poll())[0].transport == "ok"
+    failed = [e for e in events if e["event"] == "modbus.read_failed"]
+    eleven = [e for e in failed if "exception reply 11" in e["reason"]]
+    # at 0, then 300, 900, 2100 s after the first (the pause doubles from 300 s)
+    assert [e.get("failing_for_s", 0.0) for e in eleven] == [0.0, 300.0, 900.0, 2100.0]
+    assert "suppressed" not in eleven[0] and eleven[1]["suppressed"] == 29
+    assert len(failed) == len(eleven) + 1 and "exception reply 6" in failed[-1]["reason"]
+    recovered = [e for e in events if e["event"] == "modbus.read_recovered"]
+    assert len(recovered) == 1
+    assert recovered[0]["failures"] == 361 and recovered[0]["failed_for_s"] == 3610.0
+
+
 async def test_stale_when_polls_stop(modbus_tcp_server: Any) -> None:
     server = await modbus_tcp_server()
     point = inp("room", 0, reliability={"stale_after_s": 30})

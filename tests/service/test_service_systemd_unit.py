@@ -49,6 +49,11 @@ def test_notify_watchdog_restart_and_directories() -> None:
     assert settings["ConfigurationDirectory"] == ["roomloop"]
 
 
+def test_reload_sends_sighup_to_the_main_process() -> None:
+    # `roomloop run` reloads its site file on SIGHUP (tests/service/test_service_reload.py)
+    assert _settings()["ExecReload"] == ["/bin/kill -HUP $MAINPID"]
+
+
 def test_serial_adapters_stay_reachable() -> None:
     settings = _settings()
     allowed = {value.split()[0] for value in settings["DeviceAllow"]}

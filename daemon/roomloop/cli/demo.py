@@ -202,6 +202,19 @@ class SimulatedStamp:
         return event_dict
 
 
+SHOWN_INFO = frozenset({"modbus.read_recovered", "modbus.point_recovered"})
+"""The info events the demo shows beside the warnings: the end of a folded failure, with how
+long it lasted and how many reads failed (the warnings in between are only reminders)."""
+
+
+def _warnings_and_recoveries(
+    _logger: Any, _name: str, event_dict: MutableMapping[str, Any]
+) -> MutableMapping[str, Any]:
+    if event_dict.get("level") in ("debug", "info") and event_dict.get("event") not in SHOWN_INFO:
+        raise structlog.DropEvent
+    return event_dict
+
+
 def configure_demo_logging(stream: Any, stamp: SimulatedStamp) -> None:
     """The service's warnings and errors as readable lines stamped with simulated time.
 
@@ -213,11 +226,12 @@ def configure_demo_logging(stream: Any, stamp: SimulatedStamp) -> None:
         processors=[
             structlog.contextvars.merge_contextvars,
             structlog.processors.add_log_level,
+            _warnings_and_recoveries,
             stamp,
             structlog.processors.format_exc_info,
             ConsoleRenderer(colors=False),
         ],
-        wrapper_class=structlog.make_filtering_bound_logger(logging.WARNING),
+        wrapper_class=structlog.make_filtering_bound_logger(logging.INFO),
         logger_factory=structlog.WriteLoggerFactory(file=stream),
         cache_logger_on_first_use=False,
     )

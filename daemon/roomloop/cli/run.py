@@ -1,8 +1,10 @@
 """``roomloop run -c SITE [--state-dir DIR]``: the service, in the foreground, under systemd or not.
 
-SIGTERM, SIGINT and SIGHUP stop it cleanly (outputs to their safe state,
-``offline`` published, state saved, exit 0); SIGHUP too, because its default
-would end the process at once with the outputs as they were. The state
+SIGTERM and SIGINT stop it cleanly (outputs to their safe state, ``offline``
+published, state saved, exit 0). SIGHUP reloads the site file
+(:mod:`roomloop.service.reload`): checked first as ``roomloop check`` does, a bad
+file is refused with its problems logged and the running site kept; a good one
+replaces the site, each kept zone keeping its state and its output. The state
 directory is ``--state-dir``, else systemd's ``$STATE_DIRECTORY``, else the
 site's ``state_dir``.
 
@@ -80,15 +82,16 @@ def _configure_logging(level: str, fmt: str) -> None:
     configure_logging(level, fmt)
 
 
-async def _serve(site: Site, state_dir: str, clock: Clock) -> None:
-    from roomloop.service.app import Service
+async def _serve(config: str, site: Site, state_dir: str, clock: Clock) -> None:
+    from roomloop.service.reload import serve
 
     stop = asyncio.Event()
+    reload = asyncio.Event()
     loop = asyncio.get_running_loop()
-    for signum in (signal.SIGTERM, signal.SIGINT, signal.SIGHUP):
+    for signum in (signal.SIGTERM, signal.SIGINT):
         loop.add_signal_handler(signum, stop.set)
-    service = Service(site, clock=clock, state_dir=state_dir)
-    await service.run(stop)
+    loop.add_signal_handler(signal.SIGHUP, reload.set)
+    await serve(config, site, stop=stop, reload=reload, state_dir=state_dir, clock=clock)
 
 
 def main(args: argparse.Namespace) -> int:
@@ -129,7 +132,7 @@ def main(args: argparse.Namespace) -> int:
         lock=[str(p) for p in lock.paths],
     )
     try:
-        asyncio.run(_serve(site, state_dir, clock))
+        asyncio.run(_serve(str(args.config), site, state_dir, clock))
     finally:
         lock.release()
     return EXIT_OK

@@ -418,7 +418,8 @@ class _Demo:
                 z.zone.heating,
                 z.trace,
                 started_at=server.started_at,
-                timeline=_clipped(timeline, ended_at),
+                timeline=timeline,
+                ended_at=ended_at,
                 comfort_c=z.zone.setpoints.comfort,
                 heater_w=z.spec.heater_w,
                 fail_safe_s=self.records[z.name].fail_safe_s,
@@ -484,18 +485,6 @@ class _Demo:
 
 def options_speed(options: DemoOptions) -> str:
     return f"{options.speed:g}"
-
-
-def _clipped(timeline: Timeline, ended_at: float) -> Timeline:
-    """The timeline of what actually ran (windows end where the run ended)."""
-    return Timeline(
-        timeline.start,
-        min(timeline.end, ended_at),
-        timeline.switch_at,
-        min(timeline.comfort_end, ended_at),
-        timeline.silence_start,
-        timeline.silence_end,
-    )
 
 
 async def _cancel(*tasks: asyncio.Task[Any]) -> None:

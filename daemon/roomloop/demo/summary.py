@@ -41,11 +41,14 @@ def _window(
     started_at: float,
     start: float,
     end: float,
+    ended_at: float,
     setpoint_c: float,
     heater_w: float,
     step_response: bool = False,
 ) -> PhaseFigures | None:
-    end = min(end, started_at + len(trace.room_c) * STEP_S)
+    """The figures of the window ``start``-``end`` as far as the run went (None: no step of it
+    ran). The window keeps its place: a run stopped early never moves it onto what ran."""
+    end = min(end, ended_at, started_at + len(trace.room_c) * STEP_S)
     if end - start < STEP_S:
         return None
     try:
@@ -73,13 +76,18 @@ def summarize_zone(
     comfort_c: float,
     heater_w: float,
     fail_safe_s: float,
+    ended_at: float | None = None,
 ) -> ZoneSummary:
-    """The figures of one zone's run (see the module docstring for the windows)."""
+    """The figures of one zone's run (see the module docstring for the windows); a run that
+    ended at ``ended_at`` before ``timeline.end`` has no figures for windows it did not
+    reach and figures over what ran of a window it cut short."""
+    ended_at = timeline.end if ended_at is None else ended_at
     scored = _window(
         trace,
         started_at=started_at,
         start=timeline.score_from,
         end=timeline.comfort_end,
+        ended_at=ended_at,
         setpoint_c=comfort_c,
         heater_w=heater_w,
     )
@@ -88,6 +96,7 @@ def summarize_zone(
         started_at=started_at,
         start=timeline.switch_at,
         end=timeline.comfort_end,
+        ended_at=ended_at,
         setpoint_c=comfort_c,
         heater_w=heater_w,
         step_response=True,
@@ -105,6 +114,10 @@ def summarize_zone(
     )
 
 
+NOT_REACHED = "n/r"
+"""A cell of a window the run stopped before: no figure, not even a dash."""
+
+
 def _num(value: float | None, fmt: str) -> str:
     return "-" if value is None or not math.isfinite(value) else format(value, fmt)
 
@@ -114,6 +127,42 @@ def clock_text(at: float, tz: ZoneInfo) -> str:
     return dt.datetime.fromtimestamp(at, tz).strftime("%H:%M")
 
 
+@dataclass(frozen=True, slots=True)
+class Coverage:
+    """How much of a window ``start``-``end`` a run that stopped at ``stopped_at`` covered."""
+
+    start: float
+    end: float
+    stopped_at: float | None
+    """None: the run went to its end."""
+
+    @property
+    def ran_to(self) -> float:
+        return self.end if self.stopped_at is None else min(self.end, self.stopped_at)
+
+    @property
+    def reached(self) -> bool:
+        """At least one plant step of the window ran (the figures need one)."""
+        return self.ran_to - self.start >= STEP_S
+
+    @property
+    def partial(self) -> bool:
+        return self.reached and self.ran_to < self.end
+
+    def text(self, tz: ZoneInfo) -> str:
+        """``''`` for a whole window, else ``': partial, ...'`` or ``': not reached, ...'``."""
+        if not self.reached:
+            return f": not reached (the run stopped at {clock_text(self.ran_to, tz)})"
+        if not self.partial:
+            return ""
+        ran = (self.ran_to - self.start) / 60
+        length = (self.end - self.start) / 60
+        return (
+            f": partial, only {clock_text(self.start, tz)}-{clock_text(self.ran_to, tz)} ran "
+            f"({ran:.0f} of {length:.0f} min)"
+        )
+
+
 def format_summary(
     rows: list[ZoneSummary],
     timeline: Timeline,
@@ -121,31 +170,44 @@ def format_summary(
     comfort_c: float,
     stopped_at: float | None = None,
 ) -> str:
-    """The closing table and a legend that says which window each figure covers."""
+    """The closing table and a legend that says which window each figure covers, and for a
+    run stopped early, which windows it did not reach (``n/r`` cells) or cut short."""
+    scored = Coverage(timeline.score_from, timeline.comfort_end, stopped_at)
+    step = Coverage(timeline.switch_at, timeline.comfort_end, stopped_at)
     lines = [
         f"{'zone':<14}{'heating':<12}{'CA K':>6}{'cyc/h':>7}{'overshoot K':>13}"
         f"{'reach min':>11}{'energy kWh':>12}{'fail-safe min':>15}",
     ]
     for r in rows:
+        ca, cph = _num(r.control_accuracy_k, ".2f"), _num(r.cycles_per_hour, ".1f")
+        overshoot = _num(r.overshoot_k, "+.2f")
+        reach = _num(None if r.reach_s is None else r.reach_s / 60, ".0f")
+        if not scored.reached:
+            ca = cph = NOT_REACHED
+        if not step.reached:
+            overshoot = reach = NOT_REACHED
         lines.append(
-            f"{r.zone:<14}{r.heating:<12}{_num(r.control_accuracy_k, '.2f'):>6}"
-            f"{_num(r.cycles_per_hour, '.1f'):>7}{_num(r.overshoot_k, '+.2f'):>13}"
-            f"{_num(None if r.reach_s is None else r.reach_s / 60, '.0f'):>11}"
+            f"{r.zone:<14}{r.heating:<12}{ca:>6}{cph:>7}{overshoot:>13}{reach:>11}"
             f"{r.energy_kwh:>12.2f}{r.fail_safe_s / 60:>15.0f}"
         )
     score = f"{clock_text(timeline.score_from, tz)}-{clock_text(timeline.comfort_end, tz)}"
     switch = clock_text(timeline.switch_at, tz)
+    end = clock_text(timeline.comfort_end, tz)
+    run = "over the run"
+    if stopped_at is not None:
+        ran = (stopped_at - timeline.start) / 60
+        run = (
+            f"over the run as far as it went, {clock_text(timeline.start, tz)}-"
+            f"{clock_text(stopped_at, tz)} ({ran:.0f} min)"
+        )
     lines += [
         f"CA = control accuracy |mean T - S| + (max T - min T) / 2 (EN 15500) and cyc/h over "
-        f"{score}, the second half of the comfort stretch;",
+        f"{score}, the second half of the comfort stretch{scored.text(tz)};",
         f"overshoot = max T - {comfort_c:g} C and reach = minutes until T came within 0.5 K, "
-        f"after the {switch} switch;",
-        "energy = heater power x relay-on time over the run. T is the simulated room air "
+        f"after the {switch} switch until {end}{step.text(tz)};",
+        f"energy = heater power x relay-on time {run}. T is the simulated room air "
         "(true value, not the sensor).",
     ]
-    if stopped_at is not None:
-        lines.append(
-            f"The run stopped at {clock_text(stopped_at, tz)}: figures of a window it did not "
-            "reach show '-', those of a window it cut short cover what ran."
-        )
+    if not (scored.reached and step.reached):
+        lines.append(f"{NOT_REACHED} = not reached: the run stopped before that window began.")
     return "\n".join(lines)

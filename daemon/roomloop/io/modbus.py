@@ -391,6 +391,7 @@ class ModbusLink:
             self._events.recovered(
                 f"read:{read.unit_id}:{read.table}:{read.address}",
                 "modbus.read_recovered",
+                now,
                 link=self.name,
                 points=list(read.point_names),
             )
@@ -412,7 +413,7 @@ class ModbusLink:
     ) -> None:
         if decoded.transport == "ok":
             self._events.recovered(
-                point.name, "modbus.point_recovered", point=point.name, link=self.name
+                point.name, "modbus.point_recovered", now, point=point.name, link=self.name
             )
             return
         self._events.problem(

@@ -211,7 +211,7 @@ class MqttPoints:
         )
         if parsed.transport == "ok":
             self._events.recovered(
-                point.name, "mqtt.point_recovered", point=point.name, topic=point.topic
+                point.name, "mqtt.point_recovered", now, point=point.name, topic=point.topic
             )
             return
         self._events.problem(

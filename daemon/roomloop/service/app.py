@@ -35,7 +35,7 @@ import contextlib
 import functools
 from collections.abc import Awaitable, Callable, Sequence
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 from zoneinfo import ZoneInfo
 
 import structlog
@@ -66,6 +66,9 @@ from roomloop.service.session import BrokerSession
 from roomloop.service.supervisor import Supervisor, cancel_and_wait, watchdog_loop
 from roomloop.service.zones import OnTick, TickReport, ZoneRunner, ZoneRuntime
 
+if TYPE_CHECKING:
+    from roomloop.service.reload import Carried, Handover
+
 __all__ = ["OnTick", "Service", "TickReport", "ZoneRuntime"]
 
 log = structlog.get_logger("roomloop.service")
@@ -94,8 +97,13 @@ class Service:
         on_tick: OnTick | None = None,
         ready_wait_s: float = READY_WAIT_S,
         watchdog_grace_s: float = WATCHDOG_GRACE_S,
+        carried: Carried | None = None,
     ) -> None:
         self.site = site
+        self.carried = carried
+        """A reload's hand-over from the service before (reload.py): the states and outputs."""
+        self.handover: Handover | None = None
+        """Set before ``stop`` when the stop is a reload: kept outputs are left as they are."""
         self.clock: Clock = clock if clock is not None else RealClock()
         self.tz = ZoneInfo(site.site.timezone)
         self.units = site.site.units
@@ -209,7 +217,14 @@ class Service:
     def _restore(self, relays: dict[str, bool | None]) -> None:
         """The zones' states (saved and checked, or fresh), each resumed from its output as
         found on the device; each output is held as found until its zone decides."""
-        restored_zones = restore_states(self.site, self.store, self.clock.now(), relays)
+        saved = None
+        if self.carried is not None:  # a reload: the states in memory, the outputs as commanded
+            saved = self.carried.states
+            read = {point: on for point, on in relays.items() if on is not None}
+            relays = {**self.carried.relays, **read}
+        restored_zones = restore_states(
+            self.site, self.store, self.clock.now(), relays, saved=saved
+        )
         for name, restored in restored_zones.items():
             zone = self.site.zone(name)
             self.zones[name] = ZoneRuntime(
@@ -305,10 +320,13 @@ class Service:
                     self._start_tasks(start)
                     others.append(group.create_task(self._ready_once(), name="ready"))
                     await stop.wait()
-                    log.info("service.stopping", site=self.site.name)
-                    notify("STOPPING=1")
-                    await cancel_and_wait(self.clock.io, control, STOP_TASKS_S)
-                    await self._stop_outputs_and_session()
+                    if self.handover is not None:  # a reload (reload.py): no safe stop, no offline
+                        await self.handover.stop(self, control)
+                    else:
+                        log.info("service.stopping", site=self.site.name)
+                        notify("STOPPING=1")
+                        await cancel_and_wait(self.clock.io, control, STOP_TASKS_S)
+                        await self._stop_outputs_and_session()
                     stopped_cleanly = True
                     for task in others:
                         task.cancel()
@@ -318,7 +336,8 @@ class Service:
                     # outputs still go safe (the links are still open here), bounded.
                     await self._stop_after_unexpected_exit([*control, *others])
                 await self.persistence.save_final()
-        log.info("service.stopped", site=self.site.name)
+        log.info("service.stopped" if self.handover is None else "service.handed_over",
+                 site=self.site.name)
 
     async def _stop_outputs_and_session(self) -> None:
         await self.outputs.stop_safe()

@@ -14,6 +14,7 @@ import contextlib
 import json
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
+from typing import Any
 
 import structlog
 
@@ -57,11 +58,18 @@ class RestoredZone:
 
 
 def restore_states(
-    site: Site, store: StateStore, now: float, relays: Mapping[str, bool | None]
+    site: Site,
+    store: StateStore,
+    now: float,
+    relays: Mapping[str, bool | None],
+    *,
+    saved: Mapping[str, Any] | None = None,
 ) -> dict[str, RestoredZone]:
     """Each zone's controller and its state: the saved one checked and resumed from its
-    output as found on the device (``relays``: True/False, None if unknown), or a fresh one."""
-    saved = store.load()
+    output as found on the device (``relays``: True/False, None if unknown), or a fresh one.
+    ``saved``: the states to use instead of the store's (a reload hands them over)."""
+    if saved is None:
+        saved = store.load()
     zones: dict[str, RestoredZone] = {}
     for zone in site.zones:
         settings = ZoneSettings.from_site(site, zone.name)
