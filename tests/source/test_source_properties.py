@@ -224,8 +224,8 @@ def test_a_restart_from_the_relays_as_found_never_switches_the_source(
 ) -> None:
     """The daemon restarts at random ticks and resumes the source from its relays as they
     were (``SourceLogic.resume``): the restart's own step neither starts a source that was
-    off nor stops one that was firing while a zone still calls, and the minimum on and off
-    times hold across the restarts."""
+    off (it waits out its minimum off time) nor stops one that was firing while a zone still
+    calls, and the minimum on and off times hold across the restarts."""
     s = SourceSettings(name="s", zones=ZONES, **timing)  # type: ignore[arg-type]
     logic = SourceLogic(s)
     ticks = 300
@@ -241,7 +241,8 @@ def test_a_restart_from_the_relays_as_found_never_switches_the_source(
         state, out = logic.step(state, demands, now)
         if k in restarts:
             if not enable[-1]:
-                assert not out.enable, "a restart started the source"
+                if s.min_off_s > 0:  # (without one a call may start it at once)
+                    assert not out.enable, "a restart started the source"
             elif any(calls[z][k] for z in ZONES):
                 assert out.enable, "a restart stopped a firing source with a zone calling"
         enable.append(out.enable)
