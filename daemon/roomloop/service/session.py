@@ -3,16 +3,16 @@
 One :class:`BrokerSession` per service with a broker. Its tasks (``broker``,
 ``publish``, ``mqtt-points``) never hold up control: a zone only hands its decision
 to the publisher and wakes it (:meth:`BrokerSession.wake`). On every (re)connect it
-subscribes to the commands and the MQTT points, says ``online`` and sends every
-retained message again; at stop, :meth:`announce_offline` sends what is due and
-``offline``.
+subscribes to the commands, the MQTT points and the heat sources' remote zones, says
+``online`` and sends every retained message again; at stop, :meth:`announce_offline`
+sends what is due and ``offline``.
 """
 
 from __future__ import annotations
 
 import asyncio
 from collections.abc import Callable
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Protocol
 from zoneinfo import ZoneInfo
 
 import aiomqtt
@@ -28,6 +28,25 @@ from roomloop.service.publisher import OFFLINE, ONLINE, Message, StatePublisher,
 
 if TYPE_CHECKING:
     from roomloop.bms.alarm_book import AlarmBook
+
+
+
+class HeardTopics(Protocol):
+    """More topics the session subscribes to, and retained messages it publishes for them
+    (the heat sources: :class:`~roomloop.service.sources.SourceRunner`)."""
+
+    def topics(self) -> list[str]: ...
+
+    def handle(self, topic: str, payload: bytes | bytearray | str, now: float) -> bool: ...
+
+    def forget_sent(self) -> None: ...
+
+    def disconnected(self) -> None: ...
+
+    def due(self, now: float) -> list[Message]: ...
+
+    def sent(self, message: Message, now: float) -> None: ...
+
 
 log = structlog.get_logger("roomloop.service")
 _answers_log = RateLimitedLog(log, interval_s=60.0, burst=30)
@@ -62,6 +81,7 @@ class BrokerSession:
         alarms: AlarmBook | None = None,
         durability: Callable[[], str] | None = None,
         program_next: Callable[[str, float], float | None] | None = None,
+        sources: HeardTopics | None = None,
     ) -> None:
         from roomloop.io.broker import BrokerConnection, LastWill
 
@@ -71,6 +91,8 @@ class BrokerSession:
         self.alarms = alarms
         """The zones' alarms: published retained beside the states, acknowledged by command."""
         self.mqtt_points = mqtt_points
+        self.sources = sources
+        """The heat sources: their remote zones' topics, their retained state."""
         self.commands = CommandHandler(
             prefix,
             zones,
@@ -102,23 +124,31 @@ class BrokerSession:
     async def run(self) -> None:
         """Keep the session up (reconnecting with backoff), serving messages, until cancelled."""
         await self.connection.run(
-            self._on_message, on_connect=self._on_connect, on_disconnect=self.mqtt_points.detach
+            self._on_message, on_connect=self._on_connect, on_disconnect=self._on_disconnect
         )
 
+    def _on_disconnect(self) -> None:
+        self.mqtt_points.detach()
+        if self.sources is not None:
+            self.sources.disconnected()
+
     async def _on_connect(self, client: Any) -> None:
-        topics = [*self.commands.topics(), *self.mqtt_points.topics()]
+        heard = [] if self.sources is None else self.sources.topics()
+        topics = [*self.commands.topics(), *self.mqtt_points.topics(), *heard]
         for topic in self.commands.topics():
             # Retain as published (MQTT 5): a retained command published while we are
             # subscribed still arrives marked retained, so it is ignored like the others.
             # No local: our own answers on cmd/result do not come back to us.
             options = SubscribeOptions(qos=1, noLocal=True, retainAsPublished=True)
             await client.subscribe(topic, options=options)
-        for topic in self.mqtt_points.topics():
+        for topic in [*self.mqtt_points.topics(), *heard]:
             await client.subscribe(topic, qos=1)
         await client.publish(status_topic(self.prefix), ONLINE, qos=1, retain=True)
         self.publisher.forget_sent()
         if self.alarms is not None:
             self.alarms.forget_sent()
+        if self.sources is not None:
+            self.sources.forget_sent()
         self.mqtt_points.attach(client)
         await self.mqtt_points.publish_commands(client)
         self._wake.set()
@@ -133,6 +163,8 @@ class BrokerSession:
             payload = b"" if payload is None else str(payload).encode()
         now = self.clock.now()
         if self.mqtt_points.handle(topic, payload, now):
+            return
+        if self.sources is not None and self.sources.handle(topic, payload, now):
             return
         ack = None
         if self.alarms is not None:
@@ -175,6 +207,8 @@ class BrokerSession:
                         self.publisher.sent(message, now)
                         if self.alarms is not None:
                             self.alarms.sent(message)
+                        if self.sources is not None:
+                            self.sources.sent(message, now)
                 except (aiomqtt.MqttError, TimeoutError, OSError) as exc:
                     # The broker went away mid-round; after the reconnect everything is resent.
                     log.debug("broker.publish_interrupted", error=str(exc) or type(exc).__name__)
@@ -184,7 +218,8 @@ class BrokerSession:
 
     def _due(self, now: float) -> list[Message]:
         alarms = [] if self.alarms is None else self.alarms.due()
-        return [*self.publisher.due(now), *alarms]
+        sources = [] if self.sources is None else self.sources.due(now)
+        return [*self.publisher.due(now), *alarms, *sources]
 
     async def _send(self, client: Any, message: Message) -> None:
         async with timeout(self.clock.io, SEND_S):
