@@ -152,6 +152,29 @@ def test_random_plant_week_predicts_an_unseen_day(seed: int) -> None:
     check_identified(plant, heating, seed=seed)
 
 
+def test_without_the_outdoor_temperature_no_confident_wrong_answer() -> None:
+    """Three days of the hydronic plant with no outdoor temperature (the daemon's history
+    of a site without an outdoor point). A single-node room then fits the fast part with
+    small uncertainties and a building time constant of under an hour (the true one is a
+    day): that confident wrong answer must not be chosen. The fit's load (a slow part and a
+    daily profile) follows the daily swing, and where the loss to outdoors is off, its
+    stated uncertainty says so (the truth within two standard uncertainties + 15 %)."""
+    plant = load_plant("hydronic")
+    history = simulate(plant, days=3, seed=3).history
+    history.outdoor = None
+    fit, tried, series = identify(history, heater_w=plant.heater_w, heating="hydronic")
+    assert series.outdoor is None
+    assert fit.structure != "room"
+    room = [f for f in tried if f.structure == "room"]
+    if room and room[0].determined:  # the confident wrong answer was there to be taken
+        assert room[0].node_time_constants_s()["building"] < 0.2 * 86400.0
+        assert any("too simple" in note for note in fit.notes)
+    assert fit.rms_k < 0.1
+    h_err = abs(fit.params["H"] / plant.room.loss_w_per_k - 1.0)
+    assert h_err <= 2.0 * fit.rel_sd["H"] + 0.15, (fit.params["H"], fit.rel_sd["H"])
+    assert any("without the outdoor temperature" in note for note in fit.notes)
+
+
 def test_refusals_name_the_reason() -> None:
     short = _newton_history(tau=20000.0, t_a=5.0, t_inf=25.0, hours=10)
     assert any("too little data" in r for r in check_data(short))

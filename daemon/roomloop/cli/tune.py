@@ -6,8 +6,9 @@ uncertainty, the RMS residual and a verdict on the data, optionally writes the p
 file ``simulate --plant`` reads, and runs the standard protocol on the identified
 plant over candidate tunings, printing today's tuning and the best side by side with
 the site-file lines to paste.
-Exit codes: 0 ok; 1 no history, or the data cannot support an identification (the
-reason is printed); 2 a bad site file or CSV, an unknown zone, numpy/scipy missing.
+Exit codes: 0 ok; 1 no history, or the data cannot support an identification, or the
+fit is poor (the reason is printed; no plant file, no recommendation); 2 a bad site file
+or CSV, an unknown zone, numpy/scipy missing.
 """
 
 from __future__ import annotations
@@ -28,6 +29,8 @@ SCIPY_MISSING = (
     "tune needs numpy and scipy, which are not installed: pip install 'roomloop[tune]' "
     "(or pip install '.[tune]' in the roomloop checkout)"
 )
+GOOD_RMS_K = 0.15
+POOR_RMS_K = 0.3
 PARAM_TEXT = {
     "Ce": ("emitter capacity", "J/K"),
     "Ke": ("emitter conductance", "W/K"),
@@ -100,18 +103,29 @@ def main(args: argparse.Namespace) -> int:
         label, unit = PARAM_TEXT[key]
         sd = fit.rel_sd[key]
         spread = f"+- {sd:.0f} s" if key == "delay_s" else f"+- {100 * sd:.0f} %"
-        print(f"  {label:<20} {value:>12.4g} {unit:<4} {spread}")
+        flag = "  (not determined)" if key in fit.undetermined() else ""
+        print(f"  {label:<20} {value:>12.4g} {unit:<4} {spread}{flag}")
     taus = ", ".join(f"{k} {v / 3600:.2f} h" for k, v in fit.node_time_constants_s().items())
     print(f"  time constants: {taus}")
+    poor = fit.rms_k >= POOR_RMS_K
     verdict = (
-        "good" if fit.determined and fit.rms_k < 0.15
-        else "fair" if fit.rms_k < 0.3
-        else "poor: do not trust this plant"
+        "good" if fit.determined and fit.rms_k < GOOD_RMS_K
+        else "poor: do not trust this plant" if poor
+        else "fair: the fit follows the data, but some parameters are not determined"
+        if not fit.determined
+        else "fair"
     )
     print(f"RMS residual {fit.rms_k:.3f} K over {fit.points} points; verdict: {verdict}")
     for note in fit.notes:
         if not note.endswith("evaluations"):
             print(f"note: {note}")
+    if poor:
+        return _fail(
+            f"no plant file and no recommendation from a poor fit (RMS {fit.rms_k:.3f} K, "
+            f"at least {POOR_RMS_K:g} K): the model does not describe this zone's history "
+            "(a window left open, another heat source, a sensor far from the room air?)",
+            EXIT_RUNTIME,
+        )
     spec = to_plant_spec(
         fit, name=f"{zone.name}-identified", resolution_k=series.resolution_k or 0.1
     )
@@ -124,6 +138,11 @@ def main(args: argparse.Namespace) -> int:
             return _fail(f"cannot write {args.write_plant}: {exc.strerror or exc}", EXIT_RUNTIME)
         print(f"plant written to {args.write_plant} (roomloop simulate --plant reads it)")
     if not args.no_recommend:
+        if not fit.determined:
+            print(
+                "the prediction below uses the fitted values of the undetermined parameters: "
+                "indicative only"
+            )
         print(recommend(site, zone.name, spec))
     return EXIT_OK
 
