@@ -137,13 +137,22 @@ def main(args: argparse.Namespace) -> int:
         except OSError as exc:
             return _fail(f"cannot write {args.write_plant}: {exc.strerror or exc}", EXIT_RUNTIME)
         print(f"plant written to {args.write_plant} (roomloop simulate --plant reads it)")
-    if not args.no_recommend:
-        if not fit.determined:
-            print(
-                "the prediction below uses the fitted values of the undetermined parameters: "
-                "indicative only"
-            )
-        print(recommend(site, zone.name, spec))
+    if args.no_recommend:
+        return EXIT_OK
+    if "H" in fit.undetermined():
+        print(
+            "no recommendation: the loss to outdoors is not determined by these data, and the "
+            "standard protocol's loads (its outdoor temperatures) rest on it; "
+            + ("more history with program changes" if fit.outdoor else "the outdoor temperature")
+            + " would determine it"
+        )
+        return EXIT_OK
+    if not fit.determined:
+        print(
+            "the prediction below uses the fitted values of the undetermined parameters: "
+            "indicative only"
+        )
+    print(recommend(site, zone.name, spec))
     return EXIT_OK
 
 
