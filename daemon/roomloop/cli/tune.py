@@ -17,6 +17,8 @@ import argparse
 import dataclasses
 import importlib.util
 import sys
+from collections.abc import Callable
+from typing import Any
 
 from roomloop.cli.outputs import output_path_problem
 from roomloop.config.loader import load_site
@@ -156,22 +158,47 @@ def main(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def recommend(site: object, zone_name: str, spec: object) -> str:
-    """The standard protocol on the identified plant: today's tuning and candidates."""
+def _protocol_runner(
+    site: object, zone_name: str, spec: object
+) -> tuple[Any, Callable[[Any], tuple[float, Any]]]:
+    """The zone's protocol settings, and a run of the standard protocol on ``spec`` for given
+    settings: (score, overall figures). As 'simulate -c SITE --zone Z' runs it: the zone's
+    own set points and input points (the controller judges its points by name: a reading
+    under another name would be none, and the zone would run in fail-safe)."""
     from roomloop.core.controller import ZoneController
     from roomloop.core.settings import ZoneSettings
-    from roomloop.core.sizing import time_constant_for_cycle_rate
     from roomloop.plant.protocol import protocol_settings, run_protocol
 
-    base = protocol_settings(ZoneSettings.from_site(site, zone_name))  # type: ignore[arg-type]
+    zone = ZoneSettings.from_site(site, zone_name)  # type: ignore[arg-type]
+    base = protocol_settings(zone, comfort_c=zone.comfort_c, economy_c=zone.economy_c)
+    names = [p.name for p in base.inputs]
     cap = float(base.max_cycles_per_hour)
 
-    def run(settings: ZoneSettings) -> tuple[float, object]:
-        result = run_protocol(ZoneController(settings), spec)  # type: ignore[arg-type]
+    def run(settings: ZoneSettings) -> tuple[float, Any]:
+        result = run_protocol(
+            ZoneController(settings), spec,  # type: ignore[arg-type]
+            sensor_names=names, comfort_c=zone.comfort_c, economy_c=zone.economy_c,
+        )
         o = result.overall
         over = max(0.0, o.cycles_per_hour - cap)
         return o.control_accuracy_k + 0.3 * max(0.0, o.overshoot_k) + over, o
 
+    return base, run
+
+
+def today_on(site: object, zone_name: str, spec: object) -> Any:
+    """The overall figures of the zone's tuning today on ``spec`` (the recommendation's
+    'today' column)."""
+    base, run = _protocol_runner(site, zone_name, spec)
+    return run(base)[1]
+
+
+def recommend(site: object, zone_name: str, spec: object) -> str:
+    """The standard protocol on the identified plant: today's tuning and candidates."""
+    from roomloop.core.sizing import time_constant_for_cycle_rate
+
+    base, run = _protocol_runner(site, zone_name, spec)
+    cap = float(base.max_cycles_per_hour)
     today_score, today = run(base)
     best = (today_score, today, base)
     d = base.differential_k
