@@ -92,7 +92,7 @@ def main(args: argparse.Namespace) -> int:
     print(
         f"zone {zone.name} ({zone.heating}): {hours:.1f} h of history, "
         f"{'with' if fit.outdoor else 'without'} outdoor temperature"
-        + ("" if fit.outdoor else " (an unknown slowly varying load is fitted instead)")
+        + ("" if fit.outdoor else " (an unknown load is fitted instead)")
     )
     print(
         "structures tried: "
