@@ -140,6 +140,29 @@ def check_identified(plant: PlantSpec, heating: str, seed: int) -> dict[str, flo
     return {"rms_unseen_k": rms, "rms_fit_k": fit.rms_k}
 
 
+def test_scipy_lsq_linear_is_the_reference_on_a_small_linear_case() -> None:
+    """The single-node room sampled every 10 s is exactly linear in its discrete form,
+    T[k+1] = a T[k] + b u[k] + c, with a = e^(-h/tau), b = (P/H)(1 - a), c = T_a (1 - a)
+    [derived: zero-order hold of the first-order model]. scipy.optimize.lsq_linear solves
+    that small linear least-squares problem exactly (the known answer: tau = 20000 s,
+    H = 100 W/K); roomloop's fit on a 10 s grid must agree with it."""
+    history = _newton_history(tau=20000.0, t_a=5.0, t_inf=25.0, hours=48)
+    y = np.array(history.temperature, dtype=float)
+    u = np.array(history.relay, dtype=float)
+    a_mat = np.stack([y[:-1], u[:-1], np.ones(y.size - 1)], axis=1)
+    ref = optimize.lsq_linear(a_mat, y[1:], method="bvls", tol=1e-14)
+    a, b, c = ref.x
+    tau_ref = -10.0 / math.log(a)
+    h_ref = 2000.0 * (1.0 - a) / b
+    assert tau_ref == pytest.approx(20000.0, rel=1e-6)  # the exact answer
+    assert h_ref == pytest.approx(100.0, rel=1e-6)
+    assert c / (1.0 - a) == pytest.approx(5.0, abs=1e-4)
+    fit, _, _ = identify(history, heater_w=2000.0, structures=("room",), step_s=10.0)
+    # (the fit's free slow load and sensor lag, bounded at 1 s, leave a few tenths of a %)
+    assert fit.params["Cr"] / fit.params["H"] == pytest.approx(tau_ref, rel=5e-3)
+    assert fit.params["H"] == pytest.approx(h_ref, rel=5e-3)
+
+
 @pytest.mark.parametrize("name", [_case(n) for n in BUILTIN_PLANTS])
 def test_builtin_plant_week_predicts_an_unseen_day(name: str) -> None:
     plant = load_plant(name)
