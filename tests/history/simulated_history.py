@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import random
 from dataclasses import dataclass
 
 from roomloop.core.controller import ZoneController
@@ -121,3 +122,45 @@ def simulate(
         out.room_c.append(sim.room_c)
         sim.advance(tick_s, outputs.demand)
     return out
+
+
+def random_plant(seed: int) -> tuple[PlantSpec, str]:
+    """A seeded random plant in the plausible range, and the heating type whose tuning runs it.
+
+    Time constants span minutes to days: an emitter of 2 min to 4 h (or none: the heat goes
+    into the room air), room air of minutes, building mass of 2 to 20 h, a building (all
+    capacity over the loss) of about 10 to 80 h; the heater covers the design load with a
+    1.1 to 1.6 margin; a transport delay of 0 to 10 min and a sensor lag of 30 s to 5 min.
+    Linear emitters, so every node's time constant is defined exactly.
+    """
+    rng = random.Random(seed)
+
+    def log_uniform(lo: float, hi: float) -> float:
+        return math.exp(rng.uniform(math.log(lo), math.log(hi)))
+
+    heater_w = round(log_uniform(800.0, 4000.0), -1)
+    loss = heater_w / rng.uniform(1.1, 1.6) / 30.0  # design load at 30 K below the room
+    room_c = log_uniform(0.8e5, 4e5) * heater_w / 1500.0
+    emitter_tau = log_uniform(120.0, 4 * 3600.0)
+    heating = (
+        "electric" if emitter_tau < 600 else "hydronic" if emitter_tau < 3600 else "underfloor"
+    )
+    ke = heater_w / rng.uniform(10.0, 40.0)  # full output at a 10-40 K emitter excess
+    mass_tau = log_uniform(2 * 3600.0, 20 * 3600.0)
+    building_tau = log_uniform(10 * 3600.0, 80 * 3600.0)
+    cm = max(building_tau * loss - room_c - emitter_tau * ke, 5.0 * room_c)
+    data = {
+        "name": f"random-{seed}",
+        "heater_w": heater_w,
+        "transport_delay_s": round(rng.uniform(0.0, 600.0)),
+        "emitter": {"capacity_j_per_k": emitter_tau * ke, "conductance_w_per_k": ke},
+        "room": {"capacity_j_per_k": room_c, "loss_w_per_k": loss},
+        "mass": {"capacity_j_per_k": cm, "conductance_w_per_k": cm / mass_tau},
+        "sensor": {
+            "time_constant_s": round(log_uniform(30.0, 300.0)),
+            "resolution_k": 0.1,
+            "noise_k": 0.02,
+        },
+        "internal_gains_w": 0.0,
+    }
+    return PlantSpec.model_validate(data), heating

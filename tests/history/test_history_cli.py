@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import subprocess
 import sys
 from pathlib import Path
@@ -185,3 +186,56 @@ def test_no_history_is_one_clear_line(tmp_path: Path, capsys: pytest.CaptureFixt
     assert "no history file" in capsys.readouterr().err
     assert main(["history", "-c", str(site), "--zone", "attic", "--csv", "-"]) == 2
     assert "no zone 'attic'" in capsys.readouterr().err
+
+
+SITE_OUTDOOR = SITE.replace(
+    "units: {units}, state_dir: {state}}}",
+    "units: {units}, state_dir: {state}, outdoor_point: outside}}",
+).replace(
+    "  - {{type: modbus-output, name: r",
+    "  - {{type: modbus-input, name: outside, link: io, address: 1}}\n"
+    "  - {{type: modbus-output, name: r",
+)
+
+
+def test_the_sites_outdoor_point_is_recorded_and_exported(tmp_path: Path) -> None:
+    """The service records the site's outdoor point with each zone tick (``tick_from``'s
+    ``outdoor``); ``history`` exports it as the ``outdoor`` column, which the import (and so
+    ``tune``) reads back; a tick whose outdoor reading was not good exports it empty."""
+    from roomloop.core.controller import ZoneController
+    from roomloop.core.settings import ZoneSettings
+    from roomloop.core.types import PointSample, ZoneInputs
+    from roomloop.history.recorder import tick_from
+
+    settings = ZoneSettings.for_heating_type("hydronic")
+    controller = ZoneController(settings)
+    state = controller.initial_state(T0)
+    samples = tuple(PointSample(p.name, 20.0, T0, "ok") for p in settings.inputs)
+    state, outputs = controller.step(state, ZoneInputs(samples=samples), T0)
+    good = tick_from(T0, outputs, state, ("outside", 3.5))
+    assert good.points[-1] == ("outside", 3.5, "ok")
+    bad = tick_from(T0, outputs, state, ("outside", None))
+    assert bad.points[-1][0] == "outside" and bad.points[-1][1] is None
+    assert bad.points[-1][2] != "ok"
+    assert tick_from(T0, outputs, state).points == good.points[:-1]
+
+    site = tmp_path / "site.yaml"
+    site.write_text(SITE_OUTDOOR.format(units="C", state=tmp_path / "state"))
+    ticks = [
+        dataclasses.replace(
+            t, points=(*t.points, ("outside", None if k < 10 else -2.0 + k / 8640, "ok"
+                                   if k >= 10 else "unreliable-other"))
+        )
+        for k, t in enumerate(_square_day())
+    ]
+    _store(tmp_path, ticks)
+    out = tmp_path / "den.csv"
+    assert main(["history", "-c", str(site), "--zone", "den", "--csv", str(out)]) == 0
+    lines = out.read_text().splitlines()
+    assert lines[0] == "time,temperature,relay,setpoint,fail_safe,outdoor"
+    assert lines[1].endswith(",")  # no good outdoor reading yet
+    assert lines[11].endswith(",-1.999")
+    back = read_csv(str(out), zone="den", tz=ZoneInfo("Europe/Vienna"), units="C")
+    assert back.outdoor is not None
+    assert back.outdoor[0] is None
+    assert back.outdoor[-1] == pytest.approx(-2.0 + 8639 / 8640, abs=1e-3)

@@ -177,6 +177,16 @@ def build_parser() -> argparse.ArgumentParser:
     demo.add_argument(
         "--plot", metavar="OUT.png", help="write a plot of every zone (needs the 'plot' extra)"
     )
+    demo.add_argument(
+        "--state-dir",
+        metavar="DIR",
+        help=(
+            "keep the demo's history and state in DIR (new or empty; made if missing) with "
+            "the site file as run, DIR/site.yaml, and print the 'roomloop report' and "
+            "'roomloop tune' commands that read them (default: a temporary directory, "
+            "removed at the end; 'tune' needs at least 24 simulated hours: --hours 30)"
+        ),
+    )
     _add_history_commands(add)
     return parser
 

@@ -1,4 +1,5 @@
-"""``roomloop demo [--hours H] [--speed X] [--broker HOST:PORT] [--plot OUT.png]``.
+"""``roomloop demo [--hours H] [--speed X] [--broker HOST:PORT] [--plot OUT.png]
+[--state-dir DIR]``.
 
 An invented three-zone site (``roomloop/demo/site.yaml``) runs against
 simulated plants that an in-process pymodbus server exposes over real Modbus
@@ -7,7 +8,10 @@ clock (default: 8 simulated hours at 480x, about a minute). On a terminal the
 zones are shown live, one line each, redrawn about once a second with plain
 ANSI cursor movement; otherwise plain lines are printed (events as they happen,
 the zones every 1/16 of the run). The service's own warnings go to the same
-place. At the end: a summary table per zone, and with ``--plot`` a PNG.
+place. At the end: a summary table per zone, and with ``--plot`` a PNG. With
+``--state-dir DIR`` the service's history and state stay in DIR (which must be new or
+empty), beside the site file as run (``DIR/site.yaml``), and the demo ends by printing
+the ``roomloop report`` and ``roomloop tune`` commands that read them.
 
 Ctrl-C (SIGINT), SIGTERM or SIGHUP stops the demo cleanly: the service puts every
 output in its safe state (the coils are read back from the plant server and
@@ -18,8 +22,8 @@ the demo also checks end to end that each coil followed the service's
 decisions and warns when it did not. Exit codes: 0 ran (to the end or until stopped);
 1 the demo could not run, an output was not in its safe state at the stop, or the
 plot could not be written after all; 2 a bad option (a --plot path whose folder is
-missing or not writable, or not .png, or --plot without matplotlib: refused before
-the run).
+missing or not writable, or not .png, or --plot without matplotlib; a --state-dir that
+is not a directory, not empty or cannot be made: refused before the run).
 
 Test hook (not for users, see DEVELOPERS.md): ``ROOMLOOP_CLOCK=virtual`` runs the
 demo on a virtual clock, as fast as the CPU allows, instead of pacing it at
@@ -32,11 +36,13 @@ import argparse
 import asyncio
 import logging
 import os
+import shlex
 import shutil
 import signal
 import sys
 import zoneinfo
 from collections.abc import MutableMapping, Sequence
+from pathlib import Path
 from typing import Any, TextIO
 
 import structlog
@@ -45,6 +51,7 @@ from roomloop.cli.outputs import MATPLOTLIB_MISSING, matplotlib_available, outpu
 from roomloop.clock import AutojumpLoop, Clock
 from roomloop.demo.runner import (
     DEFAULT_SPEED,
+    KEPT_SITE,
     MAX_SPEED,
     STATUS_HEADER,
     DemoError,
@@ -55,6 +62,7 @@ from roomloop.demo.runner import (
 )
 from roomloop.demo.summary import clock_text, format_summary
 from roomloop.demo.timeline import MAX_HOURS, MIN_HOURS
+from roomloop.history.store import history_path
 from roomloop.log import ConsoleRenderer, configure_logging
 
 EXIT_OK = 0
@@ -63,6 +71,9 @@ EXIT_USAGE = 2
 CLOCK_ENV = "ROOMLOOP_CLOCK"
 PLAIN_STATUS_BLOCKS = 16
 """Plain output shows the zones this many times over a run (at least every 5 simulated min)."""
+
+TUNE_MIN_HOURS = 24.0
+"""``roomloop tune``'s least history (``plant.identify.MIN_HOURS``; not imported here: numpy)."""
 
 CSI = "\x1b["
 
@@ -292,6 +303,46 @@ def _report(result: DemoResult, out: TextIO) -> bool:
     return safe
 
 
+def state_dir_problem(path: str) -> str | None:
+    """Why ``--state-dir`` cannot take the demo's history (None: it can; made if missing)."""
+    target = Path(path)
+    if target.exists() and not target.is_dir():
+        return f"--state-dir {path}: not a directory"
+    if target.is_dir():
+        if any(target.iterdir()):
+            return (
+                f"--state-dir {path}: not empty (the demo starts a fresh site; give a new "
+                "or empty directory)"
+            )
+    else:
+        try:
+            target.mkdir(parents=True)
+        except OSError as exc:
+            return f"--state-dir {path}: cannot make it: {exc.strerror or exc}"
+    if not os.access(target, os.W_OK | os.X_OK):
+        return f"--state-dir {path}: not writable"
+    return None
+
+
+def kept_history_text(result: DemoResult, state_dir: str) -> str:
+    """Where the kept history is and the exact commands that read it."""
+    site_file = shlex.quote(str(Path(state_dir) / KEPT_SITE))
+    hours = result.simulated_s / 3600.0
+    lines = [
+        f"history and state kept in {state_dir} "
+        f"({history_path(state_dir, result.site.name).name}, {hours:.1f} simulated h); "
+        "read them with:",
+        f"  roomloop report -c {site_file}",
+    ]
+    lines += [f"  roomloop tune -c {site_file} --zone {z.name}" for z in result.site.zones]
+    if hours < TUNE_MIN_HOURS:
+        lines.append(
+            f"  ('tune' needs at least {TUNE_MIN_HOURS:g} h of history: it will say so; "
+            "run the demo with --hours 30 for one it can identify)"
+        )
+    return "\n".join(lines) + "\n"
+
+
 def main(args: argparse.Namespace) -> int:
     hours = float(args.hours)
     if not MIN_HOURS <= hours <= MAX_HOURS:
@@ -311,6 +362,12 @@ def main(args: argparse.Namespace) -> int:
             return _fail(problem, EXIT_USAGE)
         if not matplotlib_available():
             return _fail(MATPLOTLIB_MISSING, EXIT_USAGE)
+    state_dir = getattr(args, "state_dir", None)
+    if state_dir is not None:
+        problem = state_dir_problem(state_dir)
+        if problem:
+            return _fail(problem, EXIT_USAGE)
+        state_dir = os.path.abspath(state_dir)
     clock_kind = os.environ.get(CLOCK_ENV, "paced")
     if clock_kind not in ("paced", "virtual"):
         return _fail(f"{CLOCK_ENV}={clock_kind!r} is not 'paced' or 'virtual'", EXIT_USAGE)
@@ -321,6 +378,7 @@ def main(args: argparse.Namespace) -> int:
         broker=broker,
         on_clock=stamp.set_clock,
         virtual=clock_kind == "virtual",
+        state_dir=state_dir,
     )
     out = sys.stdout
     view: TerminalView | PlainView
@@ -340,6 +398,9 @@ def main(args: argparse.Namespace) -> int:
     view.close()
     configure_logging("warning", "console", stream=sys.stderr)
     safe = _report(result, out)
+    if state_dir is not None:
+        out.write("\n" + kept_history_text(result, state_dir))
+        out.flush()
     code = EXIT_OK if safe else EXIT_RUNTIME
     if args.plot:
         from roomloop.demo.plot import PlotUnavailable, write_demo_plot

@@ -6,8 +6,9 @@ uncertainty, the RMS residual and a verdict on the data, optionally writes the p
 file ``simulate --plant`` reads, and runs the standard protocol on the identified
 plant over candidate tunings, printing today's tuning and the best side by side with
 the site-file lines to paste.
-Exit codes: 0 ok; 1 no history, or the data cannot support an identification (the
-reason is printed); 2 a bad site file or CSV, an unknown zone, numpy/scipy missing.
+Exit codes: 0 ok; 1 no history, or the data cannot support an identification, or the
+fit is poor (the reason is printed; no plant file, no recommendation); 2 a bad site file
+or CSV, an unknown zone, numpy/scipy missing.
 """
 
 from __future__ import annotations
@@ -16,6 +17,8 @@ import argparse
 import dataclasses
 import importlib.util
 import sys
+from collections.abc import Callable
+from typing import Any
 
 from roomloop.cli.outputs import output_path_problem
 from roomloop.config.loader import load_site
@@ -28,6 +31,8 @@ SCIPY_MISSING = (
     "tune needs numpy and scipy, which are not installed: pip install 'roomloop[tune]' "
     "(or pip install '.[tune]' in the roomloop checkout)"
 )
+GOOD_RMS_K = 0.15
+POOR_RMS_K = 0.3
 PARAM_TEXT = {
     "Ce": ("emitter capacity", "J/K"),
     "Ke": ("emitter conductance", "W/K"),
@@ -87,7 +92,7 @@ def main(args: argparse.Namespace) -> int:
     print(
         f"zone {zone.name} ({zone.heating}): {hours:.1f} h of history, "
         f"{'with' if fit.outdoor else 'without'} outdoor temperature"
-        + ("" if fit.outdoor else " (an unknown slowly varying load is fitted instead)")
+        + ("" if fit.outdoor else " (an unknown load is fitted instead)")
     )
     print(
         "structures tried: "
@@ -100,18 +105,29 @@ def main(args: argparse.Namespace) -> int:
         label, unit = PARAM_TEXT[key]
         sd = fit.rel_sd[key]
         spread = f"+- {sd:.0f} s" if key == "delay_s" else f"+- {100 * sd:.0f} %"
-        print(f"  {label:<20} {value:>12.4g} {unit:<4} {spread}")
+        flag = "  (not determined)" if key in fit.undetermined() else ""
+        print(f"  {label:<20} {value:>12.4g} {unit:<4} {spread}{flag}")
     taus = ", ".join(f"{k} {v / 3600:.2f} h" for k, v in fit.node_time_constants_s().items())
     print(f"  time constants: {taus}")
+    poor = fit.rms_k >= POOR_RMS_K
     verdict = (
-        "good" if fit.determined and fit.rms_k < 0.15
-        else "fair" if fit.rms_k < 0.3
-        else "poor: do not trust this plant"
+        "good" if fit.determined and fit.rms_k < GOOD_RMS_K
+        else "poor: do not trust this plant" if poor
+        else "fair: the fit follows the data, but some parameters are not determined"
+        if not fit.determined
+        else "fair"
     )
     print(f"RMS residual {fit.rms_k:.3f} K over {fit.points} points; verdict: {verdict}")
     for note in fit.notes:
         if not note.endswith("evaluations"):
             print(f"note: {note}")
+    if poor:
+        return _fail(
+            f"no plant file and no recommendation from a poor fit (RMS {fit.rms_k:.3f} K, "
+            f"at least {POOR_RMS_K:g} K): the model does not describe this zone's history "
+            "(a window left open, another heat source, a sensor far from the room air?)",
+            EXIT_RUNTIME,
+        )
     spec = to_plant_spec(
         fit, name=f"{zone.name}-identified", resolution_k=series.resolution_k or 0.1
     )
@@ -123,27 +139,66 @@ def main(args: argparse.Namespace) -> int:
         except OSError as exc:
             return _fail(f"cannot write {args.write_plant}: {exc.strerror or exc}", EXIT_RUNTIME)
         print(f"plant written to {args.write_plant} (roomloop simulate --plant reads it)")
-    if not args.no_recommend:
-        print(recommend(site, zone.name, spec))
+    if args.no_recommend:
+        return EXIT_OK
+    if "H" in fit.undetermined():
+        print(
+            "no recommendation: the loss to outdoors is not determined by these data, and the "
+            "standard protocol's loads (its outdoor temperatures) rest on it; "
+            + ("more history with program changes" if fit.outdoor else "the outdoor temperature")
+            + " would determine it"
+        )
+        return EXIT_OK
+    if not fit.determined:
+        print(
+            "the prediction below uses the fitted values of the undetermined parameters: "
+            "indicative only"
+        )
+    print(recommend(site, zone.name, spec))
     return EXIT_OK
 
 
-def recommend(site: object, zone_name: str, spec: object) -> str:
-    """The standard protocol on the identified plant: today's tuning and candidates."""
+def _protocol_runner(
+    site: object, zone_name: str, spec: object
+) -> tuple[Any, Callable[[Any], tuple[float, Any]]]:
+    """The zone's protocol settings, and a run of the standard protocol on ``spec`` for given
+    settings: (score, overall figures). As 'simulate -c SITE --zone Z' runs it: the zone's
+    own set points and input points (the controller judges its points by name: a reading
+    under another name would be none, and the zone would run in fail-safe)."""
     from roomloop.core.controller import ZoneController
     from roomloop.core.settings import ZoneSettings
-    from roomloop.core.sizing import time_constant_for_cycle_rate
     from roomloop.plant.protocol import protocol_settings, run_protocol
 
-    base = protocol_settings(ZoneSettings.from_site(site, zone_name))  # type: ignore[arg-type]
+    zone = ZoneSettings.from_site(site, zone_name)  # type: ignore[arg-type]
+    base = protocol_settings(zone, comfort_c=zone.comfort_c, economy_c=zone.economy_c)
+    names = [p.name for p in base.inputs]
     cap = float(base.max_cycles_per_hour)
 
-    def run(settings: ZoneSettings) -> tuple[float, object]:
-        result = run_protocol(ZoneController(settings), spec)  # type: ignore[arg-type]
+    def run(settings: ZoneSettings) -> tuple[float, Any]:
+        result = run_protocol(
+            ZoneController(settings), spec,  # type: ignore[arg-type]
+            sensor_names=names, comfort_c=zone.comfort_c, economy_c=zone.economy_c,
+        )
         o = result.overall
         over = max(0.0, o.cycles_per_hour - cap)
         return o.control_accuracy_k + 0.3 * max(0.0, o.overshoot_k) + over, o
 
+    return base, run
+
+
+def today_on(site: object, zone_name: str, spec: object) -> Any:
+    """The overall figures of the zone's tuning today on ``spec`` (the recommendation's
+    'today' column)."""
+    base, run = _protocol_runner(site, zone_name, spec)
+    return run(base)[1]
+
+
+def recommend(site: object, zone_name: str, spec: object) -> str:
+    """The standard protocol on the identified plant: today's tuning and candidates."""
+    from roomloop.core.sizing import time_constant_for_cycle_rate
+
+    base, run = _protocol_runner(site, zone_name, spec)
+    cap = float(base.max_cycles_per_hour)
     today_score, today = run(base)
     best = (today_score, today, base)
     d = base.differential_k

@@ -18,6 +18,8 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import json
+import re
 import tempfile
 import time
 from collections.abc import Callable, Sequence
@@ -85,6 +87,9 @@ class DemoOptions:
     """Run on a virtual clock (needs an AutojumpLoop) instead of pacing at ``speed``."""
     on_clock: Callable[[Clock], None] | None = None
     """Called with the demo's simulated clock before anything runs (log time stamps)."""
+    state_dir: str | None = None
+    """Keep the state and the history here, with the site file as run (``site.yaml``), for
+    ``report`` and ``tune`` afterwards; None: a temporary directory, removed at the end."""
 
 
 @dataclass
@@ -181,6 +186,28 @@ def demo_site(port: int, state_dir: str, broker: tuple[str, int] | None = None) 
         host, broker_port = broker
         data["broker"] = {"host": host, "port": broker_port}
     return site_from_data(data, str(path), lines)
+
+
+KEPT_SITE = "site.yaml"
+"""The demo's site file as run, written into a kept ``--state-dir``."""
+
+
+def write_kept_site(state_dir: str, port: int) -> Path:
+    """The demo site's file with its state_dir and port as run, in ``state_dir``: the ``-c``
+    that ``roomloop report`` and ``roomloop tune`` take to read the demo's history."""
+    text = demo_site_path().read_text(encoding="utf-8")
+    text = re.sub(
+        r"(?m)^(\s*state_dir:).*$", lambda m: f"{m.group(1)} {json.dumps(state_dir)}", text,
+        count=1,
+    )
+    text = re.sub(r"(?m)^(\s*port:)\s*1502\b.*$", lambda m: f"{m.group(1)} {port}", text, count=1)
+    path = Path(state_dir) / KEPT_SITE
+    path.write_text(
+        "# Written by 'roomloop demo --state-dir': the demo's site as it ran, its history beside\n"
+        "# it; read it with 'roomloop report -c' and 'roomloop tune -c' on this file.\n" + text,
+        encoding="utf-8",
+    )
+    return path
 
 
 def _plants(site: Site) -> dict[str, PlantSpec]:
@@ -286,13 +313,20 @@ class _Demo:
             )
 
     async def run(self, stop: asyncio.Event) -> DemoResult:
+        if self.options.state_dir:
+            return await self._run_in(self.options.state_dir, stop)
         with tempfile.TemporaryDirectory(prefix="roomloop-demo-") as state_dir:
-            server, site = await self._start_server(state_dir)
-            self._server = server
-            try:
-                return await self._run_with(server, site, state_dir, stop)
-            finally:
-                await server.stop()
+            return await self._run_in(state_dir, stop)
+
+    async def _run_in(self, state_dir: str, stop: asyncio.Event) -> DemoResult:
+        server, site = await self._start_server(state_dir)
+        self._server = server
+        if self.options.state_dir:
+            write_kept_site(state_dir, server.port)
+        try:
+            return await self._run_with(server, site, state_dir, stop)
+        finally:
+            await server.stop()
 
     async def _start_server(self, state_dir: str) -> tuple[PlantServer, Site]:
         """The plant server on a free loopback port, and the site pointing at it."""

@@ -42,22 +42,26 @@ def _from_site(value: float, units: str) -> float:
 
 
 def write_csv(history: ZoneHistory, out: TextIO, *, tz: ZoneInfo, units: str) -> int:
-    """Write ``history`` as CSV (times in ``tz`` with their offset); rows written."""
+    """Write ``history`` as CSV (times in ``tz`` with their offset); rows written. An
+    ``outdoor`` column follows when the history has the outdoor temperature."""
     writer = csv.writer(out, lineterminator="\n")
-    writer.writerow(EXPORTED)
+    outdoor = history.outdoor
+    writer.writerow(EXPORTED + (("outdoor",) if outdoor is not None else ()))
     for k, at in enumerate(history.time):
         when = dt.datetime.fromtimestamp(at, tz).isoformat(timespec="seconds")
         temp = history.temperature[k]
         setpoint = history.setpoint[k]
-        writer.writerow(
-            (
-                when,
-                "" if temp is None else f"{_to_site(temp, units):.3f}",
-                1 if history.relay[k] else 0,
-                "" if setpoint is None else f"{_to_site(setpoint, units):.3f}",
-                1 if history.fail_safe[k] else 0,
-            )
+        row: tuple[object, ...] = (
+            when,
+            "" if temp is None else f"{_to_site(temp, units):.3f}",
+            1 if history.relay[k] else 0,
+            "" if setpoint is None else f"{_to_site(setpoint, units):.3f}",
+            1 if history.fail_safe[k] else 0,
         )
+        if outdoor is not None:
+            value = outdoor[k]
+            row += ("" if value is None else f"{_to_site(value, units):.3f}",)
+        writer.writerow(row)
     return len(history.time)
 
 

@@ -72,11 +72,20 @@ def _damaged(exc: sqlite3.DatabaseError) -> bool:
     return "schema" in text and "is not" in text  # HistoryFile: another schema version
 
 
-def tick_from(zone_at: float, outputs: ZoneOutputs, state: ZoneState) -> Tick:
-    """The tick to record from one zone step's outputs and new state."""
-    points = tuple(
+def tick_from(
+    zone_at: float,
+    outputs: ZoneOutputs,
+    state: ZoneState,
+    outdoor: tuple[str, float | None] | None = None,
+) -> Tick:
+    """The tick to record from one zone step's outputs and new state; ``outdoor``: the site's
+    outdoor point (name, value if it reads good and fresh), recorded as one more point."""
+    points: tuple[tuple[str, float | None, str], ...] = tuple(
         (p.name, p.value, outputs.reliability.get(p.name, p.reliability)) for p in state.points
     )
+    if outdoor is not None and all(p[0] != outdoor[0] for p in points):
+        name, value = outdoor
+        points += ((name, value, "ok" if value is not None else "unreliable-other"),)
     return Tick(
         at=zone_at,
         temperature=outputs.temperature,
@@ -134,10 +143,17 @@ class HistoryRecorder:
 
     # ------------------------------------------------------------------ event loop side
 
-    def record(self, zone: str, at: float, outputs: ZoneOutputs, state: ZoneState) -> None:
+    def record(
+        self,
+        zone: str,
+        at: float,
+        outputs: ZoneOutputs,
+        state: ZoneState,
+        outdoor: tuple[str, float | None] | None = None,
+    ) -> None:
         """Queue one zone tick; never blocks (a full queue drops it, counted and logged)."""
         try:
-            self._queue.put_nowait((zone, tick_from(at, outputs, state)))
+            self._queue.put_nowait((zone, tick_from(at, outputs, state, outdoor)))
         except queue.Full:
             self.dropped += 1
             if self.dropped == 1 or self.dropped % DROP_LOG_EVERY == 0:

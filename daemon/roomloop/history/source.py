@@ -79,6 +79,9 @@ def load_history(
 ) -> ZoneHistory:
     """The zone's history in the window, from ``csv_path`` or from the site's history file.
 
+    From the file, the site's outdoor point (recorded with each zone's ticks) becomes the
+    history's outdoor temperature, which ``tune`` fits with.
+
     Raises :class:`HistoryUnavailable` (one clear line) when there is nothing to read, and
     :class:`~roomloop.history.csvfile.CsvError` for a bad CSV.
     """
@@ -105,6 +108,9 @@ def load_history(
             full = db.read(zone)
         finally:
             db.close()
+        outdoor = site.site.outdoor_point
+        if outdoor is not None and outdoor in full.points and full.outdoor is None:
+            full.outdoor = [v if verdict == "ok" else None for v, verdict in full.points[outdoor]]
         where = str(path)
     if not full.time:
         raise HistoryUnavailable(f"{where}: no ticks of zone {zone!r}")

@@ -14,7 +14,9 @@ Model (the simulator's, :mod:`roomloop.plant.model`, with a linear emitter)::
 conductance is on that scale, and the time constants are what counts). ``w(t)``
 is the heat from outdoors and gains: ``H To(t) + g(t)`` when the outdoor temperature
 is known, with ``g`` a slow piecewise-linear load (knots every ``KNOT_OUTDOOR_S``);
-otherwise all of it is an unknown slowly varying load (knots every ``KNOT_S``).
+otherwise all of it is an unknown load: a slowly varying part (knots every ``KNOT_S``)
+and a daily profile (``DAILY_HARMONICS`` harmonics of the day), since without the outdoor
+temperature its daily swing is in the load too.
 Reduced structures drop the mass (``no-mass``) or also the emitter (``room``).
 
 The fit is a separable least-squares problem (variable projection): for given
@@ -52,6 +54,7 @@ from roomloop.plant.spec import PlantSpec  # noqa: E402
 STEP_S = 60.0
 KNOT_S = 12 * 3600.0
 KNOT_OUTDOOR_S = 24 * 3600.0
+DAILY_HARMONICS = 2
 NOMINAL_HEATER_W = 1000.0
 MIN_HOURS = 24.0
 MIN_SWITCHES = 10
@@ -63,6 +66,19 @@ PARAMS = {
 }
 MAX_DELAY_S = 1800.0
 DETERMINED = 0.5
+REDUCED_RMS_MARGIN = 0.1
+"""A reduced structure whose RMS residual is more than this much above the best fit's is too
+simple for the room: its parameters' small uncertainty would come from a wrong model."""
+PARAM_NAMES = {
+    "Ce": "emitter capacity",
+    "Ke": "emitter conductance",
+    "Cr": "room capacity",
+    "H": "loss to outdoors",
+    "Cm": "mass capacity",
+    "Km": "mass conductance",
+    "tau_s": "sensor lag",
+    "delay_s": "transport delay",
+}
 """A parameter counts as determined when its relative standard uncertainty is below this."""
 
 
@@ -104,10 +120,17 @@ class Fit:
 
     @property
     def determined(self) -> bool:
-        return all(
-            (sd < DETERMINED) if name != "delay_s" else (sd < max(120.0, self.params[name]))
-            for name, sd in self.rel_sd.items()
-        )
+        return not self.undetermined()
+
+    def undetermined(self) -> list[str]:
+        """The parameters these data do not determine (relative uncertainty of 50 % or more;
+        the delay: more than itself or two minutes)."""
+        return [
+            name for name, sd in self.rel_sd.items()
+            if not (
+                (sd < DETERMINED) if name != "delay_s" else (sd < max(120.0, self.params[name]))
+            )
+        ]
 
     def node_time_constants_s(self) -> dict[str, float]:
         p = self.params
@@ -317,6 +340,24 @@ def _hats(length: int, h: float, knot_s: float) -> Any:
     return cols
 
 
+def _load_basis(series: Series, use_outdoor: bool) -> tuple[Any, int]:
+    """The load's columns and how many of them are knots (the rest: the daily harmonics).
+
+    With the outdoor temperature the rest of the load (gains, sun) is slow: knots every
+    ``KNOT_OUTDOOR_S``. Without it the load is the outdoor temperature's work too, which
+    swings daily (night and day, the sun): a slow part (knots every ``KNOT_S``) plus a
+    daily profile that repeats (``DAILY_HARMONICS`` sine and cosine pairs). The profile
+    carries on into a prediction; the slow part is held at its last value.
+    """
+    length, h = len(series.u), series.step_s
+    knots = _hats(length, h, KNOT_OUTDOOR_S if use_outdoor else KNOT_S)
+    if use_outdoor or DAILY_HARMONICS == 0:
+        return knots, knots.shape[1]
+    phase = 2.0 * math.pi * (series.t0 + np.arange(length) * h) / 86400.0
+    waves = [f(k * phase) for k in range(1, DAILY_HARMONICS + 1) for f in (np.cos, np.sin)]
+    return np.concatenate([knots, np.stack(waves, axis=1)], axis=1), knots.shape[1]
+
+
 @dataclass
 class _Problem:
     series: Series
@@ -403,7 +444,7 @@ def _fit_structure(
 ) -> Fit:
     use_outdoor = series.outdoor is not None
     mask = np.isfinite(series.y)
-    hats = _hats(len(series.u), series.step_s, KNOT_OUTDOOR_S if use_outdoor else KNOT_S)
+    hats, _ = _load_basis(series, use_outdoor)
     problem = _Problem(series, structure, heater_w, use_outdoor, mask, hats, fit_until)
     start = _start(structure, heater_w, heating)
     names = PARAMS[structure]
@@ -468,7 +509,13 @@ def identify(
     step_s: float = STEP_S,
 ) -> tuple[Fit, list[Fit], Series]:
     """Fit the structures richest first, stopping at the first whose parameters the data
-    all determine; the chosen fit (else the simplest), all fits tried, and the data.
+    all determine; the chosen fit, all fits tried, and the data.
+
+    The chosen fit is the determined one with the lowest BIC, unless it fits more than
+    ``REDUCED_RMS_MARGIN`` worse than the best fit tried (a reduced structure too simple
+    for the room: without the outdoor temperature a single-node room fits the fast part
+    "precisely" with a building time constant of an hour instead of a day). Else it is the
+    best fit by BIC, with its undetermined parameters named in its notes.
 
     Raises :class:`IdentificationRefused` with the reasons when the data cannot support it.
     """
@@ -485,14 +532,35 @@ def identify(
         fits.append(fit)
         if fit.determined:
             break
-    usable = [f for f in fits if f.determined]
-    chosen = min(usable, key=lambda f: f.bic) if usable else fits[-1]
-    if not usable:
+    best = min(fits, key=lambda f: f.bic)
+    usable = [f for f in fits if f.determined and not _too_simple(f, best)]
+    chosen = min(usable, key=lambda f: f.bic) if usable else best
+    for f in fits:
+        if f.determined and _too_simple(f, best):
+            chosen.notes.append(
+                f"the {f.structure} structure's parameters look precise, but it fits clearly "
+                f"worse (RMS {f.rms_k:.3f} K against {best.rms_k:.3f} K): a model too simple "
+                "for this room, whose precision would mislead; not used"
+            )
+    if not chosen.determined:
         chosen.notes.append(
-            "no structure's parameters are all determined by these data; the simplest is "
-            "given, and its uncertain parameters should not be trusted"
+            "not determined by these data: "
+            + ", ".join(PARAM_NAMES[name] for name in chosen.undetermined())
+            + "; the figures built on them are indicative only"
+        )
+    if series.outdoor is None:
+        chosen.notes.append(
+            "without the outdoor temperature the loss to outdoors and the building's time "
+            "constant rest on the room's response alone (the load is fitted as a slow part "
+            "and a daily profile); give the site an outdoor_point, or an outdoor column in "
+            "--history, for a firmer answer"
         )
     return chosen, fits, series
+
+
+def _too_simple(fit: Fit, best: Fit) -> bool:
+    """A reduced structure the data reject: its RMS clearly above the best fit's."""
+    return fit is not best and fit.rms_k > (1.0 + REDUCED_RMS_MARGIN) * best.rms_k
 
 
 def predict(fit: Fit, series: Series, fit_until: int) -> Any:
@@ -502,16 +570,16 @@ def predict(fit: Fit, series: Series, fit_until: int) -> Any:
     ``fit_until`` steps; knots beyond the fit keep the last fitted value.
     """
     use_outdoor = series.outdoor is not None
-    hats = _hats(len(series.u), series.step_s, KNOT_OUTDOOR_S if use_outdoor else KNOT_S)
+    hats, n_knots = _load_basis(series, use_outdoor)
     problem = _Problem(
         series, fit.structure, fit.heater_w, use_outdoor, np.isfinite(series.y), hats,
         fit_until,
     )
     coef = np.array(fit.coef, dtype=float)
     knots = coef[: hats.shape[1]].copy()
-    used = np.flatnonzero(hats[:fit_until].sum(axis=0) > 0)
+    used = np.flatnonzero(hats[:fit_until, :n_knots].sum(axis=0) > 0)
     if used.size:
-        knots[used[-1] + 1 :] = knots[used[-1]]
+        knots[used[-1] + 1 : n_knots] = knots[used[-1]]
     fixed, cols = problem.design(fit.params, len(series.u))
     full = np.concatenate([knots, coef[hats.shape[1] :]])
     return fixed + cols @ full

@@ -444,7 +444,9 @@ class Service:
 
     def _record_history(self, report: TickReport) -> None:
         if self.history is not None:
-            self.history.record(report.zone, report.at, report.outputs, report.state)
+            point = self.runner.outdoor_point
+            outdoor = None if point is None else (point[0], self.runner.outdoor_c(report.at))
+            self.history.record(report.zone, report.at, report.outputs, report.state, outdoor)
 
     def _check_links(self) -> None:
         """Zones start once every link was polled once (answered or not); READY once all answer."""

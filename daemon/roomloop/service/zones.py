@@ -151,6 +151,10 @@ class ZoneRunner:
     outdoor_point: tuple[str, float] | None = None
     """The site's outdoor point and its ``stale_after_s`` (optimum start), if it has one."""
 
+    def outdoor_c(self, now: float) -> float | None:
+        """The site's outdoor temperature if its point reads good (the history records it)."""
+        return self._outdoor(now)
+
     def _outdoor(self, now: float) -> float | None:
         """The site's outdoor temperature if its point reads good, else None."""
         if self.outdoor_point is None:
