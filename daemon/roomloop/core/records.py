@@ -17,8 +17,8 @@ from dataclasses import fields
 from typing import Any
 
 from .failsafe import Bucket
-from .state import PointState, ZoneState
-from .types import Reason, Reliability, ZoneOutputs
+from .state import CoolingState, PointState, ZoneState
+from .types import CoolingOutputs, Reason, Reliability, ZoneOutputs
 
 Setter = Callable[[object, Any], None]
 
@@ -38,10 +38,10 @@ _new = object.__new__
  _S_PROTECTION_RUN, _S_SWITCHES, _S_STARTED_AT, _S_LAST_STEP_AT, _S_LAST_SETPOINT, _S_RECOVERING,
  _S_TEMPERATURE, _S_GOOD_AT, _S_GOOD_SINCE, _S_NORMAL, _S_FAIL_SAFE, _S_FAIL_SAFE_SINCE,
  _S_FAIL_SAFE_DUTY, _S_FAIL_SAFE_REASON, _S_DUTY_BUCKETS, _S_DUTY_CURRENT, _S_POINTS, _S_BACKUP,
- _S_SMOOTHED_C) = slot_setters(ZoneState)
+ _S_SMOOTHED_C, _S_COOLING) = slot_setters(ZoneState)
 (_O_DEMAND, _O_REASON, _O_TEMPERATURE, _O_SETPOINT, _O_LEVEL, _O_MODE, _O_ANTICIPATOR_K,
  _O_DROOP_K, _O_RELIABILITY, _O_FAIL_SAFE, _O_FAIL_SAFE_POLICY, _O_FAIL_SAFE_REASON,
- _O_ON_FRACTION_1H, _O_CYCLES_1H) = slot_setters(ZoneOutputs)
+ _O_ON_FRACTION_1H, _O_CYCLES_1H, _O_COOLING) = slot_setters(ZoneOutputs)
 
 
 # PointState's groups
@@ -135,7 +135,20 @@ def zone_state(  # noqa: PLR0917 - one argument per section of the record
     _S_POINTS(obj, points[0])
     _S_BACKUP(obj, points[1])
     _S_SMOOTHED_C(obj, points[2])
+    _S_COOLING(obj, None)
     return obj
+
+
+def with_cooling(state: ZoneState, cooling: CoolingState) -> ZoneState:
+    """``state``, just built by :func:`zone_state` and not yet shared, with its cooling part."""
+    _S_COOLING(state, cooling)
+    return state
+
+
+def outputs_with_cooling(outputs: ZoneOutputs, cooling: CoolingOutputs) -> ZoneOutputs:
+    """``outputs``, just built by :func:`zone_outputs` and not yet shared, with the cooling part."""
+    _O_COOLING(outputs, cooling)
+    return outputs
 
 
 # ZoneOutputs' groups
@@ -172,4 +185,5 @@ def zone_outputs(
     _O_FAIL_SAFE_REASON(obj, fail_safe[2])
     _O_ON_FRACTION_1H(obj, figures[0])
     _O_CYCLES_1H(obj, figures[1])
+    _O_COOLING(obj, None)
     return obj
