@@ -28,7 +28,7 @@ from hypothesis import strategies as st
 from roomloop.core import ZoneController
 from roomloop.core.commands import CommandRejected, apply_command
 from roomloop.core.settings import CoolingSettings, ZoneSettings
-from roomloop.core.state import ZoneState
+from roomloop.core.state import StateFormatError, ZoneState, check_for_zone, with_cooling_state
 
 from .helpers import FAST_POINT, FirstOrderPlant, sample
 from .helpers import settings as base_settings
@@ -187,6 +187,10 @@ def test_state_with_cooling_round_trips_through_json() -> None:
     assert ZoneState.from_json(state.to_json()) == state
     plain = ZoneController(base_settings()).initial_state(0.0)
     assert "cooling" not in plain.to_json()  # a heating-only zone's file is as before
+    assert state.cooling is not None
+    edited = with_cooling_state(state, replace(state.cooling, hold_setpoint=45.0))
+    with pytest.raises(StateFormatError, match=r"cooling\.hold_setpoint 45"):
+        check_for_zone(ZoneState.from_json(edited.to_json()), dual_settings())
 
 
 # ---------------------------------------------------------------------------- properties
