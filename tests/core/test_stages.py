@@ -22,7 +22,7 @@ def test_first_applying_takes_one_condition_per_row_in_table_order() -> None:
         for j in range(i, len(names)):
             conditions[j] = True
         assert relay.first_applying(*conditions) is rule
-    assert relay.first_applying(False, False, False, False) is relay.BAND
+    assert relay.first_applying(False, False, False, False, False) is relay.BAND
 
 
 def test_short_cycle_protection_by_rule() -> None:

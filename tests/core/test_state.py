@@ -64,8 +64,13 @@ def test_fast_constructors_equal_the_dataclass_init() -> None:
 
 
 def _sections(obj: object, sizes: tuple[int, ...]) -> list[tuple[object, ...]]:
-    """The record's field values in order, cut into sections of ``sizes``."""
-    values = [getattr(obj, f.name) for f in dataclasses.fields(obj)]  # type: ignore[arg-type]
+    """The record's field values in order, cut into sections of ``sizes`` (the cooling part,
+    which the dual controller adds to a built record, left out: None in a heating zone)."""
+    values = [
+        getattr(obj, f.name)
+        for f in dataclasses.fields(obj)  # type: ignore[arg-type]
+        if f.name != "cooling"
+    ]
     assert sum(sizes) == len(values)
     out, start = [], 0
     for size in sizes:

@@ -15,7 +15,7 @@ from collections.abc import Callable
 from dataclasses import replace
 from typing import TextIO
 
-from roomloop.config.checks import delta_text, temperature_text
+from roomloop.config.checks import dead_band_k, delta_text, temperature_text
 from roomloop.config.loader import load_site_with_warnings
 from roomloop.config.models import (
     BYTE_LETTERS,
@@ -214,11 +214,45 @@ def _letters(point: ModbusInput) -> str:
     return "?"  # pragma: no cover - the four pairs are all the pairs
 
 
-def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:
-    write(
-        f"  {zone.name}: {zone.heating}, output {zone.output}, inputs "
-        f"{', '.join(zone.inputs)} ({zone.combine})\n"
+def _cooling_text(zone: Zone, units: str, write: Callable[[str], object]) -> None:
+    """The cooling call and the changeover, when the zone can cool."""
+    cooling, tuning = zone.cooling, zone.cooling_effective
+    if cooling is None or tuning is None:
+        return
+    sp = cooling.setpoints
+    shown = ", ".join(
+        f"{level} {temperature_text(float(getattr(sp, level)), units)}"
+        for level in ("comfort", "standby", "economy")
     )
+    overheat = "none" if sp.overheat is None else temperature_text(sp.overheat, units)
+    write(f"    cooling: {cooling.type}, output {cooling.output}; set points {shown}, "
+          f"overheat limit {overheat}\n")
+    write(
+        f"      differential {delta_text(tuning.differential_k, units)}, anticipator gain "
+        f"{delta_text(tuning.anticipator_gain_k, units)}, time constant "
+        f"{_n(tuning.anticipator_time_constant_s)} s, cycle rate {_n(tuning.cycle_rate_cph)} "
+        f"per hour, minimum on {_n(tuning.min_on_s)} s, minimum off {_n(tuning.min_off_s)} s, "
+        f"most starts per hour {tuning.max_cycles_per_hour}, droop compensation "
+        f"{'on' if tuning.droop_compensation else 'off'}\n"
+    )
+    co = zone.changeover
+    band = dead_band_k(zone, units)
+    valve = (
+        "no changeover output"
+        if co.output is None
+        else f"changeover output {co.output} (energised in {co.energised_in}, held "
+        f"{_n(co.hold_s)} s before a call)"
+    )
+    write(
+        f"    changeover: {zone.changeover_mode} at first start, dead band "
+        f"{delta_text(band, units)}, at least {_n(co.min_changeover_s)} s between a heating "
+        f"and a cooling call, {valve}\n"
+    )
+
+
+def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:
+    heating = f"{zone.heating}, output {zone.output}" if zone.output is not None else "no heating"
+    write(f"  {zone.name}: {heating}, inputs {', '.join(zone.inputs)} ({zone.combine})\n")
     sp = ", ".join(
         f"{level} {temperature_text(zone.setpoints.for_level(level), units)}" for level in LEVELS
     )
@@ -260,6 +294,7 @@ def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:
     write("    tuning:\n")
     for label, value, key in rows:
         write(f"      {label:<27} {value:<14} {origins.get(key, '')}\n")
+    _cooling_text(zone, units, write)
     fs = zone.fail_safe
     policy: str = fs.policy
     if fs.policy == "fixed-duty":

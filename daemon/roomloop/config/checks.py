@@ -18,6 +18,7 @@ from dataclasses import dataclass, field
 from typing import Any, Literal
 
 from roomloop.config.models import (
+    ASHRAE_DEAD_BAND,
     BMS_FIXED_REGISTERS,
     LEVELS,
     Alarms,
@@ -36,6 +37,7 @@ from roomloop.config.models import (
     SiteInfo,
     Zone,
 )
+from roomloop.config.presets import COMPRESSOR_MIN_OFF_S
 from roomloop.units import delta_from_kelvin, from_celsius
 
 KeyPath = tuple[str | int, ...]
@@ -113,6 +115,7 @@ def check_parts(parts: SiteParts) -> list[Finding]:
         findings += _setpoints(index, zone, parts.units)
         findings += _tuning(index, zone, parts.units)
         findings += _program(index, zone)
+        findings += _cooling(index, zone, parts.units)
     return findings
 
 
@@ -472,32 +475,46 @@ def _zone_inputs(index: int, zone: Zone, known: _PointIndex) -> list[Finding]:
     return findings
 
 
+def zone_outputs(zone: Zone) -> list[tuple[KeyPath, str]]:
+    """A zone's output points with their key paths under the zone: heating, cooling, changeover."""
+    found: list[tuple[KeyPath, str]] = []
+    if zone.output is not None:
+        found.append((("output",), zone.output))
+    if zone.cooling is not None:
+        found.append((("cooling", "output"), zone.cooling.output))
+    if zone.changeover.output is not None:
+        found.append((("changeover", "output"), zone.changeover.output))
+    return found
+
+
 def _zone_output(
     index: int, zone: Zone, known: _PointIndex, used_outputs: dict[str, str]
 ) -> list[Finding]:
-    where: KeyPath = ("zones", index, "output")
-    output = known.points.get(zone.output)
-    if output is None:
-        return known.unknown(zone.output, where)
-    if isinstance(output, ModbusInput | MqttInput):
-        return [
-            Finding(
-                where,
-                f"{zone.output!r} is an input ({output.type}); a zone's output must be a "
-                "relay output",
+    findings: list[Finding] = []
+    for keys, name in zone_outputs(zone):
+        where: KeyPath = ("zones", index, *keys)
+        output = known.points.get(name)
+        if output is None:
+            findings += known.unknown(name, where)
+        elif isinstance(output, ModbusInput | MqttInput):
+            findings.append(
+                Finding(
+                    where,
+                    f"{name!r} is an input ({output.type}); a zone's output must be a "
+                    "relay output",
+                )
             )
-        ]
-    if zone.output in used_outputs:
-        return [
-            Finding(
-                where,
-                f"output {zone.output!r} is already switched by zone "
-                f"{used_outputs[zone.output]!r}; "
-                "two zones cannot share one relay",
+        elif name in used_outputs:
+            findings.append(
+                Finding(
+                    where,
+                    f"output {name!r} is already switched by zone {used_outputs[name]!r}; "
+                    "two zones (or two calls) cannot share one relay",
+                )
             )
-        ]
-    used_outputs[zone.output] = zone.name
-    return []
+        else:
+            used_outputs[name] = zone.name
+    return findings
 
 
 def _zone_backup(index: int, zone: Zone, known: _PointIndex) -> list[Finding]:
@@ -560,18 +577,29 @@ def _setpoints(index: int, zone: Zone, units: str) -> list[Finding]:
     return findings
 
 
-def _tuning(index: int, zone: Zone, units: str) -> list[Finding]:
+def _tuning(
+    index: int,
+    zone: Zone,
+    units: str,
+    cooling: bool = False,
+) -> list[Finding]:
     findings: list[Finding] = []
-    tuning = zone.effective
-    origins = zone.origins
-    base: KeyPath = ("zones", index)
+    if cooling:
+        assert zone.cooling_effective is not None
+        tuning, origins = zone.cooling_effective, zone.cooling_origins
+        base: KeyPath = ("zones", index, "cooling")
+        preset_key: KeyPath = (*base, "type")
+    else:
+        tuning, origins = zone.effective, zone.origins
+        base = ("zones", index)
+        preset_key = (*base, "heating")
 
     def where(*keys: str) -> KeyPath:
         """The first of ``keys`` the file gave, else the zone's heating (the preset's source)."""
         for key in keys:
             if origins.get(key) == "file":
                 return (*base, "tuning", key)
-        return (*base, "heating")
+        return preset_key
 
     def shown(key: str) -> str:
         return "" if origins.get(key) == "file" else f" ({origins.get(key)})"
@@ -614,6 +642,120 @@ def _tuning(index: int, zone: Zone, units: str) -> list[Finding]:
         tuning.anticipator_time_constant_s
     ):  # pragma: no cover - models refuse inf
         findings.append(Finding(where("anticipator_time_constant_s"), "must be a finite number"))
+    return findings
+
+
+def _cooling(index: int, zone: Zone, units: str) -> list[Finding]:
+    """The cooling call: set points in order and within the limits, the dead band in ``auto``
+    (ASHRAE Standard 90.1), its tuning, a compressor's minimum off time."""
+    cooling = zone.cooling
+    if cooling is None:
+        if zone.changeover.mode in ("cool", "auto"):
+            return [
+                Finding(
+                    ("zones", index, "changeover", "mode"),
+                    f"changeover {zone.changeover.mode} needs a cooling call (cooling.output)",
+                )
+            ]
+        return []
+    base: KeyPath = ("zones", index, "cooling")
+    findings: list[Finding] = []
+    if zone.output is None and zone.changeover.mode in ("heat", "auto"):
+        findings.append(
+            Finding(
+                ("zones", index, "changeover", "mode"),
+                f"changeover {zone.changeover.mode} needs a heating output (output)",
+            )
+        )
+    sp = cooling.setpoints
+    levels = ("comfort", "standby", "economy")
+    for lower, upper in itertools.pairwise(levels):
+        if float(getattr(sp, upper)) < float(getattr(sp, lower)):
+            findings.append(
+                Finding(
+                    (*base, "setpoints", upper),
+                    f"cooling {upper} {temperature_text(float(getattr(sp, upper)), units)} is "
+                    f"below cooling {lower} {temperature_text(float(getattr(sp, lower)), units)}; "
+                    "cooling set points go comfort <= standby <= economy <= overheat",
+                )
+            )
+    if sp.overheat is not None and sp.overheat < sp.economy:
+        findings.append(
+            Finding(
+                (*base, "setpoints", "overheat"),
+                f"overheat {temperature_text(sp.overheat, units)} is below cooling economy "
+                f"{temperature_text(sp.economy, units)}; the overheat limit is the highest",
+            )
+        )
+    low, high = zone.limits.min, zone.limits.max
+    for level in levels:
+        value = float(getattr(sp, level))
+        if low < high and not low - 1e-9 <= value <= high + 1e-9:
+            findings.append(
+                Finding(
+                    (*base, "setpoints", level),
+                    f"cooling {level} {temperature_text(value, units)} is outside the zone's "
+                    f"limits {temperature_text(low, units)} to {temperature_text(high, units)}",
+                )
+            )
+    findings += _dead_band(index, zone, units)
+    findings += _tuning(index, zone, units, cooling=True)
+    tuning = zone.cooling_effective
+    assert tuning is not None
+    if cooling.type == "direct-expansion" and tuning.min_off_s < COMPRESSOR_MIN_OFF_S:
+        origin = zone.cooling_origins.get("min_off_s")
+        findings.append(
+            Finding(
+                (*base, "tuning", "min_off_s") if origin == "file" else (*base, "type"),
+                f"min_off_s {_num(tuning.min_off_s)} s is too short for a compressor "
+                f"(direct-expansion): at least {_num(COMPRESSOR_MIN_OFF_S)} s, a compressor "
+                "needs 3-5 min off between starts",
+            )
+        )
+    return findings
+
+
+def dead_band_k(zone: Zone, units: str) -> float:
+    """The zone's dead band (K): as written, else the ASHRAE Standard 90.1 minimum."""
+    given = zone.changeover.dead_band_k
+    return ASHRAE_DEAD_BAND[units] if given is None else float(given)
+
+
+def _dead_band(index: int, zone: Zone, units: str) -> list[Finding]:
+    """In ``auto``, each level's cooling set point at least the dead band above its heating one.
+
+    ASHRAE Standard 90.1 (zone thermostatic controls): where a zone's heating and cooling are
+    changed over automatically, the set points keep a dead band of at least 5 F (3 C).
+    """
+    if zone.output is None or zone.changeover_mode != "auto":
+        return []
+    findings: list[Finding] = []
+    base: KeyPath = ("zones", index)
+    minimum = ASHRAE_DEAD_BAND[units]
+    given = zone.changeover.dead_band_k
+    if given is not None and given < minimum - 1e-9:
+        findings.append(
+            Finding(
+                (*base, "changeover", "dead_band_k"),
+                f"dead band {delta_text(given, units)} is below {delta_text(minimum, units)}, "
+                "the least ASHRAE Standard 90.1 allows between heating and cooling set points",
+            )
+        )
+    band = max(dead_band_k(zone, units), minimum)
+    assert zone.cooling is not None
+    for level in ("comfort", "standby", "economy"):
+        heat = float(getattr(zone.setpoints, level))
+        cool = float(getattr(zone.cooling.setpoints, level))
+        if cool - heat < band - 1e-9:
+            findings.append(
+                Finding(
+                    (*base, "cooling", "setpoints", level),
+                    f"cooling {level} {temperature_text(cool, units)} is less than the dead band "
+                    f"{delta_text(band, units)} above heating {level} "
+                    f"{temperature_text(heat, units)}: changeover auto needs at least "
+                    f"{delta_text(minimum, units)} between them (ASHRAE Standard 90.1)",
+                )
+            )
     return findings
 
 
@@ -699,7 +841,9 @@ def _source_outputs(parts: SiteParts) -> list[Finding]:
     points = {point.name: point for _, point in parts.points}
     bad_points = parts.invalid_names.get("points", set())
     known = ", ".join(sorted(points)) or "none defined"
-    users: dict[str, str] = {zone.output: f"zone {zone.name!r}" for _, zone in parts.zones}
+    users: dict[str, str] = {
+        name: f"zone {zone.name!r}" for _, zone in parts.zones for _, name in zone_outputs(zone)
+    }
     findings: list[Finding] = []
     for index, source in parts.heat_sources:
         for key in ("output", "pump_output"):

@@ -36,7 +36,13 @@ from pydantic import (
 )
 from pydantic import Strict as StrictType
 
-from roomloop.config.presets import PRESET_KEYS, PRESETS, time_constant_for_cycle_rate
+from roomloop.config.presets import (
+    COOLING_PRESETS,
+    PRESET_KEYS,
+    PRESETS,
+    Preset,
+    time_constant_for_cycle_rate,
+)
 from roomloop.units import delta_from_kelvin, delta_to_kelvin, from_celsius, to_celsius
 
 # --------------------------------------------------------------------------- units
@@ -628,6 +634,14 @@ Point = Annotated[ModbusInput | MqttInput | ModbusOutput | MqttOutput, Field(dis
 # --------------------------------------------------------------------------- zones
 
 HeatingType = Literal["forced-air", "hydronic", "underfloor", "electric", "steam"]
+CoolingType = Literal["direct-expansion", "chilled-water"]
+ChangeoverMode = Literal["heat", "cool", "auto"]
+CHANGEOVER_MODES: tuple[ChangeoverMode, ...] = ("heat", "cool", "auto")
+ASHRAE_DEAD_BAND = {"C": 3.0, "F": 5.0 * 5.0 / 9.0}
+"""The least dead band (K) between the heating and the cooling set point of a zone with
+automatic changeover: 3 K, or 5 F on a Fahrenheit site (ASHRAE Standard 90.1, zone
+thermostatic controls: a dead band of at least 5 F / 3 C, within which neither heating nor
+cooling runs; REFERENCES.md [published])."""
 Level = Literal["comfort", "standby", "economy", "protection"]
 Mode = Literal["auto", "hold", "off"]
 LEVELS: tuple[Level, ...] = ("comfort", "standby", "economy", "protection")
@@ -686,6 +700,70 @@ class Tuning(BaseModel):
     droop_time_s: float
     smoothing_s: float | None = None
     """``None``: one cycle period (the controller derives it from the cycle rate)."""
+
+
+class CoolingTuningInput(Strict):
+    """The cooling call's tuning as written; whatever is left out comes from the cooling type."""
+
+    differential_k: Annotated[TemperatureDelta, Field(gt=0, le=5)] | None = None
+    anticipator_gain_k: Annotated[TemperatureDelta, Field(ge=0, le=10)] | None = None
+    anticipator_time_constant_s: Annotated[Seconds, Field(ge=10)] | None = None
+    cycle_rate_cph: Annotated[Float, Field(gt=0, le=30)] | None = None
+    min_on_s: Annotated[Float, Field(ge=0, le=7200)] | None = None
+    min_off_s: Annotated[Float, Field(ge=0, le=7200)] | None = None
+    max_cycles_per_hour: Annotated[Int, Field(ge=1, le=60)] | None = None
+    """The most starts in any hour (a compressor's starts per hour)."""
+    droop_compensation: bool | None = None
+    droop_time_s: Annotated[Seconds, Field(ge=60)] | None = None
+
+
+class CoolingSetpoints(Strict):
+    """The cooling set point per level: cooling runs above it. ``overheat`` is the optional
+    limit that replaces frost protection for cooling (a plant room): above it the zone cools
+    whatever the mode or level; left out, the zone never cools in mode ``off`` or at the
+    ``protection`` level."""
+
+    comfort: Temperature = 24.0
+    standby: Temperature = 26.0
+    economy: Temperature = 28.0
+    overheat: Temperature | None = None
+
+    def for_level(self, level: Level) -> float | None:
+        if level == "protection":
+            return self.overheat
+        return float(getattr(self, level))
+
+
+class Cooling(Strict):
+    """A zone's cooling call: its output point, its cooling type and set points, its tuning."""
+
+    output: Name
+    type: CoolingType = "direct-expansion"
+    setpoints: CoolingSetpoints = CoolingSetpoints()
+    tuning: CoolingTuningInput = CoolingTuningInput()
+    safe_state: Literal["off"] = "off"
+    """The cooling output at start, at stop and when roomloop cannot decide: always off."""
+
+
+class Changeover(Strict):
+    """How a zone with both calls (or a heat pump) changes over between heating and cooling."""
+
+    mode: ChangeoverMode | None = None
+    """Which call the zone may make at first start (afterwards the persisted or commanded one);
+    left out: ``auto`` with both calls, else the one the zone has."""
+    dead_band_k: Annotated[TemperatureDelta, Field(gt=0, le=20)] | None = None
+    """The least gap between the heating and the cooling set point in ``auto``; left out: the
+    ASHRAE Standard 90.1 minimum (3 K, or 5 F on a Fahrenheit site), never less."""
+    min_changeover_s: Annotated[Float, Field(ge=0, le=14400)] = 600.0
+    """Least time from the end of a heating call to the start of a cooling call and back
+    [common practice, no source: lets a heat pump's pressures and the water settle]."""
+    output: Name | None = None
+    """A heat pump's changeover (reversing valve) output: switched only while both calls are
+    off, and held ``hold_s`` before a call starts."""
+    energised_in: Literal["cooling", "heating"] = "cooling"
+    """Which side the changeover output is energised in (the installation's wiring)."""
+    hold_s: Annotated[Float, Field(ge=0, le=3600)] = 60.0
+    """Least time the changeover output stays in its position before a call starts."""
 
 
 class FailSafe(Strict):
@@ -863,13 +941,15 @@ class OptimumStart(Strict):
 
 
 class Zone(Strict):
-    """A controlled space: inputs, one output, a heating type, set points, tuning, fail-safe."""
+    """A controlled space: inputs, a heating output and/or a cooling call, set points, tuning,
+    fail-safe."""
 
     name: Name
     inputs: Annotated[list[Name], Field(min_length=1)]
     combine: Literal["mean", "median", "min", "first-ok"] = "mean"
-    output: Name
-    heating: HeatingType
+    output: Name | None = None
+    """The heating output; left out for a zone that only cools (then ``cooling`` is needed)."""
+    heating: HeatingType = "forced-air"
     setpoints: Setpoints = Setpoints()
     limits: Limits = Limits()
     tuning: TuningInput = TuningInput()
@@ -889,13 +969,54 @@ class Zone(Strict):
     """The heat output while the relay is closed (W), if known: energy figures in
     ``report`` and the scale of the plant ``tune`` identifies."""
 
+    cooling: Cooling | None = None
+    """The cooling call (a second output), if the zone can cool."""
+    changeover: Changeover = Changeover()
+
     _tuning: Tuning | None = PrivateAttr(default=None)
     _origins: dict[str, str] = PrivateAttr(default_factory=dict)
+    _cooling_tuning: Tuning | None = PrivateAttr(default=None)
+    _cooling_origins: dict[str, str] = PrivateAttr(default_factory=dict)
+
+    @model_validator(mode="after")
+    def _some_output(self) -> Zone:
+        if self.output is None and self.cooling is None:
+            raise ValueError("a zone needs an output (heating) or a cooling output, or both")
+        if self.changeover.output is not None and (self.output is None or self.cooling is None):
+            raise ValueError(
+                "a changeover output needs both calls: the heating output and cooling.output"
+            )
+        return self
 
     def model_post_init(self, context: Any, /) -> None:
         tuning, origins = resolve_tuning(self.heating, self.tuning)
         self._tuning = tuning
         self._origins = origins
+        if self.cooling is not None:
+            ctuning, corigins = resolve_preset(
+                COOLING_PRESETS[self.cooling.type], self.cooling.type, self.cooling.tuning
+            )
+            self._cooling_tuning = ctuning
+            self._cooling_origins = corigins
+
+    @property
+    def cooling_effective(self) -> Tuning | None:
+        """The cooling call's tuning, cooling-type presets filled in (None: no cooling)."""
+        return self._cooling_tuning
+
+    @property
+    def cooling_origins(self) -> dict[str, str]:
+        """Each cooling tuning key: ``file``, ``preset <type>`` or ``derived from cycle rate``."""
+        return dict(self._cooling_origins)
+
+    @property
+    def changeover_mode(self) -> ChangeoverMode:
+        """The changeover at first start: as written, else what the zone's outputs allow."""
+        if self.changeover.mode is not None:
+            return self.changeover.mode
+        if self.cooling is None:
+            return "heat"
+        return "auto" if self.output is not None else "cool"
 
     @property
     def effective(self) -> Tuning:
@@ -915,7 +1036,13 @@ def resolve_tuning(heating: HeatingType, given: TuningInput) -> tuple[Tuning, di
     An impossible derivation (gain not above the differential) leaves the time constant at
     the cycle period so the model still builds; :mod:`roomloop.config.checks` reports it.
     """
-    preset = PRESETS[heating]
+    return resolve_preset(PRESETS[heating], heating, given)
+
+
+def resolve_preset(
+    preset: Preset, heating: str, given: TuningInput | CoolingTuningInput
+) -> tuple[Tuning, dict[str, str]]:
+    """:func:`resolve_tuning` for any preset (a heating or a cooling type's)."""
     values: dict[str, object] = {}
     origins: dict[str, str] = {}
     for key in PRESET_KEYS:
@@ -932,8 +1059,9 @@ def resolve_tuning(heating: HeatingType, given: TuningInput) -> tuple[Tuning, di
     origins["droop_compensation"] = (
         f"preset {heating}" if given.droop_compensation is None else "file"
     )
-    values["smoothing_s"] = given.smoothing_s
-    origins["smoothing_s"] = "derived from cycle rate" if given.smoothing_s is None else "file"
+    smoothing = getattr(given, "smoothing_s", None)
+    values["smoothing_s"] = smoothing
+    origins["smoothing_s"] = "derived from cycle rate" if smoothing is None else "file"
     if given.anticipator_time_constant_s is not None:
         values["anticipator_time_constant_s"] = given.anticipator_time_constant_s
         origins["anticipator_time_constant_s"] = "file"

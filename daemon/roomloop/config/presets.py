@@ -63,6 +63,26 @@ PRESETS: dict[str, Preset] = {
     "steam": Preset(1.0, 0.5, 1.5, 600.0, 600.0, 2, 10800.0),
 }
 
+COOLING_PRESETS: dict[str, Preset] = {
+    # A compressor (split system, packaged unit, heat pump in cooling): 3 cph and at most
+    # 4 starts an hour (3-4 starts per hour for small compressors, REFERENCES.md [trade]:
+    # common practice, no source); minimum off 5 min (compressor anti-short-cycle of at least
+    # 3-5 min off between starts [trade]: common practice, no source) so the refrigerant
+    # pressures equalise before a restart; minimum on 3 min (oil return: recalled from
+    # memory). Differential 0.5 K as in heating [common practice, no source]; gain 1.5 K and
+    # droop time 1 h as the plain heating choices [no source; not swept on a cooling plant].
+    "direct-expansion": Preset(3.0, 0.5, 1.5, 180.0, 300.0, 4, 3600.0),
+    # Fan coils and chilled ceilings on a chilled-water loop: a valve (or fan) switches, not
+    # a compressor: 4 cph, 2 min on and off, at most 6 starts an hour [common practice, no
+    # source]; gain and droop time as for direct expansion [no source].
+    "chilled-water": Preset(4.0, 0.5, 1.5, 120.0, 120.0, 6, 3600.0),
+}
+"""Cooling-type presets: the cooling call's tuning defaults (same keys and checks as heating)."""
+
+COMPRESSOR_MIN_OFF_S = 180.0
+"""The least minimum off time a ``direct-expansion`` call may be given: a compressor needs
+at least 3-5 min off between starts (REFERENCES.md [trade]: common practice, no source)."""
+
 PRESET_KEYS = (
     "cycle_rate_cph",
     "differential_k",

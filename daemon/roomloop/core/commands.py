@@ -41,12 +41,14 @@ from dataclasses import replace
 from typing import Any, Final
 
 from roomloop.errors import RoomloopError
-from roomloop.units import from_celsius
+from roomloop.units import delta_from_kelvin, from_celsius
 
 from .settings import LEVEL_NAMES, MODE_NAMES, ZoneSettings
-from .state import ZoneState
+from .state import ZoneState, with_cooling_state
 
 COMMAND_FIELDS = ("setpoint", "mode", "level", "hold_until")
+COOLING_FIELDS = ("changeover", "cooling_setpoint")
+"""Further fields of a zone with a cooling call."""
 LIMIT_TOLERANCE_K = 1e-6
 """A set point this close to a limit is the limit (82.4 F converts to 28.000000000000004 C)."""
 MAX_HOLD_S = 366 * 86400.0
@@ -108,6 +110,8 @@ def apply_command(
     """
     if until is not UNSET:
         return _with_end(settings, state, field, value, until=until, now=now, units=units)
+    if field in COOLING_FIELDS or (field == "setpoint" and settings.cooling is not None):
+        return _cooling_command(settings, state, field, value, now, units)
     if field == "setpoint":
         number = _number(field, value)
         low, high = settings.limit_min_c, settings.limit_max_c
@@ -183,9 +187,95 @@ def apply_command(
                 level_override=None,
             )
         return replace(state, hold_until=until)
-    raise CommandRejected(
-        field, f"unknown field {field!r}; use one of {', '.join(COMMAND_FIELDS)}"
-    )
+    fields = COMMAND_FIELDS + (COOLING_FIELDS if settings.cooling is not None else ())
+    raise CommandRejected(field, f"unknown field {field!r}; use one of {', '.join(fields)}")
+
+
+def _shown(celsius: float, units: str) -> str:
+    return f"{round(from_celsius(celsius, units), 6):g}"
+
+
+def _delta(kelvin: float, units: str) -> str:
+    return f"{round(delta_from_kelvin(kelvin, units), 6):g}"
+
+
+def current_cooling_setpoint(settings: ZoneSettings, state: ZoneState) -> float | None:
+    """The cooling set point in force for ``state`` (None: none at this level or mode)."""
+    cs, c = settings.cooling, state.cooling
+    if cs is None:
+        return None
+    if state.mode == "off":
+        return cs.overheat_c
+    if state.mode == "hold" and c is not None and c.hold_setpoint is not None:
+        return c.hold_setpoint
+    value = cs.setpoint_for(current_level(settings, state))
+    if value is None or current_level(settings, state) == "protection":
+        return value
+    return min(max(value, settings.limit_min_c), settings.limit_max_c)
+
+
+def _cooling_command(  # noqa: PLR0917 - apply_command's arguments
+    settings: ZoneSettings, state: ZoneState, field: str, value: object, now: float, units: str
+) -> ZoneState:
+    """``changeover``, ``cooling_setpoint``, and ``setpoint`` in a zone with a cooling call:
+    in ``auto`` changeover the heating and cooling set points keep the dead band (ASHRAE
+    Standard 90.1: at least 3 K / 5 F)."""
+    cs = settings.cooling
+    if cs is None:
+        raise CommandRejected(field, "this zone has no cooling call")
+    from .stages.cooling import initial
+
+    c = state.cooling if state.cooling is not None else initial(cs)
+    low, high = settings.limit_min_c, settings.limit_max_c
+    if field == "changeover":
+        allowed = ("heat", "cool", "auto") if cs.heating else ("cool",)
+        word = _word(field, value, ("heat", "cool", "auto"))
+        if word not in allowed:
+            raise CommandRejected(field, f"{word}: this zone has no heating output; only cool")
+        if word == "auto":
+            _check_band(settings, current_setpoint(settings, state),
+                        current_cooling_setpoint(settings, state), field, units)
+        return with_cooling_state(state, replace(c, changeover=word))
+    number = _number(field, value)
+    if not low - LIMIT_TOLERANCE_K <= number <= high + LIMIT_TOLERANCE_K:
+        raise CommandRejected(
+            field,
+            f"{field} {_shown(number, units)} is outside the zone's limits "
+            f"{_shown(low, units)} to {_shown(high, units)} {units}",
+        )
+    number = min(max(number, low), high)
+    if field == "setpoint":
+        if c.changeover == "auto":
+            _check_band(settings, number, current_cooling_setpoint(settings, state), field, units)
+        held = apply_command(replace(settings, cooling=None), state, field, number, now)
+        return with_cooling_state(
+            held, replace(c, hold_setpoint=current_cooling_setpoint(settings, state))
+        )
+    if c.changeover == "auto":
+        _check_band(settings, current_setpoint(settings, state), number, field, units)
+    held = state
+    if state.mode != "hold":
+        held = apply_command(
+            replace(settings, cooling=None), state, "setpoint",
+            current_setpoint(settings, state), now,
+        )
+    return with_cooling_state(held, replace(c, hold_setpoint=number))
+
+
+def _check_band(
+    settings: ZoneSettings, heat: float, cool: float | None, field: str, units: str
+) -> None:
+    """Refuse set points closer than the dead band in ``auto`` (ASHRAE Standard 90.1)."""
+    cs = settings.cooling
+    if cs is None or cool is None or not cs.heating:
+        return
+    if cool - heat < cs.dead_band_k - LIMIT_TOLERANCE_K:
+        raise CommandRejected(
+            field,
+            f"heating {_shown(heat, units)} and cooling {_shown(cool, units)} {units} are "
+            f"closer than the dead band {_delta(cs.dead_band_k, units)} "
+            f"{'F' if units == 'F' else 'K'} that changeover auto keeps (ASHRAE Standard 90.1)",
+        )
 
 
 def _checked_end(

@@ -36,7 +36,7 @@ from .stages.constants import LawConstants
 from .stages.regulation import MAX_TAU_SCALE, MIN_TAU_SCALE
 from .stages.short_cycle import MAX_SWITCH_LOG
 from .state import PointState, ZoneState
-from .types import ZoneInputs, ZoneOutputs
+from .types import Reason, ZoneInputs, ZoneOutputs
 
 __all__ = ["MAX_SWITCH_LOG", "MAX_TAU_SCALE", "MIN_TAU_SCALE", "ZoneController"]
 
@@ -45,6 +45,14 @@ class ZoneController:
     """Our anticipating on/off controller for one zone (conforms to ``types.Controller``)."""
 
     __slots__ = ("_law", "_regulate", "settings")
+
+    def __new__(cls, settings: ZoneSettings) -> ZoneController:
+        """A zone with a cooling call gets the :class:`DualZoneController`."""
+        if cls is ZoneController and settings.cooling is not None:
+            from .dual import DualZoneController
+
+            return object.__new__(DualZoneController)
+        return object.__new__(cls)
 
     def __init__(self, settings: ZoneSettings) -> None:
         self.settings = settings
@@ -194,10 +202,14 @@ class ZoneController:
 
     # ------------------------------------------------------------------ step
 
-    def step(
-        self, state: ZoneState, inputs: ZoneInputs, now: float
+    def step(  # noqa: PLR0915 - the hot path: the stages inline, one frame per tick
+        self, state: ZoneState, inputs: ZoneInputs, now: float, lock: Reason | None = None
     ) -> tuple[ZoneState, ZoneOutputs]:
-        """One tick of the control law: the stages of :mod:`roomloop.core.stages` in order."""
+        """One tick of the control law: the stages of :mod:`roomloop.core.stages` in order.
+
+        ``lock``: the changeover keeps the heating call off this tick (a zone with a cooling
+        call, :class:`DualZoneController`); None in a heating-only zone.
+        """
         s = self.settings
         k = self._law
         was_on = state.relay_on
@@ -229,9 +241,13 @@ class ZoneController:
         b = droop.faded(state.droop_k, recovering, was_on, decay)
 
         mode_off = mode == "off"
-        rule = relay.first_applying(forced, mode_off, fail_safe, last_temperature is None)
+        rule = relay.first_applying(
+            lock is not None, forced, mode_off, fail_safe, last_temperature is None
+        )
         if rule.wish is not None:
             want, reason = rule.wish
+        elif lock is not None:
+            want, reason = False, lock
         elif fail_safe:
             want, reason = failsafe.wants_on(s, fs_since, fs_duty, now), k.fail_safe_reason
         else:
@@ -245,6 +261,7 @@ class ZoneController:
         # ordinary control: what regulation and droop may learn from
         ordinary = (
             temperature is not None and not fail_safe and not held and not forced and not mode_off
+            and lock is None
         )
         cycling = ordinary and recovering == 0
         tau_scale, cycle_clean = state.tau_scale, state.cycle_clean and cycling

@@ -17,8 +17,8 @@ from dataclasses import fields
 from typing import Any
 
 from .failsafe import Bucket
-from .state import PointState, ZoneState
-from .types import Reason, Reliability, ZoneOutputs
+from .state import CoolingState, DualZoneState, PointState, ZoneState
+from .types import CoolingOutputs, DualZoneOutputs, Reason, Reliability, ZoneOutputs
 
 Setter = Callable[[object, Any], None]
 
@@ -39,9 +39,19 @@ _new = object.__new__
  _S_TEMPERATURE, _S_GOOD_AT, _S_GOOD_SINCE, _S_NORMAL, _S_FAIL_SAFE, _S_FAIL_SAFE_SINCE,
  _S_FAIL_SAFE_DUTY, _S_FAIL_SAFE_REASON, _S_DUTY_BUCKETS, _S_DUTY_CURRENT, _S_POINTS, _S_BACKUP,
  _S_SMOOTHED_C) = slot_setters(ZoneState)
+_STATE_COPY = tuple(
+    (getattr(ZoneState, f.name).__get__, setter)
+    for f, setter in zip(fields(ZoneState), slot_setters(ZoneState), strict=True)
+)
+_S_COOLING = slot_setters(DualZoneState)[-1]
 (_O_DEMAND, _O_REASON, _O_TEMPERATURE, _O_SETPOINT, _O_LEVEL, _O_MODE, _O_ANTICIPATOR_K,
  _O_DROOP_K, _O_RELIABILITY, _O_FAIL_SAFE, _O_FAIL_SAFE_POLICY, _O_FAIL_SAFE_REASON,
  _O_ON_FRACTION_1H, _O_CYCLES_1H) = slot_setters(ZoneOutputs)
+_OUTPUTS_COPY = tuple(
+    (getattr(ZoneOutputs, f.name).__get__, setter)
+    for f, setter in zip(fields(ZoneOutputs), slot_setters(ZoneOutputs), strict=True)
+)
+_O_COOLING = slot_setters(DualZoneOutputs)[-1]
 
 
 # PointState's groups
@@ -135,6 +145,24 @@ def zone_state(  # noqa: PLR0917 - one argument per section of the record
     _S_POINTS(obj, points[0])
     _S_BACKUP(obj, points[1])
     _S_SMOOTHED_C(obj, points[2])
+    return obj
+
+
+def with_cooling(state: ZoneState, cooling: CoolingState) -> DualZoneState:
+    """``state``'s fields and the cooling part, as a :class:`DualZoneState`."""
+    obj = _new(DualZoneState)
+    for get, put in _STATE_COPY:
+        put(obj, get(state))
+    _S_COOLING(obj, cooling)
+    return obj
+
+
+def outputs_with_cooling(outputs: ZoneOutputs, cooling: CoolingOutputs) -> DualZoneOutputs:
+    """``outputs``' fields and the cooling part, as :class:`DualZoneOutputs`."""
+    obj = _new(DualZoneOutputs)
+    for get, put in _OUTPUTS_COPY:
+        put(obj, get(outputs))
+    _O_COOLING(obj, cooling)
     return obj
 
 

@@ -45,6 +45,41 @@ LEVEL_NAMES = ("comfort", "standby", "economy", "protection")
 MODE_NAMES = ("auto", "hold", "off")
 
 
+def cooling_settings(zone: Zone, units: str = "C") -> CoolingSettings | None:
+    """The zone's cooling settings from its model (None: the zone does not cool)."""
+    from roomloop.config.models import ASHRAE_DEAD_BAND
+
+    cooling, tuning = zone.cooling, zone.cooling_effective
+    if cooling is None or tuning is None:
+        return None
+    co = zone.changeover
+    sp = cooling.setpoints
+    minimum = ASHRAE_DEAD_BAND.get(units, ASHRAE_DEAD_BAND["C"])
+    return CoolingSettings(
+        type=cooling.type,
+        differential_k=float(tuning.differential_k),
+        anticipator_gain_k=float(tuning.anticipator_gain_k),
+        anticipator_time_constant_s=float(tuning.anticipator_time_constant_s),
+        cycle_rate_cph=float(tuning.cycle_rate_cph),
+        min_on_s=float(tuning.min_on_s),
+        min_off_s=float(tuning.min_off_s),
+        max_cycles_per_hour=int(tuning.max_cycles_per_hour),
+        droop_compensation=bool(tuning.droop_compensation),
+        droop_time_s=float(tuning.droop_time_s),
+        comfort_c=float(sp.comfort),
+        standby_c=float(sp.standby),
+        economy_c=float(sp.economy),
+        overheat_c=None if sp.overheat is None else float(sp.overheat),
+        heating=zone.output is not None,
+        initial_changeover=zone.changeover_mode,
+        dead_band_k=max(minimum, 0.0 if co.dead_band_k is None else float(co.dead_band_k)),
+        changeover_s=float(co.min_changeover_s),
+        changeover_output=co.output is not None,
+        energised_in_cooling=co.energised_in == "cooling",
+        hold_s=float(co.hold_s),
+    )
+
+
 class SettingsError(RoomloopError, ValueError):
     """Settings the controller cannot run with (an unknown zone, a missing point, a bad value)."""
 
@@ -77,6 +112,104 @@ class PointSettings:
             resolution_k=float(rel.resolution_k),
             recovery_s=float(rel.recovery_s),
         )
+
+
+CHANGEOVER_NAMES = ("heat", "cool", "auto")
+
+
+@dataclass(frozen=True, slots=True)
+class CoolingSettings:
+    """A zone's cooling call and changeover (see :mod:`roomloop.core.stages.cooling`)."""
+
+    type: str = "direct-expansion"
+    differential_k: float = 0.5
+    anticipator_gain_k: float = 1.5
+    anticipator_time_constant_s: float = 865.6
+    cycle_rate_cph: float = 3.0
+    min_on_s: float = 180.0
+    min_off_s: float = 300.0
+    max_cycles_per_hour: int = 4
+    droop_compensation: bool = True
+    droop_time_s: float = 3600.0
+    comfort_c: float = 24.0
+    standby_c: float = 26.0
+    economy_c: float = 28.0
+    overheat_c: float | None = None
+    """Above it the zone cools whatever the mode and level (None: no overheat limit)."""
+    heating: bool = True
+    """The zone also has a heating output (False: it only cools)."""
+    initial_changeover: str = "auto"
+    dead_band_k: float = 3.0
+    """Least gap between the heating and the cooling set point in ``auto`` (ASHRAE 90.1)."""
+    changeover_s: float = 600.0
+    """Least time from the end of one call to the start of the other."""
+    changeover_output: bool = False
+    """A changeover output (reversing valve) is fitted."""
+    energised_in_cooling: bool = True
+    hold_s: float = 60.0
+    """Least time the changeover output sits in its position before a call starts."""
+
+    def __post_init__(self) -> None:
+        problems: list[str] = []
+        for key in ("differential_k", "anticipator_time_constant_s", "droop_time_s",
+                    "cycle_rate_cph"):
+            value = getattr(self, key)
+            if not (math.isfinite(value) and value > 0):
+                problems.append(f"cooling {key} must be a positive number, not {value!r}")
+        for key in ("anticipator_gain_k", "min_on_s", "min_off_s", "changeover_s", "hold_s",
+                    "dead_band_k"):
+            value = getattr(self, key)
+            if not (math.isfinite(value) and value >= 0):
+                problems.append(f"cooling {key} must be zero or positive, not {value!r}")
+        if self.max_cycles_per_hour < 1:
+            problems.append("cooling max_cycles_per_hour must be at least 1")
+        if self.initial_changeover not in CHANGEOVER_NAMES:
+            problems.append(f"changeover {self.initial_changeover!r} is unknown")
+        elif not self.heating and self.initial_changeover != "cool":
+            problems.append("a zone without heating changes over to cool only")
+        if problems:
+            raise SettingsError("; ".join(problems))
+
+    @classmethod
+    def for_cooling_type(
+        cls, cooling_type: str, *, heating: bool = False, changeover: str | None = None,
+        **values: float | bool | str | None,
+    ) -> CoolingSettings:
+        """A cooling call with ``cooling_type``'s preset (time constant derived from its cycle
+        rate), for the simulator and tests; ``values`` override single fields."""
+        from roomloop.config.presets import COOLING_PRESETS, time_constant_for_cycle_rate
+
+        try:
+            preset = COOLING_PRESETS[cooling_type]
+        except KeyError:
+            raise SettingsError(f"unknown cooling type {cooling_type!r}") from None
+        fields: dict[str, float | bool | str | None] = {
+            "type": cooling_type,
+            "differential_k": preset.differential_k,
+            "anticipator_gain_k": preset.anticipator_gain_k,
+            "anticipator_time_constant_s": time_constant_for_cycle_rate(
+                preset.cycle_rate_cph, preset.anticipator_gain_k, preset.differential_k
+            ),
+            "cycle_rate_cph": preset.cycle_rate_cph,
+            "min_on_s": preset.min_on_s,
+            "min_off_s": preset.min_off_s,
+            "max_cycles_per_hour": preset.max_cycles_per_hour,
+            "droop_time_s": preset.droop_time_s,
+            "heating": heating,
+            "initial_changeover": changeover or ("auto" if heating else "cool"),
+        }
+        fields.update(values)
+        return cls(**fields)  # type: ignore[arg-type]
+
+    def setpoint_for(self, level: str) -> float | None:
+        """The configured cooling set point of a level (the overheat limit at protection)."""
+        if level == "comfort":
+            return self.comfort_c
+        if level == "standby":
+            return self.standby_c
+        if level == "economy":
+            return self.economy_c
+        return self.overheat_c
 
 
 @dataclass(frozen=True, slots=True)
@@ -125,6 +258,8 @@ class ZoneSettings:
     initial_mode: str = "auto"
     default_level: str = "comfort"
     tick_s: float = 10.0
+    cooling: CoolingSettings | None = None
+    """The cooling call and changeover; None: a heating-only zone (the heating law alone)."""
 
     def __post_init__(self) -> None:
         problems = [*self._name_problems(), *self._number_problems()]
@@ -190,8 +325,10 @@ class ZoneSettings:
         zone: Zone,
         inputs: Mapping[str, InputPoint],
         backup: InputPoint | None = None,
+        units: str = "C",
     ) -> ZoneSettings:
-        """Build from a zone model and the configs of its input points (and backup point)."""
+        """Build from a zone model and the configs of its input points (and backup point);
+        ``units``: the site's (the ASHRAE dead band is 3 K, or 5 F on a Fahrenheit site)."""
         missing = [name for name in zone.inputs if name not in inputs]
         if missing:
             raise SettingsError(
@@ -241,6 +378,7 @@ class ZoneSettings:
             initial_mode=zone.mode,
             default_level=zone.default_level,
             tick_s=float(zone.tick_s),
+            cooling=cooling_settings(zone, units),
         )
 
     @classmethod
@@ -266,7 +404,7 @@ class ZoneSettings:
             inputs[name] = point
         backup_name = zone.fail_safe.backup_point
         backup = None if backup_name is None else inputs[backup_name]
-        return cls.from_zone(zone, inputs, backup)
+        return cls.from_zone(zone, inputs, backup, site.site.units)
 
     @classmethod
     def for_heating_type(

@@ -88,6 +88,33 @@ class PointState:
 
 
 @dataclass(frozen=True, slots=True)
+class CoolingState:
+    """The cooling call's memory and the changeover (a zone with a cooling call only)."""
+
+    changeover: str
+    """``heat``, ``cool`` or ``auto`` (the configured one at first start, then commands)."""
+    hold_setpoint: float | None
+    """The cooling set point held by a command (used in mode ``hold``)."""
+    side: str
+    """``heat`` or ``cool``: the call the zone is set up for (the changeover output follows)."""
+    valve: bool | None
+    """The changeover output is in the cooling position (None: not set yet, or none fitted)."""
+    valve_at: float | None
+    """When the changeover output was last switched."""
+    relay_on: bool
+    switched_at: float | None
+    switches: tuple[tuple[float, bool], ...]
+    """The cooling call's switchings of the last hour, oldest first."""
+    anticipator_k: float
+    droop_k: float
+    last_setpoint: float | None
+    recovering: int
+    """+1 pulling down to a lowered cooling set point, -1 resting up to a raised one, 0 cycling."""
+    overheat_run: bool
+    """The overheat limit holds the cooling on (until ``overheat - D/2``)."""
+
+
+@dataclass(frozen=True, slots=True)
 class ZoneState:
     """Everything the zone step carries from one tick to the next."""
 
@@ -141,6 +168,12 @@ class ZoneState:
     smoothed_c: float | None = None
     """The zone temperature smoothed for switching (None until the first trusted reading)."""
 
+    @property
+    def cooling(self) -> CoolingState | None:
+        """The cooling call and changeover: None in a heating-only zone (a zone with a cooling
+        call has a :class:`DualZoneState`, whose own field this is)."""
+        return None
+
     # ------------------------------------------------------------------ JSON
 
     def to_json(self) -> str:
@@ -152,6 +185,12 @@ class ZoneState:
                 value = [_point_to_dict(p) for p in value]
             elif f.name == "backup":
                 value = None if value is None else _point_to_dict(value)
+            elif f.name == "cooling":
+                if value is None:
+                    continue
+                value = {
+                    g.name: _tuples_to_lists(getattr(value, g.name)) for g in fields(value)
+                }
             elif isinstance(value, tuple):
                 value = _tuples_to_lists(value)
             data[f.name] = value
@@ -183,11 +222,13 @@ class ZoneState:
         buckets = tuple(_triple(item, "duty_buckets") for item in r.items("duty_buckets"))
         points_raw = r.items("points")
         backup_raw = r.get("backup")
-        known = {f.name for f in fields(cls)} | {"schema", "version"}
+        known = {f.name for f in fields(ZoneState)} | {"schema", "version", "cooling"}
         extra = sorted(set(data) - known)
         if extra:
             raise StateFormatError(f"zone state has unknown keys: {', '.join(extra)}")
-        return cls(
+        cooling = _cooling_from(data.get("cooling"))
+        kind = ZoneState if cooling is None else DualZoneState
+        state = kind(
             mode=r.choice("mode", ("auto", "hold", "off")),
             hold_setpoint=r.opt_celsius("hold_setpoint"),
             hold_level=r.opt_choice("hold_level", _LEVELS),
@@ -220,6 +261,21 @@ class ZoneState:
             backup=None if backup_raw is None else _point_from(backup_raw, "backup"),
             smoothed_c=r.opt_celsius("smoothed_c") if "smoothed_c" in data else None,
         )
+        return state if cooling is None else with_cooling_state(state, cooling)
+
+
+@dataclass(frozen=True, slots=True)
+class DualZoneState(ZoneState):
+    """The state of a zone with a cooling call: :class:`ZoneState` and the cooling part (a
+    subclass, so a heating-only zone's state carries, builds and saves nothing more)."""
+
+    cooling: CoolingState | None = None
+
+
+def with_cooling_state(state: ZoneState, cooling: CoolingState) -> DualZoneState:
+    """``state`` with the cooling part (a :class:`DualZoneState`)."""
+    values = {f.name: getattr(state, f.name) for f in fields(ZoneState)}
+    return DualZoneState(**values, cooling=cooling)
 
 
 _LEVELS = ("comfort", "standby", "economy", "protection")
@@ -246,12 +302,52 @@ def check_for_zone(state: ZoneState, settings: ZoneSettings, now: float | None =
             f"zone state: hold_setpoint {state.hold_setpoint:g} C is outside the zone's "
             f"limits {low:g}..{high:g} C"
         )
+    cooling = state.cooling
+    held = None if cooling is None else cooling.hold_setpoint
+    if held is not None and not low <= held <= high:
+        raise StateFormatError(
+            f"zone state: cooling.hold_setpoint {held:g} C is outside the zone's limits "
+            f"{low:g}..{high:g} C"
+        )
     until = state.hold_until
     if now is not None and until is not None and until > now + MAX_HOLD_AHEAD_S:
         raise StateFormatError(
             f"zone state: hold_until {until:.0f} is more than 366 days after the "
             f"restart at {now:.0f}"
         )
+
+
+def _cooling_from(raw: Any) -> CoolingState | None:
+    if raw is None:
+        return None
+    if not isinstance(raw, dict):
+        raise StateFormatError("zone state: cooling is not an object")
+    extra = sorted(set(raw) - {f.name for f in fields(CoolingState)})
+    if extra:
+        raise StateFormatError(f"zone state: cooling has unknown keys: {', '.join(extra)}")
+    r = _Reader(raw, "cooling")
+    switches = tuple(
+        (_num(item, 0, "cooling.switches"), _bool(item, 1, "cooling.switches"))
+        for item in r.items("switches")
+    )
+    valve = r.get("valve")
+    if valve is not None and not isinstance(valve, bool):
+        raise StateFormatError("zone state: cooling.valve must be true, false or null")
+    return CoolingState(
+        changeover=r.choice("changeover", ("heat", "cool", "auto")),
+        hold_setpoint=r.opt_celsius("hold_setpoint"),
+        side=r.choice("side", ("heat", "cool")),
+        valve=valve,
+        valve_at=r.opt_time("valve_at"),
+        relay_on=r.flag("relay_on"),
+        switched_at=r.opt_time("switched_at"),
+        switches=switches,
+        anticipator_k=r.non_negative("anticipator_k"),
+        droop_k=r.non_negative("droop_k"),
+        last_setpoint=r.opt_celsius("last_setpoint"),
+        recovering=int(r.choice("recovering", (-1, 0, 1))),
+        overheat_run=r.flag("overheat_run"),
+    )
 
 
 def _tuples_to_lists(value: Any) -> Any:

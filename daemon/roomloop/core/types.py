@@ -38,12 +38,17 @@ Reason = Literal[
     "min-on", "min-off", "max-cycles",
     "protection", "mode-off", "no-temperature",
     "fail-safe:off", "fail-safe:fixed-duty", "fail-safe:learned-duty",
+    "changeover", "changeover-time", "overheat",
 ]
 """The rule that decided roomloop's relay this tick (published as the state's ``reason``):
 the band (:data:`BandReason`), the same on the last trusted temperature while readings are
 missing (``last-temperature:``), short-cycle protection holding the relay (``min-on``,
 ``min-off``, ``max-cycles``), ``protection``, ``mode-off``, ``no-temperature`` (never had a
-reading), or fail-safe with its policy."""
+reading), or fail-safe with its policy. A zone with a cooling call adds ``changeover`` (the
+zone is set up for the other call), ``changeover-time`` (the other call ran too recently, or
+the changeover output has not yet been held long enough) and, for cooling, ``overheat``."""
+
+CallName = Literal["heat", "cool"]
 
 BaselineReason = Literal["hold", "anticipator-cut-out", "pulse", "pause"]
 """Further reasons of the simulator's baseline controllers (:mod:`roomloop.plant.baselines`)."""
@@ -80,6 +85,29 @@ class ZoneInputs:
 
 
 @dataclass(frozen=True, slots=True)
+class CoolingOutputs:
+    """The cooling call's decision of one tick and the changeover, as the state shows them."""
+
+    demand: bool
+    """The cooling call (the cooling output's wanted state)."""
+    reason: Reason
+    setpoint: float | None
+    """The cooling set point in force (None: no cooling wanted at this level or mode)."""
+    changeover: str
+    """``heat``, ``cool`` or ``auto``: which calls the zone may make."""
+    side: CallName
+    """The call the zone is set up for now (the changeover output's position)."""
+    call: CallName | None
+    """The active call: ``heat``, ``cool`` or None (both off)."""
+    changeover_output: bool | None
+    """The changeover output's wanted state (energised), None: none fitted or not yet set."""
+    anticipator_k: float
+    droop_k: float
+    on_fraction_1h: float = 0.0
+    cycles_1h: int = 0
+
+
+@dataclass(frozen=True, slots=True)
 class ZoneOutputs:
     """The decision of one tick and everything the published state shows."""
 
@@ -98,6 +126,19 @@ class ZoneOutputs:
     fail_safe_reason: str | None = None
     on_fraction_1h: float = 0.0
     cycles_1h: int = 0
+
+    @property
+    def cooling(self) -> CoolingOutputs | None:
+        """The cooling call and changeover: None in a heating-only zone (a zone with a cooling
+        call has :class:`DualZoneOutputs`, whose own field this is)."""
+        return None
+
+
+@dataclass(frozen=True, slots=True)
+class DualZoneOutputs(ZoneOutputs):
+    """The outputs of a zone with a cooling call: :class:`ZoneOutputs` and the cooling part."""
+
+    cooling: CoolingOutputs | None = None
 
 
 StateT = TypeVar("StateT")

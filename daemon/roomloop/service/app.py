@@ -59,7 +59,7 @@ from roomloop.io.ports import InputSource
 from roomloop.service.commands import Command
 from roomloop.service.description import description_payload
 from roomloop.service.notify import Progress, notify, watchdog_interval_s
-from roomloop.service.outputs import Output, OutputWriter, SafeSink
+from roomloop.service.outputs import OutputWriter, SafeSink, outputs_as_found, zone_outputs
 from roomloop.service.persist import StateStore
 from roomloop.service.persistence import Persistence, restore_states
 from roomloop.service.publisher import StatePublisher, ZoneView, output_agrees, override_of
@@ -127,9 +127,11 @@ class Service:
             interval_s=site.broker.publish_interval_s if site.broker else 60.0,
         )
         self.links, self.mqtt_points, sources, sinks = self._build_io()
-        zone_outputs = [Output(z.name, z.output, z.safe_state == "on") for z in site.zones]
         self.outputs = OutputWriter(
-            self.clock, zone_outputs, sinks, before_write=self._journal_switch
+            self.clock,
+            [output for z in site.zones for output in zone_outputs(z)],
+            sinks,
+            before_write=self._journal_switch,
         )
         self.zones: dict[str, ZoneRuntime] = {}
         """Filled by :meth:`run` from the restored states."""
@@ -246,7 +248,8 @@ class Service:
                 zone, restored.settings, restored.controller, restored.state, self.tz,
                 calendar=self.site.calendar_for(name),
             )
-            self.outputs.hold_as_found(zone.output, restored.state.relay_on)
+            for point, on in outputs_as_found(zone, restored.state):
+                self.outputs.hold_as_found(point, on)
             self.publisher.describe(
                 name,
                 description_payload(
@@ -405,7 +408,8 @@ class Service:
     def _publish_step(self, report: TickReport) -> None:
         """The zone's step as the publisher shows it; wakes the publish task."""
         runtime = self.zones[report.zone]
-        point = runtime.zone.output
+        zone = runtime.zone
+        point = zone.output if zone.output is not None else zone.cooling.output  # type: ignore[union-attr]
         out_state = self.outputs.state(point)
         verdict = None if out_state is None else out_state.verdict
         # whether the read-back agrees with what was written (None: not known, no read-back)

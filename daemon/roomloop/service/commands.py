@@ -40,7 +40,9 @@ from roomloop.units import from_celsius, to_celsius
 
 log = structlog.get_logger("roomloop.service")
 
-FIELDS = ("setpoint", "mode", "level", "hold_until")
+FIELDS = ("setpoint", "mode", "level", "hold_until", "changeover", "cooling_setpoint")
+"""The command fields (``changeover`` and ``cooling_setpoint`` for a zone with a cooling call:
+the core refuses them for any other)."""
 NEXT_CHANGE = "next-change"
 """The word for "until the program's next change" (``until`` and ``hold_until``)."""
 Ends = Literal["next-change", "time", "never"]
@@ -207,10 +209,10 @@ def parse_command(
         if field not in UNTIL_FIELDS:
             raise Refused(f"until goes with {' or '.join(UNTIL_FIELDS)} only")
         until, ends = parse_end(until_raw, tz, program_next, "until")
-    if field == "setpoint":
-        celsius = to_celsius(_number(value, "setpoint"), units)
+    if field in ("setpoint", "cooling_setpoint"):
+        celsius = to_celsius(_number(value, field), units)
         return Command(zone.name, field, celsius, until, ends)
-    if field in ("mode", "level"):
+    if field in ("mode", "level", "changeover"):
         return Command(zone.name, field, value, until, ends)
     at, ends = parse_end(value, tz, program_next, "hold_until")
     return Command(zone.name, field, at, UNSET, ends)
@@ -237,7 +239,7 @@ def _shown_time(posix: float, tz: ZoneInfo) -> Any:
 
 def shown_value(command: Command, *, units: str, tz: ZoneInfo) -> Any:
     """The accepted value as the user sees it: the site's units, local ISO 8601 time."""
-    if command.field == "setpoint":
+    if command.field in ("setpoint", "cooling_setpoint"):
         return round(from_celsius(float(command.value), units), 2)
     if command.field == "hold_until":
         if command.value is None:

@@ -41,11 +41,11 @@ import structlog
 from roomloop.bms.alarm_book import alarm_topic
 from roomloop.clock import Clock, timeout
 from roomloop.config.loader import load_site_with_warnings
-from roomloop.config.models import ModbusOutput, Site
+from roomloop.config.models import HeatSource, ModbusOutput, Site
 from roomloop.core.alarms import ALARM_KINDS
 from roomloop.errors import ConfigError, ConfigProblem
 from roomloop.service.notify import notify
-from roomloop.service.outputs import Output, OutputWriter
+from roomloop.service.outputs import OutputWriter, zone_outputs
 from roomloop.service.publisher import PLAIN_FIELDS, field_topic, state_topic
 from roomloop.service.supervisor import cancel_and_wait
 
@@ -139,11 +139,19 @@ class Handover:
         log.info("service.reloading", site=old.name, removed=removed, added=added)
         notify("RELOADING=1", f"MONOTONIC_USEC={time.monotonic_ns() // 1000}")
         await cancel_and_wait(service.clock.io, control, STOP_TASKS_S)
-        kept_outputs = {z.output for z in self.new.zones}
+        kept_outputs = {o.point for z in self.new.zones for o in zone_outputs(z)}
+        kept_outputs |= {p for source in self.new.heat_sources for p in _source_points(source)}
         to_safe = [
-            Output(z.name, z.output, z.safe_state == "on")
+            output
             for z in old.zones
-            if z.name in removed and z.output not in kept_outputs
+            if z.name in removed
+            for output in zone_outputs(z)
+            if output.point not in kept_outputs
+        ]
+        to_safe += [  # a heat source the new file dropped: its relays off
+            output
+            for output in service.sources.writer_outputs()
+            if output.point not in kept_outputs
         ]
         if to_safe:  # the links are still open here
             await OutputWriter(service.clock, to_safe, service.outputs.sinks).stop_safe()
@@ -173,6 +181,10 @@ def _unchanged_outputs(old: Site, new: Site, commanded: Mapping[str, bool]) -> d
             continue
         kept[point_name] = on
     return kept
+
+
+def _source_points(source: HeatSource) -> list[str]:
+    return [p for p in (source.output, source.pump_output) if p is not None]
 
 
 def _link(site: Site, name: str) -> Any:
