@@ -140,7 +140,8 @@ async def recorder(host: str, port: int) -> AsyncIterator[list[Seen]]:
 
 
 def scenario_site(modbus_port: int, broker_port: int) -> dict[str, Any]:
-    """room0 on a program with optimum start; room1's sensor is an MQTT topic nobody feeds."""
+    """room0 on a program with optimum start; room1, a heat-pump zone (heating, cooling and
+    changeover outputs), has an MQTT sensor nobody feeds."""
     data = site_yaml(modbus_port=modbus_port, broker_port=broker_port, zones=2)
     room0 = data["zones"][0]
     room0["program"] = [
@@ -152,6 +153,15 @@ def scenario_site(modbus_port: int, broker_port: int) -> dict[str, Any]:
         if point["name"] == "t1":
             point.clear()
             point.update(name="t1", type="mqtt-input", topic="test-devices/room1/temperature")
+    data["points"] += [
+        {"name": "cool1", "type": "modbus-output", "link": "rooms", "address": 10},
+        {"name": "valve1", "type": "modbus-output", "link": "rooms", "address": 11},
+    ]
+    data["zones"][1].update(
+        heating="forced-air",
+        cooling={"output": "cool1", "setpoints": {"comfort": 24, "standby": 25, "economy": 26}},
+        changeover={"mode": "auto", "output": "valve1"},
+    )
     return data
 
 
@@ -179,6 +189,11 @@ async def run_scenario(
         ]:
             n = len(w.results)
             await w.command("room0", field_name, payload)
+            await w.answer(n)
+            await clock.sleep(20)
+        for field_name, payload in [("changeover", "cool"), ("cooling_setpoint", "25")]:
+            n = len(w.results)
+            await w.command("room1", field_name, payload)
             await w.answer(n)
             await clock.sleep(20)
         # room1's sensor never speaks: its fail-safe and sensor alarm come in time.
@@ -231,7 +246,7 @@ async def test_docs_topics_match_what_the_service_publishes(
     seen, results = await run_scenario(tmp_path, mosquitto, modbus_tcp_server)
     assert [(r["field"], r["ok"]) for r in results] == [
         ("level", True), ("setpoint", True), ("hold_until", True), ("setpoint", False),
-        ("mode", True), ("ack", True),
+        ("mode", True), ("changeover", True), ("cooling_setpoint", True), ("ack", True),
     ], results
     seen += builder_samples()
 

@@ -12,7 +12,7 @@ from typing import Any
 
 from roomloop.config.models import Zone
 from roomloop.core.alarms import ALARM_KINDS
-from roomloop.core.commands import MAX_HOLD_S
+from roomloop.core.commands import COOLING_FIELDS, MAX_HOLD_S
 from roomloop.core.settings import LEVEL_NAMES, MODE_NAMES, ZoneSettings
 from roomloop.service.commands import FIELDS
 from roomloop.units import delta_from_kelvin, from_celsius
@@ -33,7 +33,8 @@ def description_payload(
 ) -> dict[str, Any]:
     """The retained description JSON of one zone."""
     low, high = settings.limit_min_c, settings.limit_max_c
-    return {
+    commands = [f for f in FIELDS if f not in COOLING_FIELDS or settings.cooling is not None]
+    payload: dict[str, Any] = {
         "zone": zone.name,
         "units": units,
         "heating": zone.heating,
@@ -46,7 +47,7 @@ def description_payload(
         "differential": _delta(settings.differential_k, units),
         "levels": list(LEVEL_NAMES),
         "modes": list(MODE_NAMES),
-        "commands": [*FIELDS, ACK],
+        "commands": [*commands, ACK],
         "max_hold_s": MAX_HOLD_S,
         "program": [
             {"days": list(entry.days), "at": entry.at, "level": entry.level}
@@ -64,3 +65,25 @@ def description_payload(
         "tick_s": zone.tick_s,
         "publish_interval_s": publish_interval_s,
     }
+    cooling = settings.cooling
+    if cooling is not None and zone.cooling is not None:
+        payload["cooling"] = {
+            "type": cooling.type,
+            "output": zone.cooling.output,
+            # each level's cooling set point as the controller uses it (clamped to the limits)
+            "setpoints": {
+                level: _abs(min(max(value, low), high), units)
+                for level, value in (
+                    ("comfort", cooling.comfort_c),
+                    ("standby", cooling.standby_c),
+                    ("economy", cooling.economy_c),
+                )
+            },
+            "overheat": None if cooling.overheat_c is None else _abs(cooling.overheat_c, units),
+            "differential": _delta(cooling.differential_k, units),
+            "changeover": cooling.initial_changeover,
+            "changeovers": ["heat", "cool", "auto"] if cooling.heating else ["cool"],
+            "dead_band": _delta(cooling.dead_band_k, units),
+            "changeover_output": zone.changeover.output,
+        }
+    return payload
