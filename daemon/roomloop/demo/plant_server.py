@@ -17,6 +17,12 @@ reports a dead device behind it: every request gets Modbus exception 11
 Every step is recorded (:class:`PlantTrace`): the true room-air temperature
 (the figures are computed from it, never from the sensor), the sensor value and
 the relay state held over the step.
+
+A zone served by a heat source gets heat only while its relay (its valve) is on
+*and* the source's enable coil is on: :meth:`PlantServer.gate` names that coil,
+on this server or on another one in the same process (a source on another
+daemon). :meth:`PlantServer.watch` records any other coil step by step (a
+source's enable and pump outputs) in :attr:`PlantServer.watched`.
 """
 
 from __future__ import annotations
@@ -55,6 +61,20 @@ class PlantTrace:
     room_c: list[float] = field(default_factory=list)
     sensor_c: list[float] = field(default_factory=list)
     relay: list[bool] = field(default_factory=list)
+    heat: list[bool] = field(default_factory=list)
+    """Heat delivered over the step: the relay, and the serving source's enable if gated."""
+
+
+@dataclass(frozen=True, slots=True)
+class CoilRef:
+    """One coil of a plant server: a source's enable or pump output."""
+
+    server: PlantServer
+    unit_id: int
+    address: int
+
+    async def read(self) -> bool:
+        return await self.server.coil(self.unit_id, self.address)
 
 
 @dataclass
@@ -133,6 +153,11 @@ class PlantServer:
             {z.sensor.unit_id for z in self.zones} | {z.relay.unit_id for z in self.zones}
         )
         self.silent_units: set[int] = set()
+        self.gates: dict[str, CoilRef] = {}
+        """Zone -> the coil of the source that must be on for the zone to get heat."""
+        self.watching: dict[str, CoilRef] = {}
+        self.watched: dict[str, list[bool]] = {}
+        """Each watched coil's state per recorded step (aligned with the traces)."""
         self.started_at: float | None = None
         """Simulated time of the first step (POSIX seconds); traces count from it."""
         self._time = 0.0
@@ -215,6 +240,20 @@ class PlantServer:
 
     # ------------------------------------------------------------------ plants
 
+    async def coil(self, unit_id: int, address: int) -> bool:
+        """A coil's state as the server holds it now."""
+        return bool((await self._get(unit_id, FC_COILS, address, 1))[0])
+
+    def gate(self, zone: str, server: PlantServer, unit_id: int, address: int) -> None:
+        """From now on ``zone`` gets heat only while that coil (its source's enable) is on."""
+        self.zone(zone)  # a KeyError for a zone this server does not simulate
+        self.gates[zone] = CoilRef(server, unit_id, address)
+
+    def watch(self, name: str, unit_id: int, address: int) -> None:
+        """Record this server's coil ``unit_id``/``address`` per step as ``watched[name]``."""
+        self.watching[name] = CoilRef(self, unit_id, address)
+        self.watched[name] = []
+
     async def relays(self) -> dict[str, bool]:
         """Each zone's coil as the server holds it now (what the plant heats with)."""
         out: dict[str, bool] = {}
@@ -234,17 +273,23 @@ class PlantServer:
         if now < self._time + STEP_S:
             return
         relays = await self.relays()
+        gates = {zone: await ref.read() for zone, ref in self.gates.items()}
+        watched = {name: await ref.read() for name, ref in self.watching.items()}
         assert self.started_at is not None
         while self._time + STEP_S <= now:
             for z in self.zones:
                 on = relays[z.name]
+                heat = on and gates.get(z.name, True)
                 trace = z.trace
                 trace.time_s.append(self._time - self.started_at)
                 trace.room_c.append(z.plant.room_c)
                 trace.sensor_c.append(z.sensor_c)
                 trace.relay.append(on)
-                z.plant.advance(STEP_S, on)
+                trace.heat.append(heat)
+                z.plant.advance(STEP_S, heat)
                 z.sensor_c = z.plant.read_sensor()
+            for name, state in watched.items():
+                self.watched[name].append(state)
             self._time += STEP_S
         await self._publish_sensors()
 
