@@ -152,6 +152,7 @@ class PlantServer:
         self.units = sorted(
             {z.sensor.unit_id for z in self.zones} | {z.relay.unit_id for z in self.zones}
         )
+        self._relay_units = sorted({z.relay.unit_id for z in self.zones})
         self.silent_units: set[int] = set()
         self.gates: dict[str, CoilRef] = {}
         """Zone -> the coil of the source that must be on for the zone to get heat."""
@@ -256,11 +257,11 @@ class PlantServer:
 
     async def relays(self) -> dict[str, bool]:
         """Each zone's coil as the server holds it now (what the plant heats with)."""
-        out: dict[str, bool] = {}
-        for z in self.zones:
-            bits = await self._get(z.relay.unit_id, FC_COILS, z.relay.address, 1)
-            out[z.name] = bool(bits[0]) == (z.relay.on_value == 1)
-        return out
+        coils = {u: await self._get(u, FC_COILS, 0, COILS_PER_UNIT) for u in self._relay_units}
+        return {
+            z.name: bool(coils[z.relay.unit_id][z.relay.address]) == (z.relay.on_value == 1)
+            for z in self.zones
+        }
 
     async def _publish_sensors(self) -> None:
         for z in self.zones:
@@ -273,8 +274,11 @@ class PlantServer:
         if now < self._time + STEP_S:
             return
         relays = await self.relays()
-        gates = {zone: await ref.read() for zone, ref in self.gates.items()}
-        watched = {name: await ref.read() for name, ref in self.watching.items()}
+        coils: dict[CoilRef, bool] = {}
+        for ref in {*self.gates.values(), *self.watching.values()}:
+            coils[ref] = await ref.read()
+        gates = {zone: coils[ref] for zone, ref in self.gates.items()}
+        watched = {name: coils[ref] for name, ref in self.watching.items()}
         assert self.started_at is not None
         while self._time + STEP_S <= now:
             for z in self.zones:
