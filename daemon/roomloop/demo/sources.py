@@ -39,6 +39,12 @@ def _minutes(seconds: float) -> str:
     return f"{seconds / 60:.1f} min"
 
 
+def _span(values: list[float]) -> str:
+    """``3.2 min`` when every value shows the same, else ``3.2 to 5.0 min``."""
+    low, high = _minutes(min(values)), _minutes(max(values))
+    return low if low == high else f"{low.removesuffix(' min')} to {high}"
+
+
 @dataclass
 class SourceRecord:
     """One heat source of the demo site, as its coils and its zones' decisions went."""
@@ -164,15 +170,14 @@ class SourceRecord:
         )
         if self.waits:
             text += (
-                f"; a call waited {_minutes(min(self.waits))} to {_minutes(max(self.waits))} "
-                f"for it (valve opening time {timing.valve_opening_s:g} s, minimum off time "
+                f";\n  each start came {_span(self.waits)} after the first valve opened (valve "
+                f"opening time {timing.valve_opening_s:g} s, minimum off time "
                 f"{timing.min_off_s:g} s)"
             )
         if self.overruns:
             text += (
-                f"; its pump ran on {_minutes(min(self.overruns))} to "
-                f"{_minutes(max(self.overruns))} after each of {len(self.overruns)} stops "
-                f"(overrun {timing.pump_overrun_s:g} s)"
+                f"; its pump ran on {_span(self.overruns)} after each of its "
+                f"{len(self.overruns)} stops (overrun {timing.pump_overrun_s:g} s)"
             )
         return text
 
