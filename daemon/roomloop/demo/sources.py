@@ -143,9 +143,11 @@ class SourceRecord:
     # ------------------------------------------------------------------ showing
 
     def row(self, outputs: SourceOutputs | None, now: float, tz: ZoneInfo) -> str:
-        """The source's live line: the coils, and the source's reason when told."""
-        state = "FIRING" if self.enable else "off"
-        head = f"{self.name:<14}{state:<7}pump {'ON ' if self.pump else 'off'}"
+        """The source's live line: its decision and reason when told, else its coils."""
+        enable, pump = (self.enable, self.pump) if outputs is None else (
+            outputs.enable, outputs.pump
+        )
+        head = f"{self.name:<14}{'FIRING' if enable else 'off':<7}pump {'ON ' if pump else 'off'}"
         calling = [z for z, on in self.calling.items() if on]
         if outputs is None:
             tail = f"calling: {', '.join(calling)}" if calling else "no zone calls"
@@ -159,7 +161,7 @@ class SourceRecord:
             overrun = self.config.effective.pump_overrun_s
             parts.append(f"pump overrun until {_clock(self._stopped_at + overrun, tz)}")
         parts.append(f"calling: {', '.join(outputs.calling) or 'none'}")
-        parts.append(f"{outputs.starts_1h} starts in the last hour")
+        parts.append(f"starts in the last hour: {outputs.starts_1h}")
         return f"{head}  " + "; ".join(parts)
 
     def summary(self, hours: float) -> str:
