@@ -100,3 +100,34 @@ def test_the_docs_table_shows_the_defaults_of_the_code() -> None:
 def test_no_heat_sources_is_fine() -> None:
     site = load_site(REPO / "config" / "minimal.yaml")
     assert site.heat_sources == []
+
+
+PLANT_ROOM = """\
+site: {name: plant-room}
+links: [{name: io, type: modbus-tcp, host: 127.0.0.1}]
+broker: {host: 127.0.0.1}
+points:
+  - {name: burner, type: modbus-output, link: io, address: 0}
+heat_sources:
+  - {name: boiler, kind: boiler, output: burner, zones: [east/office]}
+"""
+
+
+@pytest.mark.parametrize("zones", ["", "zones: []\n"])
+def test_a_site_with_a_source_needs_no_zones_of_its_own(tmp_path: Path, zones: str) -> None:
+    path = tmp_path / "plant-room.yaml"
+    path.write_text(PLANT_ROOM + zones)
+    site = load_site(path)
+    assert site.zones == [] and [s.name for s in site.heat_sources] == ["boiler"]
+
+
+@pytest.mark.parametrize("zones", ["zones: []\n", "zones:\n"])
+def test_a_site_without_zones_or_sources_is_refused(
+    tmp_path: Path, zones: str, capsys: pytest.CaptureFixture[str]
+) -> None:
+    path = tmp_path / "empty.yaml"
+    path.write_text(PLANT_ROOM.split("heat_sources:", maxsplit=1)[0] + zones)
+    assert main(["check", "-c", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert re.search(rf"{re.escape(str(path))}:\d+: zones: list at least one zone", err), err
+    assert "heat source" in err

@@ -66,3 +66,22 @@ def test_remote_site_offline_by_its_will_is_reported() -> None:
     assert out.stale == ("north/hall",) and out.calling == ()  # policy ignore
     payload = json.loads(runtime.due(T0 + 10)[0][1])
     assert payload["stale"] == ["north/hall"] and payload["stale_policy"] == "ignore"
+
+
+def test_a_restart_goes_on_from_the_outputs_as_found() -> None:
+    settings = SourceSettings(name="boiler", zones=("office",), valve_opening_s=60,
+                              min_on_s=120, min_off_s=300, pump_overrun_s=30)
+    # found firing: it goes on firing (no stop, no new start), its minimum on time counts
+    runtime = SourceRuntime(settings, prefix="roomloop/here", now=T0)
+    runtime.resume(True, True, T0)
+    out = runtime.tick({"office": (True, "cut-in")}, T0 + 1)
+    assert (out.enable, out.pump, out.reason, out.starts_1h) == (True, True, "firing", 1)
+    out = runtime.tick({"office": (False, "cut-out")}, T0 + 10)
+    assert (out.enable, out.lockout) == (True, "min-on")
+    # found off (or not known): start-up counts as a stop, the minimum off time holds
+    for found in (False, None):
+        runtime = SourceRuntime(settings, prefix="roomloop/here", now=T0)
+        runtime.resume(found, found, T0)
+        runtime.tick({"office": (True, "cut-in")}, T0 + 1)
+        out = runtime.tick({"office": (True, "cut-in")}, T0 + 100)
+        assert (out.enable, out.lockout) == (False, "min-off")

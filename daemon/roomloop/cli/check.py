@@ -101,6 +101,8 @@ def print_site(site: Site, out: TextIO) -> None:
         w(f"  {point.name}: {_point_text(point, units)}\n")
 
     w("\nzones\n")
+    if not site.zones:
+        w("  (none: the heat sources serve zones of other sites)\n")
     for zone in site.zones:
         _zone(zone, units, w)
 

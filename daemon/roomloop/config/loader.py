@@ -903,9 +903,16 @@ def _section_names(data: Mapping[str, Any], file: str, lines: LineMap) -> list[C
             )
         )
     for key in _REQUIRED:
-        if key not in data:
+        if key not in data and not (key == "zones" and _has_sources(data)):
             found.append(ConfigProblem(file, 1, key, f"missing: the '{key}' section is required"))
     return found
+
+
+def _has_sources(data: Mapping[str, Any]) -> bool:
+    """The site lists heat sources: it may have no zones of its own (a boiler's board whose
+    zones all live on other daemons)."""
+    sources = data.get("heat_sources")
+    return isinstance(sources, list) and len(sources) > 0
 
 
 def _list_section(
@@ -914,16 +921,20 @@ def _list_section(
     """The items of a list section (None when there are none to validate) and its problems."""
     items = data.get(section)
     where = lines.line((section,))
+    no_zones = [ConfigProblem(file, where, section, _NO_ZONES)]
     if items is None:
-        if section == "zones" and section in data:
-            return None, [ConfigProblem(file, where, section, "list at least one zone")]
+        if section == "zones" and section in data and not _has_sources(data):
+            return None, no_zones
         return None, []
     if not isinstance(items, list):
         message = f"must be a list (one '- ' item per entry), got {_show(items)}"
         return None, [ConfigProblem(file, where, section, message)]
-    if section == "zones" and not items:
-        return items, [ConfigProblem(file, where, section, "list at least one zone")]
+    if section == "zones" and not items and not _has_sources(data):
+        return items, no_zones
     return items, []
+
+
+_NO_ZONES = "list at least one zone (a site without zones needs a heat source serving remote ones)"
 
 
 def _locate(finding: Finding, file: str, lines: LineMap, document: Any = None) -> ConfigProblem:

@@ -1272,7 +1272,8 @@ class Site(Strict):
     links: list[Link] = []
     broker: Broker | None = None
     points: list[Point] = []
-    zones: Annotated[list[Zone], Field(min_length=1)]
+    zones: list[Zone] = []
+    """At least one, unless the site has heat sources (whose zones may all be remote)."""
     calendar: list[CalendarEntry] = []
     """Holidays and one-off events: date ranges whose level replaces the weekly program."""
     heat_sources: list[HeatSource] = []
@@ -1281,6 +1282,12 @@ class Site(Strict):
     bms: Bms | None = None
     alarms: Alarms = Alarms()
     history: History = History()
+
+    @model_validator(mode="after")
+    def _something_to_control(self) -> Site:
+        if not self.zones and not self.heat_sources:
+            raise ValueError("list at least one zone (or a heat source serving remote zones)")
+        return self
 
     @property
     def name(self) -> str:

@@ -214,6 +214,23 @@ class SourceLogic:
         """At start-up the source may have just run: minimum off time and pump overrun apply."""
         return SourceState(stopped_at=now, pump_off_since=now)
 
+    def resume(self, enable_on: bool | None, pump_on: bool | None, now: float) -> SourceState:
+        """At a restart, from the outputs as found on the device (None: not known).
+
+        A source found firing goes on from here (its run counts as a start now, so its
+        minimum on time and the starts per hour still hold): stopping it only to start it
+        again after the minimum off time would be a cycle the restart made. A pump found
+        running is running since now. Otherwise as :meth:`initial_state`.
+        """
+        state = self.initial_state(now)
+        if enable_on:
+            state = replace(
+                state, running=True, running_since=now, stopped_at=None, starts=(now,)
+            )
+        if pump_on and self.settings.has_pump:
+            state = replace(state, pump=True, pump_since=now, pump_off_since=None)
+        return state
+
     # ------------------------------------------------------------------ the step
 
     def step(

@@ -4,7 +4,8 @@
 :class:`~roomloop.core.source_topics.RemoteBook`), its step's state, and which retained
 state message is due. The service owns the broker and the outputs and calls, per source:
 
-- at start: subscribe to :attr:`SourceRuntime.subscriptions` (and again after each
+- at start: :meth:`SourceRuntime.resume` from the outputs as found on the device;
+  subscribe to :attr:`SourceRuntime.subscriptions` (and again after each
   reconnection, then :meth:`SourceRuntime.reconnected`);
 - for every message on those topics: :meth:`SourceRuntime.heard`;
 - every tick, after the zones' steps: :meth:`SourceRuntime.tick` with each local served
@@ -48,6 +49,7 @@ class SourceRuntime:
         self.settings = settings
         self.logic = SourceLogic(settings)
         self.state = self.logic.initial_state(now)
+        """The step's state; :meth:`resume` replaces it at a restart."""
         self.topics = RemoteTopics.for_zones(settings.zones, remote_prefixes)
         self.book = RemoteBook()
         self.topic = source_state_topic(prefix, settings.name)
@@ -56,6 +58,11 @@ class SourceRuntime:
         self.outputs: SourceOutputs | None = None
         self._at = now
         self._last_sent: tuple[str, float] | None = None
+
+    def resume(self, enable_on: bool | None, pump_on: bool | None, now: float) -> None:
+        """Before the first tick: go on from the outputs as found on the device (None: not
+        known), so a restart neither stops a firing source nor counts a start of its own."""
+        self.state = self.logic.resume(enable_on, pump_on, now)
 
     @property
     def subscriptions(self) -> tuple[str, ...]:

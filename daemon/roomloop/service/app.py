@@ -6,6 +6,8 @@ The parts, one job each, meet through small protocols:
   polls each and re-asserts the outputs the writer commanded) and the MQTT points;
 * :class:`~roomloop.service.zones.ZoneRunner`: each zone's loop (``zone:<name>``),
   the one way in for commands, and the per-step hooks;
+* :class:`~roomloop.service.sources.SourceRunner`: each heat source's loop
+  (``source:<name>``) on its local zones' steps and its remote zones' messages;
 * :class:`~roomloop.service.outputs.OutputWriter` (``outputs``): the one owner of
   each output's wanted state; writes it, holds the safe state, does the safe stop;
 * :class:`~roomloop.service.session.BrokerSession` (``broker``, ``publish``,
@@ -62,6 +64,7 @@ from roomloop.service.persistence import Persistence, restore_states
 from roomloop.service.publisher import StatePublisher, ZoneView
 from roomloop.service.restart import read_output_states
 from roomloop.service.session import BrokerSession
+from roomloop.service.sources import SOURCE_TICK_S, SourceRunner, owner
 from roomloop.service.supervisor import Supervisor, cancel_and_wait, watchdog_loop
 from roomloop.service.zones import OnTick, TickReport, ZoneRunner, ZoneRuntime
 
@@ -115,17 +118,26 @@ class Service:
             interval_s=site.broker.publish_interval_s if site.broker else 60.0,
         )
         self.links, self.mqtt_points, sources, sinks = self._build_io()
+        zone_outputs = [Output(z.name, z.output, z.safe_state == "on") for z in site.zones]
         self.outputs = OutputWriter(
-            self.clock,
-            [Output(z.name, z.output, z.safe_state == "on") for z in site.zones],
-            sinks,
-            before_write=self._journal_switch,
+            self.clock, zone_outputs, sinks, before_write=self._journal_switch
         )
         self.zones: dict[str, ZoneRuntime] = {}
         """Filled by :meth:`run` from the restored states."""
         self.runner = ZoneRunner(
             self.clock, self.zones, sources, self.outputs, self.progress, units=self.units
         )
+        self.sources = SourceRunner(
+            site,
+            self.clock,
+            self.outputs,
+            self.progress,
+            tz=self.tz,
+            publish_interval_s=self.publisher.interval_s,
+            inputs_ready=self.runner.inputs_ready,
+        )
+        """The heat sources (``heat_sources``), each on its own loop."""
+        self.outputs.add(self.sources.writer_outputs())
         outdoor = site.site.outdoor_point
         if outdoor is not None:
             point = site.point(outdoor)  # an input: the config checks refuse anything else
@@ -154,9 +166,12 @@ class Service:
                 refusals=(CommandRejected,),
                 alarms=self.alarms,
                 durability=lambda: self.store.status,
+                sources=self.sources if self.sources.sources else None,
             )
+            self.sources.on_change = self.session.wake
         # After each step: the published view, persistence, then the embedder's hook.
         self.runner.subscribe(self._publish_step)
+        self.runner.subscribe(self.sources.note_zone)
         self.runner.subscribe(lambda r: self.persistence.note(r.zone, r.state))
         self.history = HistoryRecorder.for_site(
             site, state_dir if state_dir is not None else site.site.state_dir
@@ -216,6 +231,8 @@ class Service:
             )
             self.outputs.hold_as_found(zone.output, restored.state.relay_on)
             self.persistence.saved_as(name, restored.state)
+        for point, on in self.sources.resume(relays, self.clock.now()).items():
+            self.outputs.hold_as_found(point, on)
 
     async def _journal_switch(self, zone: str, point: str, on: bool) -> None:
         runtime = self.zones.get(zone)
@@ -235,6 +252,9 @@ class Service:
             self.progress.register(f"zone:{runtime.name}", self._allowed_gap(runtime))
             loop = functools.partial(self.runner.run_zone, runtime)
             start(f"zone:{runtime.name}", loop, True)
+        for name in self.sources.sources:
+            self.progress.register(owner(name), self._source_gap())
+            start(owner(name), functools.partial(self.sources.run_source, name), True)
         start("persist", self.persistence.run, False)
         interval = watchdog_interval_s()
         if interval is not None:
@@ -268,6 +288,7 @@ class Service:
             "service.starting",
             site=self.site.name,
             zones=len(self.site.zones),
+            heat_sources=len(self.site.heat_sources),
             links=len(self.links),
             broker=None
             if self.site.broker is None
@@ -334,10 +355,16 @@ class Service:
     def _task_failed(self, task: str) -> None:
         if task.startswith("zone:"):
             self.runner.zone_failed(task[len("zone:") :])
+        elif task.startswith("source:"):
+            self.sources.failed(task[len("source:") :])
 
     def _allowed_gap(self, runtime: ZoneRuntime) -> float:
         """Clock seconds a zone loop may go without progress before the watchdog starves."""
         return runtime.zone.tick_s + self.ready_wait_s + self.watchdog_grace_s
+
+    def _source_gap(self) -> float:
+        """Clock seconds a source loop may go without progress before the watchdog starves."""
+        return SOURCE_TICK_S + self.ready_wait_s + self.watchdog_grace_s
 
     def _publish_step(self, report: TickReport) -> None:
         """The zone's step as the publisher shows it; wakes the publish task."""
@@ -394,5 +421,7 @@ class Service:
         self.runner.inputs_ready.set()
         down = [name for name, link in self.links.items() if not link.up]
         self.ready.set()
-        notify("READY=1", f"STATUS=controlling {len(self.zones)} zone(s)")
-        log.info("service.ready", zones=len(self.zones), links_down=down)
+        sources = len(self.sources.sources)
+        status = f"STATUS=controlling {len(self.zones)} zone(s)"
+        notify("READY=1", status + (f", {sources} heat source(s)" if sources else ""))
+        log.info("service.ready", zones=len(self.zones), sources=sources, links_down=down)

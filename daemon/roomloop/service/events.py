@@ -6,6 +6,9 @@ unreliable and recovering, a frost-protection run starting and ending, a hold th
 expired, the program switching the level. Each is logged once, when it happens;
 the rest of the picture is in the published state.
 
+A heat source's events (:func:`source_events`): started, stopped, held by its
+short-cycle protection (lockout), a remote zone gone stale or heard again.
+
 Pure: :func:`zone_events` compares the state a step started from with the one it
 produced (and the outputs before and after); the service logs what it returns.
 """
@@ -16,6 +19,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
+from roomloop.core.source import SourceOutputs
 from roomloop.core.state import ZoneState
 from roomloop.core.types import ZoneOutputs
 
@@ -123,4 +127,66 @@ def _point_events(
                     {"zone": zone, "point": point, "reliability": now_verdict, "was": was},
                 )
             )
+    return events
+
+
+def source_events(
+    source: str, *, previous: SourceOutputs | None, outputs: SourceOutputs
+) -> list[ZoneEvent]:
+    """The events of one heat source's tick: it started or stopped, short-cycle protection
+    began to hold it (``lockout``), a remote zone went stale or was heard again.
+
+    ``previous`` is the tick before (``None`` for the first since start: then the source's
+    state at start is logged once as ``source.resumed``, and remote zones not heard yet are
+    not reported stale: the broker's retained messages are still on their way).
+    """
+    if previous is None:
+        return [
+            ZoneEvent(
+                "source.resumed",
+                "info",
+                {"source": source, "running": outputs.enable, "pump": outputs.pump,
+                 "reason": outputs.reason, "stale": list(outputs.stale)},
+            )
+        ]
+    events: list[ZoneEvent] = []
+    if outputs.enable and not previous.enable:
+        events.append(
+            ZoneEvent(
+                "source.started",
+                "info",
+                {"source": source, "calling": list(outputs.calling),
+                 "starts_1h": outputs.starts_1h, "protection": outputs.protection},
+            )
+        )
+    elif previous.enable and not outputs.enable:
+        events.append(
+            ZoneEvent(
+                "source.stopped", "info", {"source": source, "pump": outputs.pump_reason}
+            )
+        )
+    if outputs.lockout is not None and outputs.lockout != previous.lockout:
+        events.append(
+            ZoneEvent(
+                "source.lockout",
+                # most starts per hour reached: the site cycles its source too often
+                "warning" if outputs.lockout == "max-starts" else "info",
+                {"source": source, "lockout": outputs.lockout, "until": outputs.lockout_until,
+                 "calling": list(outputs.calling)},
+            )
+        )
+    went_stale = [z for z in outputs.stale if z not in previous.stale]
+    heard_again = [z for z in previous.stale if z not in outputs.stale]
+    if went_stale:
+        events.append(
+            ZoneEvent(
+                "source.remote_stale",
+                "warning",
+                {"source": source, "zones": went_stale, "policy": outputs.stale_policy},
+            )
+        )
+    if heard_again:
+        events.append(
+            ZoneEvent("source.remote_fresh", "info", {"source": source, "zones": heard_again})
+        )
     return events

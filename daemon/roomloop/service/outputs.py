@@ -1,9 +1,10 @@
 """The output writer: the one owner of each output's wanted state, and the safe stop.
 
-A zone tells the writer what it wants (:meth:`OutputWriter.want`); the writer writes
-each output when its wanted state differs from what it last wrote, every write in its
-own task, so a slow device holds up only its own outputs (and, through the link's
-lock, the others on its link), never another zone's. Until a zone's first decision,
+A zone (or a heat source, for its enable and pump outputs) tells the writer what it
+wants (:meth:`OutputWriter.want`); the writer writes each output when its wanted state
+differs from what it last wrote, every write in its own task, so a slow device holds
+up only its own outputs (and, through the link's lock, the others on its link), never
+another zone's. Until a zone's first decision,
 and again after its loop failed, its output is held at the zone's safe state. A write
 that fails is not retried here: on its poll a link re-asserts what the writer
 commanded (:meth:`OutputWriter.commanded`) where the last write failed or
@@ -61,9 +62,10 @@ class SafeSink(Protocol):
 
 @dataclass(frozen=True, slots=True)
 class Output:
-    """One zone's output point and its safe state."""
+    """One output point, who switches it and its safe state."""
 
     zone: str
+    """The zone that switches it, or ``source:<name>`` for a heat source's enable or pump."""
     point: str
     safe_on: bool
 
@@ -91,6 +93,13 @@ class OutputWriter:
         self.written: dict[str, bool] = {}
         """What was last handed to each output's sink."""
         self._wake = asyncio.Event()
+
+    def add(self, outputs: Sequence[Output]) -> None:
+        """More outputs to own (the heat sources'), before :meth:`run` starts."""
+        for output in outputs:
+            self.outputs[output.point] = output
+            self.wanted[output.point] = output.safe_on
+            self.decided[output.point] = False
 
     def want(self, point: str, on: bool) -> None:
         """A zone's decision for its output (cheap when unchanged)."""

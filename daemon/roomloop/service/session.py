@@ -3,16 +3,16 @@
 One :class:`BrokerSession` per service with a broker. Its tasks (``broker``,
 ``publish``, ``mqtt-points``) never hold up control: a zone only hands its decision
 to the publisher and wakes it (:meth:`BrokerSession.wake`). On every (re)connect it
-subscribes to the commands and the MQTT points, says ``online`` and sends every
-retained message again; at stop, :meth:`announce_offline` sends what is due and
-``offline``.
+subscribes to the commands, the MQTT points and the heat sources' remote zones, says
+``online`` and sends every retained message again; at stop, :meth:`announce_offline`
+sends what is due and ``offline``.
 """
 
 from __future__ import annotations
 
 import asyncio
 from collections.abc import Callable
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Protocol
 from zoneinfo import ZoneInfo
 
 import aiomqtt
@@ -27,6 +27,23 @@ from roomloop.service.publisher import OFFLINE, ONLINE, Message, StatePublisher,
 
 if TYPE_CHECKING:
     from roomloop.bms.alarm_book import AlarmBook
+
+
+
+class HeardTopics(Protocol):
+    """More topics the session subscribes to, and retained messages it publishes for them
+    (the heat sources: :class:`~roomloop.service.sources.SourceRunner`)."""
+
+    def topics(self) -> list[str]: ...
+
+    def handle(self, topic: str, payload: bytes | bytearray | str, now: float) -> bool: ...
+
+    def forget_sent(self) -> None: ...
+
+    def due(self, now: float) -> list[Message]: ...
+
+    def sent(self, message: Message, now: float) -> None: ...
+
 
 log = structlog.get_logger("roomloop.service")
 _answers_log = RateLimitedLog(log, interval_s=60.0, burst=30)
@@ -60,6 +77,7 @@ class BrokerSession:
         refusals: tuple[type[Exception], ...],
         alarms: AlarmBook | None = None,
         durability: Callable[[], str] | None = None,
+        sources: HeardTopics | None = None,
     ) -> None:
         from roomloop.io.broker import BrokerConnection, LastWill
 
@@ -69,6 +87,8 @@ class BrokerSession:
         self.alarms = alarms
         """The zones' alarms: published retained beside the states, acknowledged by command."""
         self.mqtt_points = mqtt_points
+        self.sources = sources
+        """The heat sources: their remote zones' topics, their retained state."""
         self.commands = CommandHandler(
             prefix,
             zones,
@@ -103,13 +123,16 @@ class BrokerSession:
         )
 
     async def _on_connect(self, client: Any) -> None:
-        topics = [*self.commands.topics(), *self.mqtt_points.topics()]
+        heard = [] if self.sources is None else self.sources.topics()
+        topics = [*self.commands.topics(), *self.mqtt_points.topics(), *heard]
         for topic in topics:
             await client.subscribe(topic, qos=1)
         await client.publish(status_topic(self.prefix), ONLINE, qos=1, retain=True)
         self.publisher.forget_sent()
         if self.alarms is not None:
             self.alarms.forget_sent()
+        if self.sources is not None:
+            self.sources.forget_sent()
         self.mqtt_points.attach(client)
         await self.mqtt_points.publish_commands(client)
         self._wake.set()
@@ -124,6 +147,8 @@ class BrokerSession:
             payload = b"" if payload is None else str(payload).encode()
         now = self.clock.now()
         if self.mqtt_points.handle(topic, payload, now):
+            return
+        if self.sources is not None and self.sources.handle(topic, payload, now):
             return
         ack = None
         if self.alarms is not None:
@@ -168,6 +193,8 @@ class BrokerSession:
                         self.publisher.sent(message, now)
                         if self.alarms is not None:
                             self.alarms.sent(message)
+                        if self.sources is not None:
+                            self.sources.sent(message, now)
                 except (aiomqtt.MqttError, TimeoutError, OSError) as exc:
                     # The broker went away mid-round; after the reconnect everything is resent.
                     log.debug("broker.publish_interrupted", error=str(exc) or type(exc).__name__)
@@ -177,7 +204,8 @@ class BrokerSession:
 
     def _due(self, now: float) -> list[Message]:
         alarms = [] if self.alarms is None else self.alarms.due()
-        return [*self.publisher.due(now), *alarms]
+        sources = [] if self.sources is None else self.sources.due(now)
+        return [*self.publisher.due(now), *alarms, *sources]
 
     async def _send(self, client: Any, message: Message) -> None:
         async with timeout(self.clock.io, SEND_S):

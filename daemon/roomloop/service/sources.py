@@ -1,0 +1,263 @@
+"""The heat sources as the service runs them: each source's loop, what it hears, what it publishes.
+
+One :class:`~roomloop.core.source_runtime.SourceRuntime` per ``heat_sources`` entry (the
+sans-IO seam); :class:`SourceRunner` drives them:
+
+* each source's loop (task ``source:<name>``) steps the source on the latest decision of
+  each local zone it serves (:meth:`SourceRunner.note_zone`, a per-step hook of the zone
+  runner) and on what was heard from the remote zones, then tells the output writer what
+  the enable and pump outputs should be: the writer alone owns them (the safe state before
+  the first decision and at stop, the links' re-assert, the read-back). It steps every
+  :data:`SOURCE_TICK_S`, at once when a served zone's call changes, and exactly when a
+  timer of the source runs out (the valve opening time, a lockout, the pump's overrun), so
+  the source follows its zones within a fraction of a second, not a tick;
+* the broker session subscribes to :meth:`SourceRunner.topics` at every (re)connection,
+  then calls :meth:`SourceRunner.forget_sent` (the source's state is published again), and
+  hands every message on those topics to :meth:`SourceRunner.handle`; it publishes what
+  :meth:`SourceRunner.due` returns (retained) and reports it with :meth:`SourceRunner.sent`.
+
+The broker going away changes nothing here: what was heard stays, and ages, so a remote
+zone turns stale only by the source's ``remote_stale.timeout_s`` (or its site's will), never
+by the reconnection itself; after it, the retained messages replayed are the last values.
+"""
+
+from __future__ import annotations
+
+import asyncio
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from zoneinfo import ZoneInfo
+
+import structlog
+
+from roomloop.clock import Clock, sleep_or_wake
+from roomloop.config.models import HeatSource, Site
+from roomloop.core.source import SourceOutputs, SourceSettings
+from roomloop.core.source_runtime import SourceRuntime
+from roomloop.service.events import source_events
+from roomloop.service.notify import Progress
+from roomloop.service.outputs import Output
+from roomloop.service.publisher import Message
+from roomloop.service.zones import OutputWants, TickReport
+
+log = structlog.get_logger("roomloop.service")
+
+SOURCE_TICK_S = 5.0
+"""Clock seconds between two steps of a source with nothing new (it steps at once on a
+change of a call, and at each of its own timers)."""
+BURST_S = 0.05
+"""Clock seconds a source waits after a wake, so a burst of messages is one step."""
+
+
+def owner(source: str) -> str:
+    """How a source's outputs are named as the writer's owner (zones use their name)."""
+    return f"source:{source}"
+
+
+@dataclass
+class SourceLoop:
+    """One source: its configuration, its runtime and its wake-up."""
+
+    config: HeatSource
+    runtime: SourceRuntime
+    wake: asyncio.Event
+    outputs: SourceOutputs | None = None
+    steps: int = 0
+
+    @property
+    def name(self) -> str:
+        return self.config.name
+
+    @property
+    def points(self) -> tuple[str, ...]:
+        pump = self.config.pump_output
+        return (self.config.output,) if pump is None else (self.config.output, pump)
+
+
+class SourceRunner:
+    """The site's heat sources; see the module docstring."""
+
+    def __init__(
+        self,
+        site: Site,
+        clock: Clock,
+        outputs: OutputWants,
+        progress: Progress,
+        *,
+        tz: ZoneInfo,
+        publish_interval_s: float,
+        inputs_ready: asyncio.Event,
+    ) -> None:
+        self.clock = clock
+        self.outputs = outputs
+        self.progress = progress
+        self.inputs_ready = inputs_ready
+        self.on_change: Callable[[], None] = lambda: None
+        """Called when a source's state is due for publishing (the session's wake)."""
+        now = clock.now()
+        self.sources: dict[str, SourceLoop] = {}
+        self._served_by: dict[str, SourceLoop] = {}
+        for config in site.heat_sources:
+            runtime = SourceRuntime(
+                SourceSettings.from_config(config),
+                prefix=site.topic_prefix,
+                now=now,
+                remote_prefixes={s: config.remote_prefix(s) for s in _sites(config)},
+                tz=tz,
+                publish_interval_s=publish_interval_s,
+            )
+            loop = SourceLoop(config, runtime, asyncio.Event())
+            self.sources[config.name] = loop
+            for zone in config.local_zones:
+                self._served_by[zone] = loop
+        self.local: dict[str, tuple[bool, str]] = {}
+        """Each local served zone's latest ``(demand, reason)``."""
+
+    # ------------------------------------------------------------------ wiring
+
+    def writer_outputs(self) -> list[Output]:
+        """The sources' outputs for the output writer; off is their safe state."""
+        return [
+            Output(owner(loop.name), point, False)
+            for loop in self.sources.values()
+            for point in loop.points
+        ]
+
+    def resume(self, found: Mapping[str, bool | None], now: float) -> dict[str, bool]:
+        """At start: each source goes on from its outputs as found on the device (None: not
+        known); returns what each output is held at until its source decides."""
+        held: dict[str, bool] = {}
+        for loop in self.sources.values():
+            enable = found.get(loop.config.output)
+            pump = None if loop.config.pump_output is None else found.get(loop.config.pump_output)
+            loop.runtime.resume(enable, pump, now)
+            state = loop.runtime.state
+            held[loop.config.output] = state.running
+            if loop.config.pump_output is not None:
+                held[loop.config.pump_output] = state.pump
+        return held
+
+    def note_zone(self, report: TickReport) -> None:
+        """A zone stepped (a per-step hook): a changed call of a served zone wakes its source."""
+        loop = self._served_by.get(report.zone)
+        if loop is None:
+            return
+        call = (report.outputs.demand, report.outputs.reason)
+        before = self.local.get(report.zone)
+        self.local[report.zone] = call
+        if before is None or before[0] != call[0] or _protection(before[1]) != _protection(
+            call[1]
+        ):
+            loop.wake.set()
+
+    def failed(self, name: str) -> None:
+        """A source whose loop broke: its outputs back to the safe state until it decides."""
+        loop = self.sources.get(name)
+        if loop is not None:
+            for point in loop.points:
+                self.outputs.hold_safe(point)
+
+    # ------------------------------------------------------------------ the broker's side
+
+    def topics(self) -> list[str]:
+        """Every topic the sources hear (exact topics, no wildcards)."""
+        return sorted({t for loop in self.sources.values() for t in loop.runtime.subscriptions})
+
+    def handle(self, topic: str, payload: bytes | bytearray | str, now: float) -> bool:
+        """One message; False when it is for no source. A change of a call wakes the source."""
+        taken = False
+        for loop in self.sources.values():
+            runtime = loop.runtime
+            found = runtime.topics.by_topic.get(topic)
+            if found is None:
+                continue
+            before = _heard(runtime, found[1], found[0] == "status", now)
+            runtime.heard(topic, payload, now)
+            if _heard(runtime, found[1], found[0] == "status", now) != before:
+                loop.wake.set()
+            taken = True
+        return taken
+
+    def forget_sent(self) -> None:
+        """After a (re)connection: every source's state is due again."""
+        for loop in self.sources.values():
+            loop.runtime.reconnected()
+
+    def due(self, now: float) -> list[Message]:
+        return [
+            Message(topic, payload)
+            for loop in self.sources.values()
+            for topic, payload in loop.runtime.due(now)
+        ]
+
+    def sent(self, message: Message, now: float) -> None:
+        for loop in self.sources.values():
+            if loop.runtime.topic == message.topic:
+                loop.runtime.sent(message.payload, now)
+
+    # ------------------------------------------------------------------ the loop
+
+    def step(self, loop: SourceLoop, now: float) -> SourceOutputs:
+        """One step of one source: decide, tell the writer, log what changed."""
+        runtime = loop.runtime
+        local = {z: self.local[z] for z in loop.config.local_zones if z in self.local}
+        previous = loop.outputs
+        out = runtime.tick(local, now)
+        loop.outputs = out
+        loop.steps += 1
+        self.outputs.want(loop.config.output, out.enable)
+        if loop.config.pump_output is not None:
+            self.outputs.want(loop.config.pump_output, out.pump)
+        for event in source_events(loop.name, previous=previous, outputs=out):
+            getattr(log, event.level)(event.event, **event.fields)
+        if runtime.due(now):
+            self.on_change()
+        return out
+
+    async def run_source(self, name: str) -> None:
+        """One source's loop (task ``source:<name>``), until cancelled."""
+        loop = self.sources[name]
+        task = owner(name)
+        await self.inputs_ready.wait()
+        while True:
+            loop.wake.clear()
+            now = self.clock.now()
+            self.step(loop, now)
+            self.progress.beat(task)
+            if await sleep_or_wake(self.clock, self._next_in(loop, now), loop.wake):
+                await self.clock.sleep(BURST_S)
+
+    def _next_in(self, loop: SourceLoop, now: float) -> float:
+        """Clock seconds to the next step: the tick, or sooner a timer of the source."""
+        out, state, s = loop.outputs, loop.runtime.state, loop.runtime.settings
+        timers: list[float | None] = []
+        if out is not None:
+            timers += [out.waiting_until, out.lockout_until]
+        if state.stopped_at is not None:
+            timers.append(state.stopped_at + s.pump_overrun_s)
+        if state.pump and state.pump_since is not None:
+            timers.append(state.pump_since + s.pump_pre_run_s)
+        timers.append(state.exercise_until)
+        ahead = [t - now for t in timers if t is not None and t > now]
+        return min([SOURCE_TICK_S, *ahead])
+
+
+def _sites(config: HeatSource) -> set[str]:
+    return {z.split("/", 1)[0] for z in config.remote_zones}
+
+
+def _protection(reason: str) -> bool:
+    return reason.rsplit(":", 1)[-1] == "protection"
+
+
+def _heard(runtime: SourceRuntime, key: str, status: bool, now: float) -> object:
+    """What of a remote zone (or site, ``status``) a message can change that the step reads:
+    its call, its protection flag, whether it is fresh."""
+    book = runtime.book
+    if status:
+        return book.online.get(key)
+    heard = book.zones.get(key)
+    if heard is None:
+        return None
+    fresh = heard.heard_at is not None and now - heard.heard_at <= runtime.settings.stale_timeout_s
+    return heard.calling, heard.protection, fresh

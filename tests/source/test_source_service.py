@@ -1,0 +1,209 @@
+"""Heat sources inside the service, in-process on a virtual clock, with real parts.
+
+Real parts: pymodbus TCP servers (the rooms of ``service_rooms.RoomPlant``, and the boiler's
+enable and pump relays as coils 2 and 3 of the same device) and, for remote zones, mosquitto.
+The service, the rooms and the test share one virtual clock; every wait is bounded.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+import json
+import sys
+from collections.abc import AsyncIterator
+from pathlib import Path
+from typing import Any
+
+import pytest
+import yaml
+from structlog.testing import capture_logs
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "service"))
+from service_rooms import RoomPlant, Watcher, running, site_yaml, until
+
+from roomloop.clock import Clock, VirtualClock
+from roomloop.config.loader import load_site
+from roomloop.config.models import Site
+from roomloop.service.app import Service
+
+VALVE_S = 120.0
+OVERRUN_S = 60.0
+MIN_OFF_S = 300.0
+
+
+def write_site(tmp_path: Path, data: dict[str, Any]) -> Site:
+    path = tmp_path / "site.yaml"
+    path.write_text(yaml.safe_dump(data))
+    return load_site(path)
+
+
+def boiler(zones: list[str], **timing: float) -> dict[str, Any]:
+    return {
+        "name": "boiler",
+        "kind": "boiler",
+        "output": "boiler-enable",
+        "pump_output": "boiler-pump",
+        "zones": zones,
+        "timing": {"valve_opening_s": VALVE_S, "pump_overrun_s": OVERRUN_S, "min_on_s": 60,
+                   "min_off_s": MIN_OFF_S, **timing},
+        "remote_stale": {"policy": "ignore", "timeout_s": 120},
+    }
+
+
+def source_points() -> list[dict[str, Any]]:
+    return [
+        {"name": "boiler-enable", "type": "modbus-output", "link": "rooms", "address": 2},
+        {"name": "boiler-pump", "type": "modbus-output", "link": "rooms", "address": 3},
+    ]
+
+
+class Coils:
+    """The device's coils as seen every clock second: when each changed (clock time)."""
+
+    def __init__(self, server: Any, clock: Clock, count: int = 4) -> None:
+        self.server, self.clock, self.count = server, clock, count
+        self.now: list[bool] = [False] * count
+        self.changes: list[tuple[float, int, bool]] = []
+
+    def first(self, coil: int, on: bool, after: float = 0.0) -> float:
+        for at, index, value in self.changes:
+            if index == coil and value == on and at >= after:
+                return at
+        raise AssertionError(f"coil {coil} never went {on} after {after}: {self.changes}")
+
+    @contextlib.asynccontextmanager
+    async def watching(self) -> AsyncIterator[Coils]:
+        async def run() -> None:
+            while True:
+                coils = await self.server.get_coils(0, self.count)
+                for index, (was, now) in enumerate(zip(self.now, coils, strict=True)):
+                    if was != now:
+                        self.changes.append((self.clock.now(), index, now))
+                self.now = list(coils)
+                await self.clock.sleep(1.0)
+
+        task = asyncio.create_task(run())
+        try:
+            yield self
+        finally:
+            task.cancel()
+            with contextlib.suppress(asyncio.CancelledError):
+                await task
+
+
+async def test_a_local_source_waits_for_the_valve_and_overruns_its_pump(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    clock = VirtualClock()
+    server = await modbus_tcp_server()
+    data = site_yaml(modbus_port=server.port, broker_port=1, zones=2)
+    del data["broker"]
+    data["points"] += source_points()
+    data["heat_sources"] = [boiler(["room0", "room1"])]
+    site = write_site(tmp_path, data)
+    service = Service(site, clock=clock, state_dir=tmp_path / "state")
+    with capture_logs() as logs:
+        async with (
+            RoomPlant(server, [23.0, 23.0], clock),
+            Coils(server, clock).watching() as coils,
+            running(service),
+        ):
+            await until(clock, lambda: len(service.zones) == 2, 30)
+            for room in ("room0", "room1"):  # held low: nothing calls until the test says
+                service.apply_command(room, "setpoint", 10.0)
+            # Start-up counts as a stop (the source may have
+            # run just before): the pump overruns once, then everything is off.
+            await until(clock, lambda: coils.now[3], 30)
+            await until(clock, lambda: not coils.now[3], OVERRUN_S + 30)
+            assert coils.now == [False] * 4
+            await clock.sleep(MIN_OFF_S)  # and the start-up's minimum off time is over
+            service.apply_command("room1", "setpoint", 26.0)
+            await until(clock, lambda: coils.now[1], 60)
+            valve_open = coils.first(1, True)
+            out = service.sources.sources["boiler"].outputs
+            assert out is not None and out.reason == "valve-opening" and not coils.now[2]
+            assert out.waiting_for == "room1"
+            await until(clock, lambda: coils.now[2], VALVE_S + 60)
+            fired = coils.first(2, True)
+            # the source fires once the valve had its opening time, not before (one poll late
+            # at most: the watcher looks every clock second, the relays are written at once)
+            assert VALVE_S - 1.5 <= fired - valve_open <= VALVE_S + 6, coils.changes
+            assert coils.first(3, True) <= fired + 1.5  # the pump runs with it
+            out = service.sources.sources["boiler"].outputs
+            assert out is not None and out.calling == ("room1",) and out.reason == "firing"
+            # the call ends: the source stops after its minimum on time, the pump runs on
+            service.apply_command("room1", "setpoint", 10.0)
+            await until(clock, lambda: not coils.now[2], 120)
+            stopped = coils.first(2, False)
+            await until(clock, lambda: not coils.now[3], OVERRUN_S + 30)
+            overrun = coils.first(3, False, after=stopped) - stopped
+            assert OVERRUN_S - 1.5 <= overrun <= OVERRUN_S + 6, coils.changes
+            # a new call within the minimum off time: the valve opens, the source waits it out
+            service.apply_command("room0", "setpoint", 26.0)
+            await until(clock, lambda: coils.now[0], 60)
+            await until(clock, lambda: coils.now[2], MIN_OFF_S + 60)
+            assert coils.first(2, True, after=stopped) - stopped >= MIN_OFF_S - 1.5
+    events = [e["event"] for e in logs if str(e.get("event", "")).startswith("source.")]
+    assert events[:1] == ["source.resumed"]
+    assert events.count("source.started") == 2 and "source.stopped" in events
+    assert any(
+        e["event"] == "source.lockout" and e["lockout"] == "min-off" for e in logs
+    ), events
+    # at stop every output went to its safe state, the source's too
+    assert await server.get_coils(0, 4) == [False] * 4
+    assert not service.restarts, service.restarts
+
+
+def zoneless_site(tmp_path: Path, modbus_port: int, broker_port: int) -> Site:
+    """A plant-room board: no zones, a boiler serving two zones of site ``east``."""
+    data = site_yaml(modbus_port=modbus_port, broker_port=broker_port, zones=0)
+    data["site"]["name"] = "plant-room"
+    data["points"] = source_points()
+    source = boiler(["east/office", "east/hall"])
+    # the test publishes east's demand once, no heartbeat: only its will makes it stale here
+    source["remote_stale"]["timeout_s"] = 86400
+    data["heat_sources"] = [source]
+    del data["zones"]
+    return write_site(tmp_path, data)
+
+
+@pytest.mark.needs_mosquitto
+async def test_a_site_without_zones_runs_a_source_on_remote_demand(
+    tmp_path: Path, mosquitto: Any, modbus_tcp_server: Any
+) -> None:
+    clock = VirtualClock()
+    server = await modbus_tcp_server()
+    site = zoneless_site(tmp_path, server.port, mosquitto.port)
+    assert site.zones == []
+    service = Service(site, clock=clock, state_dir=tmp_path / "state")
+    east = "roomloop/east"
+    topic = "roomloop/plant-room/source/boiler/state"
+    async with (
+        Watcher(mosquitto.host, mosquitto.port, "roomloop", clock=clock) as w,
+        Coils(server, clock).watching() as coils,
+        running(service),
+    ):
+
+        def state() -> dict[str, Any]:
+            raw = w.latest.get(topic)
+            return {} if raw is None else dict(json.loads(raw))
+
+        assert w.client is not None
+        # nothing heard of east yet: both zones stale, ignored by the policy
+        await w.wait_for(lambda: state().get("stale") == ["east/office", "east/hall"], 10)
+        await w.client.publish(f"{east}/status", "online", qos=1, retain=True)
+        await w.client.publish(f"{east}/zone/office/demand", "false", qos=1, retain=True)
+        await w.client.publish(f"{east}/zone/hall/demand", "true", qos=1, retain=True)
+        await w.wait_for(lambda: state().get("calling") == ["east/hall"], 10)
+        assert state()["reason"] in ("valve-opening", "min-off")
+        await w.wait_for(lambda: state().get("running") is True, 15)
+        await w.wait_for(lambda: coils.now[2] and coils.now[3], 10)
+        # the hall's site goes offline (its daemon's will): stale, ignored, the source stops
+        await w.client.publish(f"{east}/status", "offline", qos=1, retain=True)
+        await w.wait_for(lambda: state().get("stale") == ["east/office", "east/hall"], 10)
+        await w.wait_for(lambda: state().get("running") is False, 15)
+        assert state()["stale_policy"] == "ignore" and state()["calling"] == []
+        await w.wait_for(lambda: not coils.now[2], 10)
+        for name in ("status", "zone/office/demand", "zone/hall/demand"):  # leave no retained
+            await w.client.publish(f"{east}/{name}", b"", qos=1, retain=True)
