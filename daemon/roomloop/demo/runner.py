@@ -373,6 +373,8 @@ class _Demo:
             self.say(timeline.start, f"publishing to the broker at {host}:{port} as 'run' does")
         self.sources = wire_sources(site, server)
         service = Service(site, clock=clock, state_dir=state_dir, on_tick=self.on_tick)
+        loops = service.sources.sources
+        self.outputs_of = lambda name: loops[name].outputs if name in loops else None
         service_stop = asyncio.Event()
         plants = asyncio.create_task(server.run(), name="demo-plants")
         follow = asyncio.create_task(self._follow_sources(server), name="demo-sources")
