@@ -239,6 +239,8 @@ class SourceView:
     changed_at: dict[str, float] = field(default_factory=dict)
     """Zone -> real time its membership of ``calling`` last changed."""
     stale_max: int = 0
+    stale_last: float | None = None
+    """Simulated time of the last state naming a stale zone."""
     states: int = 0
 
 
@@ -383,7 +385,10 @@ class Tap:
         except ValueError:
             return
         source.states += 1
-        source.stale_max = max(source.stale_max, len(data.get("stale") or ()))
+        stale = len(data.get("stale") or ())
+        source.stale_max = max(source.stale_max, stale)
+        if stale:
+            source.stale_last = self.clock.now()
         calling = {z if "/" in z else f"{source.site}/{z}" for z in data.get("calling") or ()}
         for zone in calling ^ source.calling:
             source.changed_at[zone] = now
@@ -453,10 +458,12 @@ class Figures:
     idle_starts: int
     idle_source: str
     stale_max: int
+    stale_last: float | None
     source_states: int
     setback_ok: int
     timeline: dict[str, float]
     died: list[str]
+    t0: float
     broker_counts: dict[str, int] = field(default_factory=dict)
     loop_lag_p99_s: float = 0.0
     """p99 of how late this process's loop woke: a floor under the latencies it measures."""
@@ -684,10 +691,12 @@ async def _measure(run: Run) -> Figures:
         idle_starts=idle_starts,
         idle_source=views[idle].name,
         stale_max=max(v.stale_max for v in views),
+        stale_last=max((v.stale_last for v in views if v.stale_last is not None), default=None),
         source_states=sum(v.states for v in views),
         setback_ok=setback_ok,
         timeline={k: v - t0 for k, v in timeline.items()},
         died=died,
+        t0=t0,
         broker_counts=dict(tap.broker_counts),
         loop_lag_p99_s=pct(lag.lags, 0.99) if lag.lags else 0.0,
     )
@@ -751,6 +760,7 @@ def print_figures(f: Figures, options: Options, base: dict[str, float]) -> None:
     print(
         f"  unanswered at the end {f.pending_left}; excluded around the restart {f.excluded};"
         f" source states heard {f.source_states}; most stale zones in a state {f.stale_max}"
+        + ("" if f.stale_last is None else f", the last at {(f.stale_last - f.t0) / 60:.1f} min")
     )
     total = sum(f.kinds.values())
     kinds = ", ".join(f"{k} {f.per_zone_hour(v):.1f}" for k, v in f.kinds.most_common())
@@ -769,9 +779,12 @@ def print_figures(f: Figures, options: Options, base: dict[str, float]) -> None:
         f"control step alone); this process (plants, tap) "
         f"{f.per_zone_hour(f.bench_cpu_s) * 1000:.1f} ms per zone-hour"
     )
-    starts = ", ".join(
-        f"{name} {n} ({len(f.unexplained[name])} unexplained)" for name, n in f.starts.items()
-    )
+    def unexplained(name: str) -> str:
+        times = f.unexplained[name]
+        at = ", ".join(f"{t / 60:.1f}" for t in times)
+        return f"{len(times)} unexplained" + (f", at {at} min" if times else "")
+
+    starts = ", ".join(f"{name} {n} ({unexplained(name)})" for name, n in f.starts.items())
     print(f"  source starts: {starts}; {f.idle_source} (idle after the set-back) started "
           f"{f.idle_starts} times from 10 min after it; set-back commands accepted {f.setback_ok}")
     if f.restart:
