@@ -157,9 +157,12 @@ class SourceRecord:
             parts.append(f"{outputs.waiting_for}'s valve until {_clock(outputs.waiting_until, tz)}")
         if outputs.lockout is not None and outputs.lockout_until is not None:
             parts.append(f"{outputs.lockout} until {_clock(outputs.lockout_until, tz)}")
-        if outputs.pump_reason == "overrun" and self._stopped_at is not None:
-            overrun = self.config.effective.pump_overrun_s
-            parts.append(f"pump overrun until {_clock(self._stopped_at + overrun, tz)}")
+        if outputs.pump_reason in ("overrun", "pre-run", "exercise"):
+            text = f"pump {outputs.pump_reason}"
+            if outputs.pump_reason == "overrun" and self._stopped_at is not None:
+                overrun = self.config.effective.pump_overrun_s
+                text += f" until {_clock(self._stopped_at + overrun, tz)}"
+            parts.append(text)
         parts.append(f"calling: {', '.join(outputs.calling) or 'none'}")
         parts.append(f"starts in the last hour: {outputs.starts_1h}")
         return f"{head}  " + "; ".join(parts)
