@@ -44,6 +44,7 @@ STEP_S = 10.0
 LOOPBACK = "127.0.0.1"
 START_TIMEOUT_S = 10.0
 FC_COILS = 1
+FC_WRITE_COILS = (5, 15)
 FC_INPUT_REGISTERS = 4
 REGISTERS_PER_UNIT = 64
 COILS_PER_UNIT = 64
@@ -157,6 +158,8 @@ class PlantServer:
         self.gates: dict[str, CoilRef] = {}
         """Zone -> the coil of the source that must be on for the zone to get heat."""
         self.watching: dict[str, CoilRef] = {}
+        self.coil_changes: dict[tuple[int, int], tuple[float, bool]] = {}
+        """(unit, address) -> (clock time, value) of the last client write that changed it."""
         self.watched: dict[str, list[bool]] = {}
         """Each watched coil's state per recorded step (aligned with the traces)."""
         self.started_at: float | None = None
@@ -188,20 +191,37 @@ class PlantServer:
         """The action of one unit: silent units answer with gateway exception 11."""
 
         async def action(
-            _function_code: int,
+            function_code: int,
             _start: int,
-            _address: int,
+            address: int,
             _count: int,
             _registers: Any,
-            _values: Any,
+            values: Any,
         ) -> Any:
-            if self._local or unit not in self.silent_units:
+            if self._local:
+                return None
+            if unit not in self.silent_units:
+                if function_code in FC_WRITE_COILS and values:
+                    self._note_coil_writes(unit, address, [bool(v) for v in values])
                 return None
             from pymodbus.constants import ExcCodes
 
             return ExcCodes.GATEWAY_NO_RESPONSE
 
         return action
+
+    def _note_coil_writes(self, unit: int, address: int, values: list[bool]) -> None:
+        now = self.clock.now()
+        for offset, value in enumerate(values):
+            key = (unit, address + offset)
+            last = self.coil_changes.get(key)
+            if (last[1] if last is not None else False) != value:
+                self.coil_changes[key] = (now, value)
+
+    def changed_at(self, unit_id: int, address: int) -> float | None:
+        """When a client's write last changed that coil (clock time), or None: never."""
+        last = self.coil_changes.get((unit_id, address))
+        return None if last is None else last[0]
 
     async def start(self) -> None:
         """Listen on 127.0.0.1:``port``; write the first sensor readings before anyone asks."""

@@ -34,7 +34,13 @@ from roomloop.config.loader import load_yaml_document, site_from_data
 from roomloop.config.models import Site
 from roomloop.core.types import ZoneOutputs
 from roomloop.demo.plant_server import STEP_S, PlantServer, PlantTrace, free_port
-from roomloop.demo.sources import OutputsOf, SourceRecord, read_coils, wire_sources
+from roomloop.demo.sources import (
+    OutputsOf,
+    SourceRecord,
+    read_coils,
+    switch_times,
+    wire_sources,
+)
 from roomloop.demo.summary import ZoneSummary, clock_text, summarize_zone
 from roomloop.demo.timeline import Timeline
 from roomloop.errors import RoomloopError
@@ -483,8 +489,11 @@ class _Demo:
         while True:
             for record in self.sources.values():
                 enable, pump = await read_coils(server, record)
-                for text in record.coils(enable, pump, server.clock.now()):
-                    self.say(server.clock.now(), text)
+                enable_at, pump_at = switch_times(server, record)
+                now = server.clock.now()
+                changes = record.coils(enable, pump, now, enable_at=enable_at, pump_at=pump_at)
+                for text in changes:
+                    self.say(now, text)
             await server.clock.sleep(STEP_S)
 
     def _rows(self, server: PlantServer) -> list[str]:

@@ -87,8 +87,22 @@ class SourceRecord:
         elif not any(self.calling.values()):
             self.call_since = self.first_caller = None
 
-    def coils(self, enable: bool, pump: bool, at: float) -> list[str]:
-        """The coils as read now; the events (text without the clock) of what changed."""
+    def coils(
+        self,
+        enable: bool,
+        pump: bool,
+        at: float,
+        *,
+        enable_at: float | None = None,
+        pump_at: float | None = None,
+    ) -> list[str]:
+        """The coils as read at ``at``; the events (text without the clock) of what changed.
+
+        ``enable_at`` / ``pump_at``: when the coil changed, if the server knows (its write's
+        arrival), else ``at``, the reading's time.
+        """
+        pump_at = at if pump_at is None else pump_at
+        at = at if enable_at is None else enable_at
         events: list[str] = []
         if enable and not self.enable:
             self.starts.append(at)
@@ -110,7 +124,7 @@ class SourceRecord:
                     f"{_minutes(self.fired_s)}); its pump runs on to carry the heat away"
                 )
         if self.pump and not pump and not enable and self._stopped_at is not None:
-            self.overruns.append(at - self._stopped_at)
+            self.overruns.append(pump_at - self._stopped_at)
             self._stopped_at = None
             if len(self.overruns) == 1:
                 events.append(
@@ -216,3 +230,10 @@ async def read_coils(server: PlantServer, record: SourceRecord) -> tuple[bool, b
     if pump is None:
         return enable, False
     return enable, await server.coil(pump.unit_id, pump.address) == (pump.on_value == 1)
+
+
+def switch_times(server: PlantServer, record: SourceRecord) -> tuple[float | None, float | None]:
+    """When the service's writes last changed the enable and the pump coils."""
+    enable = server.changed_at(record.enable_point.unit_id, record.enable_point.address)
+    pump = record.pump_point
+    return enable, None if pump is None else server.changed_at(pump.unit_id, pump.address)
