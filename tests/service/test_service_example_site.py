@@ -271,11 +271,21 @@ async def test_the_example_site_runs_against_real_peers(
                 assert showroom_state is not None and showroom_state.get("demand") is False
                 assert await tcp.get_coils(9, 1, unit=1) == [False]
 
+                # The example's boiler serves the office and the showroom: the cold office
+                # calls, and the boiler waits for its valve (or its start-up minimum off time).
+
+                def boiler() -> dict[str, Any]:
+                    raw = watcher.latest.get(f"{prefix}/source/boiler/state")
+                    return {} if raw is None else dict(json.loads(raw))
+
+                await watcher.wait_for(lambda: boiler().get("calling") == ["office"], WAIT_S)
+                assert boiler()["reason"] in ("valve-opening", "min-off", "firing"), boiler()
+
                 code = await service.signal(signal.SIGTERM, timeout_s=WAIT_S)
             finally:
                 await service.stop()
             assert code == 0, service.log_path.read_text(errors="replace")[-2000:]
             assert await rtu.get_coils(0, 1, unit=5) == [False]
-            assert await tcp.get_coils(8, 2, unit=1) == [False, False]
+            assert await tcp.get_coils(8, 4, unit=1) == [False] * 4  # the boiler's relays too
             await _until(lambda: relay.commands[-1:] == ["OFF"], WAIT_S, "finishing-heater OFF")
             await watcher.wait_for(lambda: watcher.text("status") == "offline", WAIT_S)

@@ -1,10 +1,15 @@
-"""Shared helpers of the heat-source tests: drive a SourceLogic tick by tick."""
+"""Shared helpers of the heat-source tests: drive a SourceLogic tick by tick; watch a device's
+coils on a clock."""
 
 from __future__ import annotations
 
-from collections.abc import Callable, Iterable
+import asyncio
+import contextlib
+from collections.abc import AsyncIterator, Callable, Iterable
 from dataclasses import dataclass
+from typing import Any
 
+from roomloop.clock import Clock
 from roomloop.core.source import (
     SourceInputs,
     SourceLogic,
@@ -60,3 +65,39 @@ def first(ticks: list[Tick], predicate: Callable[[Tick], bool]) -> Tick:
         if predicate(tick):
             return tick
     raise AssertionError("no tick matched")
+
+
+class Coils:
+    """The device's coils as seen every ``every_s`` of ``clock``: when each changed."""
+
+    def __init__(
+        self, server: Any, clock: Clock, count: int = 4, every_s: float = 1.0
+    ) -> None:
+        self.server, self.clock, self.count, self.every_s = server, clock, count, every_s
+        self.now: list[bool] = [False] * count
+        self.changes: list[tuple[float, int, bool]] = []
+
+    def first(self, coil: int, on: bool, after: float = 0.0) -> float:
+        for at, index, value in self.changes:
+            if index == coil and value == on and at >= after:
+                return at
+        raise AssertionError(f"coil {coil} never went {on} after {after}: {self.changes}")
+
+    @contextlib.asynccontextmanager
+    async def watching(self) -> AsyncIterator[Coils]:
+        async def run() -> None:
+            while True:
+                coils = await self.server.get_coils(0, self.count)
+                for index, (was, now) in enumerate(zip(self.now, coils, strict=True)):
+                    if was != now:
+                        self.changes.append((self.clock.now(), index, now))
+                self.now = list(coils)
+                await self.clock.sleep(self.every_s)
+
+        task = asyncio.create_task(run())
+        try:
+            yield self
+        finally:
+            task.cancel()
+            with contextlib.suppress(asyncio.CancelledError):
+                await task

@@ -3,8 +3,8 @@
 Whatever the zones do: the minimum on and off times and the starts per sliding hour are
 never violated, the pump runs whenever the source fires and for the overrun after, the
 source never fires before a calling zone's valve has had its opening time, a call that
-lasts a single tick never starts it, and it never fires with nobody calling unless its
-minimum on time holds it.
+lasts a single tick never starts it, it never fires with nobody calling unless its
+minimum on time holds it, and a restart resumed from the relays as found switches nothing.
 """
 
 from __future__ import annotations
@@ -15,7 +15,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from source_helpers import T0, Tick, local, run
 
-from roomloop.core.source import SourceSettings, ZoneDemand
+from roomloop.core.source import SourceInputs, SourceLogic, SourceSettings, ZoneDemand
 
 ZONES = ("a", "b", "c")
 
@@ -207,3 +207,50 @@ def test_stale_remote_zones_are_reported_and_follow_the_policy(
             assert not calls
         elif policy == "assume-calling":
             assert calls
+
+
+@settings(max_examples=50, deadline=None)
+@given(
+    timing=timings,
+    per_zone=zone_runs,
+    tick_s=ticks_s,
+    restarts=st.lists(st.integers(1, 299), max_size=6, unique=True),
+)
+def test_a_restart_from_the_relays_as_found_never_switches_the_source(
+    timing: dict[str, object],
+    per_zone: list[list[tuple[int, bool]]],
+    tick_s: float,
+    restarts: list[int],
+) -> None:
+    """The daemon restarts at random ticks and resumes the source from its relays as they
+    were (``SourceLogic.resume``): the restart's own step neither starts a source that was
+    off (it waits out its minimum off time) nor stops one that was firing while a zone still
+    calls, and the minimum on and off times hold across the restarts."""
+    s = SourceSettings(name="s", zones=ZONES, **timing)  # type: ignore[arg-type]
+    logic = SourceLogic(s)
+    ticks = 300
+    calls = {z: _schedule(runs, ticks) for z, runs in zip(ZONES, per_zone, strict=True)}
+    state = logic.initial_state(T0 - 10 * 3600.0)
+    enable: list[bool] = []
+    pump = False
+    for k in range(ticks):
+        now = T0 + k * tick_s
+        if k in restarts:
+            state = logic.resume(enable[-1], pump, now)
+        demands = SourceInputs(tuple(local(z, calls[z][k], now) for z in ZONES))
+        state, out = logic.step(state, demands, now)
+        if k in restarts:
+            if not enable[-1]:
+                if s.min_off_s > 0:  # (without one a call may start it at once)
+                    assert not out.enable, "a restart started the source"
+            elif any(calls[z][k] for z in ZONES):
+                assert out.enable, "a restart stopped a firing source with a zone calling"
+        enable.append(out.enable)
+        pump = out.pump
+    changes = [k for k in range(1, ticks) if enable[k] != enable[k - 1]]
+    for a, b in itertools.pairwise(changes):
+        held = (b - a) * tick_s
+        if enable[a]:  # a run from a to b
+            assert held >= s.min_on_s - EPS
+        else:  # a pause from a to b
+            assert held >= s.min_off_s - EPS

@@ -7,11 +7,8 @@ The service, the rooms and the test share one virtual clock; every wait is bound
 
 from __future__ import annotations
 
-import asyncio
-import contextlib
 import json
 import sys
-from collections.abc import AsyncIterator
 from pathlib import Path
 from typing import Any
 
@@ -21,8 +18,9 @@ from structlog.testing import capture_logs
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "service"))
 from service_rooms import RoomPlant, Watcher, running, site_yaml, until
+from source_helpers import Coils
 
-from roomloop.clock import Clock, VirtualClock
+from roomloop.clock import VirtualClock
 from roomloop.config.loader import load_site
 from roomloop.config.models import Site
 from roomloop.service.app import Service
@@ -56,40 +54,6 @@ def source_points() -> list[dict[str, Any]]:
         {"name": "boiler-enable", "type": "modbus-output", "link": "rooms", "address": 2},
         {"name": "boiler-pump", "type": "modbus-output", "link": "rooms", "address": 3},
     ]
-
-
-class Coils:
-    """The device's coils as seen every clock second: when each changed (clock time)."""
-
-    def __init__(self, server: Any, clock: Clock, count: int = 4) -> None:
-        self.server, self.clock, self.count = server, clock, count
-        self.now: list[bool] = [False] * count
-        self.changes: list[tuple[float, int, bool]] = []
-
-    def first(self, coil: int, on: bool, after: float = 0.0) -> float:
-        for at, index, value in self.changes:
-            if index == coil and value == on and at >= after:
-                return at
-        raise AssertionError(f"coil {coil} never went {on} after {after}: {self.changes}")
-
-    @contextlib.asynccontextmanager
-    async def watching(self) -> AsyncIterator[Coils]:
-        async def run() -> None:
-            while True:
-                coils = await self.server.get_coils(0, self.count)
-                for index, (was, now) in enumerate(zip(self.now, coils, strict=True)):
-                    if was != now:
-                        self.changes.append((self.clock.now(), index, now))
-                self.now = list(coils)
-                await self.clock.sleep(1.0)
-
-        task = asyncio.create_task(run())
-        try:
-            yield self
-        finally:
-            task.cancel()
-            with contextlib.suppress(asyncio.CancelledError):
-                await task
 
 
 async def test_a_local_source_waits_for_the_valve_and_overruns_its_pump(
