@@ -797,14 +797,15 @@ def print_figures(f: Figures, options: Options, base: dict[str, float]) -> None:
         )
 
 
-def keep_logs(workdir: Path) -> Path:
-    keep = Path(tempfile.mkdtemp(prefix="roomloop-estate-logs-"))
+def keep_logs(workdir: Path, into: Path | None = None) -> Path:
+    keep = Path(tempfile.mkdtemp(prefix="roomloop-estate-logs-")) if into is None else into
+    keep.mkdir(parents=True, exist_ok=True)
     for log in workdir.glob("*.log"):
         shutil.copy(log, keep)
     return keep
 
 
-async def main(options: Options) -> None:
+async def main(options: Options, logs: Path | None = None) -> None:
     logging.getLogger("mqtt").setLevel(logging.CRITICAL)  # the tap's broken pipe at a restart
     with tempfile.TemporaryDirectory(prefix="roomloop-estate-") as tmp:
         workdir = Path(tmp)
@@ -826,11 +827,11 @@ async def main(options: Options) -> None:
         for restart in (False, True):
             figures = await run_estate(options, restart, workdir)
             print_figures(figures, options, base)
-            if figures.died:
-                print(f"  (daemon logs kept in {keep_logs(workdir)})")
+            if figures.died or logs is not None:
+                print(f"  (daemon logs kept in {keep_logs(workdir, logs)})")
 
 
-def parse(argv: list[str] | None = None) -> Options:
+def parse(argv: list[str] | None = None) -> tuple[Options, Path | None]:
     p = argparse.ArgumentParser(description=__doc__.split("\n", 1)[0])
     d = Options()
     p.add_argument("--daemons", type=int, default=d.daemons)
@@ -839,10 +840,11 @@ def parse(argv: list[str] | None = None) -> Options:
     p.add_argument("--hours", type=float, default=d.hours, help="simulated hours per run")
     p.add_argument("--speed", type=float, default=d.speed, help="simulated seconds per second")
     p.add_argument("--outage", type=float, default=d.outage_s, help="real s the broker is down")
+    p.add_argument("--logs", type=Path, help="keep the daemons' logs in this folder")
     a = p.parse_args(argv)
-    return Options(a.daemons, a.zones, a.sources, a.hours, a.speed, a.outage)
+    return Options(a.daemons, a.zones, a.sources, a.hours, a.speed, a.outage), a.logs
 
 
 if __name__ == "__main__":
     with contextlib.suppress(KeyboardInterrupt):
-        asyncio.run(main(parse()))
+        asyncio.run(main(*parse()))
