@@ -11,6 +11,7 @@ synchronise.
 
 from __future__ import annotations
 
+import asyncio
 import contextlib
 import datetime as dt
 import json
@@ -21,6 +22,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+import aiomqtt
 import pytest
 import yaml
 
@@ -171,6 +173,35 @@ async def two_daemons(
             await rig.b.stop()
 
 
+class SourceStates:
+    """Every payload of B's source state, in order (the watcher keeps only the latest)."""
+
+    def __init__(self, port: int) -> None:
+        self.port = port
+        self.seen: list[dict[str, Any]] = []
+
+    @contextlib.asynccontextmanager
+    async def listening(self) -> AsyncIterator[SourceStates]:
+        async def run() -> None:
+            while True:
+                try:
+                    async with aiomqtt.Client("127.0.0.1", self.port) as client:
+                        await client.subscribe(SOURCE_TOPIC, qos=1)
+                        async for message in client.messages:
+                            if message.payload:
+                                self.seen.append(json.loads(bytes(message.payload)))
+                except aiomqtt.MqttError:
+                    await asyncio.sleep(0.1)  # the broker is restarting: try again
+
+        task = asyncio.create_task(run())
+        try:
+            yield self
+        finally:
+            task.cancel()
+            with contextlib.suppress(asyncio.CancelledError):
+                await task
+
+
 @pytest.fixture(autouse=True)
 def _rooms_cool_to_15(monkeypatch: pytest.MonkeyPatch) -> None:
     """A room without heat settles at 15 C here, so a 10 C set point never calls."""
@@ -273,22 +304,28 @@ async def test_a_killed_zone_daemon_goes_stale_and_a_broker_restart_starts_nothi
         # published again, and the reconnection itself starts nothing
         starts = rig.source()["starts_1h"]
         changes = len(coils.changes)
-        rig.broker.stop()
-        w.latest.clear()
-        rig.broker.start()
-        back = rig.clock.now()
-        await w.wait_for(lambda: w.latest.get(f"{EAST}/status") == b"online", 20)
-        state = await rig.until_source(lambda s: s.get("stale") == [] and s["calling"] == [], 20)
-        assert w.latest.get(f"{EAST}/zone/room0/demand") == b"false"
-        # a stale zone (assume-calling) would have fired the boiler within the valve opening
-        # time: let B publish past it, with nothing on
-        await w.wait_for(
-            lambda: rig.source_at() > back + VALVE_S + LAG_S, (VALVE_S + 60) / SPEED + 10
-        )
+        async with SourceStates(rig.broker.port).listening() as states:
+            rig.broker.stop()
+            w.latest.clear()
+            rig.broker.start()
+            back = rig.clock.now()
+            await w.wait_for(lambda: w.latest.get(f"{EAST}/status") == b"online", 20)
+            state = await rig.until_source(
+                lambda s: s.get("stale") == [] and s["calling"] == [], 20
+            )
+            assert w.latest.get(f"{EAST}/zone/room0/demand") == b"false"
+            # a stale zone (assume-calling) would have fired the boiler within the valve
+            # opening time: let B publish past it, with nothing on
+            await w.wait_for(
+                lambda: rig.source_at() > back + VALVE_S + LAG_S, (VALVE_S + 60) / SPEED + 10
+            )
         state = rig.source()
         assert state["running"] is False and state["calling"] == [] and state["stale"] == []
         assert state["starts_1h"] == starts
         assert coils.changes[changes:] == [], coils.changes[changes:]
+        # not even for a moment did the reconnection make a zone stale or calling
+        assert states.seen, "no source state after the broker restart"
+        assert all(s["calling"] == [] and s["stale"] == [] for s in states.seen), states.seen
         # demand is correct after the reconnection: a call fires it again
         await rig.setpoint("room0", 26.0)
         state = await rig.until_source(lambda s: s.get("calling") == ["east/room0"], 10)

@@ -40,6 +40,8 @@ class HeardTopics(Protocol):
 
     def forget_sent(self) -> None: ...
 
+    def disconnected(self) -> None: ...
+
     def due(self, now: float) -> list[Message]: ...
 
     def sent(self, message: Message, now: float) -> None: ...
@@ -119,8 +121,13 @@ class BrokerSession:
     async def run(self) -> None:
         """Keep the session up (reconnecting with backoff), serving messages, until cancelled."""
         await self.connection.run(
-            self._on_message, on_connect=self._on_connect, on_disconnect=self.mqtt_points.detach
+            self._on_message, on_connect=self._on_connect, on_disconnect=self._on_disconnect
         )
+
+    def _on_disconnect(self) -> None:
+        self.mqtt_points.detach()
+        if self.sources is not None:
+            self.sources.disconnected()
 
     async def _on_connect(self, client: Any) -> None:
         heard = [] if self.sources is None else self.sources.topics()

@@ -19,11 +19,14 @@ sans-IO seam); :class:`SourceRunner` drives them:
 The broker going away changes nothing here: what was heard stays, and ages, so a remote
 zone turns stale only by the source's ``remote_stale.timeout_s`` (or its site's will), never
 by the reconnection itself; after it, the retained messages replayed are the last values.
+A site's ``offline`` counts only once it held :data:`OFFLINE_CONFIRM_S` with the connection
+up: a broker that shuts down sends every client's will just before it drops the connection.
 """
 
 from __future__ import annotations
 
 import asyncio
+import functools
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from zoneinfo import ZoneInfo
@@ -34,6 +37,7 @@ from roomloop.clock import Clock, sleep_or_wake
 from roomloop.config.models import HeatSource, Site
 from roomloop.core.source import SourceOutputs, SourceSettings
 from roomloop.core.source_runtime import SourceRuntime
+from roomloop.core.source_topics import parse_status
 from roomloop.service.events import source_events
 from roomloop.service.notify import Progress
 from roomloop.service.outputs import Output
@@ -47,6 +51,11 @@ SOURCE_TICK_S = 5.0
 change of a call, and at each of its own timers)."""
 BURST_S = 0.05
 """Clock seconds a source waits after a wake, so a burst of messages is one step."""
+OFFLINE_CONFIRM_S = 1.0
+"""Real seconds (``clock.io``) a remote site's ``offline`` waits before it counts, dropped if
+the service's own connection goes down meanwhile: a broker shutting down sends the will of
+every client it still has, so the wills that come just before the connection drops are the
+broker's restart, not the remote daemons'."""
 
 
 def owner(source: str) -> str:
@@ -112,6 +121,8 @@ class SourceRunner:
                 self._served_by[zone] = loop
         self.local: dict[str, tuple[bool, str]] = {}
         """Each local served zone's latest ``(demand, reason)``."""
+        self._offline: dict[tuple[str, str], tuple[bytes | bytearray | str]] = {}
+        """(source, status topic) -> an ``offline`` waiting :data:`OFFLINE_CONFIRM_S`."""
 
     # ------------------------------------------------------------------ wiring
 
@@ -171,12 +182,39 @@ class SourceRunner:
             found = runtime.topics.by_topic.get(topic)
             if found is None:
                 continue
+            taken = True
+            if found[0] == "status":
+                key = (loop.name, topic)
+                self._offline.pop(key, None)  # an online (or anything) cancels a pending offline
+                if parse_status(payload) is False:
+                    token = (payload,)
+                    self._offline[key] = token
+                    self.clock.io.call_later(
+                        OFFLINE_CONFIRM_S, functools.partial(self._confirm, loop, key, token)
+                    )
+                    continue
             before = _heard(runtime, found[1], found[0] == "status", now)
             runtime.heard(topic, payload, now)
             if _heard(runtime, found[1], found[0] == "status", now) != before:
                 loop.wake.set()
-            taken = True
         return taken
+
+    def _confirm(
+        self, loop: SourceLoop, key: tuple[str, str], token: tuple[bytes | bytearray | str]
+    ) -> None:
+        """The ``offline`` held since :data:`OFFLINE_CONFIRM_S`, the connection up: it counts."""
+        if self._offline.get(key) is not token:
+            return  # cancelled: an online came, or the connection dropped
+        del self._offline[key]
+        loop.runtime.heard(key[1], token[0], self.clock.now())
+        loop.wake.set()
+
+    def disconnected(self) -> None:
+        """The service's connection dropped: the ``offline`` wills heard just before are the
+        broker's shutdown, not the remote daemons' (see :data:`OFFLINE_CONFIRM_S`)."""
+        if self._offline:
+            log.info("source.remote_offline_dropped", topics=sorted(t for _, t in self._offline))
+        self._offline.clear()
 
     def forget_sent(self) -> None:
         """After a (re)connection: every source's state is due again."""
