@@ -18,7 +18,8 @@ PREFIX = "roomloop/quillby-green-hall"
 ZONES = ("small-hall", "meeting-room", "kitchen")
 
 
-WANTED = {f"{PREFIX}/status", *(f"{PREFIX}/zone/{zone}/state" for zone in ZONES)}
+SOURCE = f"{PREFIX}/source/boiler/state"
+WANTED = {f"{PREFIX}/status", SOURCE, *(f"{PREFIX}/zone/{zone}/state" for zone in ZONES)}
 
 
 async def _retained(host: str, port: int) -> dict[str, bytes]:
@@ -69,3 +70,7 @@ async def test_demo_publishes_to_the_broker(mosquitto: Any) -> None:
         state = json.loads(retained[f"{PREFIX}/zone/{zone}/state"])
         assert state["setpoint"] == pytest.approx(20.0)  # comfort after the program's switch
         assert state["level"] == "comfort"
+    # the shared boiler publishes its own state; it serves the floor and the radiators only
+    boiler = json.loads(retained[SOURCE])
+    assert boiler["source"] == "boiler" and boiler["kind"] == "boiler"
+    assert set(boiler["calling"]) <= {"small-hall", "meeting-room"}

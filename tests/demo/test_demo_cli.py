@@ -95,7 +95,7 @@ def _assert_short_run(out: str, plot: Path) -> None:
     # Every output in its safe state at the end, read from the plant server's coils.
     assert (
         "outputs at stop (coils read from the plant server): small-hall off, meeting-room off, "
-        "kitchen off: every output in its safe state" in out
+        "kitchen off, boiler off, its pump off: every output in its safe state" in out
     )
     rows = _summary_rows(out)
     assert set(rows) == set(ZONES)
@@ -107,8 +107,25 @@ def _assert_short_run(out: str, plot: Path) -> None:
         assert float(ca) >= 0 and float(cph) >= 0 and float(kwh) > 0
     # Minutes in fail-safe: the silence lasts 20 min, fail-safe starts after the 5 min timeout.
     assert float(rows["meeting-room"][6]) >= 5
+    _assert_boiler(out)
     assert plot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert f"plot written to {plot}" in out
+
+
+def _assert_boiler(out: str) -> None:
+    """The shared boiler fired for its zones only once a valve had been open 180 s (the
+    boiler's valve opening time), as the coils on the plant server show."""
+    first = re.search(
+        r"boiler: fires for ([a-z, -]+), (\d+\.\d) min after ([a-z-]+)'s valve opened", out
+    )
+    assert first is not None, "no first start of the boiler"
+    assert set(first.group(1).split(", ")) <= {"small-hall", "meeting-room"}
+    assert float(first.group(2)) >= 3.0
+    summary = re.search(r"^boiler \(small-hall, meeting-room\): (\d+) starts", out, re.M)
+    assert summary is not None and int(summary.group(1)) >= 1
+    waits = re.search(r"each start came (\d+\.\d)(?: to (\d+\.\d))? min after", out)
+    assert waits is not None and float(waits.group(1)) >= 3.0
+    assert re.search(r"^\[\d\d:\d\d\] boiler +(FIRING|off) +pump (ON|off)", out, re.M)
 
 
 @pytest.mark.parametrize(
@@ -153,7 +170,7 @@ def test_a_signal_stops_cleanly_with_outputs_safe(signum: signal.Signals, said: 
     assert "demo stopped early" in out
     assert (
         "outputs at stop (coils read from the plant server): small-hall off, meeting-room off, "
-        "kitchen off: every output in its safe state" in out
+        "kitchen off, boiler off, its pump off: every output in its safe state" in out
     )
     assert set(_summary_rows(out)) == set(ZONES)
     assert "Traceback" not in err

@@ -11,6 +11,7 @@ from roomloop.cli.demo import parse_broker
 from roomloop.clock import VirtualClock
 from roomloop.demo.plant_server import STEP_S, PlantServer, PlantTrace
 from roomloop.demo.runner import demo_site, disagreement_s
+from roomloop.demo.sources import wire_sources
 from roomloop.demo.timeline import SILENCE_MIN_S, Timeline
 from roomloop.io.modbus import ModbusLink
 from roomloop.plant.loader import load_plant
@@ -128,3 +129,28 @@ def test_a_run_stopped_early_has_no_figures_for_the_windows_it_did_not_reach() -
     assert "the comfort stretch: not reached (the run stopped at 08:00)" in text
     partial = "after the 07:00 switch until 12:36: partial, only 07:00-08:00 ran (60 of 336 min)"
     assert partial in text
+
+
+def test_boiler_record_times_the_valve_wait_and_the_pump_overrun() -> None:
+    """The demo's boiler account from coil readings: a start 190 s after the first call, a
+    stop 840 s later, the pump off 180 s after that (numbers chosen here, by hand)."""
+    site = demo_site(1502, "/tmp/unused")
+    plants = {z.name: load_plant(z.heating) for z in site.zones}
+    server = PlantServer(site, plants, VirtualClock(), outdoor_c=2.0, start_room_c=18.0)
+    boiler = wire_sources(site, server)["boiler"]
+    assert set(server.gates) == {"small-hall", "meeting-room"}  # the kitchen is electric
+    boiler.zone_decided("meeting-room", True, 100.0)
+    assert boiler.coils(False, False, 150.0) == []  # its valve is still opening
+    (fired,) = boiler.coils(True, True, 290.0)
+    assert "fires for meeting-room, 3.2 min after meeting-room's valve opened" in fired
+    boiler.zone_decided("meeting-room", False, 1100.0)
+    (stopped,) = boiler.coils(False, True, 1130.0)
+    assert "stops, no zone calls any more (it fired 14.0 min)" in stopped
+    assert boiler.coils(False, True, 1200.0) == []  # the pump runs on
+    (pump,) = boiler.coils(False, False, 1310.0)
+    assert "pump stops 3.0 min after the boiler" in pump
+    assert (boiler.waits, boiler.overruns, boiler.fired_s) == ([190.0], [180.0], 840.0)
+    summary = boiler.summary(1.0)
+    assert "1 starts in 1.0 h" in summary
+    assert "each start came 3.2 min after the first valve opened" in summary
+    assert "ran on 3.0 min after each of its 1 stops" in summary

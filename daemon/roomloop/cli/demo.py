@@ -286,6 +286,8 @@ def _report(result: DemoResult, out: TextIO) -> bool:
     relays = ", ".join(
         f"{zone} {'on' if on else 'off'}" for zone, on in result.relays_at_stop.items()
     )
+    for name, (enable, pump) in result.sources_at_stop.items():
+        relays += f", {name} {'on' if enable else 'off'}, its pump {'on' if pump else 'off'}"
     safe = result.outputs_safe
     verdict = "every output in its safe state" if safe else "NOT every output in its safe state"
     out.write(f"outputs at stop (coils read from the plant server): {relays}: {verdict}\n\n")
@@ -299,6 +301,8 @@ def _report(result: DemoResult, out: TextIO) -> bool:
     comfort = result.site.zones[0].setpoints.comfort
     stopped_at = None if result.completed else result.timeline.start + result.simulated_s
     out.write(format_summary(result.summaries, result.timeline, tz, comfort, stopped_at) + "\n")
+    for source in result.sources.values():
+        out.write(source.summary(hours) + "\n")
     out.flush()
     return safe
 

@@ -17,6 +17,12 @@ reports a dead device behind it: every request gets Modbus exception 11
 Every step is recorded (:class:`PlantTrace`): the true room-air temperature
 (the figures are computed from it, never from the sensor), the sensor value and
 the relay state held over the step.
+
+A zone served by a heat source gets heat only while its relay (its valve) is on
+*and* the source's enable coil is on: :meth:`PlantServer.gate` names that coil,
+on this server or on another one in the same process (a source on another
+daemon). :meth:`PlantServer.watch` records any other coil step by step (a
+source's enable and pump outputs) in :attr:`PlantServer.watched`.
 """
 
 from __future__ import annotations
@@ -38,6 +44,7 @@ STEP_S = 10.0
 LOOPBACK = "127.0.0.1"
 START_TIMEOUT_S = 10.0
 FC_COILS = 1
+FC_WRITE_COILS = (5, 15)
 FC_INPUT_REGISTERS = 4
 REGISTERS_PER_UNIT = 64
 COILS_PER_UNIT = 64
@@ -55,6 +62,20 @@ class PlantTrace:
     room_c: list[float] = field(default_factory=list)
     sensor_c: list[float] = field(default_factory=list)
     relay: list[bool] = field(default_factory=list)
+    heat: list[bool] = field(default_factory=list)
+    """Heat delivered over the step: the relay, and the serving source's enable if gated."""
+
+
+@dataclass(frozen=True, slots=True)
+class CoilRef:
+    """One coil of a plant server: a source's enable or pump output."""
+
+    server: PlantServer
+    unit_id: int
+    address: int
+
+    async def read(self) -> bool:
+        return await self.server.coil(self.unit_id, self.address)
 
 
 @dataclass
@@ -134,7 +155,15 @@ class PlantServer:
         self.units = sorted(
             {z.sensor.unit_id for z in self.zones} | {z.relay.unit_id for z in self.zones}
         )
+        self._relay_units = sorted({z.relay.unit_id for z in self.zones})
         self.silent_units: set[int] = set()
+        self.gates: dict[str, CoilRef] = {}
+        """Zone -> the coil of the source that must be on for the zone to get heat."""
+        self.watching: dict[str, CoilRef] = {}
+        self.coil_changes: dict[tuple[int, int], tuple[float, bool]] = {}
+        """(unit, address) -> (clock time, value) of the last client write that changed it."""
+        self.watched: dict[str, list[bool]] = {}
+        """Each watched coil's state per recorded step (aligned with the traces)."""
         self.started_at: float | None = None
         """Simulated time of the first step (POSIX seconds); traces count from it."""
         self._time = 0.0
@@ -164,20 +193,37 @@ class PlantServer:
         """The action of one unit: silent units answer with gateway exception 11."""
 
         async def action(
-            _function_code: int,
+            function_code: int,
             _start: int,
-            _address: int,
+            address: int,
             _count: int,
             _registers: Any,
-            _values: Any,
+            values: Any,
         ) -> Any:
-            if self._local or unit not in self.silent_units:
+            if self._local:
+                return None
+            if unit not in self.silent_units:
+                if function_code in FC_WRITE_COILS and values:
+                    self._note_coil_writes(unit, address, [bool(v) for v in values])
                 return None
             from pymodbus.constants import ExcCodes
 
             return ExcCodes.GATEWAY_NO_RESPONSE
 
         return action
+
+    def _note_coil_writes(self, unit: int, address: int, values: list[bool]) -> None:
+        now = self.clock.now()
+        for offset, value in enumerate(values):
+            key = (unit, address + offset)
+            last = self.coil_changes.get(key)
+            if (last[1] if last is not None else False) != value:
+                self.coil_changes[key] = (now, value)
+
+    def changed_at(self, unit_id: int, address: int) -> float | None:
+        """When a client's write last changed that coil (clock time), or None: never."""
+        last = self.coil_changes.get((unit_id, address))
+        return None if last is None else last[0]
 
     async def start(self) -> None:
         """Listen on 127.0.0.1:``port``; write the first sensor readings before anyone asks."""
@@ -217,13 +263,27 @@ class PlantServer:
 
     # ------------------------------------------------------------------ plants
 
+    async def coil(self, unit_id: int, address: int) -> bool:
+        """A coil's state as the server holds it now."""
+        return bool((await self._get(unit_id, FC_COILS, address, 1))[0])
+
+    def gate(self, zone: str, server: PlantServer, unit_id: int, address: int) -> None:
+        """From now on ``zone`` gets heat only while that coil (its source's enable) is on."""
+        self.zone(zone)  # a KeyError for a zone this server does not simulate
+        self.gates[zone] = CoilRef(server, unit_id, address)
+
+    def watch(self, name: str, unit_id: int, address: int) -> None:
+        """Record this server's coil ``unit_id``/``address`` per step as ``watched[name]``."""
+        self.watching[name] = CoilRef(self, unit_id, address)
+        self.watched[name] = []
+
     async def relays(self) -> dict[str, bool]:
         """Each zone's coil as the server holds it now (what the plant heats with)."""
-        out: dict[str, bool] = {}
-        for z in self.zones:
-            bits = await self._get(z.relay.unit_id, FC_COILS, z.relay.address, 1)
-            out[z.name] = bool(bits[0]) == (z.relay.on_value == 1)
-        return out
+        coils = {u: await self._get(u, FC_COILS, 0, COILS_PER_UNIT) for u in self._relay_units}
+        return {
+            z.name: bool(coils[z.relay.unit_id][z.relay.address]) == (z.relay.on_value == 1)
+            for z in self.zones
+        }
 
     async def _publish_sensors(self) -> None:
         for z in self.zones:
@@ -236,17 +296,26 @@ class PlantServer:
         if now < self._time + STEP_S:
             return
         relays = await self.relays()
+        coils: dict[CoilRef, bool] = {}
+        for ref in {*self.gates.values(), *self.watching.values()}:
+            coils[ref] = await ref.read()
+        gates = {zone: coils[ref] for zone, ref in self.gates.items()}
+        watched = {name: coils[ref] for name, ref in self.watching.items()}
         assert self.started_at is not None
         while self._time + STEP_S <= now:
             for z in self.zones:
                 on = relays[z.name]
+                heat = on and gates.get(z.name, True)
                 trace = z.trace
                 trace.time_s.append(self._time - self.started_at)
                 trace.room_c.append(z.plant.room_c)
                 trace.sensor_c.append(z.sensor_c)
                 trace.relay.append(on)
-                z.plant.advance(STEP_S, on)
+                trace.heat.append(heat)
+                z.plant.advance(STEP_S, heat)
                 z.sensor_c = z.plant.read_sensor()
+            for name, state in watched.items():
+                self.watched[name].append(state)
             self._time += STEP_S
         await self._publish_sensors()
 

@@ -42,10 +42,13 @@ def write_demo_plot(result: DemoResult, path: str | os.PathLike[str]) -> None:
     timeline = result.timeline
     tz = ZoneInfo(result.site.site.timezone)
     zones = list(result.traces)
-    # per zone: temperatures on a tall axis, the relay on its own strip below it
+    sources = [n for n in result.sources if f"{n}:enable" in result.watched]
+    # per zone: temperatures on a tall axis, the relay on its own strip below it; then a
+    # strip per heat source (its enable and its pump)
     fig, axes = plt.subplots(
-        2 * len(zones), 1, figsize=(12, 3.6 * len(zones)), sharex=True,
-        gridspec_kw={"height_ratios": [4, 1] * len(zones)},
+        2 * len(zones) + len(sources), 1,
+        figsize=(12, 3.6 * len(zones) + 1.2 * len(sources)), sharex=True,
+        gridspec_kw={"height_ratios": [4, 1] * len(zones) + [1.2] * len(sources)},
     )
 
     def clock(at: float) -> dt.datetime:
@@ -92,6 +95,26 @@ def write_demo_plot(result: DemoResult, path: str | os.PathLike[str]) -> None:
         heating = next(s.heating for s in result.summaries if s.zone == name)
         ax.set_title(f"{name} ({heating})", fontsize=10, loc="left")
         ax.legend(loc="lower right", fontsize=8)
+    first = next(iter(result.traces.values()))
+    steps = [clock(result.started_at + s) for s in first.time_s]
+    for offset, name in enumerate(sources):
+        ax = axes[2 * len(zones) + offset]
+        enable = result.watched[f"{name}:enable"][: len(steps)]
+        pump = result.watched.get(f"{name}:pump", [])[: len(steps)]
+        ax.fill_between(
+            steps[: len(enable)], [1.0 if on else 0.0 for on in enable], step="post",
+            color="tab:orange", lw=0, label=f"{name} firing",
+        )
+        if pump:
+            ax.plot(
+                steps[: len(pump)], [0.5 if on else 0.0 for on in pump], drawstyle="steps-post",
+                color="tab:blue", lw=1.0, label="pump (overrun after each stop)",
+            )
+        ax.set_ylim(0, 1.05)
+        ax.set_yticks([])
+        ax.set_ylabel(name)
+        ax.legend(loc="upper right", fontsize=8)
+        ax.axvline(clock(timeline.switch_at), color="tab:blue", lw=0.8, ls=":")
     axes[-1].xaxis.set_major_formatter(mdates.DateFormatter("%H:%M", tz=tz))  # type: ignore[no-untyped-call]
     axes[-1].set_xlabel(
         f"site time ({tz.key}), as in the text log (dotted: program switch; red: fail-safe)"

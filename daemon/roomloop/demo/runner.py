@@ -36,6 +36,13 @@ from roomloop.config.loader import load_yaml_document, site_from_data
 from roomloop.config.models import Site
 from roomloop.core.types import ZoneOutputs
 from roomloop.demo.plant_server import STEP_S, PlantServer, PlantTrace, free_port
+from roomloop.demo.sources import (
+    OutputsOf,
+    SourceRecord,
+    read_coils,
+    switch_times,
+    wire_sources,
+)
 from roomloop.demo.summary import ZoneSummary, clock_text, summarize_zone
 from roomloop.demo.timeline import Timeline
 from roomloop.errors import RoomloopError
@@ -124,6 +131,12 @@ class DemoResult:
     traces: dict[str, PlantTrace]
     records: dict[str, ZoneRecord]
     started_at: float
+    sources: dict[str, SourceRecord] = field(default_factory=dict)
+    """The site's heat sources (the boiler), as their coils went."""
+    sources_at_stop: dict[str, tuple[bool, bool]] = field(default_factory=dict)
+    """Each source's (enable, pump) coils after the service stopped; off is their safe state."""
+    watched: dict[str, list[bool]] = field(default_factory=dict)
+    """The sources' coils per plant step (``NAME:enable``, ``NAME:pump``), for the plot."""
 
     def relay_disagreement_s(self, zone: str) -> float:
         """Simulated seconds the zone's coil differed from the service's decision (see
@@ -132,7 +145,8 @@ class DemoResult:
 
     @property
     def outputs_safe(self) -> bool:
-        return all(self.relays_at_stop.get(z) == on for z, on in self.safe_on.items())
+        zones = all(self.relays_at_stop.get(z) == on for z, on in self.safe_on.items())
+        return zones and not any(e or p for e, p in self.sources_at_stop.values())
 
 
 DISAGREEMENT_GRACE_S = 30.0
@@ -252,6 +266,8 @@ class _Demo:
         self.timeline: Timeline | None = None
         self.all_decided = asyncio.Event()
         self._server: PlantServer | None = None
+        self.sources: dict[str, SourceRecord] = {}
+        self.outputs_of: OutputsOf = lambda _name: None
 
     def say(self, at: float, text: str) -> None:
         self.observer.event(at, f"[{clock_text(at, self.tz)}] {text}")
@@ -267,6 +283,9 @@ class _Demo:
         if not record.decisions or record.decisions[-1][1] != o.demand:
             record.decisions.append((report.at, o.demand))
         record.last = report
+        for source in self.sources.values():
+            if report.zone in source.calling:
+                source.zone_decided(report.zone, o.demand, report.at)
         if prev is None:
             if all(r.last is not None for r in self.records.values()):
                 self.all_decided.set()
@@ -392,9 +411,13 @@ class _Demo:
         if self.options.broker is not None:
             host, port = self.options.broker
             self.say(timeline.start, f"publishing to the broker at {host}:{port} as 'run' does")
+        self.sources = wire_sources(site, server)
         service = Service(site, clock=clock, state_dir=state_dir, on_tick=self.on_tick)
+        loops = service.sources.sources
+        self.outputs_of = lambda name: loops[name].outputs if name in loops else None
         service_stop = asyncio.Event()
         plants = asyncio.create_task(server.run(), name="demo-plants")
+        follow = asyncio.create_task(self._follow_sources(server), name="demo-sources")
         service_task = asyncio.create_task(service.run(service_stop), name="demo-service")
         log.info(
             "demo.started",
@@ -418,7 +441,7 @@ class _Demo:
                 self.say(ended_at, "demo: stopping early (interrupted)")
             await server.catch_up()
             # The plants and the view stop with the run; only the service's stop is left.
-            await _cancel(plants, scenario, refresh, stopper)
+            await _cancel(plants, scenario, refresh, stopper, follow)
             service_stop.set()
             try:
                 await wait_for(clock.io, asyncio.shield(service_task), SERVICE_STOP_S)
@@ -433,14 +456,17 @@ class _Demo:
                     + "; ".join(waiting)
                 ) from None
             relays = await server.relays()
+            sources_at_stop = {n: await read_coils(server, r) for n, r in self.sources.items()}
         finally:
-            await _cancel(plants, scenario, refresh, stopper)
+            await _cancel(plants, scenario, refresh, stopper, follow)
             if not service_task.done():
                 service_stop.set()
                 service_task.cancel()
                 # Bounded: a service that ignores cancellation must not hang the demo.
                 with contextlib.suppress(TimeoutError):
                     await wait_for(clock.io, asyncio.wait({service_task}), SERVICE_CANCEL_S)
+        for source in self.sources.values():
+            source.finish(ended_at)
         self._emit_status(server, ended_at)
         log.info(
             "demo.stopped", completed=completed, simulated_h=(ended_at - timeline.start) / 3600
@@ -473,6 +499,9 @@ class _Demo:
             traces={z.name: z.trace for z in server.zones},
             records=self.records,
             started_at=server.started_at,
+            sources=self.sources,
+            sources_at_stop=sources_at_stop,
+            watched=server.watched,
         )
 
     async def _scenario(self, server: PlantServer, unit: int) -> None:
@@ -490,9 +519,24 @@ class _Demo:
         self.say(server.clock.now(), f"{SILENT_ZONE}: its sensor answers again")
         await sleep_until(server.clock, timeline.end)
 
+    async def _follow_sources(self, server: PlantServer) -> None:
+        """Read the sources' coils every plant step; tell what changed."""
+        while True:
+            for record in self.sources.values():
+                enable, pump = await read_coils(server, record)
+                enable_at, pump_at = switch_times(server, record)
+                now = server.clock.now()
+                changes = record.coils(enable, pump, now, enable_at=enable_at, pump_at=pump_at)
+                for text in changes:
+                    self.say(now, text)
+            await server.clock.sleep(STEP_S)
+
     def _rows(self, server: PlantServer) -> list[str]:
         rooms = server.room_temperatures()
-        return [status_row(name, rooms[name], r.last) for name, r in self.records.items()]
+        rows = [status_row(name, rooms[name], r.last) for name, r in self.records.items()]
+        now = server.clock.now()
+        rows += [s.row(self.outputs_of(n), now, self.tz) for n, s in self.sources.items()]
+        return rows
 
     def _header(self, at: float) -> str:
         assert self.timeline is not None

@@ -5,7 +5,8 @@ definitions, DESIGN.md): control accuracy (EN 15500, |mean T - S| plus half the
 swing) and cycles per hour over the second half of the comfort stretch; the
 overshoot and the time to come within 0.5 K over the stretch after the
 program's switch; energy as heater power times relay-on time over the whole
-run; time in fail-safe from the service's own decisions.
+run (for a zone on a heat source, the time its relay was on while the source fired);
+time in fail-safe from the service's own decisions.
 """
 
 from __future__ import annotations
@@ -101,7 +102,8 @@ def summarize_zone(
         heater_w=heater_w,
         step_response=True,
     )
-    on_steps = sum(1 for on in trace.relay if on)
+    # heat delivered: the relay on, and for a zone on a heat source that source firing
+    on_steps = sum(1 for on in (trace.heat or trace.relay) if on)
     return ZoneSummary(
         zone=zone,
         heating=heating,
@@ -205,8 +207,8 @@ def format_summary(
         f"{score}, the second half of the comfort stretch{scored.text(tz)};",
         f"overshoot = max T - {comfort_c:g} C and reach = minutes until T came within 0.5 K, "
         f"after the {switch} switch until {end}{step.text(tz)};",
-        f"energy = heater power x relay-on time {run}. T is the simulated room air "
-        "(true value, not the sensor).",
+        f"energy = heater power x time heated {run} (relay on and, on the boiler, the boiler "
+        "firing). T is the simulated room air (true value, not the sensor).",
     ]
     if not (scored.reached and step.reached):
         lines.append(f"{NOT_REACHED} = not reached: the run stopped before that window began.")
