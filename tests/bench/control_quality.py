@@ -37,6 +37,7 @@ from roomloop.plant.protocol import (
     TICK_S,
     Mode,
     ProtocolResult,
+    cooling_outdoor_c,
     protocol_settings,
     run_protocol,
 )
@@ -241,6 +242,37 @@ def target_lines(cells: list[Cell], mark: tuple[str, str]) -> list[str]:
     return lines
 
 
+def own_swing_k(plant_name: str, cycle_rate_cph: float, duty: float) -> float:
+    """A cooling plant's own swing: the room's control variation (max - min) / 2 under an exact
+    periodic cooling call at ``cycle_rate_cph`` and on-fraction ``duty`` at the cooling
+    protocol's steady load ``duty`` (no sensor, no controller), after 12 h of settling."""
+    spec = load_plant(plant_name)
+    outdoor = cooling_outdoor_c(spec)
+    sim = PlantSimulation.at_cooling_steady_state(spec, load=duty, room_c=24.0, outdoor_c=outdoor)
+    period = 3600.0 / cycle_rate_cph
+    temps: list[float] = []
+    for k in range(round(20 * 3600 / TICK_S)):
+        t = k * TICK_S
+        sim.advance(TICK_S, False, (t % period) < duty * period)
+        if t >= 12 * 3600:
+            temps.append(sim.room_c)
+    return (max(temps) - min(temps)) / 2
+
+
+def swing_lines(cells: list[Cell]) -> list[str]:
+    """Each cooling plant's own swing at its cooling type's rate, in both load phases."""
+    lines: list[str] = []
+    for plant in plants_of(cells):
+        if plant not in COOLING_PLANTS:
+            continue
+        rate = rated_cycle_rate("cool", plant)
+        low, high = (own_swing_k(plant, rate, duty) for duty in (0.3, 0.6))
+        lines.append(
+            f"{plant}: {low:.2f} / {high:.2f} K at {rate:g} cycles/h (30 % / 60 % on)"
+        )
+    return lines
+
+
 def print_text(cells: list[Cell]) -> None:
     table = [HEADER, *rows(cells)]
     widths = [max(len(r[i]) for r in table) for i in range(len(HEADER))]
@@ -257,6 +289,12 @@ def print_text(cells: list[Cell]) -> None:
     print("Targets for roomloop's controller (issue 4), printed, not asserted:")
     for line in target_lines(cells, ("[met]   ", "[MISSED]")):
         print(line)
+    swings = swing_lines(cells)
+    if swings:
+        print()
+        print("Cooling plants' own swing (CV of an exact periodic call at the type's rate):")
+        for line in swings:
+            print(f"  {line}")
 
 
 def print_markdown(cells: list[Cell]) -> None:
