@@ -16,7 +16,12 @@ import pytest
 from scipy.optimize import brentq
 
 from roomloop.config.models import TuningInput, Zone, resolve_tuning
-from roomloop.config.presets import PRESETS, time_constant_for_cycle_rate
+from roomloop.config.presets import (
+    COMPRESSOR_MIN_OFF_S,
+    COOLING_PRESETS,
+    PRESETS,
+    time_constant_for_cycle_rate,
+)
 
 
 def test_time_constant_check_value() -> None:
@@ -190,3 +195,32 @@ def test_presets_and_models_form_no_import_cycle() -> None:
 
     assert roomloop_imports(presets) == set()
     assert "roomloop.config.presets" in roomloop_imports(models)
+
+
+@pytest.mark.parametrize("cooling", sorted(COOLING_PRESETS))
+def test_cooling_presets_satisfy_their_own_checks(cooling: str) -> None:
+    """Each cooling type passes the heating presets' checks, and a compressor rests long enough.
+
+    Compressor anti-short-cycle: at least 3-5 min off between starts (REFERENCES.md [trade]:
+    common practice, no source); 3-4 starts per hour for small compressors [trade].
+    """
+    preset = COOLING_PRESETS[cooling]
+    assert preset.anticipator_gain_k > preset.differential_k
+    assert preset.min_on_s + preset.min_off_s <= 3600.0 / preset.cycle_rate_cph
+    assert preset.max_cycles_per_hour >= preset.cycle_rate_cph
+    if cooling == "direct-expansion":
+        assert preset.min_off_s >= COMPRESSOR_MIN_OFF_S >= 180.0
+        assert preset.max_cycles_per_hour <= 4
+    zone = Zone.model_validate(
+        {"name": "z", "inputs": ["t"], "output": "h", "heating": "forced-air",
+         "cooling": {"output": "c", "type": cooling}}
+    )
+    tuning = zone.cooling_effective
+    assert tuning is not None
+    # the time constant is derived with the heating formula: on = off = 1800 / cph at 50 %
+    on = tuning.anticipator_time_constant_s * math.log(
+        (preset.anticipator_gain_k + preset.differential_k)
+        / (preset.anticipator_gain_k - preset.differential_k)
+    )
+    assert on == pytest.approx(1800.0 / preset.cycle_rate_cph, rel=1e-12)
+    assert zone.cooling_origins["anticipator_time_constant_s"] == "derived from cycle rate"

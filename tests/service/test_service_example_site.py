@@ -42,6 +42,8 @@ WAIT_S = 25.0
 # program's level does not matter), except the showroom, well above its comfort.
 COLD_C = {"workshop-air": 4.0, "workshop-bench": 4.0, "office-temp": 3.5, "finishing-temp": 3.0}
 WARM_SHOWROOM_C = 30.0
+WARM_STUDIO_C = 30.0
+"""The heat-pump studio: above its cooling set point at every level (24, 26, 28 C): it cools."""
 
 
 def _rewritten_example(
@@ -195,11 +197,12 @@ async def test_the_example_site_runs_against_real_peers(
 
         # Modbus sensors, encoded from the example's own point definitions.
         servers = {"shop-bus": rtu, "office-io": tcp}
-        for name in ("workshop-air", "workshop-bench", "office-temp"):
+        for name, celsius in (*COLD_C.items(), ("studio-temp", WARM_STUDIO_C)):
             point = points[name]
-            assert isinstance(point, ModbusInput)
+            if not isinstance(point, ModbusInput):
+                continue
             await servers[point.link].set_registers(
-                point.table, point.address, encode_point(point, COLD_C[name]), unit=point.unit_id
+                point.table, point.address, encode_point(point, celsius), unit=point.unit_id
             )
         # Cross-check of encode_point: the example says int16, scale 0.1, so 4.0 C -> 40
         # (computed from the example file).
@@ -237,7 +240,7 @@ async def test_the_example_site_runs_against_real_peers(
                 await watcher.wait_for(lambda: watcher.text("status") == "online", WAIT_S)
 
                 zones = [zone.name for zone in site.zones]
-                assert zones == ["workshop", "office", "showroom", "finishing"]
+                assert zones == ["workshop", "office", "showroom", "finishing", "studio"]
                 topics = [f"{prefix}/zone/{zone}/state" for zone in zones]
                 await watcher.wait_for(lambda: all(t in watcher.latest for t in topics), WAIT_S)
                 # The watcher may have subscribed before the first publish: reconnect to
@@ -255,6 +258,23 @@ async def test_the_example_site_runs_against_real_peers(
                         assert time.monotonic() < deadline, f"{name} coil not on in {WAIT_S} s"
                         await asyncio.sleep(0.05)
                 await _until(lambda: "ON" in relay.commands, WAIT_S, "finishing-heater ON")
+                # The warm heat-pump studio cools: its changeover output (energised in
+                # cooling) first, then after its hold time the cooling call; no heat.
+                deadline = time.monotonic() + WAIT_S
+                while await tcp.get_coils(12, 3, unit=1) != [False, True, True]:
+                    coils = await tcp.get_coils(12, 3, unit=1)
+                    assert not coils[0], "the warm studio must not heat"
+                    assert not coils[1] or coils[2], "cooling before the changeover output"
+                    assert service.died() is None, service.died()
+                    assert time.monotonic() < deadline, f"studio not cooling in {WAIT_S} s"
+                    await asyncio.sleep(0.05)
+                await watcher.wait_for(
+                    lambda: (watcher.state("studio") or {}).get("call") == "cool", WAIT_S
+                )
+                studio = watcher.state("studio")
+                assert studio is not None and studio["changeover"] == "auto"
+                # both set points published, the ASHRAE 90.1 dead band (3 K) between them
+                assert studio["cooling_setpoint"] - studio["setpoint"] >= 3.0
                 for zone in ("workshop", "office", "finishing"):
                     await watcher.wait_for(_shows(watcher, zone, "demand", True), WAIT_S)
                 # Each zone shows its sensor as the example's point definitions decode it.
@@ -277,5 +297,6 @@ async def test_the_example_site_runs_against_real_peers(
             assert code == 0, service.log_path.read_text(errors="replace")[-2000:]
             assert await rtu.get_coils(0, 1, unit=5) == [False]
             assert await tcp.get_coils(8, 2, unit=1) == [False, False]
+            assert await tcp.get_coils(12, 3, unit=1) == [False, False, False]
             await _until(lambda: relay.commands[-1:] == ["OFF"], WAIT_S, "finishing-heater OFF")
             await watcher.wait_for(lambda: watcher.text("status") == "offline", WAIT_S)

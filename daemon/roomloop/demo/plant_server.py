@@ -84,6 +84,8 @@ def free_port() -> int:
 def zone_points(site: Site, zone: Zone) -> tuple[ModbusInput, ModbusOutput]:
     """The zone's first input and its output, which the server must serve over Modbus."""
     sensor = site.point(zone.inputs[0])
+    if zone.output is None:
+        raise DemoSetupError(f"zone {zone.name}: the demo needs a heating output")
     relay = site.point(zone.output)
     if not isinstance(sensor, ModbusInput) or not isinstance(relay, ModbusOutput):
         raise DemoSetupError(f"zone {zone.name}: the demo needs a Modbus sensor and a Modbus relay")

@@ -56,7 +56,7 @@ from roomloop.io.mqtt import MqttPoints
 from roomloop.io.ports import InputSource
 from roomloop.service.commands import Command
 from roomloop.service.notify import Progress, notify, watchdog_interval_s
-from roomloop.service.outputs import Output, OutputWriter, SafeSink
+from roomloop.service.outputs import OutputWriter, SafeSink, outputs_as_found, zone_outputs
 from roomloop.service.persist import StateStore
 from roomloop.service.persistence import Persistence, restore_states
 from roomloop.service.publisher import StatePublisher, ZoneView
@@ -117,7 +117,7 @@ class Service:
         self.links, self.mqtt_points, sources, sinks = self._build_io()
         self.outputs = OutputWriter(
             self.clock,
-            [Output(z.name, z.output, z.safe_state == "on") for z in site.zones],
+            [output for z in site.zones for output in zone_outputs(z)],
             sinks,
             before_write=self._journal_switch,
         )
@@ -214,7 +214,8 @@ class Service:
                 zone, restored.settings, restored.controller, restored.state, self.tz,
                 calendar=self.site.calendar_for(name),
             )
-            self.outputs.hold_as_found(zone.output, restored.state.relay_on)
+            for point, on in outputs_as_found(zone, restored.state):
+                self.outputs.hold_as_found(point, on)
             self.persistence.saved_as(name, restored.state)
 
     async def _journal_switch(self, zone: str, point: str, on: bool) -> None:
@@ -342,7 +343,8 @@ class Service:
     def _publish_step(self, report: TickReport) -> None:
         """The zone's step as the publisher shows it; wakes the publish task."""
         runtime = self.zones[report.zone]
-        point = runtime.zone.output
+        zone = runtime.zone
+        point = zone.output if zone.output is not None else zone.cooling.output  # type: ignore[union-attr]
         out_state = self.outputs.state(point)
         # whether the read-back agrees with what was written (None: not known, no read-back)
         agrees = {"ok": True, "mismatch": False}.get(out_state.verdict) if out_state else None

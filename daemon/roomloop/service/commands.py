@@ -32,7 +32,9 @@ from roomloop.units import from_celsius, to_celsius
 
 log = structlog.get_logger("roomloop.service")
 
-FIELDS = ("setpoint", "mode", "level", "hold_until")
+FIELDS = ("setpoint", "mode", "level", "hold_until", "changeover", "cooling_setpoint")
+"""The command fields (``changeover`` and ``cooling_setpoint`` for a zone with a cooling call:
+the core refuses them for any other)."""
 MAX_PAYLOAD_BYTES = 1024
 RESULT = "result"
 
@@ -155,16 +157,16 @@ def parse_command(
     if field not in FIELDS:
         return Command(zone.name, field, None)  # the core refuses it, naming the fields
     value = _payload_value(payload)
-    if field == "setpoint":
-        return Command(zone.name, field, to_celsius(_number(value, "setpoint"), units))
-    if field in ("mode", "level"):
+    if field in ("setpoint", "cooling_setpoint"):
+        return Command(zone.name, field, to_celsius(_number(value, field), units))
+    if field in ("mode", "level", "changeover"):
         return Command(zone.name, field, value)
     return Command(zone.name, field, parse_time(value, tz))
 
 
 def shown_value(command: Command, *, units: str, tz: ZoneInfo) -> Any:
     """The accepted value as the user sees it: the site's units, local ISO 8601 time."""
-    if command.field == "setpoint":
+    if command.field in ("setpoint", "cooling_setpoint"):
         return round(from_celsius(float(command.value), units), 2)
     if command.field == "hold_until":
         if command.value is None:

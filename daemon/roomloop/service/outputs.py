@@ -26,6 +26,9 @@ from typing import Protocol
 import structlog
 
 from roomloop.clock import Clock, wait_tasks
+from roomloop.config.models import Zone
+from roomloop.core.state import ZoneState
+from roomloop.core.types import ZoneOutputs
 from roomloop.io.ports import OutputState
 
 log = structlog.get_logger("roomloop.service")
@@ -66,6 +69,51 @@ class Output:
     zone: str
     point: str
     safe_on: bool
+
+
+def zone_outputs(zone: Zone) -> list[Output]:
+    """A zone's outputs with their safe states: the heating output (its configured safe
+    state), the cooling output (always off: the safe stop of cooling) and the changeover
+    output (de-energised; it moves only while both calls are off, and at a stop both are)."""
+    found: list[Output] = []
+    if zone.output is not None:
+        found.append(Output(zone.name, zone.output, zone.safe_state == "on"))
+    if zone.cooling is not None:
+        found.append(Output(zone.name, zone.cooling.output, False))
+    if zone.changeover.output is not None:
+        found.append(Output(zone.name, zone.changeover.output, False))
+    return found
+
+
+def outputs_as_found(zone: Zone, state: ZoneState) -> list[tuple[str, bool]]:
+    """Each of a zone's outputs as its resumed state has it (held so until the zone decides)."""
+    found: list[tuple[str, bool]] = []
+    if zone.output is not None:
+        found.append((zone.output, state.relay_on))
+    c = state.cooling
+    if zone.cooling is not None:
+        found.append((zone.cooling.output, c is not None and c.relay_on))
+    if zone.changeover.output is not None:
+        energised = (
+            c is not None
+            and c.valve is not None
+            and c.valve == (zone.changeover.energised_in == "cooling")
+        )
+        found.append((zone.changeover.output, energised))
+    return found
+
+
+def zone_wants(zone: Zone, outputs: ZoneOutputs) -> list[tuple[str, bool]]:
+    """What a zone's step wants of each of its outputs (the changeover output once set)."""
+    wants: list[tuple[str, bool]] = []
+    if zone.output is not None:
+        wants.append((zone.output, outputs.demand))
+    cooling = outputs.cooling
+    if cooling is not None and zone.cooling is not None:
+        wants.append((zone.cooling.output, cooling.demand))
+        if zone.changeover.output is not None and cooling.changeover_output is not None:
+            wants.append((zone.changeover.output, cooling.changeover_output))
+    return wants
 
 
 class OutputWriter:

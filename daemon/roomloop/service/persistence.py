@@ -71,7 +71,8 @@ def restore_states(
             saved.get(zone.name),
             now,
             zone=zone.name,
-            relay_on=relays.get(zone.output),
+            relay_on=False if zone.output is None else relays.get(zone.output),
+            cooling_on=None if zone.cooling is None else relays.get(zone.cooling.output),
             safe_on=zone.safe_state == "on",
         )
         zones[zone.name] = RestoredZone(settings, controller, state)

@@ -83,7 +83,31 @@ class ZoneView:
 
 
 def state_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, Any]:
-    """The retained state JSON of one zone."""
+    """The retained state JSON of one zone (with the cooling keys when the zone can cool)."""
+    payload = _heating_payload(view, units=units, tz=tz)
+    cooling = view.outputs.cooling
+    if cooling is not None:
+        payload.update(
+            {
+                "changeover": cooling.changeover,
+                "cooling_setpoint": _abs(cooling.setpoint, units),
+                "call": cooling.call,
+                "cooling": {
+                    "demand": cooling.demand,
+                    "reason": cooling.reason,
+                    "side": cooling.side,
+                    "changeover_output": cooling.changeover_output,
+                    "anticipator": _delta(cooling.anticipator_k, units),
+                    "droop": _delta(cooling.droop_k, units),
+                    "on_fraction_1h": round(cooling.on_fraction_1h, 3),
+                    "cycles_1h": cooling.cycles_1h,
+                },
+            }
+        )
+    return payload
+
+
+def _heating_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, Any]:
     out = view.outputs
     return {
         "zone": view.zone,
@@ -145,6 +169,13 @@ def _significant(payload: dict[str, Any]) -> str:
     }
     if isinstance(keep.get("temperature"), float):
         keep["temperature"] = round(keep["temperature"], 1)
+    cooling = keep.get("cooling")
+    if isinstance(cooling, dict):
+        keep["cooling"] = {
+            k: v
+            for k, v in cooling.items()
+            if k not in ("anticipator", "droop", "on_fraction_1h")
+        }
     return json.dumps(keep, sort_keys=True)
 
 

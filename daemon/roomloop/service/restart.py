@@ -24,6 +24,7 @@ from typing import Any
 import structlog
 
 from roomloop.core.controller import ZoneController
+from roomloop.core.dual import DualZoneController
 from roomloop.core.state import StateFormatError, ZoneState, check_for_zone
 from roomloop.io.modbus import ModbusLink
 
@@ -76,6 +77,7 @@ def restore_zone(
     zone: str,
     relay_on: bool | None,
     safe_on: bool,
+    cooling_on: bool | None = None,
 ) -> ZoneState:
     """The zone's state at start: the saved one (JSON-like ``saved``) if valid, else fresh.
 
@@ -99,4 +101,6 @@ def restore_zone(
         else:
             log.info("persist.zone_restored", zone=zone, mode=loaded.mode)
             state = loaded
+    if isinstance(controller, DualZoneController):
+        return controller.resume(state, now, relay_on, safe_on=safe_on, cooling_on=cooling_on)
     return controller.resume(state, now, relay_on, safe_on=safe_on)

@@ -29,6 +29,7 @@ from roomloop.io.ports import InputSource
 from roomloop.service.events import zone_events
 from roomloop.service.notify import Progress
 from roomloop.service.optimum_start import OptimumStartProgram, outdoor_value
+from roomloop.service.outputs import zone_outputs, zone_wants
 from roomloop.service.program import Switch
 
 log = structlog.get_logger("roomloop.service")
@@ -140,7 +141,8 @@ class ZoneRunner:
         runtime = self.zones.get(zone)
         if runtime is not None:
             runtime.decided = False
-            self.outputs.hold_safe(runtime.zone.output)
+            for output in zone_outputs(runtime.zone):
+                self.outputs.hold_safe(output.point)
 
     outdoor_point: tuple[str, float] | None = None
     """The site's outdoor point and its ``stale_after_s`` (optimum start), if it has one."""
@@ -195,7 +197,11 @@ class ZoneRunner:
                 getattr(log, event.level)(event.event, **event.fields)
             runtime.steps += 1
             runtime.decided = True
-            self.outputs.want(zone.output, outputs.demand)
+            if zone.cooling is None and zone.output is not None:
+                self.outputs.want(zone.output, outputs.demand)
+            else:
+                for point, on in zone_wants(zone, outputs):
+                    self.outputs.want(point, on)
             self._after_step(TickReport(runtime.name, now, outputs, runtime.state, next_change))
             self.progress.beat(name)
             runtime.wake.clear()

@@ -1,0 +1,131 @@
+"""End to end: a heat-pump zone with a heating, a cooling and a changeover output.
+
+Real parts: a pymodbus TCP server holds the room's temperature register and the three coils
+(heating 0, cooling 1, changeover 2); the service runs in-process on a virtual clock
+(roomloop/clock.py), as the other in-process service tests do. The test plays the room:
+warm first, then cold, and records every coil change as the server saw it, so the order
+of the switchings is what the device saw.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import contextlib
+from pathlib import Path
+from typing import Any
+
+import yaml
+from service_rooms import running, site_yaml, until
+
+from roomloop.clock import VirtualClock
+from roomloop.config.loader import load_site
+from roomloop.service.app import Service, TickReport
+
+HEAT, COOL, VALVE = 0, 1, 2
+HOLD_S = 30.0
+CHANGEOVER_S = 120.0
+
+
+def heat_pump_site(tmp_path: Path, port: int) -> Any:
+    data = site_yaml(modbus_port=port, broker_port=1)
+    del data["broker"]
+    data["points"] += [
+        {"name": "cool0", "type": "modbus-output", "link": "rooms", "address": COOL},
+        {"name": "valve0", "type": "modbus-output", "link": "rooms", "address": VALVE},
+    ]
+    data["zones"][0].update(
+        {
+            "heating": "forced-air",
+            "cooling": {
+                "output": "cool0",
+                "type": "direct-expansion",
+                "setpoints": {"comfort": 24, "standby": 25, "economy": 26},
+            },
+            "changeover": {
+                "mode": "auto",
+                "output": "valve0",
+                "energised_in": "cooling",
+                "hold_s": HOLD_S,
+                "min_changeover_s": CHANGEOVER_S,
+            },
+        }
+    )
+    path = tmp_path / "site.yaml"
+    path.write_text(yaml.safe_dump(data))
+    return load_site(path)
+
+
+async def test_warm_room_cools_and_cold_room_heats_with_the_changeover_output_switched_first(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    clock = VirtualClock()
+    server = await modbus_tcp_server()
+    site = heat_pump_site(tmp_path, server.port)
+    ticks: list[TickReport] = []
+    service = Service(site, clock=clock, state_dir=tmp_path / "state", on_tick=ticks.append)
+    room = {"temperature": 27.0, "target": 27.0}
+    changes: list[tuple[float, int, bool]] = []
+
+    async def play_room() -> None:
+        last = [False, False, False]
+        while True:
+            # the room drifts toward its target at 1 K/min (a plausible rate for the sensor
+            # checks, core/reliability.py, which flag a jump of several kelvin as implausible)
+            step = max(-1 / 60, min(1 / 60, room["target"] - room["temperature"]))
+            room["temperature"] += step
+            await server.set_registers("input", 0, [round(room["temperature"] * 10)])
+            coils = await server.get_coils(0, 3)
+            for i, (was, now_on) in enumerate(zip(last, coils, strict=True)):
+                if was != now_on:
+                    changes.append((clock.monotonic(), i, now_on))
+            last = list(coils)
+            await clock.sleep(1.0)
+
+    def on(coil: int) -> bool:
+        state = False
+        for _, i, value in changes:
+            if i == coil:
+                state = value
+        return state
+
+    def first(coil: int, value: bool, after: float = -1e18) -> float:
+        return next(t for t, i, v in changes if i == coil and v == value and t > after)
+
+    player = asyncio.create_task(play_room())
+    try:
+        async with running(service):
+            # A warm room (27 C, above the cooling comfort 24 C): the cooling call.
+            await until(clock, lambda: on(COOL), timeout_s=900)
+            assert not on(HEAT)
+            valve_on, cool_on = first(VALVE, True), first(COOL, True)
+            # The changeover output went to cooling (energised) first, and was held there
+            # for hold_s before the call started.
+            assert valve_on + HOLD_S <= cool_on + 1.0
+            assert ticks[-1].outputs.cooling is not None
+            assert ticks[-1].outputs.cooling.call == "cool"
+            # A cold room (15 C, below the heating comfort 20 C): cooling stops, the
+            # changeover output goes back to heating while both calls are off, then heat.
+            room["target"] = 15.0
+            await until(clock, lambda: on(HEAT), timeout_s=1800)
+            cool_off = first(COOL, False, after=cool_on)
+            valve_off = first(VALVE, False, after=valve_on)
+            heat_on = first(HEAT, True)
+            assert cool_off <= valve_off <= heat_on
+            assert heat_on - valve_off >= HOLD_S - 1.0
+            # the changeover time runs from the end of the cooling call (one coil poll of slack)
+            assert heat_on - cool_off >= CHANGEOVER_S - 1.0
+            assert not on(COOL)
+            assert ticks[-1].outputs.cooling is not None
+            assert ticks[-1].outputs.cooling.call == "heat"
+    finally:
+        player.cancel()
+        with contextlib.suppress(asyncio.CancelledError):
+            await player
+    # Never both calls at once, as the device saw them.
+    heat = cool = False
+    for _, i, value in changes:
+        heat = value if i == HEAT else heat
+        cool = value if i == COOL else cool
+        assert not (heat and cool)
+    # At the stop every output went to its safe state: heating, cooling, changeover off.
+    assert (await server.get_coils(0, 3)) == [False, False, False]
