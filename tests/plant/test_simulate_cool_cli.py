@@ -159,3 +159,19 @@ def test_a_site_zone_with_cooling_runs_at_its_own_cooling_setpoints(
     assert doc["setpoints_c"] == {"comfort": 23.5, "economy": 26.5}
     printed = capsys.readouterr().out
     assert "zone annex (chilled-water)" in printed and "cooling comfort 23.5" in printed
+
+
+def test_a_site_zone_that_only_cools_runs_the_cooling_variant_by_default(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    site = tmp_path / "annex.yaml"
+    site.write_text(SITE.replace("    output: annex-heat\n", ""))
+    out = tmp_path / "annex.json"
+    code = main(
+        ["simulate", "-c", str(site), "--zone", "annex", "--controller", "plain",
+         "--json", str(out)]
+    )
+    assert code == 0, capsys.readouterr().err
+    assert json.loads(out.read_text())["mode"] == "cool"
+    line = refused(capsys, "-c", str(site), "--zone", "annex", "--mode", "heat")
+    assert "zone annex only cools" in line

@@ -57,7 +57,8 @@ def _zone_settings(args: argparse.Namespace) -> tuple[ZoneSettings, str]:
 
 
 def _mode(args: argparse.Namespace) -> tuple[Mode | None, str | None]:
-    """The run's mode, or None and the reason it cannot be run."""
+    """The run's mode as the options give it (a site's zone that only cools changes the
+    default to ``cool`` later), or None and the reason it cannot be run."""
     if args.mode is None:
         return ("cool" if args.cooling is not None else "heat"), None
     mode: Mode = args.mode
@@ -113,6 +114,8 @@ def main(args: argparse.Namespace) -> int:
         return _fail(str(exc), EXIT_USAGE)
     from_site = args.config is not None
     cs = zone.cooling
+    if args.mode is None and cs is not None and not cs.heating:
+        mode = "cool"  # a site's zone that only cools runs the cooling variant by default
     if mode == "cool" and cs is None:
         return _fail(
             f"zone {zone.name} has no cooling output: --mode cool needs a zone that cools",
