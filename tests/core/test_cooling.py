@@ -300,3 +300,58 @@ def test_changeover_invariants(
         heat_on_prev, cool_on_prev, valve_prev = heat_on, cool_on, valve
         calls.add("heat" if heat_on else "cool" if cool_on else "none")
     event(f"calls: {', '.join(sorted(calls))}")
+
+
+def test_too_warm_is_judged_against_the_cooling_set_point() -> None:
+    """A room in the dead band (between heating 21 C and cooling 24 C) raises no alarm; 2 K
+    above the cooling set point for 10 min does (ASHRAE Guideline 36 zone alarm numbers, the
+    alarms' defaults [published])."""
+    from roomloop.core.alarms import AlarmInputs, AlarmSettings, AlarmState, evaluate
+
+    alarm_settings = AlarmSettings()
+
+    def raised(temperature: float) -> set[str]:
+        state = AlarmState.initial()
+        kinds: set[str] = set()
+        for i in range(0, 1300, 10):
+            facts = AlarmInputs.of(
+                temperature=temperature, setpoint=21.0, mode="auto", reliability={},
+                reason="off-to-cut-in", fail_safe=False, warm_setpoint=24.0,
+            )
+            state, events = evaluate(alarm_settings, state, facts, float(i))
+            kinds |= {e.alarm.kind for e in events if e.raised}
+        return kinds
+
+    assert raised(23.9) == set()  # 2.9 K above heating, in the dead band
+    assert raised(26.6) == {"too-warm"}
+    assert raised(18.8) == {"too-cold"}
+
+
+def test_resume_keeps_the_compressor_minimum_off_across_a_restart() -> None:
+    """A cooling call that stopped just before a restart may not start again inside its
+    minimum off time; one found running though saved off counts as started at the restart."""
+    s = dual_settings()
+    assert s.cooling is not None
+    controller = ZoneController(s)
+    state = controller.initial_state(0.0)
+    now = 0.0
+    while state.cooling is None or not state.cooling.relay_on:
+        now += 10.0
+        state, _ = controller.step(state, sample(27.0, now), now)
+        assert now < 3600.0
+    while state.cooling is not None and state.cooling.relay_on:
+        now += 10.0
+        state, _ = controller.step(state, sample(21.0, now), now)
+        assert now < 7200.0
+    stopped = now
+    saved = ZoneState.from_json(state.to_json())
+    resumed = controller.resume(saved, stopped + 60.0, False, cooling_on=False)  # type: ignore[call-arg]
+    now = stopped + 60.0
+    while now < stopped + s.cooling.min_off_s - 10.0:
+        now += 10.0
+        resumed, out = controller.step(resumed, sample(28.0, now), now)
+        assert out.cooling is not None and not out.cooling.demand
+    found_on = controller.resume(saved, stopped + 60.0, False, cooling_on=True)  # type: ignore[call-arg]
+    assert found_on.cooling is not None and found_on.cooling.switched_at == stopped + 60.0
+    _, out = controller.step(found_on, sample(21.0, stopped + 70.0), stopped + 70.0)
+    assert out.cooling is not None and out.cooling.demand and out.cooling.reason == "min-on"

@@ -94,6 +94,7 @@ class AlarmBook:
             fail_safe=outputs.fail_safe,
             fail_safe_reason=outputs.fail_safe_reason,
             output_confirmed=output_confirmed,
+            warm_setpoint=_warm_setpoint(outputs),
         )
         self.confirmed[zone] = output_confirmed
         self._count_fail_safe(zone, outputs.fail_safe, now)
@@ -243,3 +244,12 @@ class ServiceZones:
             self.book.bits(zone),
             self.book.fail_safe_minutes(zone),
         )
+
+
+def _warm_setpoint(outputs: ZoneOutputs) -> float | None:
+    """A cooling zone's ``too-warm`` is judged against its cooling set point (None: the heating
+    set point, as for every heating-only zone)."""
+    cooling = outputs.cooling
+    if cooling is None or cooling.changeover == "heat" or cooling.setpoint is None:
+        return None
+    return cooling.setpoint

@@ -94,6 +94,10 @@ class AlarmInputs:
     fail_safe_reason: str | None = None
     frost_protection: bool = False
     source_lockout: bool = False
+    warm_setpoint: float | None = None
+    """The set point ``too-warm`` is judged against when it is not ``setpoint``: a zone with a
+    cooling call in ``cool`` or ``auto`` changeover, its cooling set point (the room may sit
+    between the two set points, in the dead band, without any alarm)."""
 
     @classmethod
     def of(
@@ -108,6 +112,7 @@ class AlarmInputs:
         fail_safe_reason: str | None = None,
         output_confirmed: bool | None = None,
         source_lockout: bool = False,
+        warm_setpoint: float | None = None,
     ) -> AlarmInputs:
         """From a zone decision's fields (``reason == "protection"``: frost protection runs)."""
         return cls(
@@ -120,6 +125,7 @@ class AlarmInputs:
             fail_safe_reason=fail_safe_reason,
             frost_protection=reason == "protection",
             source_lockout=source_lockout,
+            warm_setpoint=warm_setpoint,
         )
 
 
@@ -200,6 +206,14 @@ def _conditions(settings: AlarmSettings, inputs: AlarmInputs) -> dict[str, _Cond
     bad = [(name, verdict) for name, verdict in inputs.reliability if verdict != "ok"]
     bad_text = ", ".join(f"{name} {verdict}" for name, verdict in bad)
     value_t = None if t is None else round(t, 2)
+    above = below
+    warm_where = where
+    if inputs.warm_setpoint is not None and below is not None and t is not None:
+        above = inputs.warm_setpoint - t
+        warm_where = (
+            f"the cooling set point {_temperature_text(settings, inputs.warm_setpoint)} for "
+            f"{settings.delay_s:g} s"
+        )
     return {
         "too-cold": _Condition(
             holds=below is not None and below > settings.cold_band_k,
@@ -210,11 +224,11 @@ def _conditions(settings: AlarmSettings, inputs: AlarmInputs) -> dict[str, _Cond
             suppressible=True,
         ),
         "too-warm": _Condition(
-            holds=below is not None and -below > settings.warm_band_k,
-            clears=off or (below is not None and -below < settings.warm_band_k - settings.clear_k),
+            holds=above is not None and -above > settings.warm_band_k,
+            clears=off or (above is not None and -above < settings.warm_band_k - settings.clear_k),
             delay_s=settings.delay_s,
             value=value_t,
-            text=f"more than {_delta_text(settings, settings.warm_band_k)} above {where}",
+            text=f"more than {_delta_text(settings, settings.warm_band_k)} above {warm_where}",
             suppressible=True,
         ),
         "sensor-fault": _Condition(

@@ -38,7 +38,7 @@ from roomloop.errors import RoomloopError
 from roomloop.units import from_celsius
 
 from .settings import LEVEL_NAMES, MODE_NAMES, ZoneSettings
-from .state import ZoneState
+from .state import ZoneState, with_cooling_state
 
 COMMAND_FIELDS = ("setpoint", "mode", "level", "hold_until")
 COOLING_FIELDS = ("changeover", "cooling_setpoint")
@@ -222,7 +222,7 @@ def _cooling_command(  # noqa: PLR0917 - apply_command's arguments
         if word == "auto":
             _check_band(settings, current_setpoint(settings, state),
                         current_cooling_setpoint(settings, state), field, units)
-        return replace(state, cooling=replace(c, changeover=word))
+        return with_cooling_state(state, replace(c, changeover=word))
     number = _number(field, value)
     if not low - LIMIT_TOLERANCE_K <= number <= high + LIMIT_TOLERANCE_K:
         raise CommandRejected(
@@ -235,8 +235,9 @@ def _cooling_command(  # noqa: PLR0917 - apply_command's arguments
         if c.changeover == "auto":
             _check_band(settings, number, current_cooling_setpoint(settings, state), field, units)
         held = apply_command(replace(settings, cooling=None), state, field, number, now)
-        return replace(held, cooling=replace(c, hold_setpoint=current_cooling_setpoint(
-            settings, state)))
+        return with_cooling_state(
+            held, replace(c, hold_setpoint=current_cooling_setpoint(settings, state))
+        )
     if c.changeover == "auto":
         _check_band(settings, current_setpoint(settings, state), number, field, units)
     held = state
@@ -245,7 +246,7 @@ def _cooling_command(  # noqa: PLR0917 - apply_command's arguments
             replace(settings, cooling=None), state, "setpoint",
             current_setpoint(settings, state), now,
         )
-    return replace(held, cooling=replace(c, hold_setpoint=number))
+    return with_cooling_state(held, replace(c, hold_setpoint=number))
 
 
 def _check_band(

@@ -21,7 +21,7 @@ from .records import outputs_with_cooling, with_cooling
 from .settings import CoolingSettings, ZoneSettings
 from .stages import anticipator, cooling, figures, switching
 from .stages.short_cycle import MAX_SWITCH_LOG, logged
-from .state import CoolingState, ZoneState
+from .state import CoolingState, ZoneState, with_cooling_state
 from .types import CallName, CoolingOutputs, Reason, ZoneInputs, ZoneOutputs
 
 __all__ = ["DualZoneController"]
@@ -241,6 +241,4 @@ def _allowed(cs: CoolingSettings) -> tuple[str, ...]:
 
 
 def _replace_cooling(state: ZoneState, c: CoolingState) -> ZoneState:
-    from dataclasses import replace
-
-    return replace(state, cooling=c)
+    return with_cooling_state(state, c)

@@ -17,8 +17,8 @@ from dataclasses import fields
 from typing import Any
 
 from .failsafe import Bucket
-from .state import CoolingState, PointState, ZoneState
-from .types import CoolingOutputs, Reason, Reliability, ZoneOutputs
+from .state import CoolingState, DualZoneState, PointState, ZoneState
+from .types import CoolingOutputs, DualZoneOutputs, Reason, Reliability, ZoneOutputs
 
 Setter = Callable[[object, Any], None]
 
@@ -38,10 +38,20 @@ _new = object.__new__
  _S_PROTECTION_RUN, _S_SWITCHES, _S_STARTED_AT, _S_LAST_STEP_AT, _S_LAST_SETPOINT, _S_RECOVERING,
  _S_TEMPERATURE, _S_GOOD_AT, _S_GOOD_SINCE, _S_NORMAL, _S_FAIL_SAFE, _S_FAIL_SAFE_SINCE,
  _S_FAIL_SAFE_DUTY, _S_FAIL_SAFE_REASON, _S_DUTY_BUCKETS, _S_DUTY_CURRENT, _S_POINTS, _S_BACKUP,
- _S_SMOOTHED_C, _S_COOLING) = slot_setters(ZoneState)
+ _S_SMOOTHED_C) = slot_setters(ZoneState)
+_STATE_COPY = tuple(
+    (getattr(ZoneState, f.name).__get__, setter)
+    for f, setter in zip(fields(ZoneState), slot_setters(ZoneState), strict=True)
+)
+_S_COOLING = slot_setters(DualZoneState)[-1]
 (_O_DEMAND, _O_REASON, _O_TEMPERATURE, _O_SETPOINT, _O_LEVEL, _O_MODE, _O_ANTICIPATOR_K,
  _O_DROOP_K, _O_RELIABILITY, _O_FAIL_SAFE, _O_FAIL_SAFE_POLICY, _O_FAIL_SAFE_REASON,
- _O_ON_FRACTION_1H, _O_CYCLES_1H, _O_COOLING) = slot_setters(ZoneOutputs)
+ _O_ON_FRACTION_1H, _O_CYCLES_1H) = slot_setters(ZoneOutputs)
+_OUTPUTS_COPY = tuple(
+    (getattr(ZoneOutputs, f.name).__get__, setter)
+    for f, setter in zip(fields(ZoneOutputs), slot_setters(ZoneOutputs), strict=True)
+)
+_O_COOLING = slot_setters(DualZoneOutputs)[-1]
 
 
 # PointState's groups
@@ -135,20 +145,25 @@ def zone_state(  # noqa: PLR0917 - one argument per section of the record
     _S_POINTS(obj, points[0])
     _S_BACKUP(obj, points[1])
     _S_SMOOTHED_C(obj, points[2])
-    _S_COOLING(obj, None)
     return obj
 
 
-def with_cooling(state: ZoneState, cooling: CoolingState) -> ZoneState:
-    """``state``, just built by :func:`zone_state` and not yet shared, with its cooling part."""
-    _S_COOLING(state, cooling)
-    return state
+def with_cooling(state: ZoneState, cooling: CoolingState) -> DualZoneState:
+    """``state``'s fields and the cooling part, as a :class:`DualZoneState`."""
+    obj = _new(DualZoneState)
+    for get, put in _STATE_COPY:
+        put(obj, get(state))
+    _S_COOLING(obj, cooling)
+    return obj
 
 
-def outputs_with_cooling(outputs: ZoneOutputs, cooling: CoolingOutputs) -> ZoneOutputs:
-    """``outputs``, just built by :func:`zone_outputs` and not yet shared, with the cooling part."""
-    _O_COOLING(outputs, cooling)
-    return outputs
+def outputs_with_cooling(outputs: ZoneOutputs, cooling: CoolingOutputs) -> DualZoneOutputs:
+    """``outputs``' fields and the cooling part, as :class:`DualZoneOutputs`."""
+    obj = _new(DualZoneOutputs)
+    for get, put in _OUTPUTS_COPY:
+        put(obj, get(outputs))
+    _O_COOLING(obj, cooling)
+    return obj
 
 
 # ZoneOutputs' groups
@@ -185,5 +200,4 @@ def zone_outputs(
     _O_FAIL_SAFE_REASON(obj, fail_safe[2])
     _O_ON_FRACTION_1H(obj, figures[0])
     _O_CYCLES_1H(obj, figures[1])
-    _O_COOLING(obj, None)
     return obj

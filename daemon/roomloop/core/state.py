@@ -167,8 +167,12 @@ class ZoneState:
     backup: PointState | None
     smoothed_c: float | None = None
     """The zone temperature smoothed for switching (None until the first trusted reading)."""
-    cooling: CoolingState | None = None
-    """The cooling call and changeover (None: a heating-only zone)."""
+
+    @property
+    def cooling(self) -> CoolingState | None:
+        """The cooling call and changeover: None in a heating-only zone (a zone with a cooling
+        call has a :class:`DualZoneState`, whose own field this is)."""
+        return None
 
     # ------------------------------------------------------------------ JSON
 
@@ -183,7 +187,7 @@ class ZoneState:
                 value = None if value is None else _point_to_dict(value)
             elif f.name == "cooling":
                 if value is None:
-                    continue  # a heating-only zone's state is as it always was
+                    continue
                 value = {
                     g.name: _tuples_to_lists(getattr(value, g.name)) for g in fields(value)
                 }
@@ -218,11 +222,13 @@ class ZoneState:
         buckets = tuple(_triple(item, "duty_buckets") for item in r.items("duty_buckets"))
         points_raw = r.items("points")
         backup_raw = r.get("backup")
-        known = {f.name for f in fields(cls)} | {"schema", "version"}
+        known = {f.name for f in fields(ZoneState)} | {"schema", "version", "cooling"}
         extra = sorted(set(data) - known)
         if extra:
             raise StateFormatError(f"zone state has unknown keys: {', '.join(extra)}")
-        return cls(
+        cooling = _cooling_from(data.get("cooling"))
+        kind = ZoneState if cooling is None else DualZoneState
+        state = kind(
             mode=r.choice("mode", ("auto", "hold", "off")),
             hold_setpoint=r.opt_celsius("hold_setpoint"),
             hold_level=r.opt_choice("hold_level", _LEVELS),
@@ -254,8 +260,22 @@ class ZoneState:
             points=tuple(_point_from(item, f"points[{i}]") for i, item in enumerate(points_raw)),
             backup=None if backup_raw is None else _point_from(backup_raw, "backup"),
             smoothed_c=r.opt_celsius("smoothed_c") if "smoothed_c" in data else None,
-            cooling=_cooling_from(data.get("cooling")),
         )
+        return state if cooling is None else with_cooling_state(state, cooling)
+
+
+@dataclass(frozen=True, slots=True)
+class DualZoneState(ZoneState):
+    """The state of a zone with a cooling call: :class:`ZoneState` and the cooling part (a
+    subclass, so a heating-only zone's state carries, builds and saves nothing more)."""
+
+    cooling: CoolingState | None = None
+
+
+def with_cooling_state(state: ZoneState, cooling: CoolingState) -> DualZoneState:
+    """``state`` with the cooling part (a :class:`DualZoneState`)."""
+    values = {f.name: getattr(state, f.name) for f in fields(ZoneState)}
+    return DualZoneState(**values, cooling=cooling)
 
 
 _LEVELS = ("comfort", "standby", "economy", "protection")

@@ -126,8 +126,19 @@ class ZoneOutputs:
     fail_safe_reason: str | None = None
     on_fraction_1h: float = 0.0
     cycles_1h: int = 0
+
+    @property
+    def cooling(self) -> CoolingOutputs | None:
+        """The cooling call and changeover: None in a heating-only zone (a zone with a cooling
+        call has :class:`DualZoneOutputs`, whose own field this is)."""
+        return None
+
+
+@dataclass(frozen=True, slots=True)
+class DualZoneOutputs(ZoneOutputs):
+    """The outputs of a zone with a cooling call: :class:`ZoneOutputs` and the cooling part."""
+
     cooling: CoolingOutputs | None = None
-    """The cooling call and changeover (None: a heating-only zone)."""
 
 
 StateT = TypeVar("StateT")

@@ -170,9 +170,10 @@ class StateStore:
         (a few hundred bytes: one block), so it serves even before the first full save.
         Never raises: a failure marks persistence failed.
         """
-        if state.switched_at is None:
+        mark = _mark(json.loads(state.to_json()))
+        if mark is None:
             return False
-        entry = (state.switched_at, state.relay_on)
+        entry = mark
         if self._recorded.get(zone) == entry:
             return True
         line = json.dumps(
@@ -213,8 +214,9 @@ class StateStore:
                 continue  # a line cut short by the crash, or not ours
             zone, at, state = entry
             raw = zones.get(zone)
-            last = raw.get("switched_at") if isinstance(raw, dict) else None
-            if isinstance(last, int | float) and not isinstance(last, bool) and at <= last:
+            last_mark = _mark(raw) if isinstance(raw, dict) else None
+            last = None if last_mark is None else last_mark[0]
+            if last is not None and at <= last:
                 continue
             zones[zone] = state
             applied += 1
@@ -266,8 +268,8 @@ class StateStore:
         """Empty the journal once the state file just written holds every switch in it."""
         for zone, (at, _on) in self._recorded.items():
             saved = zones.get(zone)
-            saved_at = saved.get("switched_at") if isinstance(saved, dict) else None
-            if not isinstance(saved_at, int | float) or saved_at < at:
+            saved_mark = _mark(saved) if isinstance(saved, dict) else None
+            if saved_mark is None or saved_mark[0] < at:
                 return
         if not self._recorded and not self.journal_path.exists():
             return
@@ -342,9 +344,30 @@ def _journal_entry(line: str) -> tuple[str, float, dict[str, Any]] | None:
         return None
     if isinstance(at, bool) or not isinstance(at, int | float) or not abs(at) <= MAX_TIME_S:
         return None
-    if state.get("switched_at") != at or state.get("relay_on") is not on:
+    if _mark(state) != (at, on):
         return None
     return zone, float(at), state
+
+
+def _time(value: Any) -> float | None:
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        return None
+    return float(value)
+
+
+def _mark(state: dict[str, Any]) -> tuple[float, bool] | None:
+    """A saved state's last switch: (time, heating relay on). The time is the heating relay's
+    ``switched_at``, or in a zone with a cooling call the latest of it, the cooling call's
+    ``switched_at`` and the changeover output's ``valve_at`` (None: nothing switched yet)."""
+    on = state.get("relay_on")
+    times = [_time(state.get("switched_at"))]
+    cooling = state.get("cooling")
+    if isinstance(cooling, dict):
+        times += [_time(cooling.get("switched_at")), _time(cooling.get("valve_at"))]
+    known = [t for t in times if t is not None]
+    if not known or not isinstance(on, bool):
+        return None
+    return max(known), on
 
 
 def _dump(document: dict[str, Any]) -> str:
