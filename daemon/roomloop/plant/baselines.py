@@ -36,6 +36,7 @@ from roomloop.core.settings import LEVEL_NAMES, SettingsError, ZoneSettings
 from roomloop.core.types import (
     BaselineReason,
     CoolingOutputs,
+    DualZoneOutputs,
     PointSample,
     Reason,
     ZoneInputs,
@@ -140,7 +141,7 @@ def _outputs(
             anticipator_k=anticipator_k,
             droop_k=droop_k,
         )
-    return ZoneOutputs(
+    return DualZoneOutputs(
         demand=False,
         reason=reason,
         temperature=temperature,
