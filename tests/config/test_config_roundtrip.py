@@ -131,6 +131,35 @@ def sites(draw: st.DrawFn) -> dict[str, Any]:
                 "droop_compensation": draw(st.booleans()),
             }
         if draw(st.booleans()):
+            # a cooling call: ASHRAE Standard 90.1's dead band (at least 3 K / 5 F) kept in auto
+            cool = f"z{z}-cool"
+            points.append({"name": cool, "type": "modbus-output", "link": "tcp-io",
+                           "address": address})
+            address += 1
+            c_comfort = comfort + draw(st.sampled_from([3.0, 4.0]))
+            c_standby = max(c_comfort, standby + 3.0)
+            c_economy = max(c_standby, economy + 3.0)
+            zone["cooling"] = {
+                "output": cool,
+                "type": draw(st.sampled_from(["direct-expansion", "chilled-water"])),
+                "setpoints": {
+                    "comfort": _temperature(c_comfort, units),
+                    "standby": _temperature(c_standby, units),
+                    "economy": _temperature(c_economy, units),
+                },
+            }
+            zone["changeover"] = {
+                "mode": draw(st.sampled_from(["heat", "cool", "auto"])),
+                "min_changeover_s": draw(st.sampled_from([0, 300, 900])),
+            }
+            if draw(st.booleans()):
+                valve = f"z{z}-valve"
+                points.append({"name": valve, "type": "modbus-output", "link": "tcp-io",
+                               "address": address})
+                address += 1
+                zone["changeover"]["output"] = valve
+                zone["changeover"]["energised_in"] = draw(st.sampled_from(["cooling", "heating"]))
+        if draw(st.booleans()):
             zone["program"] = [
                 {"days": "mon-fri", "at": "06:30", "level": "comfort"},
                 {"days": ["sat", "sun"], "at": "9:00", "level": "standby"},
@@ -189,5 +218,13 @@ def test_generated_sites_load_and_round_trip(doc: dict[str, Any]) -> None:
         assert _close(second.model_dump(), first.model_dump())
         assert all(
             _close(a.effective.model_dump(), b.effective.model_dump())
+            for a, b in zip(first.zones, second.zones, strict=True)
+        )
+        assert all(
+            (a.cooling_effective is None) == (b.cooling_effective is None)
+            and (
+                a.cooling_effective is None
+                or _close(a.cooling_effective.model_dump(), b.cooling_effective.model_dump())  # type: ignore[union-attr]
+            )
             for a, b in zip(first.zones, second.zones, strict=True)
         )

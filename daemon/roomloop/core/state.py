@@ -302,6 +302,13 @@ def check_for_zone(state: ZoneState, settings: ZoneSettings, now: float | None =
             f"zone state: hold_setpoint {state.hold_setpoint:g} C is outside the zone's "
             f"limits {low:g}..{high:g} C"
         )
+    cooling = state.cooling
+    held = None if cooling is None else cooling.hold_setpoint
+    if held is not None and not low <= held <= high:
+        raise StateFormatError(
+            f"zone state: cooling.hold_setpoint {held:g} C is outside the zone's limits "
+            f"{low:g}..{high:g} C"
+        )
     until = state.hold_until
     if now is not None and until is not None and until > now + MAX_HOLD_AHEAD_S:
         raise StateFormatError(

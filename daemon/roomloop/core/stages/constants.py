@@ -48,6 +48,12 @@ class LawConstants:
         smoothing = (
             0.0 if not strong else target_period if s.smoothing_s is None else s.smoothing_s
         )
+        cooling = s.cooling
+        if cooling is not None and not cooling.heating and s.smoothing_s is None:
+            # a zone that only cools: the switching temperature is smoothed over the cooling
+            # call's own cycle period (its anticipator's G > D), as a heating zone's is
+            cooling_strong = cooling.anticipator_gain_k > cooling.differential_k
+            smoothing = HOUR_S / cooling.cycle_rate_cph if cooling_strong else 0.0
         reasons: dict[str, Reason] = {
             "off": "fail-safe:off",
             "fixed-duty": "fail-safe:fixed-duty",

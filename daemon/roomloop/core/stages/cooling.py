@@ -15,6 +15,10 @@ cycle is the heating one with the sign of the temperature reversed, so the sizin
 is the same: at 50 % on-time on = off = ``tau ln((G + D)/(G - D))``, and the cooling type's
 ``tau`` comes from its cycle rate by :func:`roomloop.config.presets.time_constant_for_cycle_rate`.
 
+``Ts`` is the zone's switching temperature (:mod:`.smoothing`), shared with the heating call;
+a zone that only cools smooths it over the cooling call's own cycle period
+(:class:`~.constants.LawConstants`).
+
 **Droop compensation.** ``b`` integrates ``(T - Sc) dt / droop_time_s``, clamped to
 ``[0, G]``, and so converges to the anticipator's mean ``G x duty``; the same anti-windup
 rules as heating (:mod:`.droop`): frozen while recovering from a set-point change, in
