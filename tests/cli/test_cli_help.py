@@ -53,13 +53,14 @@ def test_the_help_states_the_demos_ranges_and_the_heating_types(
 ) -> None:
     from typing import get_args
 
-    from roomloop.cli import DEMO_HOURS, DEMO_MAX_SPEED, HEATING_TYPES
-    from roomloop.config.models import HeatingType
+    from roomloop.cli import COOLING_TYPES, DEMO_HOURS, DEMO_MAX_SPEED, HEATING_TYPES
+    from roomloop.config.models import CoolingType, HeatingType
     from roomloop.demo.runner import MAX_SPEED
     from roomloop.demo.timeline import MAX_HOURS, MIN_HOURS
 
     # the parser's written-out copies stay equal to what the commands check
     assert get_args(HeatingType) == HEATING_TYPES
+    assert get_args(CoolingType) == COOLING_TYPES
     assert DEMO_HOURS == (MIN_HOURS, MAX_HOURS) and DEMO_MAX_SPEED == MAX_SPEED
     demo = " ".join(_help(capsys, monkeypatch, "demo").split())
     assert "simulated hours, 1 to 48 (default 8)" in demo

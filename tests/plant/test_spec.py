@@ -7,7 +7,7 @@ from pathlib import Path
 import pytest
 
 from roomloop.errors import ConfigError
-from roomloop.plant.loader import BUILTIN_PLANTS, load_plant
+from roomloop.plant.loader import ALL_PLANTS, BUILTIN_PLANTS, load_plant
 from roomloop.plant.spec import en442_output_w, log_mean_excess_k
 
 
@@ -59,7 +59,7 @@ def test_iso13790_worked_example() -> None:
     assert pytest.approx(310.5) == 3.45 * 4.5 * 20
 
 
-@pytest.mark.parametrize("name", BUILTIN_PLANTS)
+@pytest.mark.parametrize("name", ALL_PLANTS)
 def test_builtin_capacities_match_their_iso13790_class(name: str) -> None:
     # ISO 13790 simple hourly method (REFERENCES.md) [published]: mass capacity C_m x A_f,
     # and the air-to-mass path H_tr,is = 3.45 x 4.5 A_f in series with H_tr,ms = 9.1 A_m.

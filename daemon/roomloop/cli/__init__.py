@@ -24,6 +24,8 @@ HELP_WIDTH = 79
 HEATING_TYPES = ("forced-air", "hydronic", "underfloor", "electric", "steam")
 """``config.models.HeatingType`` (written out: the parser stays light to import; a test
 keeps the two equal)."""
+COOLING_TYPES = ("direct-expansion", "chilled-water")
+"""``config.models.CoolingType``, written out likewise (a test keeps the two equal)."""
 DEMO_HOURS = (1.0, 48.0)
 DEMO_MAX_SPEED = 3600.0
 """The demo's ranges for its help (``demo.timeline`` and ``demo.runner`` check them; a test
@@ -89,13 +91,32 @@ def build_parser() -> argparse.ArgumentParser:
             + ", ".join(HEATING_TYPES)
         ),
     )
+    who.add_argument(
+        "--cooling",
+        metavar="TYPE",
+        choices=COOLING_TYPES,
+        help=(
+            "simulate a cooling-only zone with this cooling type's defaults (no site needed; "
+            "implies --mode cool): " + ", ".join(COOLING_TYPES)
+        ),
+    )
     sim.add_argument("--zone", metavar="NAME", help="the zone to simulate (with -c)")
+    sim.add_argument(
+        "--mode",
+        choices=["heat", "cool"],
+        help=(
+            "run the heating protocol on the heating call (heat, the default) or its cooling "
+            "variant on the cooling call (cool; default with --cooling)"
+        ),
+    )
     sim.add_argument(
         "--plant",
         metavar="PLANT",
         help=(
-            "a built-in plant (forced-air, hydronic, underfloor, electric, steam) or a plant "
-            "YAML file (docs/plant-file.md); default: the built-in plant of the zone's heating type"
+            "a built-in plant (forced-air, hydronic, underfloor, electric, steam; cooling: "
+            "direct-expansion, chilled-water) or a plant YAML file (docs/plant-file.md); "
+            "default: the built-in plant of the zone's heating type (cooling type with "
+            "--mode cool)"
         ),
     )
     sim.add_argument(

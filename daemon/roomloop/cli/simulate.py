@@ -1,15 +1,18 @@
 """``roomloop simulate``: one zone's controller against a plant model on the standard protocol.
 
 The zone comes from a site file (``-c SITE --zone NAME``: its comfort and economy set
-points, tuning, limits and point checks; the protocol's schedule replaces its program) or
-from a heating type's defaults (``--heating TYPE``); the plant is a built-in name or a plant
-file, by default the built-in plant of the zone's heating type. The
+points, tuning, limits and point checks; the protocol's schedule replaces its program), from
+a heating type's defaults (``--heating TYPE``) or from a cooling type's (``--cooling TYPE``,
+a cooling-only zone); the plant is a built-in name or a plant file, by default the built-in
+plant of the zone's heating type (cooling type in a cooling run). ``--mode cool`` runs the
+protocol's cooling variant on the zone's cooling call (the zone's cooling set points). The
 figures are printed as a table, and optionally written as JSON and drawn as a PNG.
 The output paths (and matplotlib, for ``--plot``) are checked before the run.
 Exit codes: 0 ok; 1 the JSON or the plot could not be written after all; 2 a bad
 plant file, an unknown plant or zone, a bad site file, an output path that cannot
 be written (no such folder, not writable, a plot not named .png), --plot without
-matplotlib.
+matplotlib, a mode the zone or the plant cannot run (a cooling run of a zone without a
+cooling call or on a plant without ``cooler_w``, a heating run of a cooling-only zone).
 """
 
 from __future__ import annotations
@@ -22,13 +25,13 @@ from roomloop.cli.outputs import MATPLOTLIB_MISSING, matplotlib_available, outpu
 from roomloop.config.checks import temperature_text
 from roomloop.config.loader import load_site
 from roomloop.core.settings import SettingsError, ZoneSettings
-from roomloop.plant.controllers import make_controller
+from roomloop.plant.controllers import cooling_zone_settings, make_controller
 from roomloop.plant.figures import PhaseFigures
-from roomloop.plant.loader import PLANT_FOR_HEATING, load_plant
+from roomloop.plant.loader import COOLING_PLANTS, PLANT_FOR_COOLING, PLANT_FOR_HEATING, load_plant
 from roomloop.plant.protocol import (
-    COMFORT_C,
-    ECONOMY_C,
+    Mode,
     ProtocolResult,
+    default_setpoints,
     protocol_settings,
     run_protocol,
 )
@@ -48,7 +51,35 @@ def _zone_settings(args: argparse.Namespace) -> tuple[ZoneSettings, str]:
     if args.config is not None:
         site = load_site(args.config)
         return ZoneSettings.from_site(site, args.zone), site.site.units
+    if args.cooling is not None:
+        return cooling_zone_settings(args.cooling), "C"
     return ZoneSettings.for_heating_type(args.heating), "C"
+
+
+def _mode(args: argparse.Namespace) -> tuple[Mode | None, str | None]:
+    """The run's mode as the options give it (a site's zone that only cools changes the
+    default to ``cool`` later), or None and the reason it cannot be run."""
+    if args.mode is None:
+        return ("cool" if args.cooling is not None else "heat"), None
+    mode: Mode = args.mode
+    if mode == "heat" and args.cooling is not None:
+        return None, (
+            f"--cooling {args.cooling} is a cooling-only zone: it has no heating call to "
+            "simulate (--mode heat needs --heating TYPE or a site's zone with a heating output)"
+        )
+    if mode == "cool" and args.heating is not None:
+        return None, (
+            f"--heating {args.heating} has no cooling call: for --mode cool give --cooling "
+            "TYPE (direct-expansion, chilled-water) or -c SITE --zone NAME of a zone that cools"
+        )
+    return mode, None
+
+
+def _cannot_cool(plant: str) -> str:
+    return (
+        f"plant {plant} has no cooler_w: it only heats, and --mode cool needs a plant that "
+        f"cools (built-in: {', '.join(COOLING_PLANTS)}, or a plant file with cooler_w)"
+    )
 
 
 def _check_outputs(args: argparse.Namespace) -> int | None:
@@ -71,6 +102,9 @@ def main(args: argparse.Namespace) -> int:
         return _fail("-c SITE needs --zone NAME (the zone to simulate)", EXIT_USAGE)
     if args.config is None and args.zone:
         return _fail("--zone goes with -c SITE; with --heating there is no site", EXIT_USAGE)
+    mode, wrong = _mode(args)
+    if mode is None:
+        return _fail(wrong or "", EXIT_USAGE)
     refused = _check_outputs(args)
     if refused is not None:
         return refused
@@ -79,17 +113,34 @@ def main(args: argparse.Namespace) -> int:
     except SettingsError as exc:
         return _fail(str(exc), EXIT_USAGE)
     from_site = args.config is not None
-    # ConfigError (a bad plant file, an unknown name): the CLI front prints it, exit 2
-    plant = load_plant(args.plant or PLANT_FOR_HEATING[zone.heating])
-    # A site's zone runs the protocol at its own comfort and economy set points.
-    comfort_c, economy_c = (zone.comfort_c, zone.economy_c) if from_site else (
-        COMFORT_C, ECONOMY_C
+    cs = zone.cooling
+    if args.mode is None and cs is not None and not cs.heating:
+        mode = "cool"  # a site's zone that only cools runs the cooling variant by default
+    if mode == "cool" and cs is None:
+        return _fail(
+            f"zone {zone.name} has no cooling output: --mode cool needs a zone that cools",
+            EXIT_USAGE,
+        )
+    default_plant = (
+        PLANT_FOR_COOLING[cs.type] if mode == "cool" and cs is not None
+        else PLANT_FOR_HEATING[zone.heating]
     )
+    # ConfigError (a bad plant file, an unknown name): the CLI front prints it, exit 2
+    plant = load_plant(args.plant or default_plant)
+    if mode == "cool" and not plant.can_cool:
+        return _fail(_cannot_cool(plant.name), EXIT_USAGE)
+    # A site's zone runs the protocol at its own comfort and economy set points.
+    comfort_c, economy_c = default_setpoints(mode)
+    if from_site:
+        comfort_c, economy_c = (
+            (cs.comfort_c, cs.economy_c) if mode == "cool" and cs is not None
+            else (zone.comfort_c, zone.economy_c)
+        )
     try:
-        settings = protocol_settings(zone, comfort_c=comfort_c, economy_c=economy_c)
+        settings = protocol_settings(zone, comfort_c=comfort_c, economy_c=economy_c, mode=mode)
     except SettingsError as exc:
         return _fail(str(exc), EXIT_USAGE)
-    controller = make_controller(args.controller, settings)
+    controller = make_controller(args.controller, settings, mode)
     result = run_protocol(
         controller,
         plant,
@@ -98,6 +149,7 @@ def main(args: argparse.Namespace) -> int:
         controller_name=args.controller,
         comfort_c=comfort_c,
         economy_c=economy_c,
+        mode=mode,
     )
     print(format_summary(result, settings, from_site=from_site, units=units))
     if args.json:
@@ -137,11 +189,15 @@ def _row(name: str, f: PhaseFigures) -> str:
     )
 
 
-def _zone_text(settings: ZoneSettings, from_site: bool) -> str:
+def _zone_text(settings: ZoneSettings, from_site: bool, mode: Mode = "heat") -> str:
+    cs = settings.cooling
+    kind = cs.type if mode == "cool" and cs is not None else settings.heating
     if from_site:
-        return f"zone {settings.name} ({settings.heating})"
-    article = "an" if settings.heating[:1] in "aeiou" else "a"
-    return f"{article} {settings.heating} zone with the heating type's defaults"
+        return f"zone {settings.name} ({kind})"
+    article = "an" if kind[:1] in "aeiou" else "a"
+    if mode == "cool":
+        return f"{article} {kind} cooling zone with the cooling type's defaults"
+    return f"{article} {kind} zone with the heating type's defaults"
 
 
 def _setpoints_text(
@@ -150,16 +206,19 @@ def _setpoints_text(
     """Exactly what the run took from the zone, and what the protocol set itself."""
     comfort = temperature_text(result.comfort_c, units)
     economy = temperature_text(result.economy_c, units)
+    cooling = result.mode == "cool"
+    call = "cooling " if cooling else ""
     if not from_site:
         return (
-            f"set points: the protocol's own, comfort {comfort} and economy {economy} "
-            "(the heating type's tuning)"
+            f"set points: the protocol's own, {call}comfort {comfort} and economy {economy} "
+            f"(the {'cooling' if cooling else 'heating'} type's tuning)"
         )
+    step = "set-up" if cooling else "set-back"
     return (
-        f"taken from zone {settings.name}: comfort {comfort} and economy {economy} set points, "
-        "tuning, limits, point checks, fail-safe\n"
+        f"taken from zone {settings.name}: {call}comfort {comfort} and economy {economy} set "
+        "points, tuning, limits, point checks, fail-safe\n"
         "not taken: its weekly program, mode and other levels (the protocol's schedule runs "
-        "instead: comfort, a 6 h set-back to economy, the step back)"
+        f"instead: comfort, a 6 h {step} to economy, the step back)"
     )
 
 
@@ -173,9 +232,12 @@ def format_summary(
     result: ProtocolResult, settings: ZoneSettings, *, from_site: bool, units: str = "C"
 ) -> str:
     """A readable table of the run's figures (temperatures of the true room air)."""
+    cooling = result.mode == "cool"
     lines = [
         f"controller {result.controller} on plant {result.plant}, "
-        f"{_zone_text(settings, from_site)}, seed {result.seed}",
+        f"{_zone_text(settings, from_site, result.mode)}, seed {result.seed}"
+        + (", cooling run (the cooling call; loads are gains the cooler removes)" if cooling
+           else ""),
         _setpoints_text(result, settings, from_site, units),
         f"{'phase':<10} {'CSD K':>7} {'CV K':>7} {'CA K':>7} {'cyc/h':>6} {'on %':>5} "
         f"{'min on s':>8} {'min off s':>9} {'kWh':>7}",
@@ -184,8 +246,10 @@ def format_summary(
         lines.append(_row(name, figures))
     recovery = result.phases["recovery"]
     o = result.overall
+    past = " (below the set point)" if cooling else ""
     lines.append(
-        f"recovery: overshoot {recovery.overshoot_k:+.2f} K, {_settle_text(recovery.settle_s)}"
+        f"recovery: overshoot{past} {recovery.overshoot_k:+.2f} K, "
+        f"{_settle_text(recovery.settle_s)}"
     )
     lines.append(
         f"overall: control accuracy {o.control_accuracy_k:.2f} K (worse load phase), "

@@ -5,6 +5,10 @@ Every figure is computed from the room-air node's true temperature sampled at ea
 tick, never from the sensor reading, and from the relay state held over each tick.
 Control accuracy follows EN 15500 as REFERENCES.md recalls it: CA = |CSD| + CV with
 CSD = mean(T) - S and CV = (max(T) - min(T)) / 2.
+
+In cooling the scored call is the cooling call, and the step-response figures turn with
+it: the overshoot is how far the room went below the set point after the step back down
+(S - min T), the settling time runs until T first comes down to S + 0.5 K.
 """
 
 from __future__ import annotations
@@ -32,7 +36,8 @@ class PhaseFigures:
     energy_kwh: float
     overshoot_k: float | None = None
     settle_s: float | None = None
-    """From the step until T first reaches set point - 0.5 K; ``None`` if it never does."""
+    """From the step until T first reaches set point - 0.5 K (+ 0.5 K in cooling); ``None`` if
+    it never does."""
 
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = {
@@ -82,12 +87,15 @@ def window_figures(
     setpoint_c: float,
     heater_w: float,
     step_response: bool = False,
+    cooling: bool = False,
 ) -> PhaseFigures:
     """Figures over the ticks that start in ``[start_s, end_s)``.
 
     ``room_c[k]`` and ``demand[k]`` belong to the tick starting at ``k * tick_s``
-    (temperature at its start, relay held during it). With ``step_response`` the
-    window starts with a set-point step and the overshoot and settling time are added.
+    (temperature at its start, relay held during it). ``heater_w`` is the output of the
+    scored call (the cooler's capacity with ``cooling``). With ``step_response`` the
+    window starts with a set-point step and the overshoot and settling time are added
+    (with ``cooling``, a step down: overshoot below the set point).
     """
     first = math.ceil(start_s / tick_s - 1e-9)
     last = min(math.ceil(end_s / tick_s - 1e-9), len(room_c))
@@ -128,10 +136,12 @@ def window_figures(
         return figures
     settle: float | None = None
     for k in range(first, last):
-        if room_c[k] >= setpoint_c - 0.5:
+        reached = room_c[k] <= setpoint_c + 0.5 if cooling else room_c[k] >= setpoint_c - 0.5
+        if reached:
             settle = (k - first) * tick_s
             break
-    return dataclasses.replace(figures, overshoot_k=high - setpoint_c, settle_s=settle)
+    overshoot = setpoint_c - low if cooling else high - setpoint_c
+    return dataclasses.replace(figures, overshoot_k=overshoot, settle_s=settle)
 
 
 def overall_figures(

@@ -22,15 +22,25 @@ from roomloop.errors import ConfigError, ConfigProblem
 from roomloop.plant.spec import PlantSpec
 
 BUILTIN_PLANTS: tuple[str, ...] = ("forced-air", "hydronic", "underfloor", "electric", "steam")
-"""The built-in plants, one per heating type (each named after its type)."""
+"""The built-in heating plants, one per heating type (each named after its type)."""
 
 PLANT_FOR_HEATING: dict[str, str] = {name: name for name in BUILTIN_PLANTS}
 """The built-in plant ``simulate`` and the demo take for a zone of each heating type."""
 
+COOLING_PLANTS: tuple[str, ...] = ("direct-expansion", "chilled-water")
+"""The built-in cooling plants (with ``cooler_w``), one per cooling type, named after it: a
+room with a split unit, an office with a fan coil on chilled water. Both heat as well."""
+
+PLANT_FOR_COOLING: dict[str, str] = {name: name for name in COOLING_PLANTS}
+"""The built-in plant ``simulate --mode cool`` takes for a zone of each cooling type."""
+
+ALL_PLANTS: tuple[str, ...] = (*BUILTIN_PLANTS, *COOLING_PLANTS)
+"""Every built-in plant name ``load_plant`` knows."""
+
 
 def builtin_plant_path(name: str) -> Path:
     """Where the built-in plant ``name`` lives inside the installed package."""
-    if name not in BUILTIN_PLANTS:
+    if name not in ALL_PLANTS:
         raise KeyError(name)
     return Path(str(resources.files("roomloop.plant").joinpath("builtin", f"{name}.yaml")))
 
@@ -61,7 +71,7 @@ def load_plant(name_or_path: str | os.PathLike[str]) -> PlantSpec:
     A name that is neither gives one clear problem listing the built-in names.
     """
     text = os.fspath(name_or_path)
-    if text in BUILTIN_PLANTS:
+    if text in ALL_PLANTS:
         return load_plant_file(builtin_plant_path(text))
     if not os.path.exists(text):
         raise ConfigError(
@@ -71,7 +81,7 @@ def load_plant(name_or_path: str | os.PathLike[str]) -> PlantSpec:
                     None,
                     "",
                     "no such plant file, and not a built-in plant (built-in: "
-                    + ", ".join(BUILTIN_PLANTS)
+                    + ", ".join(ALL_PLANTS)
                     + ")",
                 )
             ]

@@ -9,8 +9,11 @@ and the sensor's lagged view of the room ``Ts``::
     tau_s dTs/dt = Tr - Ts
 
 ``Phi`` is linear (``K dT``) or the EN 442 law ``Phi_n (dT / 50) ** n``. The heat
-input ``q`` is piecewise constant: the relay is held over a tick and its effect
-arrives ``transport_delay_s`` later, so every change of ``q`` is split out exactly
+input ``q`` is ``heater_w`` while the heating call is on, ``-cooler_w`` while the cooling
+call is on (a plant with ``cooler_w``), 0 otherwise; ``gains`` are the plant's
+``internal_gains_w`` plus the ``extra_gains_w`` a protocol sets (the solar and internal
+gains a cooler must remove). ``q`` is piecewise constant: the calls are held over a tick
+and their effect arrives ``transport_delay_s`` later, so every change of ``q`` is split out exactly
 and the smooth pieces in between are integrated with classical Runge-Kutta
 (RK4), sub-stepped so that ``h * lambda_max <= 0.5`` for the stiffest node
 (Gershgorin bound on the Jacobian). That keeps RK4 far inside its stability
@@ -54,9 +57,12 @@ class PlantSimulation:
         self.mass_c = room_c if mass_c is None else mass_c
         self.sensor_state_c = room_c
         self._rng = random.Random(seed)
-        self._commanded = False
+        self.extra_gains_w = 0.0
+        """Gains beyond ``internal_gains_w`` (W), set by a protocol (as ``outdoor_c``)."""
+        self._commanded: tuple[bool, bool] = (False, False)
         self._heat_on = False
-        self._pending: deque[tuple[float, bool]] = deque()
+        self._cool_on = False
+        self._pending: deque[tuple[float, bool, bool]] = deque()
         self._h_max = _max_substep_s(spec)
         emitter = spec.emitter
         self._has_emitter = emitter is not None
@@ -102,6 +108,35 @@ class PlantSimulation:
             start_s=start_s,
         )
 
+    @classmethod
+    def at_cooling_steady_state(
+        cls,
+        spec: PlantSpec,
+        *,
+        load: float,
+        room_c: float,
+        outdoor_c: float,
+        seed: int = 1,
+        start_s: float = 0.0,
+    ) -> PlantSimulation:
+        """Every node at the steady state of ``room_c`` with the cooler removing ``load`` of its
+        capacity: the extra gains set so (:meth:`PlantSpec.cooling_gains_for_load_w`), the
+        emitter below the room by the excess its law needs for that output."""
+        if spec.cooler_w is None:
+            raise ValueError(f"plant {spec.name!r} has no cooler_w: it cannot cool")
+        excess = spec.emitter_excess_for_output_k(load * spec.cooler_w) if spec.emitter else 0.0
+        sim = cls(
+            spec,
+            outdoor_c=outdoor_c,
+            room_c=room_c,
+            emitter_c=room_c - excess,
+            mass_c=room_c,
+            seed=seed,
+            start_s=start_s,
+        )
+        sim.extra_gains_w = spec.cooling_gains_for_load_w(load, room_c, outdoor_c)
+        return sim
+
     # ------------------------------------------------------------------ reading
 
     def read_sensor(self) -> float:
@@ -116,25 +151,43 @@ class PlantSimulation:
 
     @property
     def heat_input_w(self) -> float:
-        """Heat reaching the emitter now (the relay's state one transport delay ago)."""
-        return self.spec.heater_w if self._heat_on else 0.0
+        """Heat reaching the emitter now (the calls' state one transport delay ago): the
+        heater's output while heating, minus the cooler's capacity while cooling."""
+        return self._input_w()
+
+    def _input_w(self) -> float:
+        q = self.spec.heater_w if self._heat_on else 0.0
+        if self._cool_on:
+            cooler = self.spec.cooler_w
+            if cooler is None:
+                raise ValueError(f"plant {self.spec.name!r} has no cooler_w: it cannot cool")
+            q -= cooler
+        return q
 
     # ------------------------------------------------------------------ time
 
-    def advance(self, dt_s: float, relay_on: bool) -> None:
-        """Hold the relay at ``relay_on`` for ``dt_s`` seconds; heat follows after the delay."""
+    def advance(self, dt_s: float, relay_on: bool, cooling_on: bool = False) -> None:
+        """Hold the heating call at ``relay_on`` and the cooling call at ``cooling_on`` for
+        ``dt_s`` seconds; heat (or cooling) follows after the delay.
+
+        A cooling call on a plant without ``cooler_w`` is a ``ValueError``.
+        """
         if dt_s < 0:
             raise ValueError("time runs forward only")
-        if relay_on != self._commanded:
-            self._commanded = relay_on
-            self._pending.append((self.time_s + self.spec.transport_delay_s, relay_on))
+        if cooling_on and self.spec.cooler_w is None:
+            raise ValueError(f"plant {self.spec.name!r} has no cooler_w: it cannot cool")
+        calls = (relay_on, cooling_on)
+        if calls != self._commanded:
+            self._commanded = calls
+            self._pending.append((self.time_s + self.spec.transport_delay_s, *calls))
         end = self.time_s + dt_s
         while self._pending and self._pending[0][0] <= end:
-            when, heat_on = self._pending.popleft()
+            when, heat_on, cool_on = self._pending.popleft()
             if when > self.time_s:
                 self._integrate(when - self.time_s)
                 self.time_s = when
             self._heat_on = heat_on
+            self._cool_on = cool_on
         if end > self.time_s:
             self._integrate(end - self.time_s)
         self.time_s = end
@@ -143,8 +196,8 @@ class PlantSimulation:
         """RK4 over ``duration`` with the heat input constant; enough sub-steps for stability."""
         steps = max(1, math.ceil(duration / self._h_max - 1e-9))
         h = duration / steps
-        q = self.spec.heater_w if self._heat_on else 0.0
-        gains = self.spec.internal_gains_w
+        q = self._input_w()
+        gains = self.spec.internal_gains_w + self.extra_gains_w
         to = self.outdoor_c
         loss = self.spec.room.loss_w_per_k
         inv_cr = 1.0 / self.spec.room.capacity_j_per_k

@@ -63,7 +63,7 @@ def write_plot(result: ProtocolResult, path: str | os.PathLike[str]) -> None:
     ax_load = ax_o.twinx()
     ax_load.plot(
         hours, [100.0 * x for x in trace.load], color="tab:brown", lw=1.0, ls=":",
-        label="load (% of heater)",
+        label="load (% of cooler)" if result.mode == "cool" else "load (% of heater)",
     )
     ax_load.set_ylabel("load %")
     ax_load.set_ylim(0, 100)

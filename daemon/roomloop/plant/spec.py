@@ -8,6 +8,11 @@ extensions beyond DESIGN.md, both optional: ``emitter`` and ``mass`` may be
 gives the single-node room the textbook checks need; and ``floor_area_m2`` /
 ``mass_class`` record what an ISO 13790 class a plant claims, so a test can
 check the capacities against the class figures.
+
+A plant that can cool gives ``cooler_w``: while the cooling call is on (after the same
+transport delay) the cooling source takes that much heat out of the emitter (a fan coil's
+coil on chilled water, a split unit's evaporator), so the emitter runs below the room and
+draws heat out of it by the emitter's own law. A plant without ``cooler_w`` only heats.
 """
 
 from __future__ import annotations
@@ -98,6 +103,9 @@ class PlantSpec(_Strict):
     name: Annotated[str, Field(min_length=1, max_length=64, pattern=r"^[a-z0-9][a-z0-9_-]*$")]
     heater_w: Positive
     """Heat output while the relay is closed (after the transport delay)."""
+    cooler_w: Positive | None = None
+    """Heat removed while the cooling call is on (after the transport delay); ``None``: the
+    plant cannot cool."""
     transport_delay_s: NonNegative = 0.0
     emitter: Emitter | None
     room: Room
@@ -111,7 +119,8 @@ class PlantSpec(_Strict):
         """The emitter's steepest conductance in use (0 without an emitter).
 
         Linear: its conductance. EN 442: the law's slope at the excess reached with the
-        heater on at full output for good, times 1.5 for margin.
+        heater (or the cooler, whichever is larger) on at full output for good, times 1.5 for
+        margin.
         """
         emitter = self.emitter
         if emitter is None:
@@ -119,7 +128,7 @@ class PlantSpec(_Strict):
         if emitter.conductance_w_per_k is not None:
             return float(emitter.conductance_w_per_k)
         assert emitter.rated_output_w is not None and emitter.exponent is not None
-        top = 1.5 * self.emitter_excess_for_output_k(self.heater_w)
+        top = 1.5 * self.emitter_excess_for_output_k(max(self.heater_w, self.cooler_w or 0.0))
         return float(
             emitter.exponent
             * emitter.rated_output_w
@@ -198,6 +207,23 @@ class PlantSpec(_Strict):
     def outdoor_for_load_c(self, load: float, room_c: float = 20.0) -> float:
         """DESIGN.md: the outdoor temperature at which the heater covers ``load`` of its output."""
         return room_c - (load * self.heater_w + self.internal_gains_w) / self.room.loss_w_per_k
+
+    @property
+    def can_cool(self) -> bool:
+        """The plant has a cooler (``cooler_w``)."""
+        return self.cooler_w is not None
+
+    def cooling_gains_for_load_w(self, load: float, room_c: float, outdoor_c: float) -> float:
+        """The solar and internal gains, beyond ``internal_gains_w``, at which the cooler must
+        remove ``load`` of its capacity to hold ``room_c`` with ``outdoor_c`` outdoors.
+
+        Steady state of the room node: ``0 = gains + internal - L (room - outdoor) - load x
+        cooler_w`` (the mass at the room's temperature exchanges nothing).
+        """
+        if self.cooler_w is None:
+            raise ValueError(f"plant {self.name!r} has no cooler_w: it cannot cool")
+        fabric = self.room.loss_w_per_k * (outdoor_c - room_c)
+        return load * self.cooler_w - self.internal_gains_w - fabric
 
 
 def en442_output_w(rated_output_w: float, exponent: float, excess_k: float) -> float:
