@@ -48,6 +48,9 @@ class HeardTopics(Protocol):
     def sent(self, message: Message, now: float) -> None: ...
 
 
+DEMAND_SUFFIX = "/demand"
+"""The plain per-zone topic heat sources listen to (``zone/<zone>/demand``)."""
+
 log = structlog.get_logger("roomloop.service")
 _answers_log = RateLimitedLog(log, interval_s=60.0, burst=30)
 
@@ -217,9 +220,16 @@ class BrokerSession:
             await self.clock.sleep(BURST_S)
 
     def _due(self, now: float) -> list[Message]:
+        """This round's messages, what other daemons act on first: each zone's ``demand``
+        (a heat source may wait for it) and the sources' states, then the rest. Every send
+        waits for the broker's acknowledgement, so on a site of many zones the order is
+        the latency of a call reaching its source."""
         alarms = [] if self.alarms is None else self.alarms.due()
         sources = [] if self.sources is None else self.sources.due(now)
-        return [*self.publisher.due(now), *alarms, *sources]
+        messages = [*self.publisher.due(now), *alarms]
+        urgent = [m for m in messages if m.topic.endswith(DEMAND_SUFFIX)]
+        rest = [m for m in messages if not m.topic.endswith(DEMAND_SUFFIX)]
+        return [*urgent, *sources, *rest]
 
     async def _send(self, client: Any, message: Message) -> None:
         async with timeout(self.clock.io, SEND_S):
