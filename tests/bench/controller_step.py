@@ -48,8 +48,8 @@ class PlainHysteresis:
             elif t >= self.setpoint + self.half:
                 on = False
         new = state if on == state.relay_on else PlainState(on, now)
-        out = ZoneOutputs(on, "hysteresis", t, self.setpoint, "comfort", "auto", 0.0, 0.0,
-                          {"temperature": "ok"})
+        out = ZoneOutputs(on, "hysteresis", t, self.setpoint,  # type: ignore[arg-type]
+                          "comfort", "auto", 0.0, 0.0, {"temperature": "ok"})
         return new, out
 
 

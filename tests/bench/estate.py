@@ -70,14 +70,14 @@ for _extra in (TESTS, TESTS / "service", TESTS / "bench"):
     if str(_extra) not in sys.path:
         sys.path.insert(0, str(_extra))
 
-from service_footprint import (  # type: ignore[import-not-found]  # noqa: E402
+from service_footprint import (  # noqa: E402
     import_only_rss_mb,
     pct,
     step_cpu_per_zone_hour,
 )
-from service_rooms import ServiceProcess  # type: ignore[import-not-found]  # noqa: E402
+from service_rooms import ServiceProcess  # noqa: E402
 
-from conftest import MosquittoBroker, free_port  # type: ignore[import-not-found]  # noqa: E402
+from conftest import MosquittoBroker, free_port  # noqa: E402
 from roomloop.clock import PacedClock  # noqa: E402
 from roomloop.config.loader import load_site  # noqa: E402
 from roomloop.demo.plant_server import STEP_S, PlantServer  # noqa: E402

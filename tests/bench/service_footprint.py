@@ -43,13 +43,13 @@ TESTS = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(TESTS))
 sys.path.insert(0, str(TESTS / "service"))
 
-from service_rooms import (  # type: ignore[import-not-found]  # noqa: E402
+from service_rooms import (  # noqa: E402
     RoomPlant,
     ServiceProcess,
     site_yaml,
 )
 
-from conftest import (  # type: ignore[import-not-found]  # noqa: E402
+from conftest import (  # noqa: E402
     ModbusTestServer,
     MosquittoBroker,
 )
@@ -74,7 +74,7 @@ async def until(condition: Any, timeout_s: float, step_s: float = 0.001) -> None
     raise TimeoutError(f"not within {timeout_s} s")
 
 
-class TimedServer(ModbusTestServer):  # type: ignore[misc]
+class TimedServer(ModbusTestServer):
     """The test server, also noting when each coil write (function code 5) arrives."""
 
     def __init__(self, **kwargs: Any) -> None:

@@ -37,7 +37,7 @@ UTC = ZoneInfo("UTC")
 
 
 def site_data(modbus_port: int, bms: dict[str, Any], *, units: str = "C") -> dict[str, Any]:
-    comfort, standby, economy, protection, low, high = (20, 18, 16, 7, 5, 26)
+    comfort, standby, economy, protection, low, high = (20.0, 18.0, 16.0, 7.0, 5.0, 26.0)
     if units == "F":
         comfort, standby, economy, protection, low, high = (68, 64.4, 60.8, 44.6, 41, 78.8)
     zones = []

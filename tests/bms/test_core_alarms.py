@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import replace
+from typing import Any
 
 import pytest
 from hypothesis import given, settings
@@ -21,14 +23,14 @@ from roomloop.core.alarms import (
 G36 = AlarmSettings()  # the defaults: the Guideline 36 numbers
 
 
-def inputs(temperature: float | None, setpoint: float = 20.0, **kw: object) -> AlarmInputs:
+def inputs(temperature: float | None, setpoint: float = 20.0, **kw: Any) -> AlarmInputs:
     base = AlarmInputs(temperature=temperature, setpoint=setpoint, mode="auto",
                        reliability=(("t1", "ok"),), output_confirmed=True)
-    return replace(base, **kw)  # type: ignore[arg-type]
+    return replace(base, **kw)
 
 
 def run(
-    sequence: list[tuple[float, AlarmInputs]], state: AlarmState | None = None,
+    sequence: Sequence[tuple[float, AlarmInputs]], state: AlarmState | None = None,
     alarm_settings: AlarmSettings = G36,
 ) -> tuple[AlarmState, list[tuple[float, str, bool]]]:
     state = state or AlarmState.initial()
@@ -162,7 +164,7 @@ def test_acknowledge() -> None:
     ),
     st.integers(min_value=1, max_value=400),
 )
-def test_raises_and_clears_alternate_and_bits_match(steps: list[tuple], dt: int) -> None:
+def test_raises_and_clears_alternate_and_bits_match(steps: list[tuple[Any, ...]], dt: int) -> None:
     state = AlarmState.initial()
     last: dict[str, bool] = {}
     settings_ = AlarmSettings(delay_s=300, sensor_fault_s=200, output_unconfirmed_s=100)

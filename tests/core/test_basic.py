@@ -158,7 +158,8 @@ def test_learned_duty_ignores_an_open_bucket_older_than_the_learning_window() ->
     old_open = (0.0, 900.0, 900.0)  # fully on, three days ago
     recent = ((3 * 86400.0 - 2 * BUCKET_S, 90.0, 900.0), (3 * 86400.0 - BUCKET_S, 90.0, 900.0))
     now = 3 * 86400.0
-    assert learned_fraction(recent, old_open, now, learn_s) == (pytest.approx(0.1), 1800.0)
+    fraction, covered = learned_fraction(recent, old_open, now, learn_s)
+    assert fraction == pytest.approx(0.1) and covered == 1800.0
     assert learned_fraction((), old_open, now, learn_s) == (0.0, 0.0)
     assert learned_fraction((), old_open, 100.0, learn_s) == (1.0, 900.0)  # still recent
     duty, why = choose_duty("learned-duty", (), old_open, now, duty=0.3, period_s=600.0,

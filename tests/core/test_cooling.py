@@ -352,13 +352,13 @@ def test_resume_keeps_the_compressor_minimum_off_across_a_restart() -> None:
         assert now < 7200.0
     stopped = now
     saved = ZoneState.from_json(state.to_json())
-    resumed = controller.resume(saved, stopped + 60.0, False, cooling_on=False)  # type: ignore[call-arg]
+    resumed = controller.resume(saved, stopped + 60.0, False, cooling_on=False)
     now = stopped + 60.0
     while now < stopped + s.cooling.min_off_s - 10.0:
         now += 10.0
         resumed, out = controller.step(resumed, sample(28.0, now), now)
         assert out.cooling is not None and not out.cooling.demand
-    found_on = controller.resume(saved, stopped + 60.0, False, cooling_on=True)  # type: ignore[call-arg]
+    found_on = controller.resume(saved, stopped + 60.0, False, cooling_on=True)
     assert found_on.cooling is not None and found_on.cooling.switched_at == stopped + 60.0
     _, out = controller.step(found_on, sample(21.0, stopped + 70.0), stopped + 70.0)
     assert out.cooling is not None and out.cooling.demand and out.cooling.reason == "min-on"

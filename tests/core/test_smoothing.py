@@ -14,6 +14,7 @@ from dataclasses import replace
 import pytest
 
 from roomloop.core import ZoneController, ZoneState
+from roomloop.core.optimum_start import Level
 from roomloop.core.settings import SettingsError
 from roomloop.core.stages.constants import LawConstants
 from roomloop.core.stages.regulation import regulated
@@ -131,7 +132,7 @@ def test_no_smoothing_for_a_plain_hysteresis_and_none_during_a_recovery() -> Non
     assert S - 0.25 <= st.smoothed_c < 19.8
 
 
-def _lagged_run(level: str, hours: float) -> ZoneState:
+def _lagged_run(level: Level, hours: float) -> ZoneState:
     controller = ZoneController(settings())
     plant = FirstOrderPlant(3 * 3600.0, 0.0, 45.0, start=20.0, delay=240.0)
     state = controller.initial_state(0.0)

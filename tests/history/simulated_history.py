@@ -115,6 +115,7 @@ def simulate(
         h.droop_k.append(tick.droop_k)
         h.fail_safe.append(tick.fail_safe)
         h.reason.append(tick.reason)
+        assert h.outdoor is not None  # (set to [] above)
         for name, value, verdict in tick.points:
             h.points.setdefault(name, []).append((value, verdict))
         h.outdoor.append(sim.outdoor_c)

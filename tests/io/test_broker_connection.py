@@ -194,7 +194,7 @@ async def test_last_will_published_when_the_process_dies(mosquitto: Any) -> None
 
             async def collect() -> None:
                 async for message in watcher.messages:
-                    seen.append(bytes(message.payload))  # type: ignore[arg-type]
+                    seen.append(bytes(message.payload))
                     if seen[-1] == b"offline":
                         return
 

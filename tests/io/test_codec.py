@@ -142,9 +142,11 @@ def test_values_outside_the_valid_range_are_delivered_unjudged() -> None:
     # simulator alike; the codec only decodes
     p = point(scale=0.1, valid_range=(-10, 50))
     high = decode_point(p, encode_raw(501, "int16"))
-    assert (high.transport, high.value, high.raw) == ("ok", pytest.approx(50.1), 501)
+    assert (high.transport, high.raw) == ("ok", 501)
+    assert high.value == pytest.approx(50.1)
     low = decode_point(p, encode_raw(-101, "int16"))
-    assert (low.transport, low.value) == ("ok", pytest.approx(-10.1))
+    assert low.transport == "ok"
+    assert low.value == pytest.approx(-10.1)
 
 
 def test_fahrenheit_device() -> None:

@@ -271,7 +271,7 @@ async def test_command_waits_for_the_broker_and_is_reasserted(mosquitto: Any) ->
         async with aiomqtt.Client(host, port) as client:
             await client.subscribe("lab/r/set", qos=1)
             async for message in client.messages:
-                seen.append(bytes(message.payload))  # type: ignore[arg-type]
+                seen.append(bytes(message.payload))
 
     points = MqttPoints([], [outp(reassert_s=1.0)])
     # commanded before any connection: kept, sent once connected

@@ -162,7 +162,7 @@ def test_warm_up_measured_from_start_to_set_point() -> None:
     for t, temperature in ((200.0, 16.9), (400.0, 17.0), (610.0, 17.1), (3000.0, 19.0)):
         state, _ = plan(cfg, state, comfort(temperature), t)
         assert state.warm_up is not None
-    assert state.warm_up.rose_at == 610.0
+    assert state.warm_up is not None and state.warm_up.rose_at == 610.0
     state, _ = plan(cfg, state, comfort(19.9), 6010.0)
     assert state.warm_up is None
     assert state.last_rate_k_per_h == pytest.approx(2.8 / 1.5)

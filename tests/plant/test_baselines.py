@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+from typing import Any
 
 import pytest
 
@@ -25,7 +26,7 @@ def inputs(value: float | None, level: str = "comfort") -> ZoneInputs:
     return ZoneInputs(samples=(PointSample("temperature", value, T0),), scheduled_level=level)  # type: ignore[arg-type]
 
 
-def settings(**changes: float) -> ZoneSettings:
+def settings(**changes: Any) -> ZoneSettings:
     base = dataclasses.replace(ZoneSettings.for_heating_type("hydronic"), comfort_c=20.0)
     return dataclasses.replace(base, **changes)
 

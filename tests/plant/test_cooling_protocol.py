@@ -4,10 +4,11 @@ from __future__ import annotations
 
 import dataclasses
 import math
+from typing import Any
 
 import pytest
 
-from roomloop.core.settings import SettingsError, ZoneSettings
+from roomloop.core.settings import CoolingSettings, SettingsError, ZoneSettings
 from roomloop.core.types import PointSample, ZoneInputs
 from roomloop.plant.baselines import (
     CallTuning,
@@ -36,6 +37,11 @@ from roomloop.plant.protocol import (
 )
 
 T0 = 1_767_225_600.0
+
+
+def cooling_of(zone: ZoneSettings) -> CoolingSettings:
+    assert zone.cooling is not None
+    return zone.cooling
 
 
 def inputs(value: float | None, level: str = "comfort") -> ZoneInputs:
@@ -129,7 +135,7 @@ def test_protocol_settings_set_the_runs_changeover_and_cooling_setpoints() -> No
     assert (cool.cooling.comfort_c, cool.cooling.economy_c) == (23.0, 26.5)
     both = dataclasses.replace(
         ZoneSettings.for_heating_type("hydronic"),
-        cooling=dataclasses.replace(zone.cooling, heating=True, initial_changeover="auto"),  # type: ignore[arg-type]
+        cooling=dataclasses.replace(cooling_of(zone), heating=True, initial_changeover="auto"),
     )
     heat = protocol_settings(both, mode="heat")
     assert heat.cooling is not None and heat.cooling.initial_changeover == "heat"
@@ -139,7 +145,7 @@ def test_protocol_settings_set_the_runs_changeover_and_cooling_setpoints() -> No
 # --------------------------------------------------------------------------- baselines
 
 
-def call(**changes: float) -> CallTuning:
+def call(**changes: Any) -> CallTuning:
     base = CallTuning(
         cooling=True,
         kind="direct-expansion",

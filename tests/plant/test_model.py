@@ -175,7 +175,9 @@ def test_sensor_is_seeded_lagged_and_quantised() -> None:
     a = PlantSimulation(spec, outdoor_c=0.0, room_c=20.0, seed=7)
     b = PlantSimulation(spec, outdoor_c=0.0, room_c=20.0, seed=7)
     c = PlantSimulation(spec, outdoor_c=0.0, room_c=20.0, seed=8)
-    readings_a, readings_b, readings_c = [], [], []
+    readings_a: list[float] = []
+    readings_b: list[float] = []
+    readings_c: list[float] = []
     for _ in range(200):
         for sim, out in ((a, readings_a), (b, readings_b), (c, readings_c)):
             sim.advance(10.0, True)

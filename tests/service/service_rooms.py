@@ -53,7 +53,8 @@ class RoomPlant:
         self.server = server
         self.rooms = [Room(t) for t in temperatures]
         if isinstance(clock, int | float):
-            clock, step_s = PacedClock(clock), 0.02 * clock
+            speed = float(clock)
+            clock, step_s = PacedClock(speed), 0.02 * speed
         self.clock: Clock = clock
         self.step_s = step_s
         self.frozen = False

@@ -115,8 +115,8 @@ async def test_warm_room_cools_and_cold_room_heats_with_the_changeover_output_sw
             # the changeover time runs from the end of the cooling call (one coil poll of slack)
             assert heat_on - cool_off >= CHANGEOVER_S - 1.0
             assert not on(COOL)
-            assert ticks[-1].outputs.cooling is not None
-            assert ticks[-1].outputs.cooling.call == "heat"
+            last = ticks[-1].outputs.cooling
+            assert last is not None and last.call == "heat"
     finally:
         player.cancel()
         with contextlib.suppress(asyncio.CancelledError):

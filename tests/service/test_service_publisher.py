@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import dataclasses
 import json
+from typing import Any
 from zoneinfo import ZoneInfo
 
 from roomloop.core.state import ZoneState
@@ -161,7 +162,7 @@ def test_the_hours_figures_say_how_much_of_the_hour_they_cover() -> None:
     assert state_payload(VIEW, units="C", tz=VIENNA)["window_1h_s"] == 3600
 
 
-def _state(**changes: object) -> ZoneState:
+def _state(**changes: Any) -> ZoneState:
     from roomloop.config.models import Limits, ModbusInput, Zone
     from roomloop.core.controller import ZoneController
     from roomloop.core.settings import ZoneSettings

@@ -158,7 +158,9 @@ async def test_a_reload_keeps_a_running_zones_anticipator_and_relay(
                   state_dir=tmp_path / "state", clock=clock, on_tick=ticks.append)
         )
         try:
-            room0 = lambda: [t for t in ticks if t.zone == "room0"]  # noqa: E731
+            def room0() -> list[TickReport]:
+                return [t for t in ticks if t.zone == "room0"]
+
             await until(clock, lambda: len(room0()) >= 30 and room0()[-1].state.relay_on)
             before = room0()[-1]
             assert before.outputs.anticipator_k > 0.2  # heat built up while on

@@ -19,6 +19,7 @@ import sys
 import time
 from collections.abc import Iterator
 from pathlib import Path
+from typing import Any
 
 import aiomqtt
 import pytest
@@ -114,7 +115,7 @@ def _stand_in(port: int, demand: bool) -> subprocess.Popen[str]:
 
 
 async def _until(client: aiomqtt.Client, book: list[RemoteBook], topics: RemoteTopics,
-                 holds, timeout_s: float = 20.0) -> None:  # type: ignore[no-untyped-def]
+                 holds: Any, timeout_s: float = 20.0) -> None:
     deadline = time.monotonic() + timeout_s
     while not holds(book[0]):
         left = deadline - time.monotonic()

@@ -18,7 +18,7 @@ import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "bench"))
 
-from estate import Options, run_estate  # type: ignore[import-not-found]
+from estate import Options, run_estate
 
 pytestmark = [pytest.mark.needs_mosquitto, pytest.mark.slow]
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+from typing import Any
 
 import pytest
 
@@ -13,7 +14,7 @@ from roomloop.plant.loader import load_plant
 from roomloop.plant.multizone import Estate, Room, builtin_estate, run_estate
 from roomloop.plant.protocol import TICK_S, protocol_settings, run_protocol
 
-TRANSPARENT = dict(
+TRANSPARENT: dict[str, Any] = dict(
     valve_opening_s=0.0, pump_pre_run_s=0.0, pump_overrun_s=0.0, min_on_s=0.0, min_off_s=0.0,
     max_starts_per_hour=60,
 )

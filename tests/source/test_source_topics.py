@@ -21,7 +21,7 @@ from roomloop.core.source_topics import (
     source_state_payload,
     source_state_topic,
 )
-from roomloop.core.types import ZoneOutputs
+from roomloop.core.types import Reason, ZoneOutputs
 from roomloop.service.publisher import (
     OFFLINE,
     ONLINE,
@@ -34,7 +34,7 @@ from roomloop.service.publisher import (
 UTC = ZoneInfo("UTC")
 
 
-def _view(demand: bool, reason: str) -> ZoneView:
+def _view(demand: bool, reason: Reason) -> ZoneView:
     outputs = ZoneOutputs(demand=demand, reason=reason, temperature=19.5, setpoint=20.0,
                           level="comfort", mode="auto", anticipator_k=0.1, droop_k=0.0)
     return ZoneView(zone="office", outputs=outputs, at=T0, output_point="office-valve")
@@ -42,7 +42,10 @@ def _view(demand: bool, reason: str) -> ZoneView:
 
 def test_parses_what_the_publisher_sends_today() -> None:
     """The payloads come from service/publisher.py itself, so a change there shows here."""
-    for demand, reason in ((True, "cut-in"), (False, "cut-out"), (True, "protection")):
+    calls: tuple[tuple[bool, Reason], ...] = (
+        (True, "cut-in"), (False, "cut-out"), (True, "protection")
+    )
+    for demand, reason in calls:
         view = _view(demand, reason)
         assert parse_demand(plain_fields(view, units="C")["demand"]) is demand
         text = json.dumps(state_payload(view, units="C", tz=UTC))
