@@ -271,7 +271,7 @@ def _lowest_ca(ours: Cell, others: list[Cell], swings: list[Swing]) -> TargetChe
         if mine >= theirs:
             floor = swings[i].half_k
             ours_cph, their_cph = ours.load_cycles_per_hour[i], best.load_cycles_per_hour[i]
-            if their_cph > ours_cph + 0.05:
+            if their_cph > ours_cph + 0.2:
                 why = f"it cycles faster, {their_cph:.1f} vs {ours_cph:.1f}/h"
             elif mine <= floor * SWING_FACTOR:
                 why = f"both near the plant's own swing, {floor:.3f} K"

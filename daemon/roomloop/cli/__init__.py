@@ -94,7 +94,8 @@ def build_parser() -> argparse.ArgumentParser:
         "--plant",
         metavar="PLANT",
         help=(
-            "a built-in plant (forced-air, hydronic, underfloor, electric, steam) or a plant "
+            "a built-in plant (forced-air, hydronic, underfloor, electric, steam, and the "
+            "stress cases thick-slab, oversized-air) or a plant "
             "YAML file (docs/plant-file.md); default: the built-in plant of the zone's heating type"
         ),
     )
