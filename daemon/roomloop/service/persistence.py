@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import functools
 import json
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -158,9 +159,12 @@ class Persistence:
             keys = {name: persist_key(state) for name, state in states.items()}
             models = self.models() if self.models is not None else {}
             warm_up = {n: m.to_dict() for n, m in models.items() if _worth_keeping(m)}
-            write = asyncio.ensure_future(
-                asyncio.to_thread(self.store.save, zones, now, warm_up)
+            saving = (
+                functools.partial(self.store.save, zones, now, warm_up)
+                if warm_up
+                else functools.partial(self.store.save, zones, now)
             )
+            write = asyncio.ensure_future(asyncio.to_thread(saving))
             self._in_flight = write
             try:
                 written = await asyncio.shield(write)
