@@ -44,7 +44,7 @@ from roomloop.core.controller import ZoneController
 from roomloop.core.optimum_start import OptimumStartSettings
 from roomloop.core.settings import ZoneSettings
 from roomloop.core.types import PointSample, ZoneInputs
-from roomloop.plant.loader import BUILTIN_PLANTS, PLANT_FOR_HEATING, load_plant
+from roomloop.plant.loader import BUILTIN_PLANTS, HEATING_FOR_PLANT, load_plant
 from roomloop.plant.model import PlantSimulation
 from roomloop.plant.protocol import COMFORT_C, ECONOMY_C, EPOCH, protocol_settings
 from roomloop.service.optimum_start import OptimumStartProgram
@@ -137,7 +137,7 @@ def run_mornings(
 ) -> Run:
     """One month (``days`` mornings) on one built-in plant; see the module docstring."""
     spec = load_plant(plant_name)
-    heating = next(h for h, p in PLANT_FOR_HEATING.items() if p == plant_name)
+    heating = HEATING_FOR_PLANT[plant_name]
     settings = protocol_settings(ZoneSettings.for_heating_type(heating))
     controller = ZoneController(settings)
     weather = Weather.seeded(days, seed)

@@ -8,6 +8,7 @@ the outdoor sensor's register; the clock is simulated (600 times real time).
 from __future__ import annotations
 
 import datetime as dt
+import json
 import sys
 from pathlib import Path
 from typing import Any
@@ -21,6 +22,7 @@ from service_rooms import RoomPlant, running, site_yaml, until
 
 from roomloop.clock import VirtualClock
 from roomloop.config.loader import load_site
+from roomloop.core.optimum_start import WarmUpModel
 from roomloop.service.app import Service, TickReport
 
 SPEED = 600.0
@@ -31,7 +33,9 @@ async def test_zone_takes_the_warmer_level_at_the_early_start(
     tmp_path: Path, modbus_tcp_server: Any, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     """An electric room at 16 C before a 07:00 switch to comfort 20 C: its lead (initial rate
-    3 K/h) is over an hour, so with ``earliest_s: 3600`` the early start begins at 06:00."""
+    3 K/h) is over an hour, so with ``earliest_s: 3600`` the early start begins at 06:00.
+    The warm-up it learns reaches the state file while it runs, and a restarted service on
+    the same state directory plans with it."""
     # a room of a building (time constant 6 h, about 3 K/h on full heat), not the e2e tests'
     # 20 min room whose 50 K/h the planner would refuse to learn as implausible
     monkeypatch.setattr(service_rooms, "TAU_S", 6 * 3600.0)
@@ -83,3 +87,27 @@ async def test_zone_takes_the_warmer_level_at_the_early_start(
         # the warm-up it learns from goes into the band of the site's outdoor point (-5..0 C)
         await until(clock, lambda: program.model.bands, 20000.0)
         assert {b.index for b in program.model.bands} == {None, -1}
+        learned = program.model
+        # saved soon after it learned (not only at the stop): a crash keeps it too
+        state_file = tmp_path / "state" / f"{site.name}.state.json"
+        await until(
+            clock,
+            lambda: state_file.exists()
+            and "room0" in json.loads(state_file.read_text()).get("warm_up", {}),
+            60.0,
+        )
+        saved = json.loads(state_file.read_text())["warm_up"]["room0"]
+        assert saved == learned.to_dict()  # the saved form rounds the rates to 1e-6 K/h
+    # a restart: a new service (a new process's objects) on the same state directory
+    again_ticks: list[TickReport] = []
+    clock2 = VirtualClock(start=clock.now() + 600.0)
+    again = Service(site, clock=clock2, state_dir=tmp_path / "state", on_tick=again_ticks.append)
+    async with RoomPlant(server, [20.0], clock2), running(again):
+        await until(clock2, lambda: again_ticks, 120.0)
+        restored = again.zones["room0"].program
+        assert restored.model.to_dict() == learned.to_dict()
+        assert restored.model.rate_at(-3.0, 3.0)[1].startswith("learned from")
+    fresh = Service(site, clock=VirtualClock(), state_dir=tmp_path / "other")
+    async with RoomPlant(server, [20.0], fresh.clock), running(fresh):
+        await until(fresh.clock, lambda: "room0" in fresh.zones, 120.0)
+        assert fresh.zones["room0"].program.model == WarmUpModel()  # nothing learned there

@@ -9,7 +9,7 @@ import pytest
 
 from roomloop.cli import main
 from roomloop.config.loader import load_site
-from roomloop.plant.loader import BUILTIN_PLANTS, PLANT_FOR_HEATING, load_plant
+from roomloop.plant.loader import HEATING_PLANTS, PLANT_FOR_HEATING, load_plant
 from roomloop.plant.protocol import SCHEDULE
 
 REPO = Path(__file__).resolve().parents[2]
@@ -64,7 +64,7 @@ def test_every_heating_type_has_a_builtin_plant_steam_included() -> None:
 
     from roomloop.config.models import HeatingType
 
-    assert set(get_args(HeatingType)) == set(PLANT_FOR_HEATING) == set(BUILTIN_PLANTS)
+    assert set(get_args(HeatingType)) == set(PLANT_FOR_HEATING) == set(HEATING_PLANTS)
     steam = load_plant("steam")
     # EN 442-2 power law [published]: 1.5 kW leaves a 814 W (50 K) radiator at about 80 K
     # excess, steam at 100 C in a 20 C room (computed by hand: 50 x (1500/814)^(1/1.3) = 80.0).

@@ -81,7 +81,22 @@ def test_builtin_plants_claim_the_classes_the_issue_names() -> None:
         "underfloor": "medium",
         "electric": "light",
         "steam": "heavy",
+        "thick-slab": "medium",
+        "oversized-air": "very-light",
     }
+
+
+def test_the_stress_plants_stress_what_they_claim() -> None:
+    # thick-slab: an emitter time constant of many hours (0.15 m concrete, [memory; derived]);
+    # oversized-air: a heater at least twice the design load (1200 W at -10 C in a 20 C room
+    # with 40 W/K) on a room lighter than ISO 52016-1's 10 kJ/m2K default [memory].
+    slab = load_plant("thick-slab")
+    assert slab.emitter is not None and slab.emitter.conductance_w_per_k is not None
+    assert slab.emitter.capacity_j_per_k / slab.emitter.conductance_w_per_k >= 6 * 3600
+    light = load_plant("oversized-air")
+    assert light.heater_w >= 2 * light.room.loss_w_per_k * 30
+    assert light.floor_area_m2 is not None
+    assert light.room.capacity_j_per_k < 10e3 * light.floor_area_m2
 
 
 def test_time_constants_match_references() -> None:

@@ -123,3 +123,23 @@ def test_unwritable_state_dir_is_a_runtime_error_naming_it(tmp_path: Path) -> No
     assert f"state directory {locked} is not writable" in str(caught.value)
     with pytest.raises(StateDirError, match="cannot be created: permission denied"):
         prepare_state_dir(locked / "inner")
+
+
+def test_warm_up_models_round_trip_and_a_bad_one_is_dropped(tmp_path: Path) -> None:
+    from roomloop.core.optimum_start import WarmUpModel
+    from roomloop.service.persistence import restored_warm_up
+
+    model = WarmUpModel().learned(2.5, -3.0, 900.0)
+    store = StateStore(tmp_path, "s")
+    store.save({"z": {"a": 1}}, now=1.0, warm_up={"z": model.to_dict(), "y": {"version": 99}})
+    again = StateStore(tmp_path, "s")
+    assert again.load() == {"z": {"a": 1}}
+    restored = restored_warm_up(again, "z")
+    assert restored is not None and restored.to_dict() == model.to_dict()
+    with capture_logs() as events:
+        assert restored_warm_up(again, "y") is None  # not a model: learn again from scratch
+    assert [e["event"] for e in events] == ["persist.warm_up_discarded"]
+    assert restored_warm_up(again, "x") is None
+    # a site without learned models keeps the old document (no warm_up key)
+    StateStore(tmp_path, "t").save({"z": {}}, now=1.0)
+    assert "warm_up" not in json.loads((tmp_path / "t.state.json").read_text())

@@ -113,10 +113,10 @@ def build_parser() -> argparse.ArgumentParser:
         "--plant",
         metavar="PLANT",
         help=(
-            "a built-in plant (forced-air, hydronic, underfloor, electric, steam; cooling: "
-            "direct-expansion, chilled-water) or a plant YAML file (docs/plant-file.md); "
-            "default: the built-in plant of the zone's heating type (cooling type with "
-            "--mode cool)"
+            "a built-in plant (forced-air, hydronic, underfloor, electric, steam; the stress "
+            "cases thick-slab, oversized-air; cooling: direct-expansion, chilled-water) or a "
+            "plant YAML file (docs/plant-file.md); default: the built-in plant of the zone's "
+            "heating type (cooling type with --mode cool)"
         ),
     )
     sim.add_argument(

@@ -62,8 +62,15 @@ class ZoneController:
     # ------------------------------------------------------------------ state
 
     def initial_state(self, now: float) -> ZoneState:
-        """A fresh zone: relay off, nothing learned, the configured start mode."""
+        """A fresh zone: relay off, nothing learned, the configured start mode.
+
+        The anticipator and the droop term start together at ``G x`` the fail-safe duty (the
+        on-fraction assumed before anything is learned): they cancel in the switching
+        temperature, and the room does not sag ``G x duty`` under the set point for the
+        hours droop compensation would take to integrate up from 0.
+        """
         s = self.settings
+        start_k = s.anticipator_gain_k * s.fail_safe_duty if s.droop_compensation else 0.0
         return ZoneState(
             mode=s.initial_mode,
             hold_setpoint=None,
@@ -71,8 +78,8 @@ class ZoneController:
             hold_until=None,
             level_override=None,
             scheduled_level=s.default_level,
-            anticipator_k=0.0,
-            droop_k=0.0,
+            anticipator_k=start_k,
+            droop_k=start_k,
             tau_scale=1.0,
             cycle_clean=False,
             relay_on=False,
@@ -274,7 +281,8 @@ class ZoneController:
             switched_at, switches = now, short_cycle.logged(switches, now, on)
             recovering = recovery.ended_by_switch(recovering, reason)
         if ordinary and recovering == 0 and temperature is not None:
-            b = droop.integrated(s, b, target, temperature, dt)
+            saturated = on and switched_at is not None and now - switched_at > k.target_period_s
+            b = droop.integrated(s, b, target, temperature, dt, saturated=saturated)
         duty = failsafe.learn(state, on_s, dt, now, k.learn_s)
         figures_1h = figures.last_hour(switches, on, state.started_at, now)
 

@@ -21,10 +21,18 @@ from roomloop.config.loader import (
 from roomloop.errors import ConfigError, ConfigProblem
 from roomloop.plant.spec import PlantSpec
 
-BUILTIN_PLANTS: tuple[str, ...] = ("forced-air", "hydronic", "underfloor", "electric", "steam")
-"""The built-in heating plants, one per heating type (each named after its type)."""
+HEATING_PLANTS: tuple[str, ...] = ("forced-air", "hydronic", "underfloor", "electric", "steam")
+"""The built-in plants named after a heating type, one per type."""
 
-PLANT_FOR_HEATING: dict[str, str] = {name: name for name in BUILTIN_PLANTS}
+STRESS_PLANTS: dict[str, str] = {"thick-slab": "underfloor", "oversized-air": "forced-air"}
+"""Built-in plants that stress a heating type's defaults (name -> the heating type they test):
+a thick slab (an emitter time constant of many hours) and a very light room with an
+oversized air heater."""
+
+BUILTIN_PLANTS: tuple[str, ...] = (*HEATING_PLANTS, *STRESS_PLANTS)
+"""Every built-in plant: one per heating type, then the stress cases."""
+
+PLANT_FOR_HEATING: dict[str, str] = {name: name for name in HEATING_PLANTS}
 """The built-in plant ``simulate`` and the demo take for a zone of each heating type."""
 
 COOLING_PLANTS: tuple[str, ...] = ("direct-expansion", "chilled-water")
@@ -36,6 +44,9 @@ PLANT_FOR_COOLING: dict[str, str] = {name: name for name in COOLING_PLANTS}
 
 ALL_PLANTS: tuple[str, ...] = (*BUILTIN_PLANTS, *COOLING_PLANTS)
 """Every built-in plant name ``load_plant`` knows."""
+
+HEATING_FOR_PLANT: dict[str, str] = {**PLANT_FOR_HEATING, **STRESS_PLANTS}
+"""The heating type whose defaults each built-in plant runs with (in the bench, ``simulate``)."""
 
 
 def builtin_plant_path(name: str) -> Path:

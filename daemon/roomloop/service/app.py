@@ -61,7 +61,7 @@ from roomloop.service.description import description_payload
 from roomloop.service.notify import Progress, notify, watchdog_interval_s
 from roomloop.service.outputs import OutputWriter, SafeSink, outputs_as_found, zone_outputs
 from roomloop.service.persist import StateStore
-from roomloop.service.persistence import Persistence, restore_states
+from roomloop.service.persistence import Persistence, restore_states, restored_warm_up
 from roomloop.service.publisher import StatePublisher, ZoneView, output_agrees, override_of
 from roomloop.service.restart import read_output_states
 from roomloop.service.session import BrokerSession
@@ -158,7 +158,10 @@ class Service:
         self.restarts = self.supervisor.restarts
         """Restarts per task name (tests and status)."""
         self.persistence = Persistence(
-            self.store, self.clock, lambda: {n: r.state for n, r in self.zones.items()}
+            self.store,
+            self.clock,
+            lambda: {n: r.state for n, r in self.zones.items()},
+            lambda: {n: r.program.model for n, r in self.zones.items()},
         )
         self.alarms = AlarmBook(site, self.prefix, self.tz)
         """The zones' alarms, evaluated after each step (published, and the BMS face's bits)."""
@@ -185,6 +188,9 @@ class Service:
         self.runner.subscribe(self._publish_step)
         self.runner.subscribe(self.sources.note_zone)
         self.runner.subscribe(lambda r: self.persistence.note(r.zone, r.state))
+        self.runner.subscribe(
+            lambda r: self.persistence.note_model(r.zone, self.zones[r.zone].program.model)
+        )
         self.history = HistoryRecorder.for_site(
             site, state_dir if state_dir is not None else site.site.state_dir
         )
@@ -247,6 +253,7 @@ class Service:
             self.zones[name] = ZoneRuntime(
                 zone, restored.settings, restored.controller, restored.state, self.tz,
                 calendar=self.site.calendar_for(name),
+                warm_up=restored_warm_up(self.store, name),
             )
             for point, on in outputs_as_found(zone, restored.state):
                 self.outputs.hold_as_found(point, on)

@@ -16,6 +16,10 @@ switch is newer than its saved one takes the recorded state, so the switch times
 short-cycle protection needs survive a SIGKILL between a switch and the next full
 save (and before the first). A full save that covers the journal empties it.
 
+The document also keeps each zone's learned warm-up model of optimum start (``warm_up``:
+zone name -> :meth:`~roomloop.core.optimum_start.WarmUpModel.to_dict`), present only once a
+zone has learned something; :attr:`StateStore.warm_up` holds what the file had at load.
+
 A state directory that cannot be written (a read-only SD card, a lost mount,
 permissions) does not stop the service either: the zones start fresh (the file,
 if readable, may date from before the directory failed), every save is tried
@@ -106,6 +110,8 @@ class StateStore:
         self._recorded: dict[str, tuple[float, bool]] = {}
         """Per zone the last switch recorded in the journal since it was last emptied."""
         self._journal_synced = False
+        self.warm_up: dict[str, Any] = {}
+        """The saved warm-up models by zone as found at :meth:`load` (checked by the reader)."""
 
     @property
     def status(self) -> str:
@@ -159,6 +165,8 @@ class StateStore:
             self._move_aside(problem)
             return {}
         zones: dict[str, Any] = document["zones"]
+        warm_up = document.get("warm_up")
+        self.warm_up = dict(warm_up) if isinstance(warm_up, dict) else {}
         self._last_written = _dump({**document, "saved_at": None})
         return zones
 
@@ -222,15 +230,20 @@ class StateStore:
             applied += 1
         return applied
 
-    def save(self, zones: dict[str, Any], now: float) -> bool:
-        """Write the zone states if they differ from what was last written; True if written."""
-        document = {
+    def save(
+        self, zones: dict[str, Any], now: float, warm_up: dict[str, Any] | None = None
+    ) -> bool:
+        """Write the zone states (and the learned warm-up models, if any) if they differ from
+        what was last written; True if written."""
+        document: dict[str, Any] = {
             "format": FORMAT,
             "version": VERSION,
             "site": self.site_name,
             "saved_at": now,
             "zones": zones,
         }
+        if warm_up:
+            document["warm_up"] = warm_up
         comparable = _dump({**document, "saved_at": None})
         if comparable == self._last_written:
             return False

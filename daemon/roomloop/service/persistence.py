@@ -5,12 +5,15 @@ it) and resumes each zone's saved state, or starts it fresh. :class:`Persistence
 saves the states when something that must survive a restart changed (a command,
 the relay and its switch times, fail-safe: :func:`persist_key`), every
 ``PERIODIC_SAVE_S`` otherwise (the slowly drifting terms), and once more at stop.
+Each zone's learned warm-up model (optimum start) is saved with the states, soon after
+it learns from a warm-up; :func:`restored_warm_up` reads it back at start.
 """
 
 from __future__ import annotations
 
 import asyncio
 import contextlib
+import functools
 import json
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -21,6 +24,7 @@ import structlog
 from roomloop.clock import Clock, sleep_or_wake
 from roomloop.config.models import Site
 from roomloop.core.controller import ZoneController
+from roomloop.core.optimum_start import WarmUpModel
 from roomloop.core.settings import ZoneSettings
 from roomloop.core.state import ZoneState
 from roomloop.service.persist import StateStore
@@ -87,15 +91,39 @@ def restore_states(
     return zones
 
 
+def restored_warm_up(store: StateStore, zone: str) -> WarmUpModel | None:
+    """The zone's saved warm-up model (after :meth:`StateStore.load`), or None: none saved,
+    or one that does not read as a model (logged; the zone learns again from scratch)."""
+    raw = store.warm_up.get(zone)
+    if raw is None:
+        return None
+    try:
+        return WarmUpModel.from_dict(raw)
+    except ValueError as exc:
+        log.warning("persist.warm_up_discarded", zone=zone, reason=str(exc))
+        return None
+
+
+def _worth_keeping(model: WarmUpModel) -> bool:
+    return bool(model.bands) or model.dead_time_s is not None
+
+
 class Persistence:
-    """Saves the states that ``states()`` returns, in order, never on the event loop."""
+    """Saves the states that ``states()`` returns (and the warm-up models ``models()``
+    returns), in order, never on the event loop."""
 
     def __init__(
-        self, store: StateStore, clock: Clock, states: Callable[[], Mapping[str, ZoneState]]
+        self,
+        store: StateStore,
+        clock: Clock,
+        states: Callable[[], Mapping[str, ZoneState]],
+        models: Callable[[], Mapping[str, WarmUpModel]] | None = None,
     ) -> None:
         self.store = store
         self.clock = clock
         self.states = states
+        self.models = models
+        self._last_model: dict[str, WarmUpModel] = {}
         self._dirty = asyncio.Event()
         self._last_saved_key: dict[str, str] = {}
         self._lock = asyncio.Lock()
@@ -104,6 +132,16 @@ class Persistence:
     def saved_as(self, zone: str, state: ZoneState) -> None:
         """``state`` is what the disk holds for ``zone`` (restored at start)."""
         self._last_saved_key[zone] = persist_key(state)
+
+    def note_model(self, zone: str, model: WarmUpModel) -> None:
+        """A zone stepped: save soon if its warm-up model learned something new."""
+        last = self._last_model.get(zone)
+        if last is None:
+            self._last_model[zone] = model
+        elif model is not last:
+            self._last_model[zone] = model
+            if model != last:
+                self._dirty.set()
 
     def mark_dirty(self) -> None:
         """Save soon (a command was applied)."""
@@ -128,7 +166,14 @@ class Persistence:
             states = self.states()
             zones = {name: json.loads(state.to_json()) for name, state in states.items()}
             keys = {name: persist_key(state) for name, state in states.items()}
-            write = asyncio.ensure_future(asyncio.to_thread(self.store.save, zones, now))
+            models = self.models() if self.models is not None else {}
+            warm_up = {n: m.to_dict() for n, m in models.items() if _worth_keeping(m)}
+            saving = (
+                functools.partial(self.store.save, zones, now, warm_up)
+                if warm_up
+                else functools.partial(self.store.save, zones, now)
+            )
+            write = asyncio.ensure_future(asyncio.to_thread(saving))
             self._in_flight = write
             try:
                 written = await asyncio.shield(write)

@@ -22,6 +22,7 @@ from roomloop.clock import Clock, sleep_or_wake
 from roomloop.config.models import CalendarEntry, Zone
 from roomloop.core.commands import UNSET, Unset, apply_command
 from roomloop.core.controller import ZoneController
+from roomloop.core.optimum_start import WarmUpModel
 from roomloop.core.settings import ZoneSettings
 from roomloop.core.state import ZoneState
 from roomloop.core.types import PointSample, ZoneInputs, ZoneOutputs
@@ -71,6 +72,7 @@ class ZoneRuntime:
         tz: ZoneInfo,
         *,
         calendar: Sequence[CalendarEntry] = (),
+        warm_up: WarmUpModel | None = None,
     ) -> None:
         self.zone = zone
         self.settings = settings
@@ -81,7 +83,8 @@ class ZoneRuntime:
         self.wake = asyncio.Event()
         self.steps = 0
         # the program cursor wrapped by optimum start (the same answer while it is off)
-        self.program = OptimumStartProgram.for_zone(zone, settings, tz, calendar)
+        # (``warm_up``: the learned warm-up model restored from the state file)
+        self.program = OptimumStartProgram.for_zone(zone, settings, tz, calendar, warm_up)
 
     @property
     def name(self) -> str:

@@ -1,5 +1,10 @@
 """Droop compensation ``b``: removes the steady offset the anticipator causes under load.
 
+A fresh zone starts ``b`` (and the anticipator) at ``G x`` the fail-safe duty, so the room
+does not sag under the set point while ``b`` integrates up from zero
+(:meth:`~roomloop.core.controller.ZoneController.initial_state`); while the relay is
+saturated on, ``b`` integrates at half rate (anti-windup, :func:`integrated`).
+
 The anticipator's mean over a steady cycle is ``G x duty``, so without ``b`` the room
 would settle about that much below ``S`` (REFERENCES.md [derived]). ``b`` integrates
 ``(S - T) dt / droop_time_s`` (the raw ``T``: the same mean, and no smoothing lag
@@ -24,13 +29,37 @@ def faded(droop_k: float, recovering: int, relay_on: bool, decay: float) -> floa
     return droop_k
 
 
+SATURATED_RATE = 0.5
+"""The fraction of its rate at which ``b`` integrates while the relay is saturated on."""
+
+
 def integrated(
-    s: ZoneSettings, droop_k: float, setpoint: float, temperature: float, dt: float
+    s: ZoneSettings,
+    droop_k: float,
+    setpoint: float,
+    temperature: float,
+    dt: float,
+    *,
+    saturated: bool = False,
 ) -> float:
-    """``b`` after an ordinary tick of ``dt`` seconds at ``T``, clamped to ``[0, G]``."""
+    """``b`` after an ordinary tick of ``dt`` seconds at ``T``, clamped to ``[0, G]``.
+
+    ``saturated``: the relay has been on for longer than a whole cycle. A saturated relay
+    cannot give more heat, so while the room is still below the set point ``b`` integrates
+    at only ``SATURATED_RATE`` of its rate (a softened conditional integration, the usual
+    anti-windup of a PI controller: K. J. Astrom, T. Hagglund, "Advanced PID Control", ISA
+    2006, its chapter on windup [recalled from memory]): after a load step that a slow
+    emitter answers only hours later (a thick slab at full output) a full-rate ``b`` winds
+    up towards ``G`` and overshoots once the room arrives; a frozen one is too low when the
+    relay starts cycling again. The factor 0.5 is from a sweep (0, 0.25, 0.35, 0.5, 0.65,
+    1) on the underfloor and thick-slab plants (tests/bench/control_quality.py) [no source].
+    """
     if not s.droop_compensation or dt <= 0.0:
         return droop_k
-    b = droop_k + (setpoint - temperature) * dt / s.droop_time_s
+    error = setpoint - temperature
+    if saturated and error > 0.0:
+        error *= SATURATED_RATE
+    b = droop_k + error * dt / s.droop_time_s
     if b < 0.0:
         return 0.0
     if b > s.anticipator_gain_k:
