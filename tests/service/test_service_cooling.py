@@ -129,3 +129,73 @@ async def test_warm_room_cools_and_cold_room_heats_with_the_changeover_output_sw
         assert not (heat and cool)
     # At the stop every output went to its safe state: heating, cooling, changeover off.
     assert (await server.get_coils(0, 3)) == [False, False, False]
+
+
+async def test_the_program_carries_the_changeover_and_a_command_lasts_until_its_next_change(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    """A heat-pump zone whose weekly program says heat from midnight and cool from 10:30: a
+    warm room does not cool before 10:30 (changeover heat), cools after; a ``changeover``
+    command at 10:40 holds until the program's next changeover entry."""
+    import datetime as dt
+
+    start = dt.datetime(2026, 6, 1, 10, 0, tzinfo=dt.UTC).timestamp()
+    clock = VirtualClock(start=start)
+    server = await modbus_tcp_server()
+    await server.set_registers("input", 0, [270])  # 27.0 C: warm enough to cool
+    site = heat_pump_site(tmp_path, server.port)
+    (zone,) = site.zones
+    data = yaml.safe_load((tmp_path / "site.yaml").read_text())
+    data["zones"][0]["program"] = [
+        {"days": "all", "at": "00:00", "level": "comfort", "changeover": "heat"},
+        {"days": "all", "at": "10:30", "level": "comfort", "changeover": "cool"},
+    ]
+    (tmp_path / "site.yaml").write_text(yaml.safe_dump(data))
+    site = load_site(tmp_path / "site.yaml")
+    ticks: list[TickReport] = []
+    service = Service(site, clock=clock, state_dir=tmp_path / "state", on_tick=ticks.append)
+
+    def changeover() -> str | None:
+        cooling = ticks[-1].outputs.cooling if ticks else None
+        return None if cooling is None else cooling.changeover
+
+    async with running(service):
+        # the program's 00:00 entry is in force at start: heat only, the warm room waits
+        await until(clock, lambda: changeover() == "heat", timeout_s=60)
+        await until(clock, lambda: clock.now() >= start + 25 * 60, timeout_s=1800)
+        assert changeover() == "heat"
+        assert not any(t.outputs.cooling and t.outputs.cooling.demand for t in ticks)
+        # 10:30: the program switches to cool, and the warm room calls cooling
+        await until(clock, lambda: changeover() == "cool", timeout_s=600)
+        assert ticks[-1].at >= start + 30 * 60
+        await until(
+            clock, lambda: bool(ticks[-1].outputs.cooling and ticks[-1].outputs.cooling.demand),
+            timeout_s=900,
+        )
+        # 10:40 (or later): a command sets heat; no program change until midnight keeps it
+        await until(clock, lambda: clock.now() >= start + 40 * 60, timeout_s=900)
+        service.runner.apply_command(zone.name, "changeover", "heat")
+        await until(clock, lambda: changeover() == "heat", timeout_s=60)
+        await until(clock, lambda: clock.now() >= start + 70 * 60, timeout_s=3600)
+        assert changeover() == "heat"
+
+
+def test_a_program_changeover_in_a_zone_without_a_cooling_call_is_refused(
+    tmp_path: Path,
+) -> None:
+    from roomloop.errors import ConfigError
+
+    data = site_yaml(modbus_port=1502, broker_port=1)
+    data["zones"][0]["program"] = [
+        {"days": "all", "at": "07:00", "level": "comfort", "changeover": "cool"},
+    ]
+    path = tmp_path / "site.yaml"
+    path.write_text(yaml.safe_dump(data))
+    try:
+        load_site(path)
+    except ConfigError as exc:
+        text = str(exc)
+    else:
+        raise AssertionError("a heating-only zone took a program changeover")
+    assert "zones[0].program[0].changeover" in text or "program[0].changeover" in text, text
+    assert "needs a cooling call" in text, text

@@ -122,3 +122,33 @@ def test_cursor_answers_like_the_functions(steps: list[int], scale: int, backwar
     for when in times:
         expected = (level_at(PROGRAM, when, VIENNA), next_change(PROGRAM, when, VIENNA))
         assert cursor.at(when) == expected
+
+
+def test_the_program_changeover_in_force_comes_from_its_latest_entry_or_a_calendar_entry() -> None:
+    """Worked by hand (Vienna, summer time UTC+2 in June): entries at 06:00 (cool on
+    weekdays) and 22:00 (auto, every day); a calendar 'shutdown' 10-12 June says heat."""
+    from roomloop.config.models import CalendarEntry
+    from roomloop.service.program import changeover_at
+
+    entries = [
+        ProgramEntry(days="mon-fri", at="06:00", level="comfort", changeover="cool"),
+        ProgramEntry(days="all", at="22:00", level="economy", changeover="auto"),
+        ProgramEntry(days="all", at="12:00", level="comfort"),  # gives no changeover
+    ]
+    # Monday 1 June 2026, 09:00 local = 07:00 UTC: that morning's 06:00 entry (04:00 UTC)
+    found = changeover_at(entries, (), utc(2026, 6, 1, 7), VIENNA)
+    assert found is not None and (found.changeover, found.since) == ("cool", utc(2026, 6, 1, 4))
+    # Monday 13:00 local: the 12:00 entry gives none, so 06:00's still holds
+    found = changeover_at(entries, (), utc(2026, 6, 1, 11), VIENNA)
+    assert found is not None and found.changeover == "cool"
+    # Sunday 7 June 09:00 local: no weekday entry that day; Saturday's 22:00 (20:00 UTC)
+    found = changeover_at(entries, (), utc(2026, 6, 7, 7), VIENNA)
+    assert found is not None and (found.changeover, found.since) == ("auto", utc(2026, 6, 6, 20))
+    # a calendar entry wins while it lasts, from its start (10 June 00:00 local = 9 June 22:00 UTC)
+    shutdown = CalendarEntry(
+        name="shutdown", start="2026-06-10", end="2026-06-12", level="economy", changeover="heat"
+    )
+    found = changeover_at(entries, (shutdown,), utc(2026, 6, 11, 7), VIENNA)
+    assert found is not None
+    assert (found.changeover, found.since, found.by) == ("heat", utc(2026, 6, 9, 22), "shutdown")
+    assert changeover_at(entries[2:], (), utc(2026, 6, 1, 11), VIENNA) is None

@@ -132,7 +132,22 @@ def _calendar_zones(parts: SiteParts) -> list[Finding]:
                         f"no zone named {name!r} (zones: {', '.join(sorted(known)) or 'none'})",
                     )
                 )
+        findings += _calendar_changeover(parts, index, entry)
     return findings
+
+
+def _calendar_changeover(parts: SiteParts, index: int, entry: CalendarEntry) -> list[Finding]:
+    """A calendar changeover: a zone it names must take it; one for every zone, some zone."""
+    if entry.changeover is None:
+        return []
+    zones = [zone for _, zone in parts.zones if entry.applies_to(zone.name)]
+    problems = [(z.name, changeover_problem(z, entry.changeover)) for z in zones]
+    where: KeyPath = ("calendar", index, "changeover")
+    if entry.zones is not None:
+        return [Finding(where, f"zone {name!r}: {p}") for name, p in problems if p is not None]
+    if zones and all(p is not None for _, p in problems):
+        return [Finding(where, f"changeover {entry.changeover}: no zone of the site can take it")]
+    return []
 
 
 def warnings_of_parts(parts: SiteParts) -> list[Finding]:
@@ -775,7 +790,22 @@ def _program(index: int, zone: Zone) -> list[Finding]:
                 )
                 break
             seen.setdefault(key, k)
+    for k, entry in enumerate(zone.program):
+        problem = changeover_problem(zone, entry.changeover)
+        if problem is not None:
+            findings.append(Finding(("zones", index, "program", k, "changeover"), problem))
     return findings
+
+
+def changeover_problem(zone: Zone, changeover: str | None) -> str | None:
+    """Why the zone cannot take ``changeover`` from its program (None: it can)."""
+    if changeover is None:
+        return None
+    if zone.cooling is None:
+        return f"changeover {changeover} needs a cooling call (cooling.output) in this zone"
+    if zone.output is None and changeover in ("heat", "auto"):
+        return f"changeover {changeover} needs a heating output (output) in this zone"
+    return None
 
 
 # --------------------------------------------------------------------------- heat sources

@@ -789,11 +789,15 @@ class FailSafe(Strict):
 
 
 class ProgramEntry(Strict):
-    """From ``at`` on the given days, mode ``auto`` uses ``level``."""
+    """From ``at`` on the given days, mode ``auto`` uses ``level`` (and, in a zone with a
+    cooling call, the ``changeover`` when the entry gives one)."""
 
     days: list[str] | str
     at: str
     level: Level
+    changeover: ChangeoverMode | None = None
+    """A zone with a cooling call switches to this changeover at the entry (it lasts until
+    the next entry that gives one; a ``changeover`` command in between lasts until then)."""
 
     @field_validator("days")
     @classmethod
@@ -904,6 +908,8 @@ class CalendarEntry(Strict):
     start: str
     end: str
     level: Level
+    changeover: ChangeoverMode | None = None
+    """For the zones with a cooling call: the changeover during the entry (e.g. a summer)."""
     zones: list[Name] | None = None
     """The zones it applies to; left out: every zone of the site."""
 

@@ -51,6 +51,7 @@ def description_payload(
         "max_hold_s": MAX_HOLD_S,
         "program": [
             {"days": list(entry.days), "at": entry.at, "level": entry.level}
+            | ({} if entry.changeover is None else {"changeover": entry.changeover})
             for entry in zone.program
         ],
         "default_level": zone.default_level,

@@ -211,6 +211,49 @@ def _first_weekly_change(
     return None
 
 
+@dataclass(frozen=True, slots=True)
+class ProgramChangeover:
+    """The changeover the program sets, and the instant of the switch (or calendar entry's
+    start) that set it: a new ``since`` is a new program change, applied once."""
+
+    changeover: str
+    since: float
+    by: str = PROGRAM
+
+
+def changeover_at(
+    entries: Sequence[ProgramEntry],
+    calendar: Sequence[CalendarEntry],
+    when: float,
+    tz: ZoneInfo,
+) -> ProgramChangeover | None:
+    """The changeover the program has in force at ``when``: a calendar entry's (the last in
+    the file that contains ``when`` and gives one), else the one of the latest weekly entry
+    that gives one (None: none does)."""
+    found: ProgramChangeover | None = None
+    for item, period in zip(calendar, resolve_calendar(calendar, tz), strict=True):
+        if item.changeover is not None and period.start <= when < period.end:
+            found = ProgramChangeover(item.changeover, period.start, item.name)
+    if found is not None:
+        return found
+    weekly = [e for e in entries if e.changeover is not None]
+    if not weekly:
+        return None
+    today = dt.datetime.fromtimestamp(when, tz).date()
+    first = today - dt.timedelta(days=_LOOK_DAYS)
+    latest: ProgramChangeover | None = None
+    day = first
+    while day <= today:
+        weekday = DAYS[day.weekday()]
+        for entry in weekly:
+            at = switch_instant(day, entry.minute_of_day, tz)
+            if weekday in entry.days and at <= when and (latest is None or at >= latest.since):
+                assert entry.changeover is not None
+                latest = ProgramChangeover(entry.changeover, at)
+        day += dt.timedelta(days=1)
+    return latest
+
+
 class ProgramCursor:
     """:func:`level_at` and :func:`next_change` for a zone's ticks, computed once per change.
 

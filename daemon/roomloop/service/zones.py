@@ -20,7 +20,7 @@ import structlog
 
 from roomloop.clock import Clock, sleep_or_wake
 from roomloop.config.models import CalendarEntry, Zone
-from roomloop.core.commands import UNSET, Unset, apply_command
+from roomloop.core.commands import UNSET, CommandRejected, Unset, apply_command
 from roomloop.core.controller import ZoneController
 from roomloop.core.optimum_start import WarmUpModel
 from roomloop.core.settings import ZoneSettings
@@ -31,7 +31,7 @@ from roomloop.service.events import zone_events
 from roomloop.service.notify import Progress
 from roomloop.service.optimum_start import OptimumStartProgram, outdoor_value
 from roomloop.service.outputs import zone_outputs, zone_wants
-from roomloop.service.program import Switch
+from roomloop.service.program import Switch, changeover_at
 
 log = structlog.get_logger("roomloop.service")
 
@@ -85,6 +85,10 @@ class ZoneRuntime:
         # the program cursor wrapped by optimum start (the same answer while it is off)
         # (``warm_up``: the learned warm-up model restored from the state file)
         self.program = OptimumStartProgram.for_zone(zone, settings, tz, calendar, warm_up)
+        self.tz = tz
+        self.calendar = tuple(calendar)
+        self.changeover_since: float | None = None
+        """The instant of the program change whose changeover was last taken (None: none yet)."""
 
     @property
     def name(self) -> str:
@@ -195,6 +199,8 @@ class ZoneRunner:
                 now, mode=runtime.state.mode, outdoor=self._outdoor(now),
                 temperature=None if runtime.outputs is None else runtime.outputs.temperature,
             )
+            if runtime.settings.cooling is not None:
+                self._program_changeover(runtime, now)
             inputs = ZoneInputs(
                 samples=self.samples(zone.inputs, now),
                 scheduled_level=level,
@@ -219,6 +225,38 @@ class ZoneRunner:
             self.progress.beat(name)
             runtime.wake.clear()
             await sleep_or_wake(self.clock, zone.tick_s, runtime.wake)
+
+    def _program_changeover(self, runtime: ZoneRuntime, now: float) -> None:
+        """A program entry (weekly or calendar) that sets the changeover: taken once per
+        program change, as a ``changeover`` command would be (the core checks it), so a
+        command in between lasts until the next such change. At start the program's
+        changeover in force is taken unless a command had changed the zone's (a restored
+        state that differs from the site file's)."""
+        cooling = runtime.settings.cooling
+        found = changeover_at(runtime.zone.program, runtime.calendar, now, runtime.tz)
+        if cooling is None or found is None or found.since == runtime.changeover_since:
+            return
+        first = runtime.changeover_since is None
+        runtime.changeover_since = found.since
+        c = runtime.state.cooling
+        current = cooling.initial_changeover if c is None else c.changeover
+        if (first and current != cooling.initial_changeover) or current == found.changeover:
+            return
+        try:
+            runtime.state = apply_command(
+                runtime.settings, runtime.state, "changeover", found.changeover, now,
+                units=self.units,
+            )
+        except CommandRejected as exc:
+            log.warning(
+                "program.changeover_refused", zone=runtime.name, changeover=found.changeover,
+                by=found.by, reason=exc.reason,
+            )
+            return
+        log.info(
+            "program.changeover", zone=runtime.name, changeover=found.changeover,
+            was=current, by=found.by,
+        )
 
     def _after_step(self, report: TickReport) -> None:
         for hook in self._hooks:
