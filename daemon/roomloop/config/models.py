@@ -667,8 +667,9 @@ class Limits(Strict):
     max: Temperature = 28.0
 
 
-class TuningInput(Strict):
-    """Tuning as written in the file; whatever is left out comes from the heating-type preset."""
+class CallTuningInput(Strict):
+    """One call's tuning as written (heating's or cooling's); what is left out comes from the
+    heating type's or the cooling type's preset."""
 
     differential_k: Annotated[TemperatureDelta, Field(gt=0, le=5)] | None = None
     anticipator_gain_k: Annotated[TemperatureDelta, Field(ge=0, le=10)] | None = None
@@ -677,8 +678,14 @@ class TuningInput(Strict):
     min_on_s: Annotated[Float, Field(ge=0, le=7200)] | None = None
     min_off_s: Annotated[Float, Field(ge=0, le=7200)] | None = None
     max_cycles_per_hour: Annotated[Int, Field(ge=1, le=60)] | None = None
+    """The most starts in any hour (for cooling: the compressor's)."""
     droop_compensation: bool | None = None
     droop_time_s: Annotated[Seconds, Field(ge=60)] | None = None
+
+
+class TuningInput(CallTuningInput):
+    """Tuning as written in the file; whatever is left out comes from the heating-type preset."""
+
     smoothing_s: Annotated[Float, Field(ge=0, le=14400)] | None = None
     """Time constant of the smoothing of the temperature the relay switches on; left out:
     one cycle period (3600 / cycle rate); 0: none."""
@@ -702,19 +709,9 @@ class Tuning(BaseModel):
     """``None``: one cycle period (the controller derives it from the cycle rate)."""
 
 
-class CoolingTuningInput(Strict):
-    """The cooling call's tuning as written; whatever is left out comes from the cooling type."""
-
-    differential_k: Annotated[TemperatureDelta, Field(gt=0, le=5)] | None = None
-    anticipator_gain_k: Annotated[TemperatureDelta, Field(ge=0, le=10)] | None = None
-    anticipator_time_constant_s: Annotated[Seconds, Field(ge=10)] | None = None
-    cycle_rate_cph: Annotated[Float, Field(gt=0, le=30)] | None = None
-    min_on_s: Annotated[Float, Field(ge=0, le=7200)] | None = None
-    min_off_s: Annotated[Float, Field(ge=0, le=7200)] | None = None
-    max_cycles_per_hour: Annotated[Int, Field(ge=1, le=60)] | None = None
-    """The most starts in any hour (a compressor's starts per hour)."""
-    droop_compensation: bool | None = None
-    droop_time_s: Annotated[Seconds, Field(ge=60)] | None = None
+class CoolingTuningInput(CallTuningInput):
+    """The cooling call's tuning as written; whatever is left out comes from the cooling type
+    (the heating keys but ``smoothing_s``)."""
 
 
 class CoolingSetpoints(Strict):

@@ -23,7 +23,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 from roomloop.errors import RoomloopError
 
@@ -35,6 +35,7 @@ if TYPE_CHECKING:  # the config models (pydantic) are imported only where a buil
         Reliability,
         Setpoints,
         Site,
+        Tuning,
         TuningInput,
         Zone,
     )
@@ -43,6 +44,22 @@ COMBINE_RULES = ("mean", "median", "min", "first-ok")
 FAIL_SAFE_POLICIES = ("off", "fixed-duty", "learned-duty")
 LEVEL_NAMES = ("comfort", "standby", "economy", "protection")
 MODE_NAMES = ("auto", "hold", "off")
+
+
+def call_tuning(tuning: Tuning) -> dict[str, Any]:
+    """One call's switching and short-cycle values from its effective tuning (heating's or
+    cooling's: the same keys)."""
+    return {
+        "differential_k": float(tuning.differential_k),
+        "anticipator_gain_k": float(tuning.anticipator_gain_k),
+        "anticipator_time_constant_s": float(tuning.anticipator_time_constant_s),
+        "cycle_rate_cph": float(tuning.cycle_rate_cph),
+        "min_on_s": float(tuning.min_on_s),
+        "min_off_s": float(tuning.min_off_s),
+        "max_cycles_per_hour": int(tuning.max_cycles_per_hour),
+        "droop_compensation": bool(tuning.droop_compensation),
+        "droop_time_s": float(tuning.droop_time_s),
+    }
 
 
 def cooling_settings(zone: Zone, units: str = "C") -> CoolingSettings | None:
@@ -57,15 +74,7 @@ def cooling_settings(zone: Zone, units: str = "C") -> CoolingSettings | None:
     minimum = ASHRAE_DEAD_BAND.get(units, ASHRAE_DEAD_BAND["C"])
     return CoolingSettings(
         type=cooling.type,
-        differential_k=float(tuning.differential_k),
-        anticipator_gain_k=float(tuning.anticipator_gain_k),
-        anticipator_time_constant_s=float(tuning.anticipator_time_constant_s),
-        cycle_rate_cph=float(tuning.cycle_rate_cph),
-        min_on_s=float(tuning.min_on_s),
-        min_off_s=float(tuning.min_off_s),
-        max_cycles_per_hour=int(tuning.max_cycles_per_hour),
-        droop_compensation=bool(tuning.droop_compensation),
-        droop_time_s=float(tuning.droop_time_s),
+        **call_tuning(tuning),
         comfort_c=float(sp.comfort),
         standby_c=float(sp.standby),
         economy_c=float(sp.economy),
@@ -347,15 +356,7 @@ class ZoneSettings:
             inputs=tuple(PointSettings.from_point(inputs[name]) for name in zone.inputs),
             backup=None if backup is None else PointSettings.from_point(backup),
             combine=zone.combine,
-            differential_k=float(tuning.differential_k),
-            anticipator_gain_k=float(tuning.anticipator_gain_k),
-            anticipator_time_constant_s=float(tuning.anticipator_time_constant_s),
-            cycle_rate_cph=float(tuning.cycle_rate_cph),
-            min_on_s=float(tuning.min_on_s),
-            min_off_s=float(tuning.min_off_s),
-            max_cycles_per_hour=int(tuning.max_cycles_per_hour),
-            droop_compensation=bool(tuning.droop_compensation),
-            droop_time_s=float(tuning.droop_time_s),
+            **call_tuning(tuning),
             smoothing_s=None if tuning.smoothing_s is None else float(tuning.smoothing_s),
             cycle_rate_regulation=(
                 zone.origins.get("anticipator_time_constant_s") == "derived from cycle rate"
