@@ -53,7 +53,7 @@ step, on a busy machine (2/3 s real)."""
 def east_site(modbus_port: int, broker_port: int) -> dict[str, Any]:
     data = site_yaml(modbus_port=modbus_port, broker_port=broker_port, zones=2)
     data["site"]["name"] = "east"
-    return data
+    return dict(data)
 
 
 def plant_room_site(
@@ -80,7 +80,7 @@ def plant_room_site(
             "remote_stale": {"policy": policy, "timeout_s": 600},
         }
     ]
-    return data
+    return dict(data)
 
 
 @dataclass
@@ -125,7 +125,8 @@ class Rig:
         await self.a.start()
 
     def _died(self) -> str | None:
-        return self.a.died() or self.b.died()
+        died: str | None = self.a.died() or self.b.died()
+        return died
 
 
 @contextlib.asynccontextmanager
