@@ -178,6 +178,32 @@ def test_commands_keep_the_dead_band_in_auto() -> None:
         apply_command(cooling_only, state, "changeover", "heat", 0.0)
 
 
+def test_a_cooling_hold_does_not_leak_into_later_holds() -> None:
+    """A cooling hold ends with its hold: a later level hold uses that level's cooling set
+    point, a later ``mode hold`` the one in force then, and a set-point hold taken in mode
+    ``off`` the program's, not the overheat limit."""
+    from roomloop.core.commands import current_cooling_setpoint
+
+    s = dual_settings()
+    assert s.cooling is not None
+    cs = replace(s.cooling, overheat_c=32.0)
+    s = replace(s, cooling=cs)
+    state = ZoneController(s).initial_state(0.0)
+    held = apply_command(s, state, "cooling_setpoint", 27.5, 0.0)
+    back = apply_command(s, held, "mode", "auto", 1.0)
+    economy = apply_command(s, back, "level", "economy", 2.0, until=3600.0)
+    assert current_cooling_setpoint(s, economy) == cs.economy_c
+    hold = apply_command(s, back, "mode", "hold", 3.0)
+    assert current_cooling_setpoint(s, hold) == cs.comfort_c
+    at_economy = apply_command(s, held, "level", "economy", 4.0)
+    level_hold = apply_command(s, at_economy, "mode", "hold", 5.0)
+    assert current_cooling_setpoint(s, level_hold) == cs.economy_c
+    off = apply_command(s, state, "mode", "off", 6.0)
+    assert current_cooling_setpoint(s, off) == 32.0  # the overheat limit in mode off
+    from_off = apply_command(s, off, "setpoint", 21.0, 7.0)
+    assert current_cooling_setpoint(s, from_off) == cs.comfort_c
+
+
 def test_state_with_cooling_round_trips_through_json() -> None:
     controller = ZoneController(dual_settings())
     state = controller.initial_state(0.0)

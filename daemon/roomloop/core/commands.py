@@ -112,6 +112,9 @@ def apply_command(
         return _with_end(settings, state, field, value, until=until, now=now, units=units)
     if field in COOLING_FIELDS or (field == "setpoint" and settings.cooling is not None):
         return _cooling_command(settings, state, field, value, now, units)
+    if settings.cooling is not None and field in ("mode", "level"):
+        after = apply_command(replace(settings, cooling=None), state, field, value, now)
+        return _cooling_hold_follows(settings, state, after)
     if field == "setpoint":
         number = _number(field, value)
         low, high = settings.limit_min_c, settings.limit_max_c
@@ -249,7 +252,7 @@ def _cooling_command(  # noqa: PLR0917 - apply_command's arguments
             _check_band(settings, number, current_cooling_setpoint(settings, state), field, units)
         held = apply_command(replace(settings, cooling=None), state, field, number, now)
         return with_cooling_state(
-            held, replace(c, hold_setpoint=current_cooling_setpoint(settings, state))
+            held, replace(c, hold_setpoint=current_cooling_setpoint(settings, _in_force(state)))
         )
     if c.changeover == "auto":
         _check_band(settings, current_setpoint(settings, state), number, field, units)
@@ -260,6 +263,25 @@ def _cooling_command(  # noqa: PLR0917 - apply_command's arguments
             current_setpoint(settings, state), now,
         )
     return with_cooling_state(held, replace(c, hold_setpoint=number))
+
+
+def _cooling_hold_follows(settings: ZoneSettings, before: ZoneState, after: ZoneState) -> ZoneState:
+    """The cooling hold after a ``mode`` or ``level`` command: a held number keeps the cooling
+    set point in force when it was taken (or the one held already); a level, ``auto`` and
+    ``off`` leave none, so the level's cooling set point applies (no stale hold leaks in)."""
+    c = after.cooling
+    if c is None:
+        return after
+    hold: float | None = None
+    if after.mode == "hold" and after.hold_setpoint is not None:
+        hold = current_cooling_setpoint(settings, before)
+    return with_cooling_state(after, replace(c, hold_setpoint=hold))
+
+
+def _in_force(state: ZoneState) -> ZoneState:
+    """``state`` as the set points in force would read it; in mode ``off`` the program's
+    (the overheat limit is no cooling set point to hold)."""
+    return replace(state, mode="auto") if state.mode == "off" else state
 
 
 def _check_band(
@@ -314,10 +336,11 @@ def _with_end(
         held = apply_command(settings, state, field, value, now, units=units)
         return replace(held, hold_until=end)
     level = _word(field, value, LEVEL_NAMES)
-    return replace(
+    after = replace(
         state, mode="hold", hold_setpoint=None, hold_level=level, hold_until=end,
         level_override=None,
     )
+    return _cooling_hold_follows(settings, state, after)
 
 
 def _unwrap(value: object) -> object:
