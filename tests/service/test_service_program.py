@@ -152,3 +152,9 @@ def test_the_program_changeover_in_force_comes_from_its_latest_entry_or_a_calend
     assert found is not None
     assert (found.changeover, found.since, found.by) == ("heat", utc(2026, 6, 9, 22), "shutdown")
     assert changeover_at(entries[2:], (), utc(2026, 6, 1, 11), VIENNA) is None
+    # after the calendar entry the weekly one is back (or, without one, the zone's own),
+    # from the entry's end (12 June ends at 13 June 00:00 local = 12 June 22:00 UTC)
+    found = changeover_at(entries, (shutdown,), utc(2026, 6, 13, 3), VIENNA)
+    assert found is not None and (found.changeover, found.since) == ("auto", utc(2026, 6, 12, 22))
+    found = changeover_at(entries[2:], (shutdown,), utc(2026, 6, 13, 3), VIENNA, default="cool")
+    assert found is not None and (found.changeover, found.since) == ("cool", utc(2026, 6, 12, 22))

@@ -226,16 +226,35 @@ def changeover_at(
     calendar: Sequence[CalendarEntry],
     when: float,
     tz: ZoneInfo,
+    default: str | None = None,
 ) -> ProgramChangeover | None:
     """The changeover the program has in force at ``when``: a calendar entry's (the last in
     the file that contains ``when`` and gives one), else the one of the latest weekly entry
-    that gives one (None: none does)."""
+    that gives one. When a calendar entry's changeover ended after that weekly entry, the
+    weekly one (or ``default``, the zone's own) is back from the entry's end. None: nothing
+    in the program gives one."""
     found: ProgramChangeover | None = None
     for item, period in zip(calendar, resolve_calendar(calendar, tz), strict=True):
         if item.changeover is not None and period.start <= when < period.end:
             found = ProgramChangeover(item.changeover, period.start, item.name)
     if found is not None:
         return found
+    latest = _weekly_changeover_at(entries, when, tz)
+    ended = [
+        period.end
+        for item, period in zip(calendar, resolve_calendar(calendar, tz), strict=True)
+        if item.changeover is not None and period.end <= when
+    ]
+    if ended and (latest is None or max(ended) > latest.since):
+        value = default if latest is None else latest.changeover
+        return None if value is None else ProgramChangeover(value, max(ended))
+    return latest
+
+
+def _weekly_changeover_at(
+    entries: Sequence[ProgramEntry], when: float, tz: ZoneInfo
+) -> ProgramChangeover | None:
+    """The changeover of the latest weekly entry at or before ``when`` that gives one."""
     weekly = [e for e in entries if e.changeover is not None]
     if not weekly:
         return None

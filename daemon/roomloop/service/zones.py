@@ -89,6 +89,8 @@ class ZoneRuntime:
         self.calendar = tuple(calendar)
         self.changeover_since: float | None = None
         """The instant of the program change whose changeover was last taken (None: none yet)."""
+        self.changeover_started = False
+        """The program's changeover was looked at once (the start rule applies only then)."""
 
     @property
     def name(self) -> str:
@@ -233,10 +235,14 @@ class ZoneRunner:
         changeover in force is taken unless a command had changed the zone's (a restored
         state that differs from the site file's)."""
         cooling = runtime.settings.cooling
-        found = changeover_at(runtime.zone.program, runtime.calendar, now, runtime.tz)
+        found = changeover_at(
+            runtime.zone.program, runtime.calendar, now, runtime.tz,
+            default=None if cooling is None else cooling.initial_changeover,
+        )
+        first = not runtime.changeover_started
+        runtime.changeover_started = True
         if cooling is None or found is None or found.since == runtime.changeover_since:
             return
-        first = runtime.changeover_since is None
         runtime.changeover_since = found.since
         c = runtime.state.cooling
         current = cooling.initial_changeover if c is None else c.changeover
