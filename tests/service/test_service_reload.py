@@ -182,3 +182,55 @@ async def test_a_reload_keeps_a_running_zones_anticipator_and_relay(
     assert after.outputs.anticipator_k == pytest.approx(before.outputs.anticipator_k, rel=0.1)
     assert after.state.switched_at == before.state.switched_at
     assert (0, False) not in around_reload, around_reload  # no off/on pulse at the reload
+
+
+async def test_a_reload_that_moves_a_kept_zones_output_switches_the_old_one_off(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    # room0 is kept but its relay moves from coil 0 to coil 9: the new service never knew
+    # coil 0, so the reload itself must leave it off (else a heater could run for good).
+    clock = VirtualClock()
+    server = await modbus_tcp_server()
+    config = tmp_path / "site.yaml"
+
+    def write(moved: bool) -> None:
+        site = _site(server.port, 1883, 2, 20.0)
+        del site["broker"]
+        if moved:
+            site["points"].append(
+                {"name": "relay9", "type": "modbus-output", "link": "rooms", "address": 9}
+            )
+            site["zones"][0]["output"] = "relay9"
+        config.write_text(yaml.safe_dump(site))
+
+    write(False)
+    ticks: list[TickReport] = []
+    stop, reload = asyncio.Event(), asyncio.Event()
+    async with RoomPlant(server, [15.0, 17.0], clock) as plant:
+        plant.frozen = True  # room0 stays cold: its relay stays on
+        task = asyncio.create_task(
+            serve(config, load_site(config), stop=stop, reload=reload,
+                  state_dir=tmp_path / "state", clock=clock, on_tick=ticks.append)
+        )
+        try:
+            await until(clock, lambda: any(t.zone == "room0" and t.state.relay_on for t in ticks))
+            old_on = False
+            for _ in range(60):  # bounded: a minute of the virtual clock
+                old_on = (await server.get_coils(0, 1))[0]
+                if old_on:
+                    break
+                await clock.sleep(1.0)
+            assert old_on, "room0's relay (coil 0) never came on before the reload"
+            write(True)
+            reload.set()
+            coils = [True, False]
+            for _ in range(120):  # bounded: two minutes of the virtual clock
+                old, new = (await server.get_coils(0, 1))[0], (await server.get_coils(9, 1))[0]
+                coils = [old, new]
+                if not old and new:
+                    break
+                await clock.sleep(1.0)
+        finally:
+            stop.set()
+            await wait_for(clock, task, 30.0)
+    assert coils == [False, True], f"after the reload coil 0 / coil 9: {coils}"

@@ -141,17 +141,15 @@ class Handover:
         await cancel_and_wait(service.clock.io, control, STOP_TASKS_S)
         kept_outputs = {o.point for z in self.new.zones for o in zone_outputs(z)}
         kept_outputs |= {p for source in self.new.heat_sources for p in _source_points(source)}
+        # Every output the new file no longer switches as before goes safe: a removed zone's,
+        # a dropped source's, and one a kept zone gave up or whose point or link changed
+        # (the new service will not know the old device's coil).
+        old_outputs = [o for z in old.zones for o in zone_outputs(z)]
+        old_outputs += service.sources.writer_outputs()
         to_safe = [
             output
-            for z in old.zones
-            if z.name in removed
-            for output in zone_outputs(z)
-            if output.point not in kept_outputs
-        ]
-        to_safe += [  # a heat source the new file dropped: its relays off
-            output
-            for output in service.sources.writer_outputs()
-            if output.point not in kept_outputs
+            for output in old_outputs
+            if output.point not in kept_outputs or not _same_output(old, self.new, output.point)
         ]
         if to_safe:  # the links are still open here
             await OutputWriter(service.clock, to_safe, service.outputs.sinks).stop_safe()
@@ -169,18 +167,20 @@ class Handover:
 
 def _unchanged_outputs(old: Site, new: Site, commanded: Mapping[str, bool]) -> dict[str, bool]:
     """The commanded state of each output whose point (and link) the new file did not change."""
-    kept: dict[str, bool] = {}
-    for point_name, on in commanded.items():
-        try:
-            before, after = old.point(point_name), new.point(point_name)
-        except KeyError:
-            continue
-        if before != after:
-            continue
-        if isinstance(before, ModbusOutput) and _link(old, before.link) != _link(new, before.link):
-            continue
-        kept[point_name] = on
-    return kept
+    return {name: on for name, on in commanded.items() if _same_output(old, new, name)}
+
+
+def _same_output(old: Site, new: Site, point_name: str) -> bool:
+    """The point is in both files, the same, and (a Modbus point) on the same link."""
+    try:
+        before, after = old.point(point_name), new.point(point_name)
+    except KeyError:
+        return False
+    if before != after:
+        return False
+    return not (
+        isinstance(before, ModbusOutput) and _link(old, before.link) != _link(new, before.link)
+    )
 
 
 def _source_points(source: HeatSource) -> list[str]:
