@@ -21,6 +21,7 @@ from .records import outputs_with_cooling, with_cooling
 from .settings import CoolingSettings, ZoneSettings
 from .stages import anticipator, cooling, figures, switching
 from .stages.short_cycle import MAX_SWITCH_LOG, logged
+from .stages.short_cycle import hold as short_cycle_hold
 from .state import CoolingState, ZoneState, with_cooling_state
 from .types import CallName, CoolingOutputs, Reason, ZoneInputs, ZoneOutputs
 
@@ -153,7 +154,7 @@ class DualZoneController(ZoneController):
         # A start always waits for the minimum off time and the starts per hour (a compressor's
         # protection is never cut short); a stop by the lock or mode off is at once.
         if want != c.relay_on and (want or (cool_lock is None and not mode_off)):
-            on, held, reason = cooling.hold(cs, c, want, reason, now)
+            on, held, reason = short_cycle_hold(cs, c, want, reason, now)
         switched_at, switches = c.switched_at, c.switches
         if on != c.relay_on:
             switched_at, switches = now, logged(switches, now, on)

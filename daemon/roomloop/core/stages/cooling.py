@@ -51,7 +51,7 @@ from __future__ import annotations
 from ..settings import CoolingSettings
 from ..state import CoolingState
 from ..types import CallName, Reason
-from .short_cycle import HOUR_S, logged, ons_since
+from .short_cycle import logged
 
 _COASTING: dict[str, Reason] = {
     "cut-in": "last-temperature:cut-in",
@@ -245,24 +245,6 @@ def band(
     return False, _COASTING["off-to-cut-in"] if coasting else "off-to-cut-in"
 
 
-def hold(
-    cs: CoolingSettings, c: CoolingState, want: bool, reason: Reason, now: float
-) -> tuple[bool, bool, Reason]:
-    """(call, held by short-cycle protection, reason): minimum on and off times and the
-    starts per sliding hour of the cooling type."""
-    if want == c.relay_on:
-        return want, False, reason
-    since = HOUR_S * 1e6 if c.switched_at is None else now - c.switched_at
-    if want:
-        if since < cs.min_off_s:
-            return False, True, "min-off"
-        if ons_since(c.switches, now - HOUR_S) >= cs.max_cycles_per_hour:
-            return False, True, "max-cycles"
-    elif since < cs.min_on_s:
-        return True, True, "min-on"
-    return want, False, reason
-
-
 def droop(
     cs: CoolingSettings, droop_k: float, sp: float, temperature: float, dt: float
 ) -> float:
@@ -277,7 +259,6 @@ __all__ = [
     "band",
     "droop",
     "first_side",
-    "hold",
     "initial",
     "lock",
     "logged",

@@ -8,8 +8,8 @@ hour's switchings, bounded.
 
 from __future__ import annotations
 
-from ..settings import ZoneSettings
-from ..state import ZoneState
+from typing import Protocol
+
 from ..types import Reason
 
 HOUR_S = 3600.0
@@ -19,10 +19,33 @@ MAX_SWITCH_LOG = 128
 Switches = tuple[tuple[float, bool], ...]
 
 
+class Timing(Protocol):
+    """A call's short-cycle limits (the zone's heating settings, or its cooling settings)."""
+
+    @property
+    def min_on_s(self) -> float: ...
+    @property
+    def min_off_s(self) -> float: ...
+    @property
+    def max_cycles_per_hour(self) -> int: ...
+
+
+class CallRecord(Protocol):
+    """What a call's state keeps of its relay (the zone's state, or its cooling state)."""
+
+    @property
+    def relay_on(self) -> bool: ...
+    @property
+    def switched_at(self) -> float | None: ...
+    @property
+    def switches(self) -> Switches: ...
+
+
 def hold(
-    s: ZoneSettings, state: ZoneState, want: bool, reason: Reason, now: float
+    s: Timing, state: CallRecord, want: bool, reason: Reason, now: float
 ) -> tuple[bool, bool, Reason]:
-    """(relay, held by short-cycle protection, reason) for a wish to switch the relay."""
+    """(relay, held by short-cycle protection, reason) for a wish to switch a call's relay:
+    the heating call's or the cooling call's, each with its own limits."""
     if want == state.relay_on:
         return want, False, reason
     since = HOUR_S * 1e6 if state.switched_at is None else now - state.switched_at
