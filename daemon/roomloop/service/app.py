@@ -359,8 +359,9 @@ class Service:
                         await cancel_and_wait(self.clock.io, control, STOP_TASKS_S)
                         await self._stop_outputs_and_session()
                     stopped_cleanly = True
-                    for task in others:
-                        task.cancel()
+                    # bounded and repeated, as for control: the task group's exit waits for
+                    # every task, and one that lost its cancellation would hold the stop
+                    await cancel_and_wait(self.clock.io, others, STOP_TASKS_S)
             finally:
                 if not stopped_cleanly:
                     # Cancelled from outside, or something escaped the task group: the
