@@ -37,6 +37,7 @@ from __future__ import annotations
 import enum
 import json
 import math
+from collections.abc import Callable
 from dataclasses import replace
 from typing import Any, Final
 
@@ -115,87 +116,113 @@ def apply_command(
     if settings.cooling is not None and field in ("mode", "level"):
         after = apply_command(replace(settings, cooling=None), state, field, value, now)
         return _cooling_hold_follows(settings, state, after)
-    if field == "setpoint":
-        number = _number(field, value)
-        low, high = settings.limit_min_c, settings.limit_max_c
-        if not low - LIMIT_TOLERANCE_K <= number <= high + LIMIT_TOLERANCE_K:
-
-            def shown(celsius: float) -> str:
-                return f"{round(from_celsius(celsius, units), 6):g}"
-
-            raise CommandRejected(
-                field,
-                f"setpoint {shown(number)} is outside the zone's limits "
-                f"{shown(low)} to {shown(high)} {units}",
-            )
-        number = min(max(number, low), high)
-        keep_until = state.hold_until if state.mode == "hold" else None
-        return replace(
-            state,
-            mode="hold",
-            hold_setpoint=number,
-            hold_level=(
-                current_level(settings, state) if state.mode != "off" else state.scheduled_level
-            ),
-            hold_until=keep_until,
-            level_override=None,
-        )
-    if field == "mode":
-        mode = _word(field, value, MODE_NAMES)
-        if mode == state.mode:
-            return state
-        if mode == "auto":
-            return replace(
-                state, mode="auto", hold_setpoint=None, hold_level=None, hold_until=None,
-                level_override=None,
-            )
-        if mode == "hold":
-            if state.mode == "off":
-                return replace(
-                    state, mode="hold", hold_setpoint=None, hold_level=state.scheduled_level,
-                    hold_until=None, level_override=None,
-                )
-            return replace(
-                state,
-                mode="hold",
-                hold_setpoint=current_setpoint(settings, state),
-                hold_level=current_level(settings, state),
-                hold_until=None,
-                level_override=None,
-            )
-        return replace(
-            state, mode="off", hold_setpoint=None, hold_level=None, hold_until=None,
-            level_override=None,
-        )
-    if field == "level":
-        level = _word(field, value, LEVEL_NAMES)
-        if state.mode == "auto":
-            return replace(state, level_override=level)
-        keep_until = state.hold_until if state.mode == "hold" else None
-        return replace(
-            state, mode="hold", hold_setpoint=None, hold_level=level, hold_until=keep_until,
-            level_override=None,
-        )
-    if field == "hold_until":
-        until = _checked_end(field, _optional_number(field, value), now)
-        if state.mode == "off":
-            raise CommandRejected(field, "the zone is off; set a mode, set point or level first")
-        if state.mode == "auto":
-            return replace(
-                state,
-                mode="hold",
-                hold_setpoint=current_setpoint(settings, state),
-                hold_level=current_level(settings, state),
-                hold_until=until,
-                level_override=None,
-            )
-        return replace(state, hold_until=until)
+    heating_command = _HEATING_COMMANDS.get(field)
+    if heating_command is not None:
+        return heating_command(settings, state, value, now, units)
     fields = COMMAND_FIELDS + (COOLING_FIELDS if settings.cooling is not None else ())
     raise CommandRejected(field, f"unknown field {field!r}; use one of {', '.join(fields)}")
 
 
 def _shown(celsius: float, units: str) -> str:
     return f"{round(from_celsius(celsius, units), 6):g}"
+
+
+def _setpoint_command(
+    settings: ZoneSettings, state: ZoneState, value: object, now: float, units: str
+) -> ZoneState:
+    """A hold at a set point within the limits (a running hold keeps its end)."""
+    field = "setpoint"
+    number = _number(field, value)
+    low, high = settings.limit_min_c, settings.limit_max_c
+    if not low - LIMIT_TOLERANCE_K <= number <= high + LIMIT_TOLERANCE_K:
+        raise CommandRejected(
+            field,
+            f"setpoint {_shown(number, units)} is outside the zone's limits "
+            f"{_shown(low, units)} to {_shown(high, units)} {units}",
+        )
+    number = min(max(number, low), high)
+    keep_until = state.hold_until if state.mode == "hold" else None
+    return replace(
+        state,
+        mode="hold",
+        hold_setpoint=number,
+        hold_level=(
+            current_level(settings, state) if state.mode != "off" else state.scheduled_level
+        ),
+        hold_until=keep_until,
+        level_override=None,
+    )
+
+
+def _mode_command(
+    settings: ZoneSettings, state: ZoneState, value: object, now: float, units: str
+) -> ZoneState:
+    """``auto`` clears holds and overrides, ``hold`` holds what is in force, ``off`` is off."""
+    mode = _word("mode", value, MODE_NAMES)
+    if mode == state.mode:
+        return state
+    if mode == "hold" and state.mode == "off":
+        return replace(
+            state, mode="hold", hold_setpoint=None, hold_level=state.scheduled_level,
+            hold_until=None, level_override=None,
+        )
+    if mode == "hold":
+        return replace(
+            state,
+            mode="hold",
+            hold_setpoint=current_setpoint(settings, state),
+            hold_level=current_level(settings, state),
+            hold_until=None,
+            level_override=None,
+        )
+    return replace(
+        state, mode=mode, hold_setpoint=None, hold_level=None, hold_until=None,
+        level_override=None,
+    )
+
+
+def _level_command(
+    settings: ZoneSettings, state: ZoneState, value: object, now: float, units: str
+) -> ZoneState:
+    """In ``auto`` an override of the program's level, otherwise a hold at that level."""
+    level = _word("level", value, LEVEL_NAMES)
+    if state.mode == "auto":
+        return replace(state, level_override=level)
+    keep_until = state.hold_until if state.mode == "hold" else None
+    return replace(
+        state, mode="hold", hold_setpoint=None, hold_level=level, hold_until=keep_until,
+        level_override=None,
+    )
+
+
+def _hold_until_command(
+    settings: ZoneSettings, state: ZoneState, value: object, now: float, units: str
+) -> ZoneState:
+    """An end for the running hold, or a hold of what is in force in ``auto``; refused when off."""
+    field = "hold_until"
+    until = _checked_end(field, _optional_number(field, value), now)
+    if state.mode == "off":
+        raise CommandRejected(field, "the zone is off; set a mode, set point or level first")
+    if state.mode == "auto":
+        return replace(
+            state,
+            mode="hold",
+            hold_setpoint=current_setpoint(settings, state),
+            hold_level=current_level(settings, state),
+            hold_until=until,
+            level_override=None,
+        )
+    return replace(state, hold_until=until)
+
+
+_HeatingCommand = Callable[[ZoneSettings, ZoneState, object, float, str], ZoneState]
+_HEATING_COMMANDS: Final[dict[str, _HeatingCommand]] = {
+    "setpoint": _setpoint_command,
+    "mode": _mode_command,
+    "level": _level_command,
+    "hold_until": _hold_until_command,
+}
+"""The commands of a heating-only zone, by field."""
 
 
 def _delta(kelvin: float, units: str) -> str:
