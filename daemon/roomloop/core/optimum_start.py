@@ -447,19 +447,12 @@ def _decide(
     inputs: OptimumStartInputs,
     now: float,
 ) -> OptimumStartDecision:
-    scheduled = inputs.scheduled_level
     rate, source = state.model.rate_at(inputs.outdoor_c, settings.initial_rate_k_per_h)
-    idle = OptimumStartDecision(scheduled, rate_k_per_h=rate, rate_source=source)
-    if not settings.enabled:
-        return replace(idle, reason="optimum start disabled")
-    if inputs.mode != "auto":
-        return replace(idle, reason=f"mode {inputs.mode}: optimum start works in mode auto only")
-    switch_at, target_level = inputs.next_switch_at, inputs.next_level
-    if switch_at is None or target_level is None or switch_at <= now:
-        return replace(idle, reason="no program switch ahead")
-    target_c = settings.setpoint_for(target_level)
-    if target_c <= settings.setpoint_for(scheduled):
-        return replace(idle, reason=f"next switch is to {target_level}, not warmer")
+    idle = OptimumStartDecision(inputs.scheduled_level, rate_k_per_h=rate, rate_source=source)
+    ahead = _warmer_switch_ahead(settings, inputs, now)
+    if isinstance(ahead, str):
+        return replace(idle, reason=ahead)
+    switch_at, target_level, target_c = ahead
     if (
         state.early_for == switch_at
         and state.early_since is not None
@@ -472,12 +465,52 @@ def _decide(
         )
     if switch_at - now > settings.earliest_s:
         return replace(idle, reason="switch further ahead than the earliest start")
+    return _early_start_from_lead(
+        settings, state, inputs, now,
+        idle=idle, rate=(rate, source), switch=(switch_at, target_level, target_c),
+    )
+
+
+def _warmer_switch_ahead(
+    settings: OptimumStartSettings, inputs: OptimumStartInputs, now: float
+) -> tuple[float, Level, float] | str:
+    """The program's next switch (time, level, set point) when it is to a warmer level in
+    mode auto; otherwise the reason there is nothing to start early for."""
+    if not settings.enabled:
+        return "optimum start disabled"
+    if inputs.mode != "auto":
+        return f"mode {inputs.mode}: optimum start works in mode auto only"
+    switch_at, target_level = inputs.next_switch_at, inputs.next_level
+    if switch_at is None or target_level is None or switch_at <= now:
+        return "no program switch ahead"
+    target_c = settings.setpoint_for(target_level)
+    if target_c <= settings.setpoint_for(inputs.scheduled_level):
+        return f"next switch is to {target_level}, not warmer"
+    return switch_at, target_level, target_c
+
+
+def _early_start_from_lead(
+    settings: OptimumStartSettings,
+    state: OptimumStartState,
+    inputs: OptimumStartInputs,
+    now: float,
+    *,
+    idle: OptimumStartDecision,
+    rate: tuple[float, str],
+    switch: tuple[float, Level, float],
+) -> OptimumStartDecision:
+    """Start early once the lead the room needs to reach the next switch's set point has come.
+
+    ``rate`` is the learnt warm-up rate and where it came from; ``switch`` is the next
+    switch's time, level and set point.
+    """
     temperature = inputs.temperature_c
     if temperature is None:
         return replace(idle, reason="no reliable temperature: no early start")
+    (rate_k_per_h, source), (switch_at, target_level, target_c) = rate, switch
     gap = target_c - REACHED_K - temperature
     dead = state.model.dead_time_or(settings.dead_time_s)
-    need = lead_s(gap, rate, dead)
+    need = lead_s(gap, rate_k_per_h, dead)
     if need > 0.0:
         need += settings.settle_s
     idle = replace(idle, lead_s=need)
@@ -487,14 +520,14 @@ def _decide(
     if now < switch_at - min(need, settings.earliest_s):
         return replace(idle, reason=f"early start due {(need / 60):.0f} min before the switch")
     reason = (
-        f"{gap:.1f} K to the {target_level} set point at {rate:.2f} K/h ({source}) "
+        f"{gap:.1f} K to the {target_level} set point at {rate_k_per_h:.2f} K/h ({source}) "
         f"+ {dead / 60:.0f} min dead time + {settings.settle_s / 60:.0f} min to settle: "
         f"{need / 60:.0f} min before the switch"
     )
     if capped:
         reason += f", capped at the earliest start {settings.earliest_s / 60:.0f} min"
     return OptimumStartDecision(
-        target_level, True, now, switch_at, reason, rate, source, need,
+        target_level, True, now, switch_at, reason, rate_k_per_h, source, need,
     )
 
 
