@@ -23,7 +23,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Literal
 
-from roomloop.config.models import LEVELS, Bms, Site, Zone
+from roomloop.config.models import LEVELS, Bms, Level, Site, Zone
 from roomloop.core.alarms import ALARM_KINDS
 from roomloop.core.state import ZoneState
 from roomloop.core.types import RELIABILITY_VALUES, ZoneOutputs
@@ -290,50 +290,14 @@ class RegisterMap:
         return [max(0, min(0xFFFF, number_int))]
 
     def _value(self, register: Register, snap: ZoneSnapshot) -> float | int | None:
-        zone = self.zones[register.zone]
-        out, state = snap.outputs, snap.state
-        field = register.field
-        if field == "temperature":
-            return None if out is None else out.temperature
-        if field == "setpoint":
-            return None if out is None else out.setpoint
-        if field == "comfort_setpoint" and _comfort_hold(state) is not None:
-            return _comfort_hold(state)
-        if field.endswith("_setpoint") and field != "hold_setpoint":
-            return zone.setpoints.for_level(field.removesuffix("_setpoint"))  # type: ignore[arg-type]
-        if field == "hold_setpoint":
-            if state.mode == "hold" and state.hold_setpoint is not None:
-                return state.hold_setpoint
-            return None if out is None else out.setpoint
-        if field == "anticipator":
-            return state.anticipator_k if out is None else out.anticipator_k
-        if field == "droop":
-            return state.droop_k if out is None else out.droop_k
-        if field == "hold_minutes":
-            if state.mode != "hold" or state.hold_until is None:
-                return 0
-            return max(0, math.ceil((state.hold_until - snap.at) / 60.0))
-        if field == "mode":
-            mode = state.mode if out is None else out.mode
-            return MODES.index(mode) if mode in MODES else None
-        if field == "level":
-            level = state.scheduled_level if out is None else out.level
-            return LEVELS.index(level) if level in LEVELS else None
-        if field == "demand":
-            return int(out.demand) if out is not None else int(state.relay_on)
-        if field == "fail_safe":
-            return int(state.fail_safe if out is None else out.fail_safe)
-        if field == "fail_safe_minutes_today":
-            return math.floor(snap.fail_safe_minutes_today)
-        if field == "alarms":
-            return snap.alarm_bits
-        if field == "output_confirmed":
-            confirmed = snap.output_confirmed
-            return 2 if confirmed is None else int(confirmed)
+        of_field = _FIELD_VALUES.get(register.field)
+        if of_field is not None:
+            return of_field(self.zones[register.zone], snap)
         assert register.point is not None
+        out = snap.outputs
         reliability = (
             dict(out.reliability).get(register.point) if out is not None else None
-        ) or _remembered(state, register.point)
+        ) or _remembered(snap.state, register.point)
         return RELIABILITY_VALUES.index(reliability)
 
     def read(
@@ -439,6 +403,75 @@ class RegisterMap:
 
     def zone_registers(self, zone: str) -> list[Register]:
         return [r for r in self.registers if r.zone == zone]
+
+
+def _level_setpoint(level: Level) -> Callable[[Zone, ZoneSnapshot], float]:
+    """The site file's set point of ``level`` (read-only registers)."""
+    return lambda zone, snap: zone.setpoints.for_level(level)
+
+
+def _comfort_setpoint(zone: Zone, snap: ZoneSnapshot) -> float:
+    held = _comfort_hold(snap.state)
+    return zone.setpoints.for_level("comfort") if held is None else held
+
+
+def _hold_setpoint(zone: Zone, snap: ZoneSnapshot) -> float | None:
+    state, out = snap.state, snap.outputs
+    if state.mode == "hold" and state.hold_setpoint is not None:
+        return state.hold_setpoint
+    return None if out is None else out.setpoint
+
+
+def _hold_minutes(zone: Zone, snap: ZoneSnapshot) -> int:
+    state = snap.state
+    if state.mode != "hold" or state.hold_until is None:
+        return 0
+    return max(0, math.ceil((state.hold_until - snap.at) / 60.0))
+
+
+def _mode_value(zone: Zone, snap: ZoneSnapshot) -> int | None:
+    mode = snap.state.mode if snap.outputs is None else snap.outputs.mode
+    return MODES.index(mode) if mode in MODES else None
+
+
+def _level_value(zone: Zone, snap: ZoneSnapshot) -> int | None:
+    level = snap.state.scheduled_level if snap.outputs is None else snap.outputs.level
+    return LEVELS.index(level) if level in LEVELS else None
+
+
+def _confirmed_value(zone: Zone, snap: ZoneSnapshot) -> int:
+    confirmed = snap.output_confirmed
+    return 2 if confirmed is None else int(confirmed)
+
+
+_FIELD_VALUES: dict[str, Callable[[Zone, ZoneSnapshot], float | int | None]] = {
+    "temperature": lambda zone, snap: None if snap.outputs is None else snap.outputs.temperature,
+    "setpoint": lambda zone, snap: None if snap.outputs is None else snap.outputs.setpoint,
+    "standby_setpoint": _level_setpoint("standby"),
+    "economy_setpoint": _level_setpoint("economy"),
+    "protection_setpoint": _level_setpoint("protection"),
+    "comfort_setpoint": _comfort_setpoint,
+    "hold_setpoint": _hold_setpoint,
+    "anticipator": lambda zone, snap: (
+        snap.state.anticipator_k if snap.outputs is None else snap.outputs.anticipator_k
+    ),
+    "droop": lambda zone, snap: (
+        snap.state.droop_k if snap.outputs is None else snap.outputs.droop_k
+    ),
+    "hold_minutes": _hold_minutes,
+    "mode": _mode_value,
+    "level": _level_value,
+    "demand": lambda zone, snap: (
+        int(snap.state.relay_on) if snap.outputs is None else int(snap.outputs.demand)
+    ),
+    "fail_safe": lambda zone, snap: int(
+        snap.state.fail_safe if snap.outputs is None else snap.outputs.fail_safe
+    ),
+    "fail_safe_minutes_today": lambda zone, snap: math.floor(snap.fail_safe_minutes_today),
+    "alarms": lambda zone, snap: snap.alarm_bits,
+    "output_confirmed": _confirmed_value,
+}
+"""How each zone field's value is read from a snapshot; a point's reliability is not here."""
 
 
 def _comfort_hold(state: ZoneState) -> float | None:
