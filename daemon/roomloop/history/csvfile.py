@@ -15,7 +15,8 @@ from __future__ import annotations
 import csv
 import datetime as dt
 import math
-from collections.abc import Iterable
+from collections.abc import Iterable, Iterator
+from dataclasses import dataclass
 from pathlib import Path
 from typing import TextIO
 from zoneinfo import ZoneInfo
@@ -132,6 +133,45 @@ def _problem(file: str, line: int, message: str) -> ConfigProblem:
 
 def _read(handle: Iterable[str], file: str, *, zone: str, tz: ZoneInfo, units: str) -> ZoneHistory:
     reader = csv.reader(handle)
+    index = _header(reader, file)
+    out = ZoneHistory(zone)
+    if "outdoor" in index:
+        out.outdoor = []
+    problems: list[ConfigProblem] = []
+    last: float | None = None
+    try:
+        for row in reader:
+            line = reader.line_num
+            if not row or all(not cell.strip() for cell in row):
+                continue
+            if len(row) != len(index):
+                problems.append(
+                    _problem(file, line, f"{len(row)} fields, the header has {len(index)}")
+                )
+                continue
+            try:
+                parsed = _parse_row(row, index, tz)
+            except ValueError as exc:
+                problems.append(_problem(file, line, str(exc)))
+                continue
+            if last is not None and parsed.time <= last:
+                problems.append(
+                    _problem(file, line, "time does not go forward (rows must be in time order)")
+                )
+                continue
+            last = parsed.time
+            _append(out, parsed, units)
+            if len(problems) >= 20:
+                break
+    except csv.Error as exc:
+        problems.append(_problem(file, reader.line_num, str(exc)))
+    if problems:
+        raise CsvError(problems)
+    return out
+
+
+def _header(reader: Iterator[list[str]], file: str) -> dict[str, int]:
+    """The header's columns by name and index, or :class:`CsvError` naming what is wrong."""
     try:
         header = next(reader)
     except StopIteration:
@@ -158,63 +198,53 @@ def _read(handle: Iterable[str], file: str, *, zone: str, tz: ZoneInfo, units: s
         problems.append(_problem(file, 1, "a column is named twice"))
     if problems:
         raise CsvError(problems)
-    index = {c: columns.index(c) for c in columns}
-    out = ZoneHistory(zone)
-    if "outdoor" in index:
-        out.outdoor = []
-    last: float | None = None
-    try:
-        for row in reader:
-            line = reader.line_num
-            if not row or all(not cell.strip() for cell in row):
-                continue
-            if len(row) != len(columns):
-                problems.append(
-                    _problem(file, line, f"{len(row)} fields, the header has {len(columns)}")
-                )
-                continue
-            try:
-                at = parse_time(row[index["time"]], tz)
-                temp = _number(row[index["temperature"]], "temperature", empty_ok=True)
-                relay = _flag(row[index["relay"]], "relay")
-                setpoint = (
-                    _number(row[index["setpoint"]], "setpoint", empty_ok=True)
-                    if "setpoint" in index
-                    else None
-                )
-                outdoor = (
-                    _number(row[index["outdoor"]], "outdoor", empty_ok=True)
-                    if "outdoor" in index
-                    else None
-                )
-                fail_safe = (
-                    _flag(row[index["fail_safe"]], "fail_safe") if "fail_safe" in index else False
-                )
-            except ValueError as exc:
-                problems.append(_problem(file, line, str(exc)))
-                continue
-            if last is not None and at <= last:
-                problems.append(
-                    _problem(file, line, "time does not go forward (rows must be in time order)")
-                )
-                continue
-            last = at
-            out.time.append(at)
-            out.temperature.append(None if temp is None else _from_site(temp, units))
-            out.relay.append(relay)
-            out.setpoint.append(None if setpoint is None else _from_site(setpoint, units))
-            if out.outdoor is not None:
-                out.outdoor.append(None if outdoor is None else _from_site(outdoor, units))
-            out.fail_safe.append(fail_safe)
-            out.level.append("")
-            out.mode.append("")
-            out.anticipator_k.append(0.0)
-            out.droop_k.append(0.0)
-            out.reason.append("")
-            if len(problems) >= 20:
-                break
-    except csv.Error as exc:
-        problems.append(_problem(file, reader.line_num, str(exc)))
-    if problems:
-        raise CsvError(problems)
-    return out
+    return {c: columns.index(c) for c in columns}
+
+
+@dataclass(frozen=True, slots=True)
+class _Row:
+    """One data row, in the file's units; None where a cell is empty."""
+
+    time: float
+    temperature: float | None
+    relay: bool
+    setpoint: float | None
+    outdoor: float | None
+    fail_safe: bool
+
+
+def _parse_row(row: list[str], index: dict[str, int], tz: ZoneInfo) -> _Row:
+    """The row's values; ValueError with the message for the row's line."""
+
+    def number(column: str) -> float | None:
+        if column not in index:
+            return None
+        return _number(row[index[column]], column, empty_ok=True)
+
+    at = parse_time(row[index["time"]], tz)
+    temperature = number("temperature")
+    relay = _flag(row[index["relay"]], "relay")
+    setpoint = number("setpoint")
+    outdoor = number("outdoor")
+    fail_safe = _flag(row[index["fail_safe"]], "fail_safe") if "fail_safe" in index else False
+    return _Row(at, temperature, relay, setpoint, outdoor, fail_safe)
+
+
+def _append(out: ZoneHistory, row: _Row, units: str) -> None:
+    """Add one row to the history, in Celsius (a CSV carries no level, mode or terms)."""
+
+    def celsius(value: float | None) -> float | None:
+        return None if value is None else _from_site(value, units)
+
+    out.time.append(row.time)
+    out.temperature.append(celsius(row.temperature))
+    out.relay.append(row.relay)
+    out.setpoint.append(celsius(row.setpoint))
+    if out.outdoor is not None:
+        out.outdoor.append(celsius(row.outdoor))
+    out.fail_safe.append(row.fail_safe)
+    out.level.append("")
+    out.mode.append("")
+    out.anticipator_k.append(0.0)
+    out.droop_k.append(0.0)
+    out.reason.append("")

@@ -199,19 +199,7 @@ class HistoryRecorder:
         try:
             while not stopping:
                 timeout = max(0.0, last_commit + self.commit_s - time.monotonic())
-                try:
-                    item = self._queue.get(timeout=timeout)
-                except queue.Empty:
-                    item = None
-                while item is not None:
-                    if item is _STOP:
-                        stopping = True
-                        break
-                    pending.append(item)
-                    try:
-                        item = self._queue.get_nowait()
-                    except queue.Empty:
-                        item = None
+                stopping = self._collect(pending, timeout)
                 if not stopping and time.monotonic() < last_commit + self.commit_s:
                     continue
                 last_commit = time.monotonic()
@@ -234,6 +222,21 @@ class HistoryRecorder:
                     db.close()
 
     _last_at: float = 0.0
+
+    def _collect(self, pending: list[tuple[str, Tick]], timeout: float) -> bool:
+        """Move what is queued into ``pending``, waiting up to ``timeout`` for the first item;
+        True when the stop request came (what was queued before it is kept)."""
+        try:
+            item = self._queue.get(timeout=timeout)
+        except queue.Empty:
+            return False
+        while item is not _STOP:
+            pending.append(item)
+            try:
+                item = self._queue.get_nowait()
+            except queue.Empty:
+                return False
+        return True
 
     def _open(self) -> HistoryFile | None:
         """Open (or create) the file; a damaged one is moved aside and a new one started."""
