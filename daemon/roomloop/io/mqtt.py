@@ -100,6 +100,12 @@ def parse_payload(payload: bytes | bytearray | str, field: str | None) -> float:
         document: Any = json.loads(text)
     except (ValueError, RecursionError):
         raise PayloadError("payload is not valid JSON") from None
+    node = _walk(document, field)
+    return _number(node, f"field {field!r}")
+
+
+def _walk(document: Any, field: str) -> Any:
+    """The node at the dotted path ``field`` of a JSON document, or :class:`PayloadError`."""
     node = document
     walked: list[str] = []
     for key in field.split("."):
@@ -115,7 +121,7 @@ def parse_payload(payload: bytes | bytearray | str, field: str | None) -> float:
             node = node[int(key)]
         else:
             raise PayloadError(f"{'.'.join(walked[:-1]) or 'payload'} holds no field {key!r}")
-    return _number(node, f"field {field!r}")
+    return node
 
 
 def judge_payload(point: MqttInput, payload: bytes | bytearray | str) -> Parsed:
