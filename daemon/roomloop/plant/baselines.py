@@ -371,22 +371,10 @@ class ElectromechanicalController:
             demand, reason = False, "no-temperature"
         elif setpoint is None:
             demand, reason = False, "hold"
-        elif cooling:
-            felt = element + anticipator
-            if felt >= setpoint + b.differential_k / 2:
-                demand, reason = True, "cut-in"
-            elif felt <= setpoint - b.differential_k / 2:
-                demand, reason = False, "anticipator-cut-out"
-            else:
-                demand, reason = state.demand, "hold"
         else:
-            felt = element + anticipator
-            if felt <= setpoint - b.differential_k / 2:
-                demand, reason = True, "cut-in"
-            elif felt >= setpoint + b.differential_k / 2:
-                demand, reason = False, "anticipator-cut-out"
-            else:
-                demand, reason = state.demand, "hold"
+            demand, reason = _bimetal_switch(
+                element + anticipator, setpoint, b.differential_k / 2, cooling, state.demand
+            )
         new = BimetalState(
             element_c=element, anticipator_k=anticipator, demand=demand, last_now=now
         )
@@ -399,6 +387,20 @@ class ElectromechanicalController:
             anticipator_k=anticipator,
             cooling=cooling,
         )
+
+
+def _bimetal_switch(
+    felt: float, setpoint: float, half_differential_k: float, cooling: bool, previous: bool
+) -> tuple[bool, BaselineReason | Reason]:
+    """The contact after one step: the call starts past one edge of the differential and ends
+    past the other (mirrored for a cooling call), and stays as it was between them."""
+    low, high = setpoint - half_differential_k, setpoint + half_differential_k
+    starts, ends = (felt >= high, felt <= low) if cooling else (felt <= low, felt >= high)
+    if starts:
+        return True, "cut-in"
+    if ends:
+        return False, "anticipator-cut-out"
+    return previous, "hold"
 
 
 # --------------------------------------------------------------------------- time-proportional

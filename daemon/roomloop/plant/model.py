@@ -26,8 +26,12 @@ from __future__ import annotations
 import math
 import random
 from collections import deque
+from collections.abc import Callable
 
 from roomloop.plant.spec import PlantSpec
+
+_Nodes = tuple[float, float, float, float]
+"""Emitter, room, mass and sensor: temperatures or their derivatives."""
 
 STABILITY_FACTOR = 0.5
 """Largest h * lambda_max of a Runge-Kutta sub-step (RK4 is stable up to about 2.8)."""
@@ -196,6 +200,31 @@ class PlantSimulation:
         """RK4 over ``duration`` with the heat input constant; enough sub-steps for stability."""
         steps = max(1, math.ceil(duration / self._h_max - 1e-9))
         h = duration / steps
+        deriv = self._derivative()
+        inv_tau_s = 1.0 / self._tau_s if self._tau_s > 0 else 0.0
+        te, tr, tm, ts = self.emitter_c, self.room_c, self.mass_c, self.sensor_state_c
+        half = 0.5 * h
+        sixth = h / 6.0
+        for _ in range(steps):
+            a1, b1, c1, d1 = deriv(te, tr, tm, ts)
+            a2, b2, c2, d2 = deriv(te + half * a1, tr + half * b1, tm + half * c1, ts + half * d1)
+            a3, b3, c3, d3 = deriv(te + half * a2, tr + half * b2, tm + half * c2, ts + half * d2)
+            a4, b4, c4, d4 = deriv(te + h * a3, tr + h * b3, tm + h * c3, ts + h * d3)
+            te += sixth * (a1 + 2.0 * a2 + 2.0 * a3 + a4)
+            tr += sixth * (b1 + 2.0 * b2 + 2.0 * b3 + b4)
+            tm += sixth * (c1 + 2.0 * c2 + 2.0 * c3 + c4)
+            ts += sixth * (d1 + 2.0 * d2 + 2.0 * d3 + d4)
+        if not self._has_emitter:
+            te = tr
+        if not self._has_mass:
+            tm = tr
+        if inv_tau_s == 0.0:
+            ts = tr
+        self.emitter_c, self.room_c, self.mass_c, self.sensor_state_c = te, tr, tm, ts
+
+    def _derivative(self) -> Callable[[float, float, float, float], _Nodes]:
+        """The nodes' time derivatives at the heat input of now, with the plant's constants
+        bound into the closure (what keeps the RK4 loop cheap)."""
         q = self._input_w()
         gains = self.spec.internal_gains_w + self.extra_gains_w
         to = self.outdoor_c
@@ -212,7 +241,7 @@ class PlantSimulation:
         inv_tau_s = 1.0 / self._tau_s if self._tau_s > 0 else 0.0
         direct = 0.0 if has_emitter else q
 
-        def deriv(te: float, tr: float, tm: float, ts: float) -> tuple[float, float, float, float]:
+        def deriv(te: float, tr: float, tm: float, ts: float) -> _Nodes:
             if has_emitter:
                 dt_e = te - tr
                 if linear:
@@ -230,25 +259,7 @@ class PlantSimulation:
             d_ts = (tr - ts) * inv_tau_s
             return d_te, d_tr, d_tm, d_ts
 
-        te, tr, tm, ts = self.emitter_c, self.room_c, self.mass_c, self.sensor_state_c
-        half = 0.5 * h
-        sixth = h / 6.0
-        for _ in range(steps):
-            a1, b1, c1, d1 = deriv(te, tr, tm, ts)
-            a2, b2, c2, d2 = deriv(te + half * a1, tr + half * b1, tm + half * c1, ts + half * d1)
-            a3, b3, c3, d3 = deriv(te + half * a2, tr + half * b2, tm + half * c2, ts + half * d2)
-            a4, b4, c4, d4 = deriv(te + h * a3, tr + h * b3, tm + h * c3, ts + h * d3)
-            te += sixth * (a1 + 2.0 * a2 + 2.0 * a3 + a4)
-            tr += sixth * (b1 + 2.0 * b2 + 2.0 * b3 + b4)
-            tm += sixth * (c1 + 2.0 * c2 + 2.0 * c3 + c4)
-            ts += sixth * (d1 + 2.0 * d2 + 2.0 * d3 + d4)
-        if not has_emitter:
-            te = tr
-        if not self._has_mass:
-            tm = tr
-        if inv_tau_s == 0.0:
-            ts = tr
-        self.emitter_c, self.room_c, self.mass_c, self.sensor_state_c = te, tr, tm, ts
+        return deriv
 
 
 def _max_substep_s(spec: PlantSpec) -> float:
