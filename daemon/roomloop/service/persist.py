@@ -141,25 +141,10 @@ class StateStore:
         return zones
 
     def _load_file(self) -> dict[str, Any]:
-        try:
-            text = self.path.read_text(encoding="utf-8")
-        except FileNotFoundError:
-            log.info("persist.no_state", path=str(self.path))
+        read = self._read_document()
+        if read is None:
             return {}
-        except UnicodeDecodeError:
-            self._move_aside("not UTF-8 text")
-            return {}
-        except OSError as exc:  # a directory in its place, no permission, an I/O error
-            self._move_aside(f"unreadable ({exc.strerror or exc})")
-            return {}
-        try:
-            document = json.loads(text)
-        except json.JSONDecodeError as exc:
-            self._move_aside(f"not JSON ({exc.msg} at line {exc.lineno})")
-            return {}
-        except RecursionError:
-            self._move_aside("nested too deeply to be a roomloop state file")
-            return {}
+        (document,) = read
         problem = _check_document(document, self.site_name)
         if problem is not None:
             self._move_aside(problem)
@@ -169,6 +154,28 @@ class StateStore:
         self.warm_up = dict(warm_up) if isinstance(warm_up, dict) else {}
         self._last_written = _dump({**document, "saved_at": None})
         return zones
+
+    def _read_document(self) -> tuple[Any] | None:
+        """The state file's JSON (in a 1-tuple: the file may hold ``null``); None when there
+        is no file or it is unreadable or not JSON (then it is moved aside)."""
+        try:
+            text = self.path.read_text(encoding="utf-8")
+        except FileNotFoundError:
+            log.info("persist.no_state", path=str(self.path))
+            return None
+        except UnicodeDecodeError:
+            self._move_aside("not UTF-8 text")
+            return None
+        except OSError as exc:  # a directory in its place, no permission, an I/O error
+            self._move_aside(f"unreadable ({exc.strerror or exc})")
+            return None
+        try:
+            return (json.loads(text),)
+        except json.JSONDecodeError as exc:
+            self._move_aside(f"not JSON ({exc.msg} at line {exc.lineno})")
+        except RecursionError:
+            self._move_aside("nested too deeply to be a roomloop state file")
+        return None
 
     def record_switch(self, zone: str, state: ZoneState) -> bool:
         """Make the relay switch in ``state`` durable now; True if written (or already).
