@@ -384,15 +384,10 @@ class _Demo:
             return server, site
         raise DemoError(f"the demo's Modbus server could not start on loopback: {last_error}")
 
-    async def _run_with(
-        self, server: PlantServer, site: Site, state_dir: str, stop: asyncio.Event
-    ) -> DemoResult:
+    def _announce(self, server: PlantServer, site: Site, silent_unit: int) -> None:
+        """The run's first lines: the site, where its plants are served, and the plan."""
         assert self.timeline is not None
         timeline = self.timeline
-        clock = server.clock
-        self.records = {z.name: ZoneRecord() for z in site.zones}
-        real_start = time.monotonic()  # only for the report's "N h in M s" figure
-        silent = server.zone(SILENT_ZONE)
         self.say(
             timeline.start,
             f"demo: site {site.name}, {len(site.zones)} zones ("
@@ -406,11 +401,44 @@ class _Demo:
             f"plan: {clock_text(timeline.switch_at, self.tz)} the program switches standby -> "
             f"comfort; {clock_text(timeline.silence_start, self.tz)}-"
             f"{clock_text(timeline.silence_end, self.tz)} the {SILENT_ZONE} sensor "
-            f"(unit {silent.sensor.unit_id}) goes silent",
+            f"(unit {silent_unit}) goes silent",
         )
         if self.options.broker is not None:
             host, port = self.options.broker
             self.say(timeline.start, f"publishing to the broker at {host}:{port} as 'run' does")
+
+    async def _await_service_stop(
+        self,
+        server: PlantServer,
+        service_task: asyncio.Task[None],
+        *,
+        others: set[asyncio.Task[Any]],
+    ) -> None:
+        """Wait (bounded) for the service to stop; a stuck stop is a :class:`DemoError` that
+        names the outputs as they are and what still runs."""
+        try:
+            await wait_for(server.clock.io, asyncio.shield(service_task), SERVICE_STOP_S)
+        except TimeoutError:
+            waiting = _pending_tasks({*others, service_task})
+            log.error("demo.service_stop_stuck", within_s=SERVICE_STOP_S, tasks=waiting)
+            coils = await server.relays()
+            raise DemoError(
+                f"the service did not stop within {SERVICE_STOP_S:g} s (outputs now: "
+                + ", ".join(f"{z} {'on' if on else 'off'}" for z, on in coils.items())
+                + "); still running: "
+                + "; ".join(waiting)
+            ) from None
+
+    async def _run_with(
+        self, server: PlantServer, site: Site, state_dir: str, stop: asyncio.Event
+    ) -> DemoResult:
+        assert self.timeline is not None
+        timeline = self.timeline
+        clock = server.clock
+        self.records = {z.name: ZoneRecord() for z in site.zones}
+        real_start = time.monotonic()  # only for the report's "N h in M s" figure
+        silent = server.zone(SILENT_ZONE)
+        self._announce(server, site, silent.sensor.unit_id)
         self.sources = wire_sources(site, server)
         service = Service(site, clock=clock, state_dir=state_dir, on_tick=self.on_tick)
         loops = service.sources.sources
@@ -443,18 +471,9 @@ class _Demo:
             # The plants and the view stop with the run; only the service's stop is left.
             await _cancel(plants, scenario, refresh, stopper, follow)
             service_stop.set()
-            try:
-                await wait_for(clock.io, asyncio.shield(service_task), SERVICE_STOP_S)
-            except TimeoutError:
-                waiting = _pending_tasks({plants, scenario, refresh, stopper, service_task})
-                log.error("demo.service_stop_stuck", within_s=SERVICE_STOP_S, tasks=waiting)
-                coils = await server.relays()
-                raise DemoError(
-                    f"the service did not stop within {SERVICE_STOP_S:g} s (outputs now: "
-                    + ", ".join(f"{z} {'on' if on else 'off'}" for z, on in coils.items())
-                    + "); still running: "
-                    + "; ".join(waiting)
-                ) from None
+            await self._await_service_stop(
+                server, service_task, others={plants, scenario, refresh, stopper}
+            )
             relays = await server.relays()
             sources_at_stop = {n: await read_coils(server, r) for n, r in self.sources.items()}
         finally:
