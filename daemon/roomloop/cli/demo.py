@@ -78,6 +78,15 @@ TUNE_MIN_HOURS = 24.0
 CSI = "\x1b["
 
 
+class _Refused(Exception):
+    """Why the demo stops: the line printed after ``roomloop demo:`` and the exit code."""
+
+    def __init__(self, message: str, code: int) -> None:
+        super().__init__(message)
+        self.message = message
+        self.code = code
+
+
 def _fail(message: str, code: int) -> int:
     print(f"roomloop demo: {message}", file=sys.stderr)
     return code
@@ -348,33 +357,52 @@ def kept_history_text(result: DemoResult, state_dir: str) -> str:
 
 
 def main(args: argparse.Namespace) -> int:
+    try:
+        return _demo(args)
+    except _Refused as refused:
+        return _fail(refused.message, refused.code)
+
+
+def _demo(args: argparse.Namespace) -> int:
+    """Check the options, run the demo, report how it ended, then draw the plot."""
+    options, stamp = _options(args)
+    out = sys.stdout
+    view = _view(out, stamp, options.hours)
+    try:
+        with asyncio.Runner(loop_factory=AutojumpLoop if options.virtual else None) as runner:
+            result = runner.run(_run(options, view))
+    except DemoError as exc:
+        view.close()
+        raise _Refused(str(exc), EXIT_RUNTIME) from None
+    view.close()
+    configure_logging("warning", "console", stream=sys.stderr)
+    safe = _report(result, out)
+    if options.state_dir is not None:
+        out.write("\n" + kept_history_text(result, options.state_dir))
+        out.flush()
+    code = EXIT_OK if safe else EXIT_RUNTIME
+    if args.plot:
+        _write_plot(result, args.plot)
+        out.write(f"plot written to {args.plot}\n")
+    return code
+
+
+def _options(args: argparse.Namespace) -> tuple[DemoOptions, SimulatedStamp]:
+    """The run's options, every one checked before anything runs, and the log lines' stamp
+    (it learns the demo's clock when the run makes it)."""
     hours = float(args.hours)
     if not MIN_HOURS <= hours <= MAX_HOURS:
-        return _fail(f"--hours must be {MIN_HOURS:g} to {MAX_HOURS:g}", EXIT_USAGE)
+        raise _Refused(f"--hours must be {MIN_HOURS:g} to {MAX_HOURS:g}", EXIT_USAGE)
     speed = float(args.speed) if args.speed is not None else DEFAULT_SPEED
     if not 0 < speed <= MAX_SPEED:
-        return _fail(f"--speed must be above 0 and at most {MAX_SPEED:g}", EXIT_USAGE)
-    broker = None
-    if args.broker:
-        try:
-            broker = parse_broker(args.broker)
-        except ValueError as exc:
-            return _fail(str(exc), EXIT_USAGE)
+        raise _Refused(f"--speed must be above 0 and at most {MAX_SPEED:g}", EXIT_USAGE)
+    broker = _broker(args.broker)
     if args.plot:
-        problem = output_path_problem("--plot", args.plot, ".png")
-        if problem:
-            return _fail(problem, EXIT_USAGE)
-        if not matplotlib_available():
-            return _fail(MATPLOTLIB_MISSING, EXIT_USAGE)
-    state_dir = getattr(args, "state_dir", None)
-    if state_dir is not None:
-        problem = state_dir_problem(state_dir)
-        if problem:
-            return _fail(problem, EXIT_USAGE)
-        state_dir = os.path.abspath(state_dir)
+        _check_plot(args.plot)
+    state_dir = _state_dir(getattr(args, "state_dir", None))
     clock_kind = os.environ.get(CLOCK_ENV, "paced")
     if clock_kind not in ("paced", "virtual"):
-        return _fail(f"{CLOCK_ENV}={clock_kind!r} is not 'paced' or 'virtual'", EXIT_USAGE)
+        raise _Refused(f"{CLOCK_ENV}={clock_kind!r} is not 'paced' or 'virtual'", EXIT_USAGE)
     stamp = SimulatedStamp(demo_site_timezone())
     options = DemoOptions(
         hours=hours,
@@ -384,38 +412,59 @@ def main(args: argparse.Namespace) -> int:
         virtual=clock_kind == "virtual",
         state_dir=state_dir,
     )
-    out = sys.stdout
-    view: TerminalView | PlainView
+    return options, stamp
+
+
+def _broker(text: str | None) -> tuple[str, int] | None:
+    """``--broker`` as (host, port), or None without it."""
+    if not text:
+        return None
+    try:
+        return parse_broker(text)
+    except ValueError as exc:
+        raise _Refused(str(exc), EXIT_USAGE) from None
+
+
+def _check_plot(path: str) -> None:
+    """The plot is drawn after the whole run: its path and matplotlib are checked before."""
+    problem = output_path_problem("--plot", path, ".png")
+    if problem:
+        raise _Refused(problem, EXIT_USAGE)
+    if not matplotlib_available():
+        raise _Refused(MATPLOTLIB_MISSING, EXIT_USAGE)
+
+
+def _state_dir(path: str | None) -> str | None:
+    """``--state-dir`` made absolute once it can take the history (made if missing), or None
+    without it."""
+    if path is None:
+        return None
+    problem = state_dir_problem(path)
+    if problem:
+        raise _Refused(problem, EXIT_USAGE)
+    return os.path.abspath(path)
+
+
+def _view(out: TextIO, stamp: SimulatedStamp, hours: float) -> TerminalView | PlainView:
+    """The live view on a terminal (the service's log lines scroll above it), plain lines
+    otherwise; the service's log goes to the same place."""
     if out.isatty():
         log_lines = LogLines()
         configure_demo_logging(log_lines, stamp)
-        view = TerminalView(out, log_lines)
-    else:
-        configure_demo_logging(out, stamp)
-        view = PlainView(out, max(300.0, hours * 3600 / PLAIN_STATUS_BLOCKS))
-    try:
-        with asyncio.Runner(loop_factory=AutojumpLoop if options.virtual else None) as runner:
-            result = runner.run(_run(options, view))
-    except DemoError as exc:
-        view.close()
-        return _fail(str(exc), EXIT_RUNTIME)
-    view.close()
-    configure_logging("warning", "console", stream=sys.stderr)
-    safe = _report(result, out)
-    if state_dir is not None:
-        out.write("\n" + kept_history_text(result, state_dir))
-        out.flush()
-    code = EXIT_OK if safe else EXIT_RUNTIME
-    if args.plot:
-        from roomloop.demo.plot import PlotUnavailable, write_demo_plot
+        return TerminalView(out, log_lines)
+    configure_demo_logging(out, stamp)
+    return PlainView(out, max(300.0, hours * 3600 / PLAIN_STATUS_BLOCKS))
 
-        try:
-            write_demo_plot(result, args.plot)
-        except PlotUnavailable:
-            return _fail(MATPLOTLIB_MISSING, EXIT_RUNTIME)
-        except OSError as exc:
-            return _fail(f"cannot write {args.plot}: {exc.strerror or exc}", EXIT_RUNTIME)
-        except ValueError as exc:  # matplotlib refusing the file, should the check miss a case
-            return _fail(f"cannot write {args.plot}: {exc}", EXIT_RUNTIME)
-        out.write(f"plot written to {args.plot}\n")
-    return code
+
+def _write_plot(result: DemoResult, path: str) -> None:
+    """The plot of every zone (matplotlib imported only now); a failure is a runtime error."""
+    from roomloop.demo.plot import PlotUnavailable, write_demo_plot
+
+    try:
+        write_demo_plot(result, path)
+    except PlotUnavailable:
+        raise _Refused(MATPLOTLIB_MISSING, EXIT_RUNTIME) from None
+    except OSError as exc:
+        raise _Refused(f"cannot write {path}: {exc.strerror or exc}", EXIT_RUNTIME) from None
+    except ValueError as exc:  # matplotlib refusing the file, should the check miss a case
+        raise _Refused(f"cannot write {path}: {exc}", EXIT_RUNTIME) from None

@@ -15,12 +15,23 @@ from zoneinfo import ZoneInfo
 
 from roomloop.cli.outputs import output_path_problem
 from roomloop.config.loader import load_site
+from roomloop.config.models import Site
 from roomloop.history.csvfile import write_csv
-from roomloop.history.source import HistoryUnavailable, load_history, parse_bound
+from roomloop.history.source import Bound, HistoryUnavailable, load_history, parse_bound
+from roomloop.history.store import ZoneHistory
 
 EXIT_OK = 0
 EXIT_RUNTIME = 1
 EXIT_USAGE = 2
+
+
+class _Refused(Exception):
+    """Why the export stops: the line printed after ``roomloop history:`` and the exit code."""
+
+    def __init__(self, message: str, code: int) -> None:
+        super().__init__(message)
+        self.message = message
+        self.code = code
 
 
 def _fail(message: str, code: int) -> int:
@@ -30,35 +41,64 @@ def _fail(message: str, code: int) -> int:
 
 def main(args: argparse.Namespace) -> int:
     site = load_site(args.config)  # ConfigError: the CLI front prints it, exit 2
-    if args.zone not in {z.name for z in site.zones}:
-        return _fail(
-            f"no zone {args.zone!r} in {args.config} (zones: "
-            + ", ".join(z.name for z in site.zones) + ")",
-            EXIT_USAGE,
-        )
-    tz = ZoneInfo(site.site.timezone)
     try:
-        since = parse_bound(args.since, tz, "--since")
-        until = parse_bound(args.until, tz, "--until")
-    except ValueError as exc:
-        return _fail(str(exc), EXIT_USAGE)
+        return _export(args, site)
+    except _Refused as refused:
+        return _fail(refused.message, refused.code)
+
+
+def _export(args: argparse.Namespace, site: Site) -> int:
+    """Check the options against the site, read the zone's ticks, write them as CSV."""
+    _check_zone(args, site)
+    tz = ZoneInfo(site.site.timezone)
+    since, until = _window(args, tz)
     if args.csv != "-":
-        problem = output_path_problem("--csv", args.csv)
-        if problem:
-            return _fail(problem, EXIT_USAGE)
+        _check_csv_path(args.csv)
     try:
         history = load_history(
             site, args.zone, state_dir=args.state_dir, since=since, until=until
         )
     except HistoryUnavailable as exc:
-        return _fail(str(exc), EXIT_RUNTIME)
+        raise _Refused(str(exc), EXIT_RUNTIME) from None
     if args.csv == "-":
         write_csv(history, sys.stdout, tz=tz, units=site.site.units)
         return EXIT_OK
-    try:
-        with open(args.csv, "w", encoding="utf-8", newline="") as out:
-            rows = write_csv(history, out, tz=tz, units=site.site.units)
-    except OSError as exc:
-        return _fail(f"cannot write {args.csv}: {exc.strerror or exc}", EXIT_RUNTIME)
+    rows = _write_file(history, args.csv, tz, site.site.units)
     print(f"{rows} ticks of zone {args.zone} written to {args.csv}", file=sys.stderr)
     return EXIT_OK
+
+
+def _check_zone(args: argparse.Namespace, site: Site) -> None:
+    """A zone the site does not have is refused, naming the zones it has."""
+    if args.zone not in {z.name for z in site.zones}:
+        raise _Refused(
+            f"no zone {args.zone!r} in {args.config} (zones: "
+            + ", ".join(z.name for z in site.zones) + ")",
+            EXIT_USAGE,
+        )
+
+
+def _window(args: argparse.Namespace, tz: ZoneInfo) -> tuple[Bound, Bound]:
+    """``--since`` and ``--until`` in the site's time zone (a bad one is a usage error)."""
+    try:
+        since = parse_bound(args.since, tz, "--since")
+        until = parse_bound(args.until, tz, "--until")
+    except ValueError as exc:
+        raise _Refused(str(exc), EXIT_USAGE) from None
+    return since, until
+
+
+def _check_csv_path(path: str) -> None:
+    """The CSV file is checked before the history is read, so a bad path costs no read."""
+    problem = output_path_problem("--csv", path)
+    if problem:
+        raise _Refused(problem, EXIT_USAGE)
+
+
+def _write_file(history: ZoneHistory, path: str, tz: ZoneInfo, units: str) -> int:
+    """Write the CSV file; the number of ticks written (a failed write is a runtime error)."""
+    try:
+        with open(path, "w", encoding="utf-8", newline="") as out:
+            return write_csv(history, out, tz=tz, units=units)
+    except OSError as exc:
+        raise _Refused(f"cannot write {path}: {exc.strerror or exc}", EXIT_RUNTIME) from None

@@ -15,8 +15,9 @@ from zoneinfo import ZoneInfo
 
 from roomloop.cli.outputs import matplotlib_available, output_path_problem
 from roomloop.config.loader import load_site
+from roomloop.config.models import Site
 from roomloop.history.report import day_figures, format_report, tick_of
-from roomloop.history.source import HistoryUnavailable, load_history, parse_bound
+from roomloop.history.source import Bound, HistoryUnavailable, load_history, parse_bound
 from roomloop.history.store import ZoneHistory
 
 EXIT_OK = 0
@@ -28,6 +29,15 @@ MATPLOTLIB_NEEDED = (
 )
 
 
+class _Refused(Exception):
+    """Why the report stops: the line printed after ``roomloop report:`` and the exit code."""
+
+    def __init__(self, message: str, code: int) -> None:
+        super().__init__(message)
+        self.message = message
+        self.code = code
+
+
 def _fail(message: str, code: int) -> int:
     print(f"roomloop report: {message}", file=sys.stderr)
     return code
@@ -35,24 +45,72 @@ def _fail(message: str, code: int) -> int:
 
 def main(args: argparse.Namespace) -> int:
     site = load_site(args.config)  # ConfigError: the CLI front prints it, exit 2
+    try:
+        return _report(args, site)
+    except _Refused as refused:
+        return _fail(refused.message, refused.code)
+
+
+def _report(args: argparse.Namespace, site: Site) -> int:
+    """Check the options, read each zone's history, print the figures, draw the plot."""
     names = [z.name for z in site.zones]
+    _check_options(args, names)
+    tz = ZoneInfo(site.site.timezone)
+    since, until = _window(args, tz)
+    zones = [args.zone] if args.zone is not None else names
+    histories, texts, missing = _read_zones(
+        args, site, zones, tz=tz, since=since, until=until
+    )
+    if not histories:
+        raise _Refused("no history of any zone: " + "; ".join(missing), EXIT_RUNTIME)
+    print("\n\n".join(texts))
+    for line in missing:
+        print(f"(no history) {line}", file=sys.stderr)
+    if args.plot:
+        _write_plot(histories, args.plot, tz, site.site.units)
+    return EXIT_OK
+
+
+def _check_options(args: argparse.Namespace, names: list[str]) -> None:
+    """Refuse, before any history is read, what the options get wrong (all usage errors)."""
     if args.zone is not None and args.zone not in names:
-        return _fail(f"no zone {args.zone!r} in {args.config} (zones: {', '.join(names)})", 2)
+        raise _Refused(
+            f"no zone {args.zone!r} in {args.config} (zones: {', '.join(names)})", EXIT_USAGE
+        )
     if args.history is not None and args.zone is None:
-        return _fail("--history FILE.csv holds one zone: name it with --zone", EXIT_USAGE)
+        raise _Refused("--history FILE.csv holds one zone: name it with --zone", EXIT_USAGE)
     if args.plot:
         problem = output_path_problem("--plot", args.plot, ".png")
         if problem:
-            return _fail(problem, EXIT_USAGE)
+            raise _Refused(problem, EXIT_USAGE)
         if not matplotlib_available():
-            return _fail(MATPLOTLIB_NEEDED, EXIT_USAGE)
-    tz = ZoneInfo(site.site.timezone)
+            raise _Refused(MATPLOTLIB_NEEDED, EXIT_USAGE)
+
+
+def _window(args: argparse.Namespace, tz: ZoneInfo) -> tuple[Bound, Bound]:
+    """``--since`` and ``--until`` in the site's time zone (a bad one is a usage error)."""
     try:
         since = parse_bound(args.since, tz, "--since")
         until = parse_bound(args.until, tz, "--until")
     except ValueError as exc:
-        return _fail(str(exc), EXIT_USAGE)
-    zones = [args.zone] if args.zone is not None else names
+        raise _Refused(str(exc), EXIT_USAGE) from None
+    return since, until
+
+
+def _read_zones(
+    args: argparse.Namespace,
+    site: Site,
+    zones: list[str],
+    *,
+    tz: ZoneInfo,
+    since: Bound,
+    until: Bound,
+) -> tuple[list[tuple[str, ZoneHistory]], list[str], list[str]]:
+    """Each zone's history and report text, and a line for each zone without history.
+
+    A zone named with ``--zone`` and without history stops the report; among all the
+    site's zones, one without history is only named (the others are still reported).
+    """
     histories: list[tuple[str, ZoneHistory]] = []
     texts: list[str] = []
     missing: list[str] = []
@@ -69,7 +127,7 @@ def main(args: argparse.Namespace) -> int:
             )
         except HistoryUnavailable as exc:
             if args.zone is not None:
-                return _fail(str(exc), EXIT_RUNTIME)
+                raise _Refused(str(exc), EXIT_RUNTIME) from None
             missing.append(f"{name}: {exc}")
             continue
         days = day_figures(history, tz, heater_w=zone.heater_w)
@@ -77,18 +135,18 @@ def main(args: argparse.Namespace) -> int:
             format_report(name, zone.heating, days, units=site.site.units, tick_s=tick_of(history))
         )
         histories.append((f"zone {name} ({zone.heating})", history))
-    if not histories:
-        return _fail("no history of any zone: " + "; ".join(missing), EXIT_RUNTIME)
-    print("\n\n".join(texts))
-    for line in missing:
-        print(f"(no history) {line}", file=sys.stderr)
-    if args.plot:
-        from roomloop.history.plot import PlotUnavailable, write_history_plot
+    return histories, texts, missing
 
-        try:
-            write_history_plot(histories, args.plot, tz=tz, units=site.site.units)
-        except PlotUnavailable:
-            return _fail(MATPLOTLIB_NEEDED, EXIT_USAGE)
-        except (OSError, ValueError) as exc:
-            return _fail(f"cannot write {args.plot}: {exc}", EXIT_RUNTIME)
-    return EXIT_OK
+
+def _write_plot(
+    histories: list[tuple[str, ZoneHistory]], path: str, tz: ZoneInfo, units: str
+) -> None:
+    """The plot, drawn after the text is out (matplotlib imported only now)."""
+    from roomloop.history.plot import PlotUnavailable, write_history_plot
+
+    try:
+        write_history_plot(histories, path, tz=tz, units=units)
+    except PlotUnavailable:
+        raise _Refused(MATPLOTLIB_NEEDED, EXIT_USAGE) from None
+    except (OSError, ValueError) as exc:
+        raise _Refused(f"cannot write {path}: {exc}", EXIT_RUNTIME) from None

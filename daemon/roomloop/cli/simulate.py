@@ -35,10 +35,20 @@ from roomloop.plant.protocol import (
     protocol_settings,
     run_protocol,
 )
+from roomloop.plant.spec import PlantSpec
 
 EXIT_OK = 0
 EXIT_RUNTIME = 1
 EXIT_USAGE = 2
+
+
+class _Refused(Exception):
+    """Why the run stops: the line printed after ``roomloop simulate:`` and the exit code."""
+
+    def __init__(self, message: str, code: int) -> None:
+        super().__init__(message)
+        self.message = message
+        self.code = code
 
 
 def _fail(message: str, code: int) -> int:
@@ -56,23 +66,26 @@ def _zone_settings(args: argparse.Namespace) -> tuple[ZoneSettings, str]:
     return ZoneSettings.for_heating_type(args.heating), "C"
 
 
-def _mode(args: argparse.Namespace) -> tuple[Mode | None, str | None]:
+def _mode(args: argparse.Namespace) -> Mode:
     """The run's mode as the options give it (a site's zone that only cools changes the
-    default to ``cool`` later), or None and the reason it cannot be run."""
+    default to ``cool`` later); a mode the zone of ``--heating`` or ``--cooling`` cannot
+    run is refused."""
     if args.mode is None:
-        return ("cool" if args.cooling is not None else "heat"), None
+        return "cool" if args.cooling is not None else "heat"
     mode: Mode = args.mode
     if mode == "heat" and args.cooling is not None:
-        return None, (
+        raise _Refused(
             f"--cooling {args.cooling} is a cooling-only zone: it has no heating call to "
-            "simulate (--mode heat needs --heating TYPE or a site's zone with a heating output)"
+            "simulate (--mode heat needs --heating TYPE or a site's zone with a heating output)",
+            EXIT_USAGE,
         )
     if mode == "cool" and args.heating is not None:
-        return None, (
+        raise _Refused(
             f"--heating {args.heating} has no cooling call: for --mode cool give --cooling "
-            "TYPE (direct-expansion, chilled-water) or -c SITE --zone NAME of a zone that cools"
+            "TYPE (direct-expansion, chilled-water) or -c SITE --zone NAME of a zone that cools",
+            EXIT_USAGE,
         )
-    return mode, None
+    return mode
 
 
 def _cannot_cool(plant: str) -> str:
@@ -82,64 +95,42 @@ def _cannot_cool(plant: str) -> str:
     )
 
 
-def _check_outputs(args: argparse.Namespace) -> int | None:
-    """Refuse before the run what would only fail after it; the exit code, or None if fine."""
+def _check_outputs(args: argparse.Namespace) -> None:
+    """Refuse before the run what would only fail after it."""
     if args.json:
         problem = output_path_problem("--json", args.json)
         if problem:
-            return _fail(problem, EXIT_USAGE)
+            raise _Refused(problem, EXIT_USAGE)
     if args.plot:
         problem = output_path_problem("--plot", args.plot, ".png")
         if problem:
-            return _fail(problem, EXIT_USAGE)
+            raise _Refused(problem, EXIT_USAGE)
         if not matplotlib_available():
-            return _fail(MATPLOTLIB_MISSING, EXIT_USAGE)
-    return None
+            raise _Refused(MATPLOTLIB_MISSING, EXIT_USAGE)
 
 
 def main(args: argparse.Namespace) -> int:
-    if args.config is not None and not args.zone:
-        return _fail("-c SITE needs --zone NAME (the zone to simulate)", EXIT_USAGE)
-    if args.config is None and args.zone:
-        return _fail("--zone goes with -c SITE; with --heating there is no site", EXIT_USAGE)
-    mode, wrong = _mode(args)
-    if mode is None:
-        return _fail(wrong or "", EXIT_USAGE)
-    refused = _check_outputs(args)
-    if refused is not None:
-        return refused
+    try:
+        return _simulate(args)
+    except _Refused as refused:
+        return _fail(refused.message, refused.code)
+
+
+def _simulate(args: argparse.Namespace) -> int:
+    """Check the options, make the zone and the plant, run the protocol, write the outputs."""
+    mode = _checked_options(args)
     try:
         zone, units = _zone_settings(args)
     except SettingsError as exc:
-        return _fail(str(exc), EXIT_USAGE)
+        raise _Refused(str(exc), EXIT_USAGE) from None
     from_site = args.config is not None
-    cs = zone.cooling
-    if args.mode is None and cs is not None and not cs.heating:
-        mode = "cool"  # a site's zone that only cools runs the cooling variant by default
-    if mode == "cool" and cs is None:
-        return _fail(
-            f"zone {zone.name} has no cooling output: --mode cool needs a zone that cools",
-            EXIT_USAGE,
-        )
-    default_plant = (
-        PLANT_FOR_COOLING[cs.type] if mode == "cool" and cs is not None
-        else PLANT_FOR_HEATING[zone.heating]
-    )
-    # ConfigError (a bad plant file, an unknown name): the CLI front prints it, exit 2
-    plant = load_plant(args.plant or default_plant)
-    if mode == "cool" and not plant.can_cool:
-        return _fail(_cannot_cool(plant.name), EXIT_USAGE)
-    # A site's zone runs the protocol at its own comfort and economy set points.
-    comfort_c, economy_c = default_setpoints(mode)
-    if from_site:
-        comfort_c, economy_c = (
-            (cs.comfort_c, cs.economy_c) if mode == "cool" and cs is not None
-            else (zone.comfort_c, zone.economy_c)
-        )
+    mode = _zone_mode(args, zone, mode)
+    plant = _plant(args, zone, mode)
+    comfort_c, economy_c = _protocol_setpoints(zone, mode, from_site=from_site)
     try:
         settings = protocol_settings(zone, comfort_c=comfort_c, economy_c=economy_c, mode=mode)
     except SettingsError as exc:
-        return _fail(str(exc), EXIT_USAGE)
+        raise _Refused(str(exc), EXIT_USAGE) from None
     controller = make_controller(args.controller, settings, mode)
     result = run_protocol(
         controller,
@@ -153,22 +144,85 @@ def main(args: argparse.Namespace) -> int:
     )
     print(format_summary(result, settings, from_site=from_site, units=units))
     if args.json:
-        try:
-            with open(args.json, "w", encoding="utf-8") as out:
-                json.dump(result.to_dict(), out, indent=2)
-                out.write("\n")
-        except (OSError, ValueError) as exc:
-            return _fail(f"cannot write {args.json}: {_reason(exc)}", EXIT_RUNTIME)
+        _write_json(result, args.json)
     if args.plot:
-        from roomloop.plant.plot import PlotUnavailable, write_plot
-
-        try:
-            write_plot(result, args.plot)
-        except PlotUnavailable:
-            return _fail(MATPLOTLIB_MISSING, EXIT_RUNTIME)
-        except (OSError, ValueError) as exc:
-            return _fail(f"cannot write {args.plot}: {_reason(exc)}", EXIT_RUNTIME)
+        _write_plot(result, args.plot)
     return EXIT_OK
+
+
+def _checked_options(args: argparse.Namespace) -> Mode:
+    """The mode the options ask for, once they agree with each other and the output paths
+    can be written (the zone may still change the mode: ``_zone_mode``)."""
+    if args.config is not None and not args.zone:
+        raise _Refused("-c SITE needs --zone NAME (the zone to simulate)", EXIT_USAGE)
+    if args.config is None and args.zone:
+        raise _Refused("--zone goes with -c SITE; with --heating there is no site", EXIT_USAGE)
+    mode = _mode(args)
+    _check_outputs(args)
+    return mode
+
+
+def _zone_mode(args: argparse.Namespace, zone: ZoneSettings, mode: Mode) -> Mode:
+    """The mode the zone runs in: a cooling run needs a zone that cools."""
+    cs = zone.cooling
+    if args.mode is None and cs is not None and not cs.heating:
+        mode = "cool"  # a site's zone that only cools runs the cooling variant by default
+    if mode == "cool" and cs is None:
+        raise _Refused(
+            f"zone {zone.name} has no cooling output: --mode cool needs a zone that cools",
+            EXIT_USAGE,
+        )
+    return mode
+
+
+def _plant(args: argparse.Namespace, zone: ZoneSettings, mode: Mode) -> PlantSpec:
+    """``--plant``, or the built-in plant of the zone's heating type (its cooling type in a
+    cooling run); a cooling run needs a plant that cools."""
+    cs = zone.cooling
+    default_plant = (
+        PLANT_FOR_COOLING[cs.type] if mode == "cool" and cs is not None
+        else PLANT_FOR_HEATING[zone.heating]
+    )
+    # ConfigError (a bad plant file, an unknown name): the CLI front prints it, exit 2
+    plant = load_plant(args.plant or default_plant)
+    if mode == "cool" and not plant.can_cool:
+        raise _Refused(_cannot_cool(plant.name), EXIT_USAGE)
+    return plant
+
+
+def _protocol_setpoints(zone: ZoneSettings, mode: Mode, *, from_site: bool) -> tuple[float, float]:
+    """The (comfort, economy) set points of the run: the protocol's own, but a site's zone
+    runs the protocol at its own comfort and economy set points."""
+    if not from_site:
+        return default_setpoints(mode)
+    cs = zone.cooling
+    return (
+        (cs.comfort_c, cs.economy_c) if mode == "cool" and cs is not None
+        else (zone.comfort_c, zone.economy_c)
+    )
+
+
+def _write_json(result: ProtocolResult, path: str) -> None:
+    """The figures as JSON (the path was checked before the run; a failure now is a
+    runtime error)."""
+    try:
+        with open(path, "w", encoding="utf-8") as out:
+            json.dump(result.to_dict(), out, indent=2)
+            out.write("\n")
+    except (OSError, ValueError) as exc:
+        raise _Refused(f"cannot write {path}: {_reason(exc)}", EXIT_RUNTIME) from None
+
+
+def _write_plot(result: ProtocolResult, path: str) -> None:
+    """The plot (matplotlib imported only now; the path was checked before the run)."""
+    from roomloop.plant.plot import PlotUnavailable, write_plot
+
+    try:
+        write_plot(result, path)
+    except PlotUnavailable:
+        raise _Refused(MATPLOTLIB_MISSING, EXIT_RUNTIME) from None
+    except (OSError, ValueError) as exc:
+        raise _Refused(f"cannot write {path}: {_reason(exc)}", EXIT_RUNTIME) from None
 
 
 def _reason(exc: OSError | ValueError) -> str:

@@ -18,11 +18,19 @@ import dataclasses
 import importlib.util
 import sys
 from collections.abc import Callable
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from roomloop.cli.outputs import output_path_problem
 from roomloop.config.loader import load_site
+from roomloop.config.models import Site, Zone
 from roomloop.history.source import HistoryUnavailable, load_history, parse_bound
+from roomloop.history.store import ZoneHistory
+
+if TYPE_CHECKING:
+    from zoneinfo import ZoneInfo
+
+    from roomloop.plant.identify import Fit, Series
+    from roomloop.plant.spec import PlantSpec
 
 EXIT_OK = 0
 EXIT_RUNTIME = 1
@@ -45,6 +53,15 @@ PARAM_TEXT = {
 }
 
 
+class _Refused(Exception):
+    """Why tune stops: the line printed after ``roomloop tune:`` and the exit code."""
+
+    def __init__(self, message: str, code: int) -> None:
+        super().__init__(message)
+        self.message = message
+        self.code = code
+
+
 def _fail(message: str, code: int) -> int:
     print(f"roomloop tune: {message}", file=sys.stderr)
     return code
@@ -59,35 +76,86 @@ def _have_scipy() -> bool:
 
 def main(args: argparse.Namespace) -> int:
     site = load_site(args.config)  # ConfigError: the CLI front prints it, exit 2
-    names = [z.name for z in site.zones]
-    if args.zone not in names:
-        return _fail(f"no zone {args.zone!r} in {args.config} (zones: {', '.join(names)})", 2)
-    if args.write_plant:
-        problem = output_path_problem("--write-plant", args.write_plant)
-        if problem:
-            return _fail(problem, EXIT_USAGE)
-    if not _have_scipy():
-        return _fail(SCIPY_MISSING, EXIT_USAGE)
+    try:
+        return _tune(args, site)
+    except _Refused as refused:
+        return _fail(refused.message, refused.code)
+
+
+def _tune(args: argparse.Namespace, site: Site) -> int:
+    """Identify the zone's plant, then write its plant file and recommend its tuning."""
+    _check_options(args, site)
+    # numpy and scipy are known to be there from here on (roomloop.plant.identify needs them)
     from zoneinfo import ZoneInfo
 
-    from roomloop.plant.identify import IdentificationRefused, identify, plant_yaml, to_plant_spec
+    from roomloop.plant.identify import to_plant_spec
 
     zone = site.zone(args.zone)
     tz = ZoneInfo(site.site.timezone)
+    history = _history(args, site, tz)
+    fit, tried, series = _identify(history, zone)
+    _print_fit(zone, history, fit, tried)
+    if fit.rms_k >= POOR_RMS_K:
+        raise _Refused(
+            f"no plant file and no recommendation from a poor fit (RMS {fit.rms_k:.3f} K, "
+            f"at least {POOR_RMS_K:g} K): the model does not describe this zone's history "
+            "(a window left open, another heat source, a sensor far from the room air?)",
+            EXIT_RUNTIME,
+        )
+    spec = to_plant_spec(
+        fit, name=f"{zone.name}-identified", resolution_k=series.resolution_k or 0.1
+    )
+    if args.write_plant:
+        source = args.history or f"the history of site {site.name}"
+        _write_plant(args.write_plant, spec, fit, source)
+    if not args.no_recommend:
+        _print_recommendation(site, zone.name, spec, fit)
+    return EXIT_OK
+
+
+def _check_options(args: argparse.Namespace, site: Site) -> None:
+    """Refuse, before any history is read, what cannot work (all usage errors)."""
+    names = [z.name for z in site.zones]
+    if args.zone not in names:
+        raise _Refused(
+            f"no zone {args.zone!r} in {args.config} (zones: {', '.join(names)})", EXIT_USAGE
+        )
+    if args.write_plant:
+        problem = output_path_problem("--write-plant", args.write_plant)
+        if problem:
+            raise _Refused(problem, EXIT_USAGE)
+    if not _have_scipy():
+        raise _Refused(SCIPY_MISSING, EXIT_USAGE)
+
+
+def _history(args: argparse.Namespace, site: Site, tz: ZoneInfo) -> ZoneHistory:
+    """The zone's history since ``--since``, from the site's history file or ``--history``."""
     try:
         since = parse_bound(args.since, tz, "--since")
     except ValueError as exc:
-        return _fail(str(exc), EXIT_USAGE)
+        raise _Refused(str(exc), EXIT_USAGE) from None
     try:
-        history = load_history(
+        return load_history(
             site, args.zone, state_dir=args.state_dir, csv_path=args.history, since=since
         )
     except HistoryUnavailable as exc:
-        return _fail(str(exc), EXIT_RUNTIME)
+        raise _Refused(str(exc), EXIT_RUNTIME) from None
+
+
+def _identify(history: ZoneHistory, zone: Zone) -> tuple[Fit, list[Fit], Series]:
+    """The fit, every structure tried, and the series fitted; data that cannot support an
+    identification is a runtime error, with the reason."""
+    from roomloop.plant.identify import IdentificationRefused, identify
+
     try:
-        fit, tried, series = identify(history, heater_w=zone.heater_w, heating=zone.heating)
+        return identify(history, heater_w=zone.heater_w, heating=zone.heating)
     except IdentificationRefused as exc:
-        return _fail(f"refused: {exc}", EXIT_RUNTIME)
+        raise _Refused(f"refused: {exc}", EXIT_RUNTIME) from None
+
+
+def _print_fit(zone: Zone, history: ZoneHistory, fit: Fit, tried: list[Fit]) -> None:
+    """What was fitted: the data, the structures tried, each parameter with its spread,
+    the time constants, the residual with a verdict, and the fit's notes."""
     hours = (history.time[-1] - history.time[0]) / 3600.0
     print(
         f"zone {zone.name} ({zone.heating}): {hours:.1f} h of history, "
@@ -109,38 +177,38 @@ def main(args: argparse.Namespace) -> int:
         print(f"  {label:<20} {value:>12.4g} {unit:<4} {spread}{flag}")
     taus = ", ".join(f"{k} {v / 3600:.2f} h" for k, v in fit.node_time_constants_s().items())
     print(f"  time constants: {taus}")
+    print(f"RMS residual {fit.rms_k:.3f} K over {fit.points} points; verdict: {_verdict(fit)}")
+    for note in fit.notes:
+        if not note.endswith("evaluations"):
+            print(f"note: {note}")
+
+
+def _verdict(fit: Fit) -> str:
     poor = fit.rms_k >= POOR_RMS_K
-    verdict = (
+    return (
         "good" if fit.determined and fit.rms_k < GOOD_RMS_K
         else "poor: do not trust this plant" if poor
         else "fair: the fit follows the data, but some parameters are not determined"
         if not fit.determined
         else "fair"
     )
-    print(f"RMS residual {fit.rms_k:.3f} K over {fit.points} points; verdict: {verdict}")
-    for note in fit.notes:
-        if not note.endswith("evaluations"):
-            print(f"note: {note}")
-    if poor:
-        return _fail(
-            f"no plant file and no recommendation from a poor fit (RMS {fit.rms_k:.3f} K, "
-            f"at least {POOR_RMS_K:g} K): the model does not describe this zone's history "
-            "(a window left open, another heat source, a sensor far from the room air?)",
-            EXIT_RUNTIME,
-        )
-    spec = to_plant_spec(
-        fit, name=f"{zone.name}-identified", resolution_k=series.resolution_k or 0.1
-    )
-    if args.write_plant:
-        source = args.history or f"the history of site {site.name}"
-        try:
-            with open(args.write_plant, "w", encoding="utf-8") as out:
-                out.write(plant_yaml(spec, fit, source))
-        except OSError as exc:
-            return _fail(f"cannot write {args.write_plant}: {exc.strerror or exc}", EXIT_RUNTIME)
-        print(f"plant written to {args.write_plant} (roomloop simulate --plant reads it)")
-    if args.no_recommend:
-        return EXIT_OK
+
+
+def _write_plant(path: str, spec: PlantSpec, fit: Fit, source: str) -> None:
+    """The identified plant as the plant file ``simulate --plant`` reads."""
+    from roomloop.plant.identify import plant_yaml
+
+    try:
+        with open(path, "w", encoding="utf-8") as out:
+            out.write(plant_yaml(spec, fit, source))
+    except OSError as exc:
+        raise _Refused(f"cannot write {path}: {exc.strerror or exc}", EXIT_RUNTIME) from None
+    print(f"plant written to {path} (roomloop simulate --plant reads it)")
+
+
+def _print_recommendation(site: Site, zone_name: str, spec: PlantSpec, fit: Fit) -> None:
+    """Today's tuning against the best candidate on the identified plant, unless the loss to
+    outdoors, which the protocol's loads rest on, is not determined."""
     if "H" in fit.undetermined():
         print(
             "no recommendation: the loss to outdoors is not determined by these data, and the "
@@ -148,14 +216,13 @@ def main(args: argparse.Namespace) -> int:
             + ("more history with program changes" if fit.outdoor else "the outdoor temperature")
             + " would determine it"
         )
-        return EXIT_OK
+        return
     if not fit.determined:
         print(
             "the prediction below uses the fitted values of the undetermined parameters: "
             "indicative only"
         )
-    print(recommend(site, zone.name, spec))
-    return EXIT_OK
+    print(recommend(site, zone_name, spec))
 
 
 def _protocol_runner(
