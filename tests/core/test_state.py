@@ -63,6 +63,37 @@ def test_fast_constructors_equal_the_dataclass_init() -> None:
         records.slot_setters(dict)
 
 
+@pytest.mark.parametrize(
+    ("record", "build", "sizes"),
+    [
+        (PointState, records.point_state, (1, 2, 3, 2, 2)),
+        (ZoneOutputs, records.zone_outputs, (2, 6, 1, 3, 2)),
+        (ZoneState, records.zone_state, (6, 4, 4, 4, 4, 4, 2, 3)),
+    ],
+)
+def test_fast_constructors_put_each_value_in_its_own_field(
+    record: type, build: object, sizes: tuple[int, ...]
+) -> None:
+    # A distinct marker per field: a value stored in the wrong field cannot go unseen (two
+    # fields of equal value could hide it in the test above).
+    names = [f.name for f in dataclasses.fields(record) if f.name != "cooling"]
+    groups: list[object] = []
+    start = 0
+    for size in sizes:
+        groups.append(tuple(f"marker-{name}" for name in names[start : start + size]))
+        start += size
+    # a one-field group that is the value itself, not a tuple: the point's name, the
+    # outputs' reliability
+    alone = {PointState: 0, ZoneOutputs: 2}.get(record)
+    if alone is not None:
+        groups[alone] = groups[alone][0]  # type: ignore[index]
+    built = build(*groups)  # type: ignore[operator]
+    assert type(built) is record
+    assert {name: getattr(built, name) for name in names} == {n: f"marker-{n}" for n in names}
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        setattr(built, names[-1], None)
+
+
 def _sections(obj: object, sizes: tuple[int, ...]) -> list[tuple[object, ...]]:
     """The record's field values in order, cut into sections of ``sizes`` (the cooling part,
     which the dual controller adds to a built record, left out: None in a heating zone)."""

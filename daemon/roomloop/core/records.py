@@ -2,19 +2,20 @@
 
 A frozen dataclass's generated ``__init__`` must store each field through
 ``object.__setattr__`` (the class refuses plain assignment); the zone state has 31
-fields and is replaced on every tick of every zone. These functions store the fields
-through the slots' own descriptors instead: the same object, equal to one built by
-``__init__`` (tests/core/test_state.py), in about half the time
-(tests/bench/controller_step.py). They take the fields in the groups the stages
-produce them in (a keyword per field would cost as much as ``__init__``), each group a
-tuple in the dataclass's field order.
+fields and is replaced on every tick of every zone. Each record here has a *draft*: a
+plain class with the very same slots, whose ``__init__`` stores the fields with plain
+assignment and then makes the object the frozen record (``__class__`` assignment,
+which Python allows between classes of the same slot layout and checks). The result
+is the same object one built by ``__init__`` would be (tests/core/test_state.py).
+The constructors take the fields in the groups the stages produce them in (a keyword
+per field would cost as much as ``__init__``), each group a tuple in field order.
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import fields
-from typing import Any
+from typing import Any, cast
 
 from .failsafe import Bucket
 from .state import CoolingState, DualZoneState, PointState, ZoneState
@@ -30,23 +31,21 @@ def slot_setters(cls: type) -> tuple[Setter, ...]:
     return tuple(getattr(cls, f.name).__set__ for f in fields(cls))
 
 
+def _slots_of(cls: type) -> tuple[str, ...]:
+    """A record's slots, for its draft: the field names in order (what ``__class__``
+    assignment compares)."""
+    slots = tuple(getattr(cls, "__slots__", ()))
+    if slots != tuple(f.name for f in fields(cls)):
+        raise TypeError(f"{cls.__name__}'s slots are not its fields in order")
+    return slots
+
+
 _new = object.__new__
-(_P_NAME, _P_RELIABILITY, _P_VERDICT, _P_VALUE, _P_VALUE_AT, _P_SEEN_AT, _P_STILL_VALUE,
- _P_STILL_ON_S, _P_GOOD_SINCE, _P_FAULTED) = slot_setters(PointState)
-(_S_MODE, _S_HOLD_SETPOINT, _S_HOLD_LEVEL, _S_HOLD_UNTIL, _S_LEVEL_OVERRIDE, _S_SCHEDULED_LEVEL,
- _S_ANTICIPATOR_K, _S_DROOP_K, _S_TAU_SCALE, _S_CYCLE_CLEAN, _S_RELAY_ON, _S_SWITCHED_AT,
- _S_PROTECTION_RUN, _S_SWITCHES, _S_STARTED_AT, _S_LAST_STEP_AT, _S_LAST_SETPOINT, _S_RECOVERING,
- _S_TEMPERATURE, _S_GOOD_AT, _S_GOOD_SINCE, _S_NORMAL, _S_FAIL_SAFE, _S_FAIL_SAFE_SINCE,
- _S_FAIL_SAFE_DUTY, _S_FAIL_SAFE_REASON, _S_DUTY_BUCKETS, _S_DUTY_CURRENT, _S_POINTS, _S_BACKUP,
- _S_SMOOTHED_C) = slot_setters(ZoneState)
 _STATE_COPY = tuple(
     (getattr(ZoneState, f.name).__get__, setter)
     for f, setter in zip(fields(ZoneState), slot_setters(ZoneState), strict=True)
 )
 _S_COOLING = slot_setters(DualZoneState)[-1]
-(_O_DEMAND, _O_REASON, _O_TEMPERATURE, _O_SETPOINT, _O_LEVEL, _O_MODE, _O_ANTICIPATOR_K,
- _O_DROOP_K, _O_RELIABILITY, _O_FAIL_SAFE, _O_FAIL_SAFE_POLICY, _O_FAIL_SAFE_REASON,
- _O_ON_FRACTION_1H, _O_CYCLES_1H) = slot_setters(ZoneOutputs)
 _OUTPUTS_COPY = tuple(
     (getattr(ZoneOutputs, f.name).__get__, setter)
     for f, setter in zip(fields(ZoneOutputs), slot_setters(ZoneOutputs), strict=True)
@@ -65,22 +64,27 @@ Trust = tuple[float | None, bool]
 """(good_since, faulted)"""
 
 
-def point_state(
-    name: str, judgement: Judgement, accepted: Accepted, stillness: Stillness, trust: Trust
-) -> PointState:
-    """A :class:`PointState` from its field groups."""
-    obj = _new(PointState)
-    _P_NAME(obj, name)
-    _P_RELIABILITY(obj, judgement[0])
-    _P_VERDICT(obj, judgement[1])
-    _P_VALUE(obj, accepted[0])
-    _P_VALUE_AT(obj, accepted[1])
-    _P_SEEN_AT(obj, accepted[2])
-    _P_STILL_VALUE(obj, stillness[0])
-    _P_STILL_ON_S(obj, stillness[1])
-    _P_GOOD_SINCE(obj, trust[0])
-    _P_FAULTED(obj, trust[1])
-    return obj
+class _PointStateDraft:
+    """A :class:`PointState` being built (see the module docstring)."""
+
+    __slots__ = _slots_of(PointState)
+
+    def __init__(
+        self, name: str, judgement: Judgement, accepted: Accepted, stillness: Stillness,
+        trust: Trust,
+    ) -> None:
+        self.name = name
+        self.reliability, self.verdict = judgement
+        self.value, self.value_at, self.seen_at = accepted
+        self.still_value, self.still_on_s = stillness
+        self.good_since, self.faulted = trust
+        self.__class__ = PointState  # type: ignore[assignment]
+
+
+point_state = cast(
+    "Callable[[str, Judgement, Accepted, Stillness, Trust], PointState]", _PointStateDraft
+)
+"""A :class:`PointState` from its field groups."""
 
 
 # ZoneState's groups (the sections of its field list)
@@ -102,50 +106,41 @@ PointFields = tuple[tuple[PointState, ...], PointState | None, float | None]
 """(points, backup, smoothed_c)"""
 
 
-def zone_state(  # noqa: PLR0917 - one argument per section of the record
-    commands: CommandFields,
-    terms: TermFields,
-    relay: RelayFields,
-    times: TimeFields,
-    temperature: TemperatureFields,
-    fail_safe: FailSafeFields,
-    duty: DutyFields,
-    points: PointFields,
-) -> ZoneState:
-    """A :class:`ZoneState` from its sections, each in field order."""
-    obj = _new(ZoneState)
-    _S_MODE(obj, commands[0])
-    _S_HOLD_SETPOINT(obj, commands[1])
-    _S_HOLD_LEVEL(obj, commands[2])
-    _S_HOLD_UNTIL(obj, commands[3])
-    _S_LEVEL_OVERRIDE(obj, commands[4])
-    _S_SCHEDULED_LEVEL(obj, commands[5])
-    _S_ANTICIPATOR_K(obj, terms[0])
-    _S_DROOP_K(obj, terms[1])
-    _S_TAU_SCALE(obj, terms[2])
-    _S_CYCLE_CLEAN(obj, terms[3])
-    _S_RELAY_ON(obj, relay[0])
-    _S_SWITCHED_AT(obj, relay[1])
-    _S_PROTECTION_RUN(obj, relay[2])
-    _S_SWITCHES(obj, relay[3])
-    _S_STARTED_AT(obj, times[0])
-    _S_LAST_STEP_AT(obj, times[1])
-    _S_LAST_SETPOINT(obj, times[2])
-    _S_RECOVERING(obj, times[3])
-    _S_TEMPERATURE(obj, temperature[0])
-    _S_GOOD_AT(obj, temperature[1])
-    _S_GOOD_SINCE(obj, temperature[2])
-    _S_NORMAL(obj, temperature[3])
-    _S_FAIL_SAFE(obj, fail_safe[0])
-    _S_FAIL_SAFE_SINCE(obj, fail_safe[1])
-    _S_FAIL_SAFE_DUTY(obj, fail_safe[2])
-    _S_FAIL_SAFE_REASON(obj, fail_safe[3])
-    _S_DUTY_BUCKETS(obj, duty[0])
-    _S_DUTY_CURRENT(obj, duty[1])
-    _S_POINTS(obj, points[0])
-    _S_BACKUP(obj, points[1])
-    _S_SMOOTHED_C(obj, points[2])
-    return obj
+class _ZoneStateDraft:
+    """A :class:`ZoneState` being built (see the module docstring)."""
+
+    __slots__ = _slots_of(ZoneState)
+
+    def __init__(  # noqa: PLR0917 - one argument per section of the record
+        self,
+        commands: CommandFields,
+        terms: TermFields,
+        relay: RelayFields,
+        times: TimeFields,
+        temperature: TemperatureFields,
+        fail_safe: FailSafeFields,
+        duty: DutyFields,
+        points: PointFields,
+    ) -> None:
+        (self.mode, self.hold_setpoint, self.hold_level, self.hold_until, self.level_override,
+         self.scheduled_level) = commands
+        self.anticipator_k, self.droop_k, self.tau_scale, self.cycle_clean = terms
+        self.relay_on, self.switched_at, self.protection_run, self.switches = relay
+        self.started_at, self.last_step_at, self.last_setpoint, self.recovering = times
+        self.temperature, self.good_at, self.good_since, self.normal = temperature
+        (self.fail_safe, self.fail_safe_since, self.fail_safe_duty,
+         self.fail_safe_reason) = fail_safe
+        self.duty_buckets, self.duty_current = duty
+        self.points, self.backup, self.smoothed_c = points
+        self.__class__ = ZoneState  # type: ignore[assignment]
+
+
+zone_state = cast(
+    "Callable[[CommandFields, TermFields, RelayFields, TimeFields, TemperatureFields, "
+    "FailSafeFields, DutyFields, PointFields], ZoneState]",
+    _ZoneStateDraft,
+)
+"""A :class:`ZoneState` from its sections, each in field order."""
 
 
 def with_cooling(state: ZoneState, cooling: CoolingState) -> DualZoneState:
@@ -177,27 +172,31 @@ Figures = tuple[float, int]
 """(on_fraction_1h, cycles_1h)"""
 
 
-def zone_outputs(
-    decision: DecisionFields,
-    shown: ShownFields,
-    reliability: dict[str, Reliability],
-    fail_safe: FailSafeShown,
-    figures: Figures,
-) -> ZoneOutputs:
-    """A :class:`ZoneOutputs` from its groups, each in field order."""
-    obj = _new(ZoneOutputs)
-    _O_DEMAND(obj, decision[0])
-    _O_REASON(obj, decision[1])
-    _O_TEMPERATURE(obj, shown[0])
-    _O_SETPOINT(obj, shown[1])
-    _O_LEVEL(obj, shown[2])
-    _O_MODE(obj, shown[3])
-    _O_ANTICIPATOR_K(obj, shown[4])
-    _O_DROOP_K(obj, shown[5])
-    _O_RELIABILITY(obj, reliability)
-    _O_FAIL_SAFE(obj, fail_safe[0])
-    _O_FAIL_SAFE_POLICY(obj, fail_safe[1])
-    _O_FAIL_SAFE_REASON(obj, fail_safe[2])
-    _O_ON_FRACTION_1H(obj, figures[0])
-    _O_CYCLES_1H(obj, figures[1])
-    return obj
+class _ZoneOutputsDraft:
+    """A :class:`ZoneOutputs` being built (see the module docstring)."""
+
+    __slots__ = _slots_of(ZoneOutputs)
+
+    def __init__(
+        self,
+        decision: DecisionFields,
+        shown: ShownFields,
+        reliability: dict[str, Reliability],
+        fail_safe: FailSafeShown,
+        figures: Figures,
+    ) -> None:
+        self.demand, self.reason = decision
+        (self.temperature, self.setpoint, self.level, self.mode, self.anticipator_k,
+         self.droop_k) = shown
+        self.reliability = reliability
+        self.fail_safe, self.fail_safe_policy, self.fail_safe_reason = fail_safe
+        self.on_fraction_1h, self.cycles_1h = figures
+        self.__class__ = ZoneOutputs  # type: ignore[assignment]
+
+
+zone_outputs = cast(
+    "Callable[[DecisionFields, ShownFields, dict[str, Reliability], FailSafeShown, Figures], "
+    "ZoneOutputs]",
+    _ZoneOutputsDraft,
+)
+"""A :class:`ZoneOutputs` from its groups, each in field order."""
