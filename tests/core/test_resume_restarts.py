@@ -168,6 +168,24 @@ def test_a_busy_relay_restarted_at_random_instants_keeps_its_protection(
     _check_protection(s, timeline)
 
 
+def test_a_lost_write_then_the_safe_state_counts_the_switch_from_the_write() -> None:
+    """A case the search above found: a switch on recorded at 70.5 s whose device write died
+    with the process; the restart cannot read the relay and writes the safe state (on) at
+    72.5 s. The cycle limit must count that switch-on from 72.5 s, when the relay really
+    closed: counted from 70.5 s it left the hour 2 s early and allowed a seventh start."""
+    s = replace(ZoneSettings.for_heating_type("forced-air"), inputs=(FAST_POINT,))
+    restarts = [
+        Restart(after_tick=0, down_s=1.0, read_back=True, write_lost=False, record_lost=False),
+        Restart(after_tick=7, down_s=1.0, read_back=False, write_lost=True, record_lost=False),
+        Restart(after_tick=8, down_s=887.0, read_back=True, write_lost=False, record_lost=False),
+        Restart(after_tick=9, down_s=17.0, read_back=False, write_lost=False, record_lost=False),
+        Restart(after_tick=13, down_s=33.0, read_back=False, write_lost=False, record_lost=False),
+    ]
+    timeline = _simulate(s, _saw_tooth(720), restarts, safe_on=True)
+    assert timeline[0] == Switch(72.5, True, False)
+    _check_protection(s, timeline)
+
+
 def test_a_kill_mid_run_then_a_restart_serves_the_rest_of_min_on() -> None:
     """The case of the fault-injection run: min_on 60 s, killed 30 s into a run."""
     s = replace(ZoneSettings.for_heating_type("electric"), inputs=(FAST_POINT,))

@@ -125,7 +125,8 @@ class ZoneController:
         latest it can have happened, so its minimum on or off time is served from the
         restart and never cut short. With the relay unknown, the safe state's minimum
         time runs from ``now`` even when the saved state already had it (a switch lost
-        with the old process would otherwise allow a pulse), but no switch is logged.
+        with the old process would otherwise allow a pulse), and the last logged switch
+        to that state counts toward the cycle limit from ``now``; no switch is added.
         Nothing here switches the relay: the first step starts from the relay as it is,
         so a restart makes no pulse.
 
@@ -157,9 +158,13 @@ class ZoneController:
             switches = (*switches, (now, relay))[-MAX_SWITCH_LOG:]
         elif relay_on is None:
             # The safe-state write at start may still switch the relay (the old process may
-            # have switched it without saving): its minimum time runs from now, though no
-            # switch is logged (the cycle count keeps to the switches known to have happened).
+            # have recorded its last switch and died before the device's write): its minimum
+            # time runs from now, and that last switch counts toward the cycle limit from
+            # now, the latest it can have reached the device (no switch is added: the count
+            # keeps to the switches known to have happened).
             switched_at = now
+            if switches and switches[-1][1] == relay:
+                switches = (*switches[:-1], (now, relay))
         old_points = {p.name: p for p in state.points}
         points = tuple(_resumed_point(old_points.get(p.name), p.name) for p in s.inputs)
         backup: PointState | None = None
