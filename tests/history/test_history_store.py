@@ -24,16 +24,14 @@ from typing import Any
 import yaml
 from structlog.testing import capture_logs
 
+from roomloop.clock import VirtualClock
 from roomloop.config.loader import load_site
 from roomloop.history.recorder import HistoryRecorder
 from roomloop.history.store import HistoryFile, Tick, history_path, read_zone
 from roomloop.service.app import Service
-from roomloop.service.clock import SimulatedClock
 
 sys.path.insert(0, str(Path(__file__).parents[1] / "service"))
-from service_rooms import RoomPlant, site_yaml, until
-
-SPEED = 60.0
+from service_rooms import RoomPlant, running, site_yaml, until
 
 
 def _tick(at: float, temp: float | None = 20.0, relay: bool = False, **kw: Any) -> Tick:
@@ -115,16 +113,16 @@ def _outputs_and_state() -> tuple[Any, Any]:
 async def test_recorder_batches_commits_and_flushes_at_stop(tmp_path: Path) -> None:
     outputs, state = _outputs_and_state()
     path = tmp_path / "h.sqlite"
-    recorder = HistoryRecorder(path, commit_s=0.3)
-    started = time.monotonic()
+    recorder = HistoryRecorder(path, commit_s=50.0)
     async with recorder:
-        for k in range(200):
+        for k in range(200):  # a tick every recorded second
             recorder.record("room", 1000.0 + k, outputs, state)
-            await asyncio.sleep(0.005)
-    elapsed = time.monotonic() - started
+            if k % 20 == 0:  # let the writer see the queue now and then
+                taken = await asyncio.to_thread(recorder.wait_until, lambda r: r.queued == 0, 10.0)
+                assert taken
     assert recorder.written == 200 and recorder.dropped == 0
-    # at most one commit per commit_s (plus the final flush at stop)
-    assert 1 <= recorder.commits <= elapsed / 0.3 + 2
+    # at most one commit per commit_s of recorded time (200 s: 4), plus the final flush at stop
+    assert 2 <= recorder.commits <= 200 / 50 + 1
     got = read_zone(path, "room")
     assert got.time == [1000.0 + k for k in range(200)]
     assert got.temperature[0] == outputs.temperature
@@ -259,29 +257,35 @@ async def test_service_keeps_controlling_with_a_full_history_disk(
     path = tmp_path / "site.yaml"
     path.write_text(yaml.safe_dump(data))
     site = load_site(path)
-    # paced, not virtual: the history's writer thread commits on real time
-    clock = SimulatedClock(SPEED)
+    # The writer paces itself on the recorded (virtual) times; waiting on the disk holds the
+    # virtual clock still (a thread of the loop's executor), so no tick passes meanwhile.
+    clock = VirtualClock()
     service = Service(site, clock=clock, state_dir=tmp_path / "state")
     assert service.history is not None
     assert service.history.path == history_path(tmp_path / "state", site.name)
     path = service.history.path
-    service.history = HistoryRecorder(path, commit_s=0.05, max_pages=40)
-    stop = asyncio.Event()
+    history = service.history = HistoryRecorder(path, commit_s=0.05, max_pages=40)
     with capture_logs() as events:
-        async with RoomPlant(server, [15.0], clock) as plant:
-            task = asyncio.create_task(service.run(stop))
-            await until(clock, lambda: service.history is not None and service.history.written > 5,
-                        30 * SPEED)
+        async with RoomPlant(server, [15.0], clock) as plant, running(service):
+            await until(clock, lambda: "room0" in service.zones)
+            zone = service.zones["room0"]
+            await until(clock, lambda: zone.steps > 8)
+            assert await asyncio.to_thread(history.wait_until, lambda h: h.written > 5, 30.0)
             # another writer takes every page there is: the disk is full now
             await asyncio.to_thread(_fill, path, 40)
-            await until(clock, lambda: service.history is not None and service.history.failures > 0,
-                        30 * SPEED)
-            steps = service.zones["room0"].steps
-            # a cold room: the heat goes on regardless
-            await until(clock, lambda: plant.rooms[0].coil, 20 * SPEED)
-            await until(clock, lambda: service.zones["room0"].steps > steps + 5, 20 * SPEED)
-            stop.set()
-            await asyncio.wait_for(task, 15)
+            for _ in range(500):  # a tick at a time until a write fails (the last pages fill)
+                tried, steps = history.commits + history.failures, zone.steps
+                await until(clock, lambda: zone.steps > steps)  # noqa: B023 - awaited at once
+                assert await asyncio.to_thread(
+                    history.wait_until, lambda h: h.commits + h.failures > tried, 30.0  # noqa: B023
+                )
+                if history.failures:
+                    break
+            assert history.failures, "the full disk never refused a write"
+            steps = zone.steps
+            # a cold room: the heat goes on regardless, and the zone goes on stepping
+            await until(clock, lambda: plant.rooms[0].coil, 1200.0)
+            await until(clock, lambda: zone.steps > steps + 5, 600.0)
     failed = [e for e in events if e["event"] == "history.write_failed"]
     assert failed and "full" in failed[0]["error"]
     assert not [e for e in events if e["event"] == "service.task_failed"]

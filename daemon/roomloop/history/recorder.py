@@ -3,9 +3,10 @@
 ``record(zone, at, outputs, state)`` is all a zone loop calls after its step: it
 builds one small :class:`~roomloop.history.store.Tick` and puts it on a bounded
 queue, never waiting. A writer thread takes the ticks, commits them in one
-transaction at most every ``history.commit_s`` (real seconds: the SD card's
-clock), and prunes rows older than ``history.keep_days`` (on the recorded times,
-so a simulated clock prunes by its own days).
+transaction at most every ``history.commit_s`` and prunes rows older than
+``history.keep_days``, both on the recorded times: the service's clock, the wall
+clock in the field (the SD card's wear), a simulated or virtual clock in the demo
+and the tests, which then pace the writer by their own time.
 
 Nothing here may stop control:
 
@@ -27,11 +28,13 @@ from __future__ import annotations
 
 import asyncio
 import contextlib
+import math
 import os
 import queue
 import sqlite3
 import threading
 import time
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -48,9 +51,9 @@ QUEUE_TICKS = 50_000
 DROP_LOG_EVERY = 1000
 LOG_FAILURES_EVERY = 100
 RETRY_OPEN_S = 30.0
-"""Real seconds between attempts to open a history file that could not be opened."""
+"""Seconds (recorded time) between attempts to open a history file that could not be opened."""
 PRUNE_EVERY_S = 3600.0
-"""Real seconds between prunes (and the first one at the first commit)."""
+"""Seconds (recorded time) between prunes (and the first one at the first commit)."""
 STOP_WAIT_S = 3.0
 """Real seconds the final flush at stop may take before the service goes on without it."""
 
@@ -128,6 +131,8 @@ class HistoryRecorder:
         self.failures = 0
         self.moved_aside: list[Path] = []
         self._failing = 0
+        self._progress = threading.Condition()
+        """Notified when the writer has taken the queue and after each try to write a batch."""
 
     @classmethod
     def for_site(cls, site: Any, state_dir: str | Path) -> HistoryRecorder | None:
@@ -158,6 +163,11 @@ class HistoryRecorder:
             self.dropped += 1
             if self.dropped == 1 or self.dropped % DROP_LOG_EVERY == 0:
                 log.warning("history.dropped", dropped=self.dropped, reason="queue full")
+
+    @property
+    def queued(self) -> int:
+        """Ticks waiting for the writer."""
+        return self._queue.qsize()
 
     def start(self) -> None:
         self._thread = threading.Thread(target=self._run, name="history-writer", daemon=True)
@@ -190,31 +200,38 @@ class HistoryRecorder:
     # ------------------------------------------------------------------ writer thread
 
     def _run(self) -> None:
+        """Commit, open and prune on the recorded times (the service's clock), so the
+        thread reads no clock of its own and a virtual clock paces it too."""
         db: HistoryFile | None = None
         pending: list[tuple[str, Tick]] = []
-        last_commit = time.monotonic()
-        next_open = 0.0
-        next_prune = 0.0
+        batch_from: float | None = None  # the recorded time the pending batch began
+        next_open = next_prune = -math.inf
         stopping = False
         try:
             while not stopping:
-                timeout = max(0.0, last_commit + self.commit_s - time.monotonic())
-                stopping = self._collect(pending, timeout)
-                if not stopping and time.monotonic() < last_commit + self.commit_s:
-                    continue
-                last_commit = time.monotonic()
+                stopping = self._collect(pending)
+                self._progressed()
                 if not pending:
                     continue
-                if db is None and time.monotonic() >= next_open:
+                newest = max(tick.at for _, tick in pending)
+                if batch_from is None or newest < batch_from:  # the first, or the clock went back
+                    batch_from = newest
+                    next_open, next_prune = min(next_open, newest), min(next_prune, newest)
+                if not stopping and newest < batch_from + self.commit_s:
+                    continue
+                batch_from = newest
+                if db is None and newest >= next_open:
                     db = self._open()
                     if db is None:
-                        next_open = time.monotonic() + RETRY_OPEN_S
+                        next_open = newest + RETRY_OPEN_S
                 if db is None:
                     self._bound_pending(pending)
+                    self._progressed()
                     continue
                 db = self._commit(db, pending)
-                if db is not None and not pending and time.monotonic() >= next_prune:
-                    next_prune = time.monotonic() + PRUNE_EVERY_S
+                self._progressed()
+                if db is not None and not pending and newest >= next_prune:
+                    next_prune = newest + PRUNE_EVERY_S
                     self._prune(db, last_at=self._last_at)
         finally:
             if db is not None:
@@ -223,13 +240,23 @@ class HistoryRecorder:
 
     _last_at: float = 0.0
 
-    def _collect(self, pending: list[tuple[str, Tick]], timeout: float) -> bool:
-        """Move what is queued into ``pending``, waiting up to ``timeout`` for the first item;
-        True when the stop request came (what was queued before it is kept)."""
-        try:
-            item = self._queue.get(timeout=timeout)
-        except queue.Empty:
-            return False
+    def _progressed(self) -> None:
+        """Wake :meth:`wait_until` callers: the queue was taken, or a batch was tried."""
+        with self._progress:
+            self._progress.notify_all()
+
+    def wait_until(self, condition: Callable[[HistoryRecorder], bool], timeout_s: float) -> bool:
+        """Block (in a thread, never on the event loop) until ``condition(self)`` holds when
+        the writer has taken the queue or tried a batch, at most ``timeout_s`` real
+        seconds; whether it holds. What a caller that must see the disk's state (a test,
+        a footprint benchmark) waits on, rather than on the clock."""
+        with self._progress:
+            return self._progress.wait_for(lambda: condition(self), timeout_s)
+
+    def _collect(self, pending: list[tuple[str, Tick]]) -> bool:
+        """Move what is queued into ``pending``, waiting for the first item; True when the
+        stop request came (what was queued before it is kept)."""
+        item = self._queue.get()
         while item is not _STOP:
             pending.append(item)
             try:
