@@ -149,8 +149,10 @@ async def test_full_disk_is_logged_and_recording_goes_on(tmp_path: Path) -> None
             for k in range(3000):
                 noisy = dataclasses.replace(outputs, temperature=15 + rng.random() * 10)
                 recorder.record("room", 1000.0 + 10 * k, noisy, state)
-                if k % 100 == 0:
-                    await asyncio.sleep(0.06)
+                if k % 100 == 0:  # batches of about 100 ticks: what fits is written first
+                    assert await asyncio.to_thread(
+                        recorder.wait_until, lambda r: r.queued == 0, 10.0
+                    )
     failed = [e for e in events if e["event"] == "history.write_failed"]
     assert failed, [e["event"] for e in events]
     assert "full" in failed[0]["error"]
@@ -165,8 +167,7 @@ async def test_damaged_file_is_moved_aside_and_a_new_one_started(tmp_path: Path)
     recorder = HistoryRecorder(path, commit_s=0.05)
     with capture_logs() as events:
         async with recorder:
-            recorder.record("room", 1000.0, outputs, state)
-            await asyncio.sleep(0.2)
+            recorder.record("room", 1000.0, outputs, state)  # written by the flush at stop
     moved = [e for e in events if e["event"] == "history.damaged_moved_aside"]
     assert len(moved) == 1
     aside = Path(moved[0]["moved_to"])

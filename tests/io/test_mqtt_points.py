@@ -221,11 +221,14 @@ async def test_input_over_a_real_broker_survives_a_restart(mosquitto: Any) -> No
             )
 
 
-async def device(mosquitto: Any, answer: bool) -> None:
-    """A relay module on the broker: obeys lab/r/set and reports on lab/r (if ``answer``)."""
+async def device(mosquitto: Any, answer: bool, subscribed: asyncio.Event | None = None) -> None:
+    """A relay module on the broker: obeys lab/r/set and reports on lab/r (if ``answer``);
+    sets ``subscribed`` once the broker acknowledged its subscription."""
     host, port = mosquitto
     async with aiomqtt.Client(host, port) as client:
         await client.subscribe("lab/r/set", qos=1)
+        if subscribed is not None:
+            subscribed.set()
         async for message in client.messages:
             if answer:
                 await client.publish("lab/r", message.payload, qos=1, retain=True)
@@ -235,9 +238,10 @@ async def device(mosquitto: Any, answer: bool) -> None:
 async def test_output_verified_by_its_state_topic(mosquitto: Any) -> None:
     points = MqttPoints([], [outp(state_topic="lab/r", state_timeout_s=5)])
     conn, loop = connection(mosquitto, points)
-    async with running(device(mosquitto, answer=True)), running(loop):
+    subscribed = asyncio.Event()
+    async with running(device(mosquitto, answer=True, subscribed=subscribed)), running(loop):
         await asyncio.wait_for(conn.connected.wait(), 5)
-        await asyncio.sleep(0.2)  # let the device subscribe
+        await asyncio.wait_for(subscribed.wait(), 5)
         state = await points.set_output("r", True)
         assert state.verdict == "pending" and state.written_at is not None
         await wait_for(lambda: points.output_state("r").verdict == "ok", what="read-back on")
@@ -254,9 +258,10 @@ async def test_state_topic_that_never_answers(mosquitto: Any) -> None:
         await asyncio.wait_for(conn.connected.wait(), 5)
         state = await points.set_output("r", True)
         assert state.verdict == "pending"
-        assert points.check_read_back(time.time()) == []  # not yet timed out
-        await asyncio.sleep(0.35)
-        changed = points.check_read_back(time.time())
+        written_at = state.written_at
+        assert written_at is not None
+        assert points.check_read_back(written_at + 0.25) == []  # not yet timed out
+        changed = points.check_read_back(written_at + 0.35)
         assert [s.name for s in changed] == ["r"]
         assert points.output_state("r").verdict == "mismatch"
         assert "no state within" in (points.output_state("r").detail or "")
@@ -267,9 +272,12 @@ async def test_command_waits_for_the_broker_and_is_reasserted(mosquitto: Any) ->
     host, port = mosquitto
     seen: list[bytes] = []
 
+    subscribed = asyncio.Event()
+
     async def watcher() -> None:
         async with aiomqtt.Client(host, port) as client:
             await client.subscribe("lab/r/set", qos=1)
+            subscribed.set()
             async for message in client.messages:
                 seen.append(bytes(message.payload))
 
@@ -278,7 +286,7 @@ async def test_command_waits_for_the_broker_and_is_reasserted(mosquitto: Any) ->
     state = await points.set_output("r", True)
     assert state.wanted is True and state.written_at is None
     async with running(watcher()):
-        await asyncio.sleep(0.2)
+        await asyncio.wait_for(subscribed.wait(), 5)
         _conn, loop = connection(mosquitto, points)
         async with running(loop):
             await wait_for(lambda: seen == [b"on"], what="command after connect")
