@@ -15,7 +15,7 @@ import random
 import socket
 import struct
 import time
-from collections.abc import AsyncIterator
+from collections.abc import AsyncIterator, Callable
 from pathlib import Path
 from typing import Any
 from zoneinfo import ZoneInfo
@@ -83,6 +83,15 @@ class Running:
     def payload(self, zone: str) -> dict[str, Any]:
         view = next(v for v in self.service.publisher.views() if v.zone == zone)
         return state_payload(view, units=self.site.site.units, tz=UTC)
+
+
+async def _within(timeout_s: float, condition: Callable[[], bool], what: str) -> None:
+    """Wait (bounded, looking every 50 ms) until ``condition()`` holds: the face and the
+    service run on the real clock here, with the real Modbus client."""
+    deadline = time.monotonic() + timeout_s
+    while not condition():
+        assert time.monotonic() < deadline, f"not within {timeout_s:g} s: {what}"
+        await asyncio.sleep(0.05)
 
 
 @contextlib.asynccontextmanager
@@ -273,8 +282,7 @@ async def test_valid_writes_change_the_zone_refused_ones_change_nothing(
             assert not (await client.write_register(regs["mode"], 0, device_id=1)).isError()
             assert zone.state.mode == "auto" and zone.state.hold_setpoint is None
             # the next step shows it, and the register reads it back
-            await asyncio.sleep(1.5)
-            assert run.payload("room0")["mode"] == "auto"
+            await _within(10.0, lambda: run.payload("room0")["mode"] == "auto", "mode auto shown")
             reply = await client.read_holding_registers(regs["mode"], count=1, device_id=1)
             assert reply.registers == [0]
         finally:
@@ -393,10 +401,9 @@ async def test_hostile_traffic_gets_the_right_exceptions_and_the_loops_keep_thei
             client.close()
         assert codes[:10] == [0] * 10
         assert set(codes[10:]) == {6}
-        await asyncio.sleep(3.0)
         # the control loops kept their 1 s tick while it all went on
+        await _within(20.0, lambda: len(run.real_ticks["room1"]) >= ticks_before + 3, "3 ticks")
         ticks = run.real_ticks["room1"][ticks_before:]
-        assert len(ticks) >= 3
         gaps = [b - a for a, b in itertools.pairwise(ticks)]
         # a liveness bound, not a speed goal: 1 s tick, five times that on two shared cores
         assert max(gaps) < 5.0, gaps
