@@ -48,6 +48,7 @@ from typing import Any, TextIO
 import structlog
 
 from roomloop.cli.outputs import MATPLOTLIB_MISSING, matplotlib_available, output_path_problem
+from roomloop.cli.refusal import Refused
 from roomloop.clock import AutojumpLoop, Clock
 from roomloop.demo.runner import (
     DEFAULT_SPEED,
@@ -76,15 +77,6 @@ TUNE_MIN_HOURS = 24.0
 """``roomloop tune``'s least history (``plant.identify.MIN_HOURS``; not imported here: numpy)."""
 
 CSI = "\x1b["
-
-
-class _Refused(Exception):
-    """Why the demo stops: the line printed after ``roomloop demo:`` and the exit code."""
-
-    def __init__(self, message: str, code: int) -> None:
-        super().__init__(message)
-        self.message = message
-        self.code = code
 
 
 def _fail(message: str, code: int) -> int:
@@ -359,7 +351,7 @@ def kept_history_text(result: DemoResult, state_dir: str) -> str:
 def main(args: argparse.Namespace) -> int:
     try:
         return _demo(args)
-    except _Refused as refused:
+    except Refused as refused:
         return _fail(refused.message, refused.code)
 
 
@@ -373,7 +365,7 @@ def _demo(args: argparse.Namespace) -> int:
             result = runner.run(_run(options, view))
     except DemoError as exc:
         view.close()
-        raise _Refused(str(exc), EXIT_RUNTIME) from None
+        raise Refused(str(exc), EXIT_RUNTIME) from None
     view.close()
     configure_logging("warning", "console", stream=sys.stderr)
     safe = _report(result, out)
@@ -392,17 +384,17 @@ def _options(args: argparse.Namespace) -> tuple[DemoOptions, SimulatedStamp]:
     (it learns the demo's clock when the run makes it)."""
     hours = float(args.hours)
     if not MIN_HOURS <= hours <= MAX_HOURS:
-        raise _Refused(f"--hours must be {MIN_HOURS:g} to {MAX_HOURS:g}", EXIT_USAGE)
+        raise Refused(f"--hours must be {MIN_HOURS:g} to {MAX_HOURS:g}", EXIT_USAGE)
     speed = float(args.speed) if args.speed is not None else DEFAULT_SPEED
     if not 0 < speed <= MAX_SPEED:
-        raise _Refused(f"--speed must be above 0 and at most {MAX_SPEED:g}", EXIT_USAGE)
+        raise Refused(f"--speed must be above 0 and at most {MAX_SPEED:g}", EXIT_USAGE)
     broker = _broker(args.broker)
     if args.plot:
         _check_plot(args.plot)
     state_dir = _state_dir(getattr(args, "state_dir", None))
     clock_kind = os.environ.get(CLOCK_ENV, "paced")
     if clock_kind not in ("paced", "virtual"):
-        raise _Refused(f"{CLOCK_ENV}={clock_kind!r} is not 'paced' or 'virtual'", EXIT_USAGE)
+        raise Refused(f"{CLOCK_ENV}={clock_kind!r} is not 'paced' or 'virtual'", EXIT_USAGE)
     stamp = SimulatedStamp(demo_site_timezone())
     options = DemoOptions(
         hours=hours,
@@ -422,16 +414,16 @@ def _broker(text: str | None) -> tuple[str, int] | None:
     try:
         return parse_broker(text)
     except ValueError as exc:
-        raise _Refused(str(exc), EXIT_USAGE) from None
+        raise Refused(str(exc), EXIT_USAGE) from None
 
 
 def _check_plot(path: str) -> None:
     """The plot is drawn after the whole run: its path and matplotlib are checked before."""
     problem = output_path_problem("--plot", path, ".png")
     if problem:
-        raise _Refused(problem, EXIT_USAGE)
+        raise Refused(problem, EXIT_USAGE)
     if not matplotlib_available():
-        raise _Refused(MATPLOTLIB_MISSING, EXIT_USAGE)
+        raise Refused(MATPLOTLIB_MISSING, EXIT_USAGE)
 
 
 def _state_dir(path: str | None) -> str | None:
@@ -441,7 +433,7 @@ def _state_dir(path: str | None) -> str | None:
         return None
     problem = state_dir_problem(path)
     if problem:
-        raise _Refused(problem, EXIT_USAGE)
+        raise Refused(problem, EXIT_USAGE)
     return os.path.abspath(path)
 
 
@@ -463,8 +455,8 @@ def _write_plot(result: DemoResult, path: str) -> None:
     try:
         write_demo_plot(result, path)
     except PlotUnavailable:
-        raise _Refused(MATPLOTLIB_MISSING, EXIT_RUNTIME) from None
+        raise Refused(MATPLOTLIB_MISSING, EXIT_RUNTIME) from None
     except OSError as exc:
-        raise _Refused(f"cannot write {path}: {exc.strerror or exc}", EXIT_RUNTIME) from None
+        raise Refused(f"cannot write {path}: {exc.strerror or exc}", EXIT_RUNTIME) from None
     except ValueError as exc:  # matplotlib refusing the file, should the check miss a case
-        raise _Refused(f"cannot write {path}: {exc}", EXIT_RUNTIME) from None
+        raise Refused(f"cannot write {path}: {exc}", EXIT_RUNTIME) from None

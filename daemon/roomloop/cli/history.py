@@ -14,6 +14,7 @@ import sys
 from zoneinfo import ZoneInfo
 
 from roomloop.cli.outputs import output_path_problem
+from roomloop.cli.refusal import Refused
 from roomloop.config.loader import load_site
 from roomloop.config.models import Site
 from roomloop.history.csvfile import write_csv
@@ -25,15 +26,6 @@ EXIT_RUNTIME = 1
 EXIT_USAGE = 2
 
 
-class _Refused(Exception):
-    """Why the export stops: the line printed after ``roomloop history:`` and the exit code."""
-
-    def __init__(self, message: str, code: int) -> None:
-        super().__init__(message)
-        self.message = message
-        self.code = code
-
-
 def _fail(message: str, code: int) -> int:
     print(f"roomloop history: {message}", file=sys.stderr)
     return code
@@ -43,7 +35,7 @@ def main(args: argparse.Namespace) -> int:
     site = load_site(args.config)  # ConfigError: the CLI front prints it, exit 2
     try:
         return _export(args, site)
-    except _Refused as refused:
+    except Refused as refused:
         return _fail(refused.message, refused.code)
 
 
@@ -51,7 +43,7 @@ def _export(args: argparse.Namespace, site: Site) -> int:
     """Check the options against the site, read the zone's ticks, write them as CSV."""
     _check_zone(args, site)
     tz = ZoneInfo(site.site.timezone)
-    since, until = _window(args, tz)
+    since, until = time_window(args, tz)
     if args.csv != "-":
         _check_csv_path(args.csv)
     try:
@@ -59,7 +51,7 @@ def _export(args: argparse.Namespace, site: Site) -> int:
             site, args.zone, state_dir=args.state_dir, since=since, until=until
         )
     except HistoryUnavailable as exc:
-        raise _Refused(str(exc), EXIT_RUNTIME) from None
+        raise Refused(str(exc), EXIT_RUNTIME) from None
     if args.csv == "-":
         write_csv(history, sys.stdout, tz=tz, units=site.site.units)
         return EXIT_OK
@@ -71,20 +63,21 @@ def _export(args: argparse.Namespace, site: Site) -> int:
 def _check_zone(args: argparse.Namespace, site: Site) -> None:
     """A zone the site does not have is refused, naming the zones it has."""
     if args.zone not in {z.name for z in site.zones}:
-        raise _Refused(
+        raise Refused(
             f"no zone {args.zone!r} in {args.config} (zones: "
             + ", ".join(z.name for z in site.zones) + ")",
             EXIT_USAGE,
         )
 
 
-def _window(args: argparse.Namespace, tz: ZoneInfo) -> tuple[Bound, Bound]:
-    """``--since`` and ``--until`` in the site's time zone (a bad one is a usage error)."""
+def time_window(args: argparse.Namespace, tz: ZoneInfo) -> tuple[Bound, Bound]:
+    """``--since`` and ``--until`` in the site's time zone (a bad one is a usage error);
+    ``report`` reads its window the same way."""
     try:
         since = parse_bound(args.since, tz, "--since")
         until = parse_bound(args.until, tz, "--until")
     except ValueError as exc:
-        raise _Refused(str(exc), EXIT_USAGE) from None
+        raise Refused(str(exc), EXIT_USAGE) from None
     return since, until
 
 
@@ -92,7 +85,7 @@ def _check_csv_path(path: str) -> None:
     """The CSV file is checked before the history is read, so a bad path costs no read."""
     problem = output_path_problem("--csv", path)
     if problem:
-        raise _Refused(problem, EXIT_USAGE)
+        raise Refused(problem, EXIT_USAGE)
 
 
 def _write_file(history: ZoneHistory, path: str, tz: ZoneInfo, units: str) -> int:
@@ -101,4 +94,4 @@ def _write_file(history: ZoneHistory, path: str, tz: ZoneInfo, units: str) -> in
         with open(path, "w", encoding="utf-8", newline="") as out:
             return write_csv(history, out, tz=tz, units=units)
     except OSError as exc:
-        raise _Refused(f"cannot write {path}: {exc.strerror or exc}", EXIT_RUNTIME) from None
+        raise Refused(f"cannot write {path}: {exc.strerror or exc}", EXIT_RUNTIME) from None

@@ -13,11 +13,13 @@ import argparse
 import sys
 from zoneinfo import ZoneInfo
 
+from roomloop.cli.history import time_window
 from roomloop.cli.outputs import matplotlib_available, output_path_problem
+from roomloop.cli.refusal import Refused
 from roomloop.config.loader import load_site
 from roomloop.config.models import Site
 from roomloop.history.report import day_figures, format_report, tick_of
-from roomloop.history.source import Bound, HistoryUnavailable, load_history, parse_bound
+from roomloop.history.source import Bound, HistoryUnavailable, load_history
 from roomloop.history.store import ZoneHistory
 
 EXIT_OK = 0
@@ -29,15 +31,6 @@ MATPLOTLIB_NEEDED = (
 )
 
 
-class _Refused(Exception):
-    """Why the report stops: the line printed after ``roomloop report:`` and the exit code."""
-
-    def __init__(self, message: str, code: int) -> None:
-        super().__init__(message)
-        self.message = message
-        self.code = code
-
-
 def _fail(message: str, code: int) -> int:
     print(f"roomloop report: {message}", file=sys.stderr)
     return code
@@ -47,7 +40,7 @@ def main(args: argparse.Namespace) -> int:
     site = load_site(args.config)  # ConfigError: the CLI front prints it, exit 2
     try:
         return _report(args, site)
-    except _Refused as refused:
+    except Refused as refused:
         return _fail(refused.message, refused.code)
 
 
@@ -56,13 +49,13 @@ def _report(args: argparse.Namespace, site: Site) -> int:
     names = [z.name for z in site.zones]
     _check_options(args, names)
     tz = ZoneInfo(site.site.timezone)
-    since, until = _window(args, tz)
+    since, until = time_window(args, tz)
     zones = [args.zone] if args.zone is not None else names
     histories, texts, missing = _read_zones(
         args, site, zones, tz=tz, since=since, until=until
     )
     if not histories:
-        raise _Refused("no history of any zone: " + "; ".join(missing), EXIT_RUNTIME)
+        raise Refused("no history of any zone: " + "; ".join(missing), EXIT_RUNTIME)
     print("\n\n".join(texts))
     for line in missing:
         print(f"(no history) {line}", file=sys.stderr)
@@ -74,27 +67,17 @@ def _report(args: argparse.Namespace, site: Site) -> int:
 def _check_options(args: argparse.Namespace, names: list[str]) -> None:
     """Refuse, before any history is read, what the options get wrong (all usage errors)."""
     if args.zone is not None and args.zone not in names:
-        raise _Refused(
+        raise Refused(
             f"no zone {args.zone!r} in {args.config} (zones: {', '.join(names)})", EXIT_USAGE
         )
     if args.history is not None and args.zone is None:
-        raise _Refused("--history FILE.csv holds one zone: name it with --zone", EXIT_USAGE)
+        raise Refused("--history FILE.csv holds one zone: name it with --zone", EXIT_USAGE)
     if args.plot:
         problem = output_path_problem("--plot", args.plot, ".png")
         if problem:
-            raise _Refused(problem, EXIT_USAGE)
+            raise Refused(problem, EXIT_USAGE)
         if not matplotlib_available():
-            raise _Refused(MATPLOTLIB_NEEDED, EXIT_USAGE)
-
-
-def _window(args: argparse.Namespace, tz: ZoneInfo) -> tuple[Bound, Bound]:
-    """``--since`` and ``--until`` in the site's time zone (a bad one is a usage error)."""
-    try:
-        since = parse_bound(args.since, tz, "--since")
-        until = parse_bound(args.until, tz, "--until")
-    except ValueError as exc:
-        raise _Refused(str(exc), EXIT_USAGE) from None
-    return since, until
+            raise Refused(MATPLOTLIB_NEEDED, EXIT_USAGE)
 
 
 def _read_zones(
@@ -127,7 +110,7 @@ def _read_zones(
             )
         except HistoryUnavailable as exc:
             if args.zone is not None:
-                raise _Refused(str(exc), EXIT_RUNTIME) from None
+                raise Refused(str(exc), EXIT_RUNTIME) from None
             missing.append(f"{name}: {exc}")
             continue
         days = day_figures(history, tz, heater_w=zone.heater_w)
@@ -147,6 +130,6 @@ def _write_plot(
     try:
         write_history_plot(histories, path, tz=tz, units=units)
     except PlotUnavailable:
-        raise _Refused(MATPLOTLIB_NEEDED, EXIT_USAGE) from None
+        raise Refused(MATPLOTLIB_NEEDED, EXIT_USAGE) from None
     except (OSError, ValueError) as exc:
-        raise _Refused(f"cannot write {path}: {exc}", EXIT_RUNTIME) from None
+        raise Refused(f"cannot write {path}: {exc}", EXIT_RUNTIME) from None

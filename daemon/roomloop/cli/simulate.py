@@ -22,6 +22,7 @@ import json
 import sys
 
 from roomloop.cli.outputs import MATPLOTLIB_MISSING, matplotlib_available, output_path_problem
+from roomloop.cli.refusal import Refused
 from roomloop.config.checks import temperature_text
 from roomloop.config.loader import load_site
 from roomloop.core.settings import SettingsError, ZoneSettings
@@ -40,15 +41,6 @@ from roomloop.plant.spec import PlantSpec
 EXIT_OK = 0
 EXIT_RUNTIME = 1
 EXIT_USAGE = 2
-
-
-class _Refused(Exception):
-    """Why the run stops: the line printed after ``roomloop simulate:`` and the exit code."""
-
-    def __init__(self, message: str, code: int) -> None:
-        super().__init__(message)
-        self.message = message
-        self.code = code
 
 
 def _fail(message: str, code: int) -> int:
@@ -74,13 +66,13 @@ def _mode(args: argparse.Namespace) -> Mode:
         return "cool" if args.cooling is not None else "heat"
     mode: Mode = args.mode
     if mode == "heat" and args.cooling is not None:
-        raise _Refused(
+        raise Refused(
             f"--cooling {args.cooling} is a cooling-only zone: it has no heating call to "
             "simulate (--mode heat needs --heating TYPE or a site's zone with a heating output)",
             EXIT_USAGE,
         )
     if mode == "cool" and args.heating is not None:
-        raise _Refused(
+        raise Refused(
             f"--heating {args.heating} has no cooling call: for --mode cool give --cooling "
             "TYPE (direct-expansion, chilled-water) or -c SITE --zone NAME of a zone that cools",
             EXIT_USAGE,
@@ -100,19 +92,19 @@ def _check_outputs(args: argparse.Namespace) -> None:
     if args.json:
         problem = output_path_problem("--json", args.json)
         if problem:
-            raise _Refused(problem, EXIT_USAGE)
+            raise Refused(problem, EXIT_USAGE)
     if args.plot:
         problem = output_path_problem("--plot", args.plot, ".png")
         if problem:
-            raise _Refused(problem, EXIT_USAGE)
+            raise Refused(problem, EXIT_USAGE)
         if not matplotlib_available():
-            raise _Refused(MATPLOTLIB_MISSING, EXIT_USAGE)
+            raise Refused(MATPLOTLIB_MISSING, EXIT_USAGE)
 
 
 def main(args: argparse.Namespace) -> int:
     try:
         return _simulate(args)
-    except _Refused as refused:
+    except Refused as refused:
         return _fail(refused.message, refused.code)
 
 
@@ -122,7 +114,7 @@ def _simulate(args: argparse.Namespace) -> int:
     try:
         zone, units = _zone_settings(args)
     except SettingsError as exc:
-        raise _Refused(str(exc), EXIT_USAGE) from None
+        raise Refused(str(exc), EXIT_USAGE) from None
     from_site = args.config is not None
     mode = _zone_mode(args, zone, mode)
     plant = _plant(args, zone, mode)
@@ -130,7 +122,7 @@ def _simulate(args: argparse.Namespace) -> int:
     try:
         settings = protocol_settings(zone, comfort_c=comfort_c, economy_c=economy_c, mode=mode)
     except SettingsError as exc:
-        raise _Refused(str(exc), EXIT_USAGE) from None
+        raise Refused(str(exc), EXIT_USAGE) from None
     controller = make_controller(args.controller, settings, mode)
     result = run_protocol(
         controller,
@@ -154,9 +146,9 @@ def _checked_options(args: argparse.Namespace) -> Mode:
     """The mode the options ask for, once they agree with each other and the output paths
     can be written (the zone may still change the mode: ``_zone_mode``)."""
     if args.config is not None and not args.zone:
-        raise _Refused("-c SITE needs --zone NAME (the zone to simulate)", EXIT_USAGE)
+        raise Refused("-c SITE needs --zone NAME (the zone to simulate)", EXIT_USAGE)
     if args.config is None and args.zone:
-        raise _Refused("--zone goes with -c SITE; with --heating there is no site", EXIT_USAGE)
+        raise Refused("--zone goes with -c SITE; with --heating there is no site", EXIT_USAGE)
     mode = _mode(args)
     _check_outputs(args)
     return mode
@@ -168,7 +160,7 @@ def _zone_mode(args: argparse.Namespace, zone: ZoneSettings, mode: Mode) -> Mode
     if args.mode is None and cs is not None and not cs.heating:
         mode = "cool"  # a site's zone that only cools runs the cooling variant by default
     if mode == "cool" and cs is None:
-        raise _Refused(
+        raise Refused(
             f"zone {zone.name} has no cooling output: --mode cool needs a zone that cools",
             EXIT_USAGE,
         )
@@ -186,7 +178,7 @@ def _plant(args: argparse.Namespace, zone: ZoneSettings, mode: Mode) -> PlantSpe
     # ConfigError (a bad plant file, an unknown name): the CLI front prints it, exit 2
     plant = load_plant(args.plant or default_plant)
     if mode == "cool" and not plant.can_cool:
-        raise _Refused(_cannot_cool(plant.name), EXIT_USAGE)
+        raise Refused(_cannot_cool(plant.name), EXIT_USAGE)
     return plant
 
 
@@ -210,7 +202,7 @@ def _write_json(result: ProtocolResult, path: str) -> None:
             json.dump(result.to_dict(), out, indent=2)
             out.write("\n")
     except (OSError, ValueError) as exc:
-        raise _Refused(f"cannot write {path}: {_reason(exc)}", EXIT_RUNTIME) from None
+        raise Refused(f"cannot write {path}: {_reason(exc)}", EXIT_RUNTIME) from None
 
 
 def _write_plot(result: ProtocolResult, path: str) -> None:
@@ -220,9 +212,9 @@ def _write_plot(result: ProtocolResult, path: str) -> None:
     try:
         write_plot(result, path)
     except PlotUnavailable:
-        raise _Refused(MATPLOTLIB_MISSING, EXIT_RUNTIME) from None
+        raise Refused(MATPLOTLIB_MISSING, EXIT_RUNTIME) from None
     except (OSError, ValueError) as exc:
-        raise _Refused(f"cannot write {path}: {_reason(exc)}", EXIT_RUNTIME) from None
+        raise Refused(f"cannot write {path}: {_reason(exc)}", EXIT_RUNTIME) from None
 
 
 def _reason(exc: OSError | ValueError) -> str:

@@ -21,6 +21,7 @@ from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
 
 from roomloop.cli.outputs import output_path_problem
+from roomloop.cli.refusal import Refused
 from roomloop.config.loader import load_site
 from roomloop.config.models import Site, Zone
 from roomloop.history.source import HistoryUnavailable, load_history, parse_bound
@@ -53,15 +54,6 @@ PARAM_TEXT = {
 }
 
 
-class _Refused(Exception):
-    """Why tune stops: the line printed after ``roomloop tune:`` and the exit code."""
-
-    def __init__(self, message: str, code: int) -> None:
-        super().__init__(message)
-        self.message = message
-        self.code = code
-
-
 def _fail(message: str, code: int) -> int:
     print(f"roomloop tune: {message}", file=sys.stderr)
     return code
@@ -78,7 +70,7 @@ def main(args: argparse.Namespace) -> int:
     site = load_site(args.config)  # ConfigError: the CLI front prints it, exit 2
     try:
         return _tune(args, site)
-    except _Refused as refused:
+    except Refused as refused:
         return _fail(refused.message, refused.code)
 
 
@@ -96,7 +88,7 @@ def _tune(args: argparse.Namespace, site: Site) -> int:
     fit, tried, series = _identify(history, zone)
     _print_fit(zone, history, fit, tried)
     if fit.rms_k >= POOR_RMS_K:
-        raise _Refused(
+        raise Refused(
             f"no plant file and no recommendation from a poor fit (RMS {fit.rms_k:.3f} K, "
             f"at least {POOR_RMS_K:g} K): the model does not describe this zone's history "
             "(a window left open, another heat source, a sensor far from the room air?)",
@@ -117,15 +109,15 @@ def _check_options(args: argparse.Namespace, site: Site) -> None:
     """Refuse, before any history is read, what cannot work (all usage errors)."""
     names = [z.name for z in site.zones]
     if args.zone not in names:
-        raise _Refused(
+        raise Refused(
             f"no zone {args.zone!r} in {args.config} (zones: {', '.join(names)})", EXIT_USAGE
         )
     if args.write_plant:
         problem = output_path_problem("--write-plant", args.write_plant)
         if problem:
-            raise _Refused(problem, EXIT_USAGE)
+            raise Refused(problem, EXIT_USAGE)
     if not _have_scipy():
-        raise _Refused(SCIPY_MISSING, EXIT_USAGE)
+        raise Refused(SCIPY_MISSING, EXIT_USAGE)
 
 
 def _history(args: argparse.Namespace, site: Site, tz: ZoneInfo) -> ZoneHistory:
@@ -133,13 +125,13 @@ def _history(args: argparse.Namespace, site: Site, tz: ZoneInfo) -> ZoneHistory:
     try:
         since = parse_bound(args.since, tz, "--since")
     except ValueError as exc:
-        raise _Refused(str(exc), EXIT_USAGE) from None
+        raise Refused(str(exc), EXIT_USAGE) from None
     try:
         return load_history(
             site, args.zone, state_dir=args.state_dir, csv_path=args.history, since=since
         )
     except HistoryUnavailable as exc:
-        raise _Refused(str(exc), EXIT_RUNTIME) from None
+        raise Refused(str(exc), EXIT_RUNTIME) from None
 
 
 def _identify(history: ZoneHistory, zone: Zone) -> tuple[Fit, list[Fit], Series]:
@@ -150,7 +142,7 @@ def _identify(history: ZoneHistory, zone: Zone) -> tuple[Fit, list[Fit], Series]
     try:
         return identify(history, heater_w=zone.heater_w, heating=zone.heating)
     except IdentificationRefused as exc:
-        raise _Refused(f"refused: {exc}", EXIT_RUNTIME) from None
+        raise Refused(f"refused: {exc}", EXIT_RUNTIME) from None
 
 
 def _print_fit(zone: Zone, history: ZoneHistory, fit: Fit, tried: list[Fit]) -> None:
@@ -202,7 +194,7 @@ def _write_plant(path: str, spec: PlantSpec, fit: Fit, source: str) -> None:
         with open(path, "w", encoding="utf-8") as out:
             out.write(plant_yaml(spec, fit, source))
     except OSError as exc:
-        raise _Refused(f"cannot write {path}: {exc.strerror or exc}", EXIT_RUNTIME) from None
+        raise Refused(f"cannot write {path}: {exc.strerror or exc}", EXIT_RUNTIME) from None
     print(f"plant written to {path} (roomloop simulate --plant reads it)")
 
 

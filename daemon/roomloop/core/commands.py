@@ -127,20 +127,25 @@ def _shown(celsius: float, units: str) -> str:
     return f"{round(from_celsius(celsius, units), 6):g}"
 
 
+def _within_limits(field: str, number: float, low: float, high: float, units: str) -> float:
+    """A set point clamped to the zone's limits; refused when it is outside them by more
+    than :data:`LIMIT_TOLERANCE_K` (a unit conversion's rounding)."""
+    if not low - LIMIT_TOLERANCE_K <= number <= high + LIMIT_TOLERANCE_K:
+        raise CommandRejected(
+            field,
+            f"{field} {_shown(number, units)} is outside the zone's limits "
+            f"{_shown(low, units)} to {_shown(high, units)} {units}",
+        )
+    return min(max(number, low), high)
+
+
 def _setpoint_command(
     settings: ZoneSettings, state: ZoneState, value: object, now: float, units: str
 ) -> ZoneState:
     """A hold at a set point within the limits (a running hold keeps its end)."""
     field = "setpoint"
-    number = _number(field, value)
     low, high = settings.limit_min_c, settings.limit_max_c
-    if not low - LIMIT_TOLERANCE_K <= number <= high + LIMIT_TOLERANCE_K:
-        raise CommandRejected(
-            field,
-            f"setpoint {_shown(number, units)} is outside the zone's limits "
-            f"{_shown(low, units)} to {_shown(high, units)} {units}",
-        )
-    number = min(max(number, low), high)
+    number = _within_limits(field, _number(field, value), low, high, units)
     keep_until = state.hold_until if state.mode == "hold" else None
     return replace(
         state,
@@ -266,14 +271,7 @@ def _cooling_command(  # noqa: PLR0917 - apply_command's arguments
             _check_band(settings, current_setpoint(settings, state),
                         current_cooling_setpoint(settings, state), field, units)
         return with_cooling_state(state, replace(c, changeover=word))
-    number = _number(field, value)
-    if not low - LIMIT_TOLERANCE_K <= number <= high + LIMIT_TOLERANCE_K:
-        raise CommandRejected(
-            field,
-            f"{field} {_shown(number, units)} is outside the zone's limits "
-            f"{_shown(low, units)} to {_shown(high, units)} {units}",
-        )
-    number = min(max(number, low), high)
+    number = _within_limits(field, _number(field, value), low, high, units)
     if field == "setpoint":
         if c.changeover == "auto":
             _check_band(settings, number, current_cooling_setpoint(settings, state), field, units)
