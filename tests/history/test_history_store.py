@@ -130,6 +130,36 @@ async def test_recorder_batches_commits_and_flushes_at_stop(tmp_path: Path) -> N
     assert got.points[name][0][1] == outputs.reliability[name]
 
 
+async def test_a_clock_set_back_mid_batch_writes_the_batch_and_starts_over(
+    tmp_path: Path,
+) -> None:
+    outputs, state = _outputs_and_state()
+    recorder = HistoryRecorder(tmp_path / "h.sqlite", commit_s=60.0)
+    async with recorder:
+        for k in range(5):  # 40 recorded seconds: no commit due yet
+            recorder.record("room", 10_000.0 + 10 * k, outputs, state)
+        assert await asyncio.to_thread(recorder.wait_until, lambda r: r.queued == 0, 10.0)
+        assert recorder.commits == 0
+        # the wall clock is set back an hour: the batch must not wait an hour for its commit
+        recorder.record("room", 10_000.0 - 3600.0, outputs, state)
+        assert await asyncio.to_thread(recorder.wait_until, lambda r: r.written == 6, 10.0)
+        for k in range(1, 5):  # from there, batches again every commit_s
+            recorder.record("room", 10_000.0 - 3600.0 + 10 * k, outputs, state)
+        assert await asyncio.to_thread(recorder.wait_until, lambda r: r.queued == 0, 10.0)
+        assert recorder.commits == 1
+
+
+async def test_ticks_that_stop_coming_are_written_after_the_stall_time(tmp_path: Path) -> None:
+    outputs, state = _outputs_and_state()
+    recorder = HistoryRecorder(tmp_path / "h.sqlite", commit_s=60.0, stall_s=0.2)
+    async with recorder:
+        for k in range(3):
+            recorder.record("room", 1000.0 + 10 * k, outputs, state)
+        # no further tick and no stop: the stall time (real seconds) writes them
+        assert await asyncio.to_thread(recorder.wait_until, lambda r: r.written == 3, 10.0)
+        assert read_zone(tmp_path / "h.sqlite", "room").time == [1000.0, 1010.0, 1020.0]
+
+
 async def test_full_queue_drops_and_counts_without_blocking(tmp_path: Path) -> None:
     outputs, state = _outputs_and_state()
     recorder = HistoryRecorder(tmp_path / "h.sqlite", queue_ticks=10)

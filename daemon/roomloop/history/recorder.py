@@ -115,8 +115,10 @@ class HistoryRecorder:
         keep_days: float = 60.0,
         queue_ticks: int = QUEUE_TICKS,
         max_pages: int | None = None,
+        stall_s: float | None = None,
     ) -> None:
         self.path = Path(path)
+        self._stall_s = stall_s
         self.commit_s = commit_s
         self.keep_days = keep_days
         self.max_pages = max_pages
@@ -200,43 +202,66 @@ class HistoryRecorder:
     # ------------------------------------------------------------------ writer thread
 
     def _run(self) -> None:
-        """Commit, open and prune on the recorded times (the service's clock), so the
-        thread reads no clock of its own and a virtual clock paces it too."""
+        """Commit, open and prune on the recorded times (the service's clock), so a virtual
+        clock paces the writer too; a batch is also written when the clock steps back by
+        more than ``commit_s`` (it starts over from there) and when no tick came for
+        :attr:`stall_s` real seconds (the zones stalled: what they recorded is kept)."""
         db: HistoryFile | None = None
         pending: list[tuple[str, Tick]] = []
+        seen = -math.inf  # the recorded time of the latest tick taken: the service's now
         batch_from: float | None = None  # the recorded time the pending batch began
         next_open = next_prune = -math.inf
         stopping = False
         try:
             while not stopping:
-                stopping = self._collect(pending)
+                stopping, taken = self._collect(pending, self.stall_s)
                 self._progressed()
                 if not pending:
                     continue
-                newest = max(tick.at for _, tick in pending)
-                if batch_from is None or newest < batch_from:  # the first, or the clock went back
-                    batch_from = newest
-                    next_open, next_prune = min(next_open, newest), min(next_prune, newest)
-                if not stopping and newest < batch_from + self.commit_s:
+                stepped_back = taken is not None and taken < seen - self.commit_s
+                if taken is not None:
+                    seen = taken
+                if stepped_back:
+                    next_open, next_prune = min(next_open, seen), min(next_prune, seen)
+                if batch_from is None:
+                    batch_from = seen
+                due = stopping or taken is None or stepped_back
+                if not due and seen < batch_from + self.commit_s:
+                    if len(pending) > self._bound:
+                        self._bound_pending(pending)
                     continue
-                batch_from = newest
-                if db is None and newest >= next_open:
-                    db = self._open()
-                    if db is None:
-                        next_open = newest + RETRY_OPEN_S
-                if db is None:
-                    self._bound_pending(pending)
-                    self._progressed()
-                    continue
-                db = self._commit(db, pending)
-                self._progressed()
-                if db is not None and not pending and newest >= next_prune:
-                    next_prune = newest + PRUNE_EVERY_S
+                batch_from = seen
+                db, next_open = self._write(db, pending, seen, next_open)
+                if db is not None and not pending and seen >= next_prune:
+                    next_prune = seen + PRUNE_EVERY_S
                     self._prune(db, last_at=self._last_at)
+                self._progressed()
         finally:
             if db is not None:
                 with contextlib.suppress(sqlite3.Error):
                     db.close()
+            self._progressed()
+
+    def _write(
+        self, db: HistoryFile | None, pending: list[tuple[str, Tick]], seen: float,
+        next_open: float,
+    ) -> tuple[HistoryFile | None, float]:
+        """Write the batch, opening the file first if it is not open (and an attempt is due
+        at ``seen``); the file as it is after, and when to try opening it next."""
+        if db is None and seen >= next_open:
+            db = self._open()
+            if db is None:
+                next_open = seen + RETRY_OPEN_S
+        if db is None:
+            self._bound_pending(pending)
+            return None, next_open
+        return self._commit(db, pending), next_open
+
+    @property
+    def stall_s(self) -> float:
+        """Real seconds without a tick after which the pending batch is written anyway
+        (ten commit intervals, at least a minute, unless given)."""
+        return self._stall_s if self._stall_s is not None else max(10.0 * self.commit_s, 60.0)
 
     _last_at: float = 0.0
 
@@ -253,17 +278,25 @@ class HistoryRecorder:
         with self._progress:
             return self._progress.wait_for(lambda: condition(self), timeout_s)
 
-    def _collect(self, pending: list[tuple[str, Tick]]) -> bool:
-        """Move what is queued into ``pending``, waiting for the first item; True when the
-        stop request came (what was queued before it is kept)."""
-        item = self._queue.get()
+    def _collect(
+        self, pending: list[tuple[str, Tick]], timeout_s: float
+    ) -> tuple[bool, float | None]:
+        """Move what is queued into ``pending``, waiting up to ``timeout_s`` for the first
+        item: whether the stop request came (what was queued before it is kept), and the
+        recorded time of the last tick taken (None: none came in time)."""
+        try:
+            item = self._queue.get(timeout=timeout_s)
+        except queue.Empty:
+            return False, None
+        taken: float | None = None
         while item is not _STOP:
             pending.append(item)
+            taken = item[1].at
             try:
                 item = self._queue.get_nowait()
             except queue.Empty:
-                return False
-        return True
+                return False, taken
+        return True, taken
 
     def _open(self) -> HistoryFile | None:
         """Open (or create) the file; a damaged one is moved aside and a new one started."""
