@@ -227,8 +227,7 @@ class HistoryRecorder:
                     batch_from = seen
                 due = stopping or taken is None or stepped_back
                 if not due and seen < batch_from + self.commit_s:
-                    if len(pending) > self._bound:
-                        self._bound_pending(pending)
+                    self._bound_pending(pending)
                     continue
                 batch_from = seen
                 db, next_open = self._write(db, pending, seen, next_open)
@@ -273,8 +272,8 @@ class HistoryRecorder:
     def wait_until(self, condition: Callable[[HistoryRecorder], bool], timeout_s: float) -> bool:
         """Block (in a thread, never on the event loop) until ``condition(self)`` holds when
         the writer has taken the queue or tried a batch, at most ``timeout_s`` real
-        seconds; whether it holds. What a caller that must see the disk's state (a test,
-        a footprint benchmark) waits on, rather than on the clock."""
+        seconds; whether it holds. What a caller that must see the disk's state (the
+        tests) waits on, rather than on the clock."""
         with self._progress:
             return self._progress.wait_for(lambda: condition(self), timeout_s)
 
