@@ -29,6 +29,8 @@ from __future__ import annotations
 import asyncio
 import contextlib
 import logging
+import os
+import random
 import re
 import shutil
 import socket
@@ -55,11 +57,50 @@ def pytest_asyncio_loop_factories(config: Any, item: Any) -> dict[str, Any]:
     return {"autojump": AutojumpLoop}
 
 
+FIRST_TEST_PORT = 10_000
+"""The test ports lie from here to the kernel's ephemeral range (where ``bind(0)`` draws)."""
+
+
+def _ephemeral_low() -> int:
+    try:
+        with open("/proc/sys/net/ipv4/ip_local_port_range", encoding="ascii") as ports:
+            return int(ports.read().split()[0])
+    except (OSError, ValueError, IndexError):
+        return 32_768  # Linux's default
+
+
+def _test_ports() -> Iterator[int]:
+    """This process's share of the test ports, from a random start, round and round.
+
+    A port handed out is bound later (by a broker, a daemon, the BMS face), so a port
+    from ``bind(0)`` could go to another test process, or to a server binding port 0,
+    in between. Each pytest-xdist worker takes its own slice below the ephemeral range
+    instead, and hands each port out once per turn.
+    """
+    worker = os.environ.get("PYTEST_XDIST_WORKER", "gw0").removeprefix("gw")
+    workers = int(os.environ.get("PYTEST_XDIST_WORKER_COUNT", "1"))
+    span = (_ephemeral_low() - FIRST_TEST_PORT) // max(1, workers)
+    first = FIRST_TEST_PORT + span * (int(worker) if worker.isdigit() else 0)
+    offset = random.randrange(span)
+    while True:
+        for k in range(span):
+            yield first + (offset + k) % span
+
+
+_PORTS = _test_ports()
+
+
 def free_port() -> int:
-    """A TCP port on loopback nobody listens on right now."""
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as sock:
-        sock.bind((LOOPBACK, 0))
-        return int(sock.getsockname()[1])
+    """A TCP port on loopback nobody listens on right now, this test process's own."""
+    for _ in range(1000):
+        port = next(_PORTS)
+        with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as sock:
+            try:
+                sock.bind((LOOPBACK, port))
+            except OSError:
+                continue
+            return port
+    raise RuntimeError("no free loopback port in this test process's share")
 
 
 def wait_listening(host: str, port: int, timeout_s: float = START_TIMEOUT_S) -> None:
