@@ -223,7 +223,10 @@ def test_one_second_and_ten_second_ticks_switch_within_one_tick(
         else:
             first.append(math.inf)
     if first[0] != math.inf:
-        assert first[0] - 10.0 < first[1] <= first[0]
+        # inclusive below: at the coarse tick before, both runs step at the same instant, and
+        # when the switching temperature sits on the band's edge there the last bits of the
+        # smoothing (a sum over 1 s or 10 s ticks) decide (hypothesis found T 1e-5 K from it)
+        assert first[0] - 10.0 <= first[1] <= first[0]
         event("first switch compared")
     else:
         assert first[1] == math.inf or first[1] > 4 * HOUR - 10.0
