@@ -156,6 +156,27 @@ def test_smoothing_from_the_file_reaches_the_controller_settings() -> None:
     assert ZoneSettings.from_zone(zone({"smoothing_s": 300}), {"t": sensor}).smoothing_s == 300.0
 
 
+def test_proportional_gain_comes_from_the_heating_type_or_the_file() -> None:
+    from roomloop.config.models import ModbusInput
+    from roomloop.core.settings import ZoneSettings
+
+    sensor = ModbusInput(type="modbus-input", name="t", link="bus", address=0)
+
+    def zone(heating: str, tuning: dict[str, float]) -> Zone:
+        return Zone.model_validate(
+            {"name": "hall", "inputs": ["t"], "output": "r", "heating": heating, "tuning": tuning}
+        )
+
+    screed = zone("underfloor", {})
+    assert screed.origins["proportional_gain"] == "preset underfloor"
+    assert ZoneSettings.from_zone(screed, {"t": sensor}).proportional_gain == 1.0
+    radiators = zone("hydronic", {})
+    assert ZoneSettings.from_zone(radiators, {"t": sensor}).proportional_gain == 0.0
+    given = zone("hydronic", {"proportional_gain": 0.5})
+    assert given.origins["proportional_gain"] == "file"
+    assert ZoneSettings.from_zone(given, {"t": sensor}).proportional_gain == 0.5
+
+
 def test_fahrenheit_tuning_is_held_in_kelvin() -> None:
     zone = Zone.model_validate(
         {

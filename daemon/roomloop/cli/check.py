@@ -290,6 +290,7 @@ def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:
             else ("off" if tuning.smoothing_s == 0 else f"{_n(tuning.smoothing_s)} s"),
             "smoothing_s",
         ),
+        ("proportional gain", f"{_n(tuning.proportional_gain)}", "proportional_gain"),
     ]
     write("    tuning:\n")
     for label, value, key in rows:

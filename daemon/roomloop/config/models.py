@@ -689,6 +689,10 @@ class TuningInput(CallTuningInput):
     smoothing_s: Annotated[Float, Field(ge=0, le=14400)] | None = None
     """Time constant of the smoothing of the temperature the relay switches on; left out:
     one cycle period (3600 / cycle rate); 0: none."""
+    proportional_gain: Annotated[Float, Field(ge=0, le=10)] | None = None
+    """How many times the room's own offset from the set point is added to the temperature
+    the relay switches on (beyond the once it is there already); left out: the heating
+    type's (1 for underfloor, else 0)."""
 
 
 class Tuning(BaseModel):
@@ -707,6 +711,7 @@ class Tuning(BaseModel):
     droop_time_s: float
     smoothing_s: float | None = None
     """``None``: one cycle period (the controller derives it from the cycle rate)."""
+    proportional_gain: float = 0.0
 
 
 class CoolingTuningInput(CallTuningInput):
@@ -1065,6 +1070,9 @@ def resolve_preset(
     smoothing = getattr(given, "smoothing_s", None)
     values["smoothing_s"] = smoothing
     origins["smoothing_s"] = "derived from cycle rate" if smoothing is None else "file"
+    proportional = getattr(given, "proportional_gain", None)
+    values["proportional_gain"] = preset.proportional_gain if proportional is None else proportional
+    origins["proportional_gain"] = f"preset {heating}" if proportional is None else "file"
     if given.anticipator_time_constant_s is not None:
         values["anticipator_time_constant_s"] = given.anticipator_time_constant_s
         origins["anticipator_time_constant_s"] = "file"

@@ -42,6 +42,9 @@ class Preset:
     min_off_s: float
     max_cycles_per_hour: int
     droop_time_s: float
+    proportional_gain: float = 0.0
+    """How much the room's own offset from the set point adds to the switching temperature
+    (heating only; see :mod:`roomloop.core.stages.switching`)."""
 
 
 PRESETS: dict[str, Preset] = {
@@ -54,8 +57,12 @@ PRESETS: dict[str, Preset] = {
     # Radiant floor: 3 cph (radiant [trade]); longer minimum times for the slow loop.
     # Gain 1.5 K (a higher gain lets the slow screed drift) and droop time 3 h (a few
     # hours, like the screed's own time constant) from the sweep on the underfloor plant
-    # [no source].
-    "underfloor": Preset(3.0, 0.5, 1.5, 300.0, 300.0, 4, 10800.0),
+    # [no source]. Proportional gain 1: the room's offset counts twice in the switching
+    # temperature, so a slow emitter answers a load change at once instead of waiting
+    # for the droop term (a sweep of 0-2 on the underfloor and thick-slab plants,
+    # tests/bench/control_quality.py, seeds 1-3: thick slab high-load CA 0.33 -> 0.25 K,
+    # underfloor 0.045 -> 0.074 K, flat between 0.5 and 2) [no source].
+    "underfloor": Preset(3.0, 0.5, 1.5, 300.0, 300.0, 4, 10800.0, 1.0),
     # Convector or panel heater: 9 cph (electric [trade]); gain 2.5 K and droop time 1 h
     # from the sweep on the electric plant [no source].
     "electric": Preset(9.0, 0.5, 2.5, 60.0, 60.0, 10, 3600.0),

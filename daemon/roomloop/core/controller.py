@@ -264,7 +264,10 @@ class ZoneController:
             want, reason = failsafe.wants_on(s, fs_since, fs_duty, now), k.fail_safe_reason
         else:
             assert last_temperature is not None
-            sensed = switching.basis(last_temperature, smoothed, recovering, k.max_lag_k) + a - b
+            basis = switching.basis(last_temperature, smoothed, recovering, k.max_lag_k)
+            sensed = basis + a - b
+            if k.proportional and not recovering:
+                sensed += k.proportional * (basis - target)
             want, reason = switching.wish(sensed, target, k.half_k, was_on, temperature is None)
         on, held = want, False
         if want != was_on and relay.short_cycle_may_hold(rule, deep):

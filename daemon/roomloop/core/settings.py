@@ -246,6 +246,9 @@ class ZoneSettings:
     smoothing_s: float | None = None
     """Time constant (s) of the smoothing of the zone temperature the relay switches on;
     ``None``: one cycle period, ``3600 / cycle_rate_cph``; 0: no smoothing."""
+    proportional_gain: float = 0.0
+    """The room's own offset from the set point, times this, is added to the switching
+    temperature (see :mod:`roomloop.core.stages.switching`); 0: none."""
     # set points per level and the limits every set point is clamped to
     comfort_c: float = 20.0
     standby_c: float = 18.0
@@ -308,6 +311,8 @@ class ZoneSettings:
             problems.append(f"smoothing_s must be zero or positive, not {self.smoothing_s!r}")
         if not (math.isfinite(self.anticipator_gain_k) and self.anticipator_gain_k >= 0):
             problems.append("anticipator_gain_k must be zero or positive")
+        if not (math.isfinite(self.proportional_gain) and self.proportional_gain >= 0):
+            problems.append("proportional_gain must be zero or positive")
         if self.max_cycles_per_hour < 1:
             problems.append("max_cycles_per_hour must be at least 1")
         if self.limit_min_c > self.limit_max_c:
@@ -358,6 +363,7 @@ class ZoneSettings:
             combine=zone.combine,
             **call_tuning(tuning),
             smoothing_s=None if tuning.smoothing_s is None else float(tuning.smoothing_s),
+            proportional_gain=float(tuning.proportional_gain),
             cycle_rate_regulation=(
                 zone.origins.get("anticipator_time_constant_s") == "derived from cycle rate"
             ),

@@ -25,6 +25,8 @@ class LawConstants:
     """Time constant of the switching temperature's smoothing; 0: none (see :mod:`.smoothing`)."""
     max_lag_k: float
     """How far the smoothed temperature may lag the reading (the differential)."""
+    proportional: float
+    """The proportional gain ``P`` of the band (see :mod:`.switching`); 0: none."""
     regulate: bool
     """Cycle-rate regulation is on (see :mod:`.regulation`)."""
     target_period_s: float
@@ -65,6 +67,7 @@ class LawConstants:
             time_constant_s=s.anticipator_time_constant_s,
             smoothing_s=smoothing,
             max_lag_k=s.differential_k,
+            proportional=s.proportional_gain,
             regulate=s.cycle_rate_regulation and strong,
             target_period_s=target_period,
             guard_ons=s.cycle_rate_cph + GUARD_CPH,

@@ -2,6 +2,15 @@
 
 ``Ts`` is the switching temperature (:mod:`.smoothing`), kept within ``D`` of the
 reading; while recovering from a set-point change the band switches on ``T`` itself.
+
+A zone with a proportional gain ``P > 0`` (the underfloor default) switches on
+``Ts + a - b + P (Ts - S)`` outside a recovery: the room's own offset counts ``1 + P``
+times. Averaged over a cycle the anticipator law sets the on-fraction to about
+``(S - T + b) / G``, a proportional band of ``G`` kelvin; a slow emitter (a screed, a
+thick slab) needs a narrower one, ``G / (1 + P)``, or a load change waits hours for the
+droop term to catch up and then overshoots (tests/bench/control_quality.py, thick-slab).
+It is the proportional action of a PI controller (K. J. Astrom, T. Hagglund, "Advanced
+PID Control", ISA 2006 [recalled from memory]); the anticipator still sets the cycle.
 In between the edges the relay stays where it is (``on-to-cut-out``,
 ``off-to-cut-in``). While readings are missing (before fail-safe starts) the band runs
 on the last trusted temperature and its reasons read ``last-temperature:<reason>``.
