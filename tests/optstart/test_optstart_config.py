@@ -51,7 +51,16 @@ def test_defaults_leave_everything_as_it_was(tmp_path: Path) -> None:
     site = _site(tmp_path)
     assert site.site.outdoor_point is None
     assert site.zones[0].optimum_start.enabled is False
-    assert site.zones[0].optimum_start.earliest_s == 10800.0
+    assert site.zones[0].optimum_start.earliest_s is None  # the heating type's
+
+
+def test_earliest_start_defaults_by_heating_type() -> None:
+    from roomloop.core.optimum_start import OptimumStartSettings
+
+    assert OptimumStartSettings.for_heating("hydronic").earliest_s == 3 * 3600.0
+    assert OptimumStartSettings.for_heating("forced-air").earliest_s == 3 * 3600.0
+    assert OptimumStartSettings.for_heating("underfloor").earliest_s == 9 * 3600.0
+    assert OptimumStartSettings.for_heating("underfloor", earliest_s=3600.0).earliest_s == 3600.0
 
 
 def test_outdoor_point_and_optimum_start_load(tmp_path: Path) -> None:

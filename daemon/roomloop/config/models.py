@@ -935,9 +935,10 @@ class OptimumStart(Strict):
     so that the room reaches the new set point at the switch, by a learned warm-up rate."""
 
     enabled: bool = False
-    earliest_s: Annotated[Float, Field(ge=0, le=86400)] = 10800.0
-    """The early start never begins more than this before the switch (3 h: the usual
-    maximum of an optimal start, ASHRAE Guideline 36 [recalled from memory])."""
+    earliest_s: Annotated[Float, Field(ge=0, le=86400)] | None = None
+    """The early start never begins more than this before the switch; left out: the heating
+    type's (9 h for underfloor, else 3 h: the usual maximum of an optimal start, ASHRAE
+    Guideline 36 [recalled from memory])."""
     initial_rate_k_per_h: Annotated[Float, Field(ge=0.05, le=30)] | None = (
         None
     )
