@@ -77,6 +77,6 @@ def test_derived_seconds_are_rounded(capsys: pytest.CaptureFixture[str], tmp_pat
     row = re.search(r"anticipator time constant\s+(\S+) s\s+derived from cycle rate", out)
     assert row is not None, out
     assert row[1] == str(round(tau)) == "634"
-    # Smoothing: one cycle period, 3600 / 7 = 514.29 s, shown as 514 s.
+    # Smoothing: the hydronic type's three cycle periods, 3 x 3600 / 7 = 1542.86 s, shown as 1543 s.
     smoothing = re.search(r"smoothing\s+(\S+) s\s+derived from cycle rate", out)
-    assert smoothing is not None and smoothing[1] == "514"
+    assert smoothing is not None and smoothing[1] == "1543"

@@ -67,15 +67,15 @@ def test_droop_compensation_removes_the_anticipators_offset() -> None:
 
 @pytest.mark.parametrize(
     ("delay", "smoothing", "direction"),
-    [(120.0, 0.0, 1.0), (240.0, 0.0, -1.0), (120.0, None, -1.0)],
+    [(120.0, 0.0, 1.0), (240.0, 0.0, -1.0), (120.0, 720.0, -1.0)],
 )
 def test_cycle_rate_regulation_brings_the_plant_to_the_cycle_rate(
     delay: float, smoothing: float | None, direction: float
 ) -> None:
     """Switching on the raw temperature, a room that moves with each burst of heat cycles
     faster than the anticipator alone (120 s dead time here); a long dead time makes it
-    cycle slower (240 s). Switching on the smoothed temperature (the default), the room's
-    ripple no longer hurries the relay and the dead time slows it. Either way regulation
+    cycle slower (240 s). Switching on the temperature smoothed over one cycle period (720 s),
+    the room's ripple no longer hurries the relay and the dead time slows it. Either way regulation
     scales the time constant until the configured cycle rate is met."""
     base = settings(smoothing_s=smoothing)
     unregulated = steady(replace(base, cycle_rate_regulation=False), delay=delay)[-1440:]

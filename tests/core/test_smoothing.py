@@ -15,7 +15,7 @@ import pytest
 
 from roomloop.core import ZoneController, ZoneState
 from roomloop.core.optimum_start import Level
-from roomloop.core.settings import SettingsError
+from roomloop.core.settings import SettingsError, ZoneSettings
 from roomloop.core.stages.constants import LawConstants
 from roomloop.core.stages.regulation import regulated
 from roomloop.core.state import StateFormatError
@@ -39,17 +39,21 @@ def _quiet(**changes: object) -> ZoneController:
     return ZoneController(settings(**values))
 
 
-def test_default_smoothing_is_one_cycle_period_and_bad_values_are_refused() -> None:
-    s = settings()
-    assert s.smoothing_s is None
+@pytest.mark.parametrize(("heating", "periods"), [("forced-air", 3.0), ("electric", 1.0)])
+def test_default_smoothing_is_the_heating_types_cycle_periods_and_bad_values_are_refused(
+    heating: str, periods: float
+) -> None:
+    s = replace(ZoneSettings.for_heating_type(heating), inputs=(FAST_POINT,))
+    assert s.smoothing_s is None and s.smoothing_periods == periods
+    tau = periods * 3600.0 / s.cycle_rate_cph  # forced air 3 x 720 s, electric 400 s
     controller = ZoneController(s)
-    # a ramp inside the band: y(t) = x(t) - r tau (1 - exp(-t / tau)) [derived], tau = 720 s
+    # a ramp inside the band: y(t) = x(t) - r tau (1 - exp(-t / tau)) [derived]
     rate = 0.2 / 3600.0
     trace = run(controller, lambda now, on: S + rate * now, end=3600.0, tick=10.0)
     first_now = trace[0][0]
     for now, _, state in trace[1:]:
         t = now - first_now
-        expected = S + rate * now - rate * 720.0 * (1.0 - math.exp(-t / 720.0))
+        expected = S + rate * now - rate * tau * (1.0 - math.exp(-t / tau))
         assert state.smoothed_c == pytest.approx(expected, abs=1e-9)
     with pytest.raises(SettingsError, match="smoothing_s"):
         settings(smoothing_s=-1.0)
@@ -125,9 +129,10 @@ def test_no_smoothing_for_a_plain_hysteresis_and_none_during_a_recovery() -> Non
     end = next(i for i, (_, _, st) in enumerate(trace) if st.recovering == 0)
     _, out, st = trace[end]
     assert out.reason != "cut-out" and st.smoothed_c is not None
-    # crossing 19.75 at 4.75 / 4.8 of the last 10 s tick, then 0.1 s of smoothing
+    # crossing 19.75 at 4.75 / 4.8 of the last 10 s tick, then 0.1 s of smoothing (forced
+    # air's 3 cycle periods: 2160 s)
     since = 10.0 * (1.0 - 4.75 / 4.8)
-    expected = 19.8 - 0.05 * (720.0 / since) * (1.0 - math.exp(-since / 720.0))
+    expected = 19.8 - 0.05 * (2160.0 / since) * (1.0 - math.exp(-since / 2160.0))
     assert st.smoothed_c == pytest.approx(expected, abs=1e-9)
     assert S - 0.25 <= st.smoothed_c < 19.8
 

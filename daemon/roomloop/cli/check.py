@@ -285,7 +285,7 @@ def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:
         ("droop time", f"{_n(tuning.droop_time_s)} s", "droop_time_s"),
         (
             "smoothing",
-            _seconds(3600.0 / tuning.cycle_rate_cph, derived=True)
+            _seconds(tuning.smoothing_periods * 3600.0 / tuning.cycle_rate_cph, derived=True)
             if tuning.smoothing_s is None
             else ("off" if tuning.smoothing_s == 0 else f"{_n(tuning.smoothing_s)} s"),
             "smoothing_s",

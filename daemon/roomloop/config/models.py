@@ -688,7 +688,7 @@ class TuningInput(CallTuningInput):
 
     smoothing_s: Annotated[Float, Field(ge=0, le=14400)] | None = None
     """Time constant of the smoothing of the temperature the relay switches on; left out:
-    one cycle period (3600 / cycle rate); 0: none."""
+    the heating type's number of cycle periods (3600 / cycle rate each); 0: none."""
     proportional_gain: Annotated[Float, Field(ge=0, le=10)] | None = None
     """How many times the room's own offset from the set point is added to the temperature
     the relay switches on (beyond the once it is there already); left out: the heating
@@ -712,6 +712,8 @@ class Tuning(BaseModel):
     smoothing_s: float | None = None
     """``None``: one cycle period (the controller derives it from the cycle rate)."""
     proportional_gain: float = 0.0
+    smoothing_periods: float = 1.0
+    """The smoothing, in cycle periods, when ``smoothing_s`` is left out (the preset's)."""
 
 
 class CoolingTuningInput(CallTuningInput):
@@ -1074,6 +1076,7 @@ def resolve_preset(
     proportional = getattr(given, "proportional_gain", None)
     values["proportional_gain"] = preset.proportional_gain if proportional is None else proportional
     origins["proportional_gain"] = f"preset {heating}" if proportional is None else "file"
+    values["smoothing_periods"] = preset.smoothing_periods
     if given.anticipator_time_constant_s is not None:
         values["anticipator_time_constant_s"] = given.anticipator_time_constant_s
         origins["anticipator_time_constant_s"] = "file"

@@ -45,15 +45,24 @@ class Preset:
     proportional_gain: float = 0.0
     """How much the room's own offset from the set point adds to the switching temperature
     (heating only; see :mod:`roomloop.core.stages.switching`)."""
+    smoothing_periods: float = 1.0
+    """The switching temperature's smoothing when ``smoothing_s`` is left out, in cycle
+    periods (heating only; see :mod:`roomloop.core.stages.smoothing`)."""
 
 
 PRESETS: dict[str, Preset] = {
     # A fast air heater: 5 cph (gas/oil forced air 5-6 [trade]); gain 2.5 K and droop
-    # time 1 h from the sweep on the forced-air plant [no source].
-    "forced-air": Preset(5.0, 0.5, 2.5, 120.0, 120.0, 6, 3600.0),
+    # time 1 h from the sweep on the forced-air plant [no source]. Smoothing over 3 cycle
+    # periods: a light room swings by most of a kelvin within each cycle, and one period
+    # let a share of that ripple into the switching temperature, which beat with the
+    # anticipator into runs that lengthened and shortened over an hour or so (the sweep of
+    # 1-4 periods, tests/bench/control_quality.py, seeds 1-3: oversized-air high-load CA
+    # 1.23 -> 1.05 K, forced-air 0.43 -> 0.43 K, recovery overshoot 0.46 -> 0.44 K) [no source].
+    "forced-air": Preset(5.0, 0.5, 2.5, 120.0, 120.0, 6, 3600.0, smoothing_periods=3.0),
     # Panel radiators on a boiler: 3 cph (hot water [trade]); gain 2.5 K and droop time
-    # 1 h from the sweep on the hydronic plant [no source].
-    "hydronic": Preset(3.0, 0.5, 2.5, 180.0, 180.0, 4, 3600.0),
+    # 1 h from the sweep on the hydronic plant [no source]; smoothing over 3 periods from the
+    # same sweep as forced air's (CA 0.117 -> 0.114 K, overshoot 0.11 -> 0.08 K) [no source].
+    "hydronic": Preset(3.0, 0.5, 2.5, 180.0, 180.0, 4, 3600.0, smoothing_periods=3.0),
     # Radiant floor: 3 cph (radiant [trade]); longer minimum times for the slow loop.
     # Gain 1.5 K (a higher gain lets the slow screed drift) and droop time 3 h (a few
     # hours, like the screed's own time constant) from the sweep on the underfloor plant
@@ -66,8 +75,11 @@ PRESETS: dict[str, Preset] = {
     # Convector or panel heater: 9 cph (electric [trade]); gain 2.5 K and droop time 1 h
     # from the sweep on the electric plant [no source].
     "electric": Preset(9.0, 0.5, 2.5, 60.0, 60.0, 10, 3600.0),
-    # Steam or gravity: 1 cph [trade]; a steam boiler needs long runs.
-    "steam": Preset(1.0, 0.5, 1.5, 600.0, 600.0, 2, 10800.0),
+    # Steam or gravity: 1 cph [trade]; a steam boiler needs long runs. Smoothing over 4
+    # periods from the sweep of 1-4 on the steam plant (high-load CA 1.15 -> 0.90 K) [no source];
+    # the underfloor and electric plants did best with one period (slower emitters: a longer
+    # smoothing lags their load changes; 9 cph: the ripple is small).
+    "steam": Preset(1.0, 0.5, 1.5, 600.0, 600.0, 2, 10800.0, smoothing_periods=4.0),
 }
 
 COOLING_PRESETS: dict[str, Preset] = {

@@ -245,7 +245,9 @@ class ZoneSettings:
     (on when the time constant was derived from the cycle rate, off when it was given)."""
     smoothing_s: float | None = None
     """Time constant (s) of the smoothing of the zone temperature the relay switches on;
-    ``None``: one cycle period, ``3600 / cycle_rate_cph``; 0: no smoothing."""
+    ``None``: ``smoothing_periods`` cycle periods of ``3600 / cycle_rate_cph``; 0: none."""
+    smoothing_periods: float = 1.0
+    """The smoothing in cycle periods when ``smoothing_s`` is None (the heating type's)."""
     proportional_gain: float = 0.0
     """The room's own offset from the set point, times this, is added to the switching
     temperature (see :mod:`roomloop.core.stages.switching`); 0: none."""
@@ -301,6 +303,7 @@ class ZoneSettings:
             "sensor_timeout_s": self.sensor_timeout_s,
             "fail_safe_period_s": self.fail_safe_period_s,
             "learn_hours": self.learn_hours,
+            "smoothing_periods": self.smoothing_periods,
         }
         for key, value in positive.items():
             if not (math.isfinite(value) and value > 0):
@@ -364,6 +367,7 @@ class ZoneSettings:
             **call_tuning(tuning),
             smoothing_s=None if tuning.smoothing_s is None else float(tuning.smoothing_s),
             proportional_gain=float(tuning.proportional_gain),
+            smoothing_periods=float(tuning.smoothing_periods),
             cycle_rate_regulation=(
                 zone.origins.get("anticipator_time_constant_s") == "derived from cycle rate"
             ),

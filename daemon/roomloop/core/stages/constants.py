@@ -48,7 +48,11 @@ class LawConstants:
         # Smoothing only where the anticipator cycles the relay by itself (G > D): a plain
         # hysteresis (or a weak anticipator) needs the room's own ripple to switch.
         smoothing = (
-            0.0 if not strong else target_period if s.smoothing_s is None else s.smoothing_s
+            0.0
+            if not strong
+            else target_period * s.smoothing_periods
+            if s.smoothing_s is None
+            else s.smoothing_s
         )
         cooling = s.cooling
         if cooling is not None and not cooling.heating and s.smoothing_s is None:

@@ -1,4 +1,4 @@
-"""The switching temperature ``Ts``: the zone temperature smoothed over about one cycle.
+"""The switching temperature ``Ts``: the zone temperature smoothed over a cycle or more.
 
 Why: the anticipator stands in for the room's response within a cycle; the room's
 own ripple, seen through a lagging sensor with 0.1 K steps, only jitters the
@@ -8,8 +8,10 @@ about one cycle the relay runs an even on-fraction cycle after cycle (the
 anticipator then works as a pulse-width modulator driven by ``S - Ts + b``), and the
 sensor's noise dithers its steps into a finer average.
 
-How: exponential smoothing with time constant ``smoothing_s`` (default one cycle
-period, ``3600 / cycle_rate_cph``), solved exactly for a temperature linear between
+How: exponential smoothing with time constant ``smoothing_s`` (default the heating type's
+number of cycle periods of ``3600 / cycle_rate_cph``: 3 on air heat and radiators, whose
+rooms ripple most within a cycle, 4 on steam, 1 on screeds and electric heaters; see
+:mod:`roomloop.config.presets`), solved exactly for a temperature linear between
 two readings, so the tick length does not matter; only when ``G > D`` (a plain
 hysteresis needs the room's ripple to switch at all). It restarts from ``T`` at
 start-up and during a recovery (which switches on ``T`` itself), and from the band's
