@@ -432,6 +432,13 @@ def _ca_limit(plant: str, heating: str, ours: Cell, swings: list[Swing]) -> Targ
                 f"the plant's own swing is {worst.half_k:.3f} K at "
                 f"{worst.cycles_per_hour:.1f}/h: physics"
             )
+        elif ca > limit and worst.half_k * SWING_FACTOR > limit:
+            reason = (
+                f"the plant's own swing is {worst.half_k:.3f} K at "
+                f"{worst.cycles_per_hour:.1f}/h, within {SWING_FACTOR - 1:.0%} of the limit: "
+                f"physics at this cycle rate (ours is {ca / worst.half_k:.2f}x of it, where "
+                f"forced air's target allows {SWING_FACTOR:g}x)"
+            )
         elif ca > limit and step.accuracy_k > limit:
             back = "not in the window" if step.reached_h is None else f"{step.reached_h:.1f} h"
             reason = (
