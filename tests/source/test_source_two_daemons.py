@@ -76,8 +76,10 @@ def plant_room_site(
             "timing": {"valve_opening_s": VALVE_S, "pump_overrun_s": OVERRUN_S,
                        "min_on_s": MIN_ON_S, "min_off_s": MIN_OFF_S,
                        "max_starts_per_hour": max_starts},
-            # east's state comes every 60 s; a broker restart lasts well under 600 s
-            "remote_stale": {"policy": policy, "timeout_s": 600},
+            # east's state comes every 60 s; a broker restart lasts well under 1800 s (30 real
+            # seconds at SPEED: on a loaded 2-core machine 600 s, 10 real seconds, was once
+            # not enough for both daemons to reconnect, and a zone went stale for a moment)
+            "remote_stale": {"policy": policy, "timeout_s": 1800},
         }
     ]
     return dict(data)
