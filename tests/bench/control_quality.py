@@ -385,7 +385,7 @@ def heating_targets(
             if not lower_overshoot
             else "lower: "
             + ", ".join(f"{r.controller} {r.overshoot_k:+.2f} K" for r in lower_overshoot),
-            "" if not lower_overshoot else "a baseline as accurate overshoots less",
+            _close_overshoot_reason(ours, lower_overshoot),
         )
     )
     checks.append(
@@ -397,6 +397,21 @@ def heating_targets(
         )
     )
     return checks
+
+
+def _close_overshoot_reason(ours: Cell, lower: list[Cell]) -> str:
+    """Why a baseline as accurate overshoots less: said plainly, and where every one of them
+    (ours too) began the recovery already over the set point, with where each began."""
+    if not lower:
+        return ""
+    if ours.recovery_start_k > 0.0 and all(r.recovery_start_k > 0.0 for r in lower):
+        starts = ", ".join(f"{r.controller} {r.recovery_start_k:+.2f} K" for r in lower)
+        return (
+            "a baseline as accurate overshoots less; all began the recovery over the set point "
+            f"(the emitter's stored heat after the set-back: ours {ours.recovery_start_k:+.2f} K, "
+            f"{starts}), so the difference is the heat each left in the emitter before it"
+        )
+    return "a baseline as accurate overshoots less"
 
 
 def _lowest_ca(ours: Cell, others: list[Cell], swings: list[Swing]) -> TargetCheck:
