@@ -80,3 +80,61 @@ def test_derived_seconds_are_rounded(capsys: pytest.CaptureFixture[str], tmp_pat
     # Smoothing: the hydronic type's three cycle periods, 3 x 3600 / 7 = 1542.86 s, shown as 1543 s.
     smoothing = re.search(r"smoothing\s+(\S+) s\s+derived from cycle rate", out)
     assert smoothing is not None and smoothing[1] == "1543"
+
+
+COOLING_SITE = """\
+site: {name: lofts}
+links: [{name: io, type: modbus-tcp, host: 127.0.0.1}]
+points:
+  - {name: t1, type: modbus-input, link: io, address: 0}
+  - {name: t2, type: modbus-input, link: io, address: 1}
+  - {name: h2, type: modbus-output, link: io, address: 0}
+  - {name: c1, type: modbus-output, link: io, address: 1}
+  - {name: c2, type: modbus-output, link: io, address: 2}
+zones:
+  - name: server-loft
+    inputs: [t1]
+    heating: steam
+    setpoints: {comfort: 21, standby: 19, economy: 16, protection: 7}
+    limits: {min: 5, max: 30}
+    cooling:
+      output: c1
+      type: direct-expansion
+      setpoints: {comfort: 24, standby: 26, economy: 28}
+  - name: studio
+    inputs: [t2]
+    output: h2
+    heating: forced-air
+    setpoints: {comfort: 21, standby: 19, economy: 16, protection: 7}
+    limits: {min: 5, max: 30}
+    cooling:
+      output: c2
+      type: direct-expansion
+      setpoints: {comfort: 24, standby: 26, economy: 28}
+"""
+
+
+def test_smoothing_shown_is_the_one_the_controller_uses(
+    capsys: pytest.CaptureFixture[str], tmp_path: Path
+) -> None:
+    """A zone that only cools smooths over its cooling call's period (direct expansion 3 cph:
+    1200 s), not its (unused) heating type's 4 steam periods; a zone with both calls over one
+    heating period (forced air 5 cph: 720 s), not forced air's 3 (the controller's
+    LawConstants, core/stages/constants.py)."""
+    path = tmp_path / "site.yaml"
+    path.write_text(COOLING_SITE, encoding="utf-8")
+    code = main(["check", "-c", str(path)])
+    out = capsys.readouterr().out
+    assert code == 0, out
+    shown = re.findall(r"smoothing\s+(\S+) s\s+derived from cycle rate", out)
+    assert shown == ["1200", "720"], out
+
+    from roomloop.config.loader import load_site
+    from roomloop.core.settings import ZoneSettings
+    from roomloop.core.stages.constants import LawConstants
+
+    site = load_site(path)
+    used = [
+        LawConstants.of(ZoneSettings.from_site(site, z.name)).smoothing_s for z in site.zones
+    ]
+    assert used == [1200.0, 720.0]

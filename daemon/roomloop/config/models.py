@@ -710,7 +710,8 @@ class Tuning(BaseModel):
     droop_compensation: bool
     droop_time_s: float
     smoothing_s: float | None = None
-    """``None``: one cycle period (the controller derives it from the cycle rate)."""
+    """``None``: ``smoothing_periods`` cycle periods (the controller derives it from the cycle
+    rate; see :func:`roomloop.core.stages.constants.smoothing_time_s`)."""
     proportional_gain: float = 0.0
     smoothing_periods: float = 1.0
     """The smoothing, in cycle periods, when ``smoothing_s`` is left out (the preset's)."""
@@ -718,7 +719,7 @@ class Tuning(BaseModel):
 
 class CoolingTuningInput(CallTuningInput):
     """The cooling call's tuning as written; whatever is left out comes from the cooling type
-    (the heating keys but ``smoothing_s``)."""
+    (the heating keys but ``smoothing_s`` and ``proportional_gain``)."""
 
 
 class CoolingSetpoints(Strict):

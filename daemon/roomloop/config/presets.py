@@ -47,7 +47,9 @@ class Preset:
     (heating only; see :mod:`roomloop.core.stages.switching`)."""
     smoothing_periods: float = 1.0
     """The switching temperature's smoothing when ``smoothing_s`` is left out, in cycle
-    periods (heating only; see :mod:`roomloop.core.stages.smoothing`)."""
+    periods, in a zone that only heats (a zone that also cools smooths over one heating
+    period; one that only cools over its cooling period: see
+    :func:`roomloop.core.stages.constants.smoothing_time_s`)."""
 
 
 PRESETS: dict[str, Preset] = {

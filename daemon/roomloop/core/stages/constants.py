@@ -12,6 +12,35 @@ from .setpoint import level_setpoints
 from .short_cycle import HOUR_S
 
 
+def smoothing_time_s(
+    *,
+    gain_k: float,
+    differential_k: float,
+    cycle_rate_cph: float,
+    periods: float,
+    given_s: float | None,
+    cooling: tuple[bool, float, float, float] | None = None,
+) -> float:
+    """The time constant of the switching temperature's smoothing (0: none), see :mod:`.smoothing`.
+
+    ``cooling``: (the zone also heats, the cooling call's gain, differential, cycle rate),
+    None for a heating-only zone. Only where the anticipator cycles the relay by itself
+    (``G > D``): a plain hysteresis (or a weak anticipator) needs the room's own ripple to
+    switch. Left out (``given_s`` None) it is ``periods`` heating cycle periods; a zone that
+    only cools smooths over its cooling call's own period, and a zone with both calls over one
+    heating period (they share the switching temperature, and the heating type's longer
+    smoothing was chosen on heating plants alone).
+    """
+    if cooling is not None and not cooling[0] and given_s is None:
+        _, cooling_gain, cooling_differential, cooling_cph = cooling
+        return HOUR_S / cooling_cph if cooling_gain > cooling_differential else 0.0
+    if gain_k <= differential_k:
+        return 0.0
+    if given_s is not None:
+        return given_s
+    return HOUR_S / cycle_rate_cph * (periods if cooling is None else 1.0)
+
+
 @dataclass(frozen=True, slots=True)
 class LawConstants:
     """Per-settings constants of the control law (a frozen record, read on every tick)."""
@@ -45,21 +74,22 @@ class LawConstants:
     def of(cls, s: ZoneSettings) -> LawConstants:
         strong = s.anticipator_gain_k > s.differential_k
         target_period = HOUR_S / s.cycle_rate_cph
-        # Smoothing only where the anticipator cycles the relay by itself (G > D): a plain
-        # hysteresis (or a weak anticipator) needs the room's own ripple to switch.
-        smoothing = (
-            0.0
-            if not strong
-            else target_period * s.smoothing_periods
-            if s.smoothing_s is None
-            else s.smoothing_s
-        )
         cooling = s.cooling
-        if cooling is not None and not cooling.heating and s.smoothing_s is None:
-            # a zone that only cools: the switching temperature is smoothed over the cooling
-            # call's own cycle period (its anticipator's G > D), as a heating zone's is
-            cooling_strong = cooling.anticipator_gain_k > cooling.differential_k
-            smoothing = HOUR_S / cooling.cycle_rate_cph if cooling_strong else 0.0
+        smoothing = smoothing_time_s(
+            gain_k=s.anticipator_gain_k,
+            differential_k=s.differential_k,
+            cycle_rate_cph=s.cycle_rate_cph,
+            periods=s.smoothing_periods,
+            given_s=s.smoothing_s,
+            cooling=None
+            if cooling is None
+            else (
+                cooling.heating,
+                cooling.anticipator_gain_k,
+                cooling.differential_k,
+                cooling.cycle_rate_cph,
+            ),
+        )
         reasons: dict[str, Reason] = {
             "off": "fail-safe:off",
             "fixed-duty": "fail-safe:fixed-duty",

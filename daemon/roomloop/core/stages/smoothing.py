@@ -4,7 +4,7 @@ Why: the anticipator stands in for the room's response within a cycle; the room'
 own ripple, seen through a lagging sensor with 0.1 K steps, only jitters the
 switching points (one run ends a quantisation step early, the next one late), and
 uneven runs widen the room's swing at the same cycle rate. With ``T`` averaged over
-about one cycle the relay runs an even on-fraction cycle after cycle (the
+a cycle or more the relay runs an even on-fraction cycle after cycle (the
 anticipator then works as a pulse-width modulator driven by ``S - Ts + b``), and the
 sensor's noise dithers its steps into a finer average.
 

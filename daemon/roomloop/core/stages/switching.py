@@ -42,7 +42,8 @@ def basis(
 def band(
     sensed: float, setpoint: float, half_k: float, relay_on: bool
 ) -> tuple[bool, BandReason]:
-    """(relay wanted, why) for the anticipated temperature ``sensed = Ts + a - b``."""
+    """(relay wanted, why) for the anticipated temperature ``sensed = Ts + a - b`` (plus
+    ``P (Ts - S)`` with a proportional gain, outside a recovery)."""
     if relay_on:
         if sensed >= setpoint + half_k:
             return False, "cut-out"
