@@ -9,6 +9,7 @@ the band (roomloop/core/stages/switching.py). Everything else is the controller'
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import pytest
 
@@ -44,11 +45,12 @@ def test_the_offset_counts_one_plus_p_times() -> None:
         state, out = zone.step(state, sample(S - 0.2, 10.0), 10.0)
         state, out = zone.step(state, sample(S - 0.2, 20.0), 20.0)
         assert out.demand is wanted, p
-    # above the set point it holds the relay off for longer the same way
-    zone = _zone(1.0)
-    state = zone.initial_state(0.0)
-    _, out = zone.step(state, sample(S + 0.2, 10.0), 10.0)
-    assert out.demand is False
+    # above the set point, with the relay on: a plain band runs on, P = 1 cuts out
+    for p, wanted in ((0.0, True), (1.0, False)):
+        zone = _zone(p)
+        state = replace(zone.initial_state(0.0), relay_on=True, switched_at=0.0, last_setpoint=S)
+        _, out = zone.step(state, sample(S + 0.2, 10.0), 10.0)
+        assert out.demand is wanted, (p, out.reason)
 
 
 @pytest.mark.parametrize("p", [0.0, 0.5, 1.0, 2.0])
@@ -85,13 +87,17 @@ def test_cycle_on_a_steady_room_matches_the_closed_form(p: float) -> None:
 
 
 def test_recovery_ignores_p() -> None:
-    # far under a raised set point the recovery runs the relay on T itself, whatever P
+    # a recovery to a raised set point, the room still 0.5 K under it and the anticipator at
+    # 0.9 K: T + a = S + 0.4 >= S + D/2, the anticipator cuts the run out (and so ends the
+    # recovery). Applied, P = 2 would take 2 x 0.5 K off and keep the relay on.
     for p in (0.0, 2.0):
         zone = _zone(p)
-        state = zone.initial_state(0.0)
-        state, out = zone.step(state, sample(S - 3.0, 10.0), 10.0)
-        assert out.demand is True
-        assert state.recovering == 1
+        state = replace(
+            zone.initial_state(0.0), relay_on=True, switched_at=0.0, last_setpoint=S,
+            recovering=1, anticipator_k=0.9,
+        )
+        _, out = zone.step(state, sample(S - 0.5, 10.0), 10.0)
+        assert out.demand is False and out.reason == "cut-out", (p, out.reason)
 
 
 def test_a_negative_or_unknown_number_is_refused() -> None:
