@@ -31,6 +31,7 @@ from roomloop.config.models import (
     Site,
     Zone,
 )
+from roomloop.core.settings import ZoneSettings
 from roomloop.core.stages.constants import smoothing_time_s
 from roomloop.errors import ConfigProblem
 
@@ -105,7 +106,7 @@ def print_site(site: Site, out: TextIO) -> None:
     if not site.zones:
         w("  (none: the heat sources serve zones of other sites)\n")
     for zone in site.zones:
-        _zone(zone, units, w)
+        _zone(zone, units, w, smoothing_time_s(ZoneSettings.from_site(site, zone.name)))
 
     w("\ncalendar (replaces the weekly program while it lasts)\n")
     if not site.calendar:
@@ -251,30 +252,18 @@ def _cooling_text(zone: Zone, units: str, write: Callable[[str], object]) -> Non
     )
 
 
-def _smoothing_text(zone: Zone) -> str:
-    """The switching temperature's smoothing as the controller will use it."""
-    tuning, cooling, cooling_tuning = zone.effective, zone.cooling, zone.cooling_effective
-    if tuning.smoothing_s is not None:
-        return "off" if tuning.smoothing_s == 0 else f"{_n(tuning.smoothing_s)} s"
-    used = smoothing_time_s(
-        gain_k=tuning.anticipator_gain_k,
-        differential_k=tuning.differential_k,
-        cycle_rate_cph=tuning.cycle_rate_cph,
-        periods=tuning.smoothing_periods,
-        given_s=None,
-        cooling=None
-        if cooling is None or cooling_tuning is None
-        else (
-            zone.output is not None,
-            cooling_tuning.anticipator_gain_k,
-            cooling_tuning.differential_k,
-            cooling_tuning.cycle_rate_cph,
-        ),
-    )
-    return "off" if used == 0 else _seconds(used, derived=True)
+def _smoothing_text(zone: Zone, used_s: float) -> str:
+    """The switching temperature's smoothing: as given, or what the controller derives."""
+    given = zone.effective.smoothing_s
+    if given is not None:
+        return "off" if given == 0 else f"{_n(given)} s"
+    return "off" if used_s == 0 else _seconds(used_s, derived=True)
 
 
-def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:
+def _zone(
+    zone: Zone, units: str, write: Callable[[str], object], smoothing_s: float
+) -> None:
+    """One zone; ``smoothing_s``: the smoothing its controller uses (from its settings)."""
     heating = f"{zone.heating}, output {zone.output}" if zone.output is not None else "no heating"
     write(f"  {zone.name}: {heating}, inputs {', '.join(zone.inputs)} ({zone.combine})\n")
     sp = ", ".join(
@@ -307,7 +296,7 @@ def _zone(zone: Zone, units: str, write: Callable[[str], object]) -> None:
         ("most cycles per hour", str(tuning.max_cycles_per_hour), "max_cycles_per_hour"),
         ("droop compensation", "on" if tuning.droop_compensation else "off", "droop_compensation"),
         ("droop time", f"{_n(tuning.droop_time_s)} s", "droop_time_s"),
-        ("smoothing", _smoothing_text(zone), "smoothing_s"),
+        ("smoothing", _smoothing_text(zone, smoothing_s), "smoothing_s"),
         ("proportional gain", f"{_n(tuning.proportional_gain)}", "proportional_gain"),
     ]
     write("    tuning:\n")

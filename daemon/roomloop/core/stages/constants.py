@@ -12,33 +12,25 @@ from .setpoint import level_setpoints
 from .short_cycle import HOUR_S
 
 
-def smoothing_time_s(
-    *,
-    gain_k: float,
-    differential_k: float,
-    cycle_rate_cph: float,
-    periods: float,
-    given_s: float | None,
-    cooling: tuple[bool, float, float, float] | None = None,
-) -> float:
+def smoothing_time_s(s: ZoneSettings) -> float:
     """The time constant of the switching temperature's smoothing (0: none), see :mod:`.smoothing`.
 
-    ``cooling``: (the zone also heats, the cooling call's gain, differential, cycle rate),
-    None for a heating-only zone. Only where the anticipator cycles the relay by itself
-    (``G > D``): a plain hysteresis (or a weak anticipator) needs the room's own ripple to
-    switch. Left out (``given_s`` None) it is ``periods`` heating cycle periods; a zone that
-    only cools smooths over its cooling call's own period, and a zone with both calls over one
-    heating period (they share the switching temperature, and the heating type's longer
-    smoothing was chosen on heating plants alone).
+    Only where the anticipator cycles the relay by itself (``G > D``): a plain hysteresis (or
+    a weak anticipator) needs the room's own ripple to switch. Left out (``smoothing_s``
+    None) it is ``smoothing_periods`` heating cycle periods; a zone that only cools smooths
+    over its cooling call's own period, and a zone with both calls over one heating period
+    (they share the switching temperature, and the heating type's longer smoothing was
+    chosen on heating plants alone).
     """
-    if cooling is not None and not cooling[0] and given_s is None:
-        _, cooling_gain, cooling_differential, cooling_cph = cooling
-        return HOUR_S / cooling_cph if cooling_gain > cooling_differential else 0.0
-    if gain_k <= differential_k:
+    cooling = s.cooling
+    if cooling is not None and not cooling.heating and s.smoothing_s is None:
+        strong = cooling.anticipator_gain_k > cooling.differential_k
+        return HOUR_S / cooling.cycle_rate_cph if strong else 0.0
+    if s.anticipator_gain_k <= s.differential_k:
         return 0.0
-    if given_s is not None:
-        return given_s
-    return HOUR_S / cycle_rate_cph * (periods if cooling is None else 1.0)
+    if s.smoothing_s is not None:
+        return s.smoothing_s
+    return HOUR_S / s.cycle_rate_cph * (s.smoothing_periods if cooling is None else 1.0)
 
 
 @dataclass(frozen=True, slots=True)
@@ -74,22 +66,6 @@ class LawConstants:
     def of(cls, s: ZoneSettings) -> LawConstants:
         strong = s.anticipator_gain_k > s.differential_k
         target_period = HOUR_S / s.cycle_rate_cph
-        cooling = s.cooling
-        smoothing = smoothing_time_s(
-            gain_k=s.anticipator_gain_k,
-            differential_k=s.differential_k,
-            cycle_rate_cph=s.cycle_rate_cph,
-            periods=s.smoothing_periods,
-            given_s=s.smoothing_s,
-            cooling=None
-            if cooling is None
-            else (
-                cooling.heating,
-                cooling.anticipator_gain_k,
-                cooling.differential_k,
-                cooling.cycle_rate_cph,
-            ),
-        )
         reasons: dict[str, Reason] = {
             "off": "fail-safe:off",
             "fixed-duty": "fail-safe:fixed-duty",
@@ -99,7 +75,7 @@ class LawConstants:
             half_k=s.differential_k / 2.0,
             gain_k=s.anticipator_gain_k,
             time_constant_s=s.anticipator_time_constant_s,
-            smoothing_s=smoothing,
+            smoothing_s=smoothing_time_s(s),
             max_lag_k=s.differential_k,
             proportional=s.proportional_gain,
             regulate=s.cycle_rate_regulation and strong,
