@@ -23,7 +23,7 @@ from simulated_history import random_plant, simulate
 
 from roomloop.core.settings import ZoneSettings
 from roomloop.plant.identify import fit_on, predict
-from roomloop.plant.loader import BUILTIN_PLANTS, load_plant
+from roomloop.plant.loader import BUILTIN_PLANTS, HEATING_FOR_PLANT, load_plant
 from roomloop.plant.spec import PlantSpec
 
 
@@ -71,7 +71,7 @@ def main() -> int:
     parser.add_argument("--plants", default=",".join(BUILTIN_PLANTS))
     args = parser.parse_args()
     cases: list[tuple[PlantSpec, str, int]] = [
-        (load_plant(name), name, 3) for name in args.plants.split(",") if name
+        (load_plant(name), HEATING_FOR_PLANT[name], 3) for name in args.plants.split(",") if name
     ]
     cases += [(*random_plant(seed), seed) for seed in range(1, args.random + 1)]
     print("plant        heating      RMS-K   fit-K  mass-h bldg-h errors of the fitted time "
