@@ -171,3 +171,53 @@ async def test_a_site_without_zones_runs_a_source_on_remote_demand(
         await w.wait_for(lambda: not coils.now[2], 10)
         for name in ("status", "zone/office/demand", "zone/hall/demand"):  # leave no retained
             await w.client.publish(f"{east}/{name}", b"", qos=1, retain=True)
+
+
+class BrokenController:
+    """A zone controller whose every step raises: the zone's loop fails and is restarted
+    again and again (the supervisor's backoff), and never steps."""
+
+    def __init__(self, real: Any) -> None:
+        self.real = real
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self.real, name)
+
+    def step(self, *args: Any, **kwargs: Any) -> Any:
+        raise ZeroDivisionError("injected")
+
+
+async def test_a_zone_whose_loop_fails_stops_calling_its_source(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    """A calling zone's loop breaks: its valve is held at its safe state (off), and the
+    source must not go on firing into it on the zone's last call."""
+    clock = VirtualClock()
+    server = await modbus_tcp_server()
+    data = site_yaml(modbus_port=server.port, broker_port=1, zones=1)
+    del data["broker"]
+    data["points"] += source_points()
+    data["heat_sources"] = [boiler(["room0"], min_off_s=0)]
+    site = write_site(tmp_path, data)
+    service = Service(site, clock=clock, state_dir=tmp_path / "state")
+    with capture_logs() as logs:
+        async with (
+            RoomPlant(server, [18.0], clock),
+            Coils(server, clock).watching() as coils,
+            running(service),
+        ):
+            await until(clock, lambda: "room0" in service.zones, 30)
+            service.apply_command("room0", "setpoint", 26.0)
+            await until(clock, lambda: coils.now[0] and coils.now[2], VALVE_S + 120)
+            runtime = service.zones["room0"]
+            runtime.controller = BrokenController(runtime.controller)  # type: ignore[assignment]
+            await until(clock, lambda: service.restarts.get("zone:room0", 0) >= 1, 60)
+            # the valve goes safe at once; the boiler stops (its minimum on time is 60 s)
+            await until(clock, lambda: not coils.now[0] and not coils.now[2], 120)
+            out = service.sources.sources["boiler"].outputs
+            assert out is not None and out.calling == () and not out.enable
+            steps = runtime.steps
+            await clock.sleep(300)  # the loop keeps failing; the boiler stays off
+            assert runtime.steps == steps and service.restarts["zone:room0"] >= 2
+            assert not coils.now[2], coils.changes
+    assert any(e["event"] == "service.task_failed" for e in logs)

@@ -401,7 +401,11 @@ class Service:
 
     def _task_failed(self, task: str) -> None:
         if task.startswith("zone:"):
-            self.runner.zone_failed(task[len("zone:") :])
+            zone = task[len("zone:") :]
+            self.runner.zone_failed(zone)
+            runtime = self.zones.get(zone)
+            if runtime is not None:
+                self.sources.zone_failed(zone, runtime.zone.safe_state == "on")
         elif task.startswith("source:"):
             self.sources.failed(task[len("source:") :])
 

@@ -161,6 +161,18 @@ class SourceRunner:
         ):
             loop.wake.set()
 
+    def zone_failed(self, zone: str, safe_on: bool) -> None:
+        """A served zone whose loop broke: its valve is held at its safe state, so until it
+        steps again it calls as that state does (not as its last step did: a source must not
+        fire into a valve held shut)."""
+        loop = self._served_by.get(zone)
+        if loop is None:
+            return
+        before = self.local.get(zone)
+        self.local[zone] = (safe_on, "zone-failed")
+        if before is None or before[0] != safe_on or _protection(before[1]):
+            loop.wake.set()
+
     def failed(self, name: str) -> None:
         """A source whose loop broke: its outputs back to the safe state until it decides."""
         loop = self.sources.get(name)
