@@ -54,6 +54,9 @@ def test_site_source_with_slow_actuators(capsys: pytest.CaptureFixture[str]) -> 
         (["-c", str(EXAMPLE)], "go together"),
         (["-c", str(EXAMPLE), "--source", "nope"], "no heat source 'nope' (heat sources: boiler)"),
         (["--example", "two-zone", "--json", "/nonexistent/dir/x.json"], "--json"),
+        (["--example", "two-zone", "--actuator-s", "nan"], "--actuator-s nan: give the valves'"),
+        (["--example", "two-zone", "--actuator-s", "-5"], "seconds, 0 to 1800"),
+        (["-c", str(EXAMPLE), "--source", "boiler", "--actuator-s", "1801"], "0 to 1800"),
     ],
 )
 def test_usage_mistakes_exit_2(
@@ -62,3 +65,10 @@ def test_usage_mistakes_exit_2(
     assert main(["simulate-source", *argv]) == 2
     err = capsys.readouterr().err
     assert message in err and "Traceback" not in err
+
+
+def test_builtin_example_takes_the_actuator_time(capsys: pytest.CaptureFixture[str]) -> None:
+    """``--actuator-s`` with ``--example``: every valve takes that time (it was ignored)."""
+    assert main(["simulate-source", "--example", "three-zone", "--actuator-s", "60"]) == 0
+    out = capsys.readouterr().out
+    assert "valves: office opens in 60 s, showroom opens in 60 s, meeting opens in 60 s" in out

@@ -143,7 +143,8 @@ def build_parser() -> argparse.ArgumentParser:
         "--actuator-s",
         type=float,
         metavar="S",
-        help="how long the valves really take to open (default: the source's valve_opening_s)",
+        help="how long the valves really take to open, 0-1800 s (default: the source's "
+        "valve_opening_s with -c; 150 s radiator and 240 s manifold actuators with --example)",
     )
     estate.add_argument("--seed", type=int, default=1, help="seed of the sensor noise (default 1)")
     estate.add_argument("--json", metavar="OUT.json", help="write the figures as JSON")

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import sys
 
 from roomloop.cli.outputs import output_path_problem
@@ -38,9 +39,13 @@ def _fail(message: str, code: int) -> int:
     return code
 
 
+ACTUATOR_MAX_S = 1800.0
+"""The longest ``--actuator-s``: the longest ``valve_opening_s`` a site file takes."""
+
+
 def _estate(args: argparse.Namespace) -> tuple[Estate, tuple[str, ...]]:
     if args.config is None:
-        return builtin_estate(args.example), ()
+        return builtin_estate(args.example, actuator_s=args.actuator_s), ()
     site = load_site(args.config)
     try:
         return estate_from_site(site, args.source, actuator_s=args.actuator_s)
@@ -51,13 +56,23 @@ def _estate(args: argparse.Namespace) -> tuple[Estate, tuple[str, ...]]:
         ) from None
 
 
-def main(args: argparse.Namespace) -> int:
+def _usage_problem(args: argparse.Namespace) -> str | None:
+    """What is wrong with the options themselves (exit 2), if anything."""
     if (args.config is None) != (args.source is None):
-        return _fail("-c SITE and --source NAME go together", EXIT_USAGE)
-    if args.json:
-        problem = output_path_problem("--json", args.json)
-        if problem:
-            return _fail(problem, EXIT_USAGE)
+        return "-c SITE and --source NAME go together"
+    actuator = args.actuator_s
+    if actuator is not None and not (math.isfinite(actuator) and 0 <= actuator <= ACTUATOR_MAX_S):
+        return (
+            f"--actuator-s {actuator:g}: give the valves' opening time in seconds, "
+            f"0 to {ACTUATOR_MAX_S:.0f}"
+        )
+    return output_path_problem("--json", args.json) if args.json else None
+
+
+def main(args: argparse.Namespace) -> int:
+    problem = _usage_problem(args)
+    if problem:
+        return _fail(problem, EXIT_USAGE)
     try:
         estate, remote = _estate(args)
     except SettingsError as exc:

@@ -342,17 +342,20 @@ def _room_of(settings: ZoneSettings, plant: str, actuator_s: float) -> Room:
     return Room(settings, spec, actuator_s=actuator_s)
 
 
-def builtin_estate(name: str) -> Estate:
+def builtin_estate(name: str, *, actuator_s: float | None = None) -> Estate:
     """``two-zone``: a radiator room and an underfloor room on one boiler; ``three-zone``
     adds a second radiator room. Wax actuators (150 s radiators, 240 s manifold: thermal
-    actuators open in about 2-5 min, common practice, no source), the boiler's defaults
-    with a 240 s valve opening time (the slowest actuator)."""
+    actuators open in about 2-5 min, common practice, no source; ``actuator_s``: every
+    valve's time instead), the boiler's defaults with a 240 s valve opening time (the
+    slowest actuator as built)."""
+    radiator = 150.0 if actuator_s is None else actuator_s
+    manifold = 240.0 if actuator_s is None else actuator_s
     rooms = [
-        _room("office", "hydronic", "hydronic", 150.0),
-        _room("showroom", "underfloor", "underfloor", 240.0),
+        _room("office", "hydronic", "hydronic", radiator),
+        _room("showroom", "underfloor", "underfloor", manifold),
     ]
     if name == "three-zone":
-        rooms.append(_room("meeting", "hydronic", "hydronic", 150.0))
+        rooms.append(_room("meeting", "hydronic", "hydronic", radiator))
     elif name != "two-zone":
         raise KeyError(name)
     source = SourceSettings(
