@@ -1143,19 +1143,24 @@ SOURCE_DEFAULTS: dict[str, dict[str, float]] = {
         "min_off_s": 300.0,
         # 3-4 starts per hour for small compressors: common practice, no source.
         "max_starts_per_hour": 3,
+        # The same daily pump kick as a boiler's: recalled from memory.
         "pump_exercise_after_s": 86400.0,
         "pump_exercise_s": 60.0,
     },
     "electric": {
+        # Same manifold actuators as for a boiler: common practice, no source.
         "valve_opening_s": 180.0,
         # An electric flow boiler heats at once and keeps little heat: common practice,
         # no source.
         "pump_pre_run_s": 0.0,
+        # Little residual heat to carry away, so a short overrun: common practice, no source.
         "pump_overrun_s": 60.0,
-        # Contactor wear bounds the cycling, not the heater: common practice, no source.
+        # Contactor wear bounds the cycling, not the heater: common practice, no source
+        # (the minimum times and the starts per hour alike).
         "min_on_s": 60.0,
         "min_off_s": 60.0,
         "max_starts_per_hour": 12,
+        # The same daily pump kick as a boiler's: recalled from memory.
         "pump_exercise_after_s": 86400.0,
         "pump_exercise_s": 60.0,
     },
