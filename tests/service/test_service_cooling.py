@@ -13,6 +13,7 @@ import asyncio
 import contextlib
 from pathlib import Path
 from typing import Any
+from zoneinfo import ZoneInfo
 
 import yaml
 from service_rooms import running, site_yaml, until
@@ -20,6 +21,7 @@ from service_rooms import running, site_yaml, until
 from roomloop.clock import VirtualClock
 from roomloop.config.loader import load_site
 from roomloop.service.app import Service, TickReport
+from roomloop.service.publisher import state_payload
 
 HEAT, COOL, VALVE = 0, 1, 2
 HOLD_S = 30.0
@@ -103,6 +105,17 @@ async def test_warm_room_cools_and_cold_room_heats_with_the_changeover_output_sw
             assert valve_on + HOLD_S <= cool_on + 1.0
             assert ticks[-1].outputs.cooling is not None
             assert ticks[-1].outputs.cooling.call == "cool"
+            # The state shows the cooling and the changeover outputs as the device reads
+            # them back, as it shows the heating one (coils read back off the server).
+            view = next(iter(service.publisher.views()))
+            cooling_state = state_payload(view, units="C", tz=ZoneInfo("UTC"))["cooling"]
+            await until(
+                clock,
+                lambda: _read_back(service, "cooling") == ("cool0", True, True, "ok"),
+                timeout_s=30,
+            )
+            assert _read_back(service, "changeover_output_device") == ("valve0", True, True, "ok")
+            assert cooling_state["output"]["point"] == "cool0"
             # A cold room (15 C, below the heating comfort 20 C): cooling stops, the
             # changeover output goes back to heating while both calls are off, then heat.
             room["target"] = 15.0
@@ -129,6 +142,15 @@ async def test_warm_room_cools_and_cold_room_heats_with_the_changeover_output_sw
         assert not (heat and cool)
     # At the stop every output went to its safe state: heating, cooling, changeover off.
     assert (await server.get_coils(0, 3)) == [False, False, False]
+
+
+def _read_back(service: Service, block: str) -> tuple[Any, ...]:
+    """The zone's published cooling or changeover output: point, commanded, read back and
+    its verdict, from the state JSON as the publisher renders it now."""
+    view = next(iter(service.publisher.views()))
+    state = state_payload(view, units="C", tz=ZoneInfo("UTC"))["cooling"]
+    shown = state["output"] if block == "cooling" else state[block]
+    return (shown["point"], shown["commanded"], shown["read_back"], shown["verdict"])
 
 
 async def test_the_program_carries_the_changeover_and_a_command_lasts_until_its_next_change(

@@ -7,6 +7,8 @@ import json
 from typing import Any
 from zoneinfo import ZoneInfo
 
+import pytest
+
 from roomloop.core.state import ZoneState
 from roomloop.core.types import ZoneOutputs
 from roomloop.service.program import Switch
@@ -17,6 +19,7 @@ from roomloop.service.publisher import (
     override_of,
     plain_fields,
     state_payload,
+    zone_outputs_agree,
 )
 
 VIENNA = ZoneInfo("Europe/Vienna")
@@ -220,3 +223,19 @@ def test_a_hold_at_a_number_reads_no_level() -> None:
     payload = state_payload(at_level, units="C", tz=VIENNA)
     assert payload["level"] == "economy"
     assert payload["override"]["until"] == "2027-01-15T09:10:00+01:00"
+
+
+@pytest.mark.parametrize(
+    ("verdicts", "agrees"),
+    [
+        (["ok"], True),
+        (["ok", "mismatch", "ok"], False),  # a cooling or changeover output disagreeing
+        (["mismatch", None], False),
+        (["ok", "pending", "unverified"], True),
+        ([None, "comm-failure", "pending"], None),  # nothing known yet
+    ],
+)
+def test_a_zone_with_several_outputs_agrees_only_when_none_disagrees(
+    verdicts: list[str | None], agrees: bool | None
+) -> None:
+    assert zone_outputs_agree(verdicts) is agrees

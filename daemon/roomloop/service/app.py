@@ -62,7 +62,13 @@ from roomloop.service.notify import Progress, notify, watchdog_interval_s
 from roomloop.service.outputs import OutputWriter, SafeSink, outputs_as_found, zone_outputs
 from roomloop.service.persist import StateStore
 from roomloop.service.persistence import Persistence, restore_states, restored_warm_up
-from roomloop.service.publisher import StatePublisher, ZoneView, output_agrees, override_of
+from roomloop.service.publisher import (
+    OutputView,
+    StatePublisher,
+    ZoneView,
+    override_of,
+    zone_outputs_agree,
+)
 from roomloop.service.restart import read_output_states
 from roomloop.service.session import BrokerSession
 from roomloop.service.sources import SOURCE_TICK_S, SourceRunner, owner
@@ -424,8 +430,12 @@ class Service:
         point = zone.output if zone.output is not None else zone.cooling.output  # type: ignore[union-attr]
         out_state = self.outputs.state(point)
         verdict = None if out_state is None else out_state.verdict
-        # whether the read-back agrees with what was written (None: not known, no read-back)
-        agrees = output_agrees(verdict)
+        cooling = self._output_view(zone.cooling.output) if zone.cooling is not None else None
+        changeover = self._output_view(zone.changeover.output)
+        # whether the read-back agrees with what was written (None: not known, no read-back);
+        # any of the zone's outputs disagreeing raises the alarm
+        verdicts = [verdict] + [v.verdict for v in (cooling, changeover) if v is not None]
+        agrees = zone_outputs_agree(verdicts)
         self.alarms.observe(report.zone, report.outputs, output_confirmed=agrees, now=report.at)
         state = report.state
         self.publisher.update(
@@ -445,10 +455,21 @@ class Service:
                 override=override_of(state, report.next_change),
                 program_level=state.scheduled_level,
                 window_1h_s=min(3600.0, max(0.0, report.at - state.started_at)),
+                cooling_output=cooling,
+                changeover_output=changeover,
             )
         )
         if self.session is not None:
             self.session.wake()
+
+    def _output_view(self, point: str | None) -> OutputView | None:
+        """What the writer knows of one more output of a zone (None: no such output)."""
+        if point is None:
+            return None
+        known = self.outputs.state(point)
+        if known is None:
+            return OutputView(point)
+        return OutputView(point, known.wanted, known.confirmed, known.verdict)
 
     async def _bms_loop(self) -> None:
         """The BMS face: its reads come from the zones, its writes go the commands' way."""

@@ -103,6 +103,30 @@ def override_of(state: ZoneState, program_next: Switch | None) -> Override | Non
 
 
 @dataclass(frozen=True, slots=True)
+class OutputView:
+    """What the service knows of one of a zone's outputs besides its heating one."""
+
+    point: str
+    commanded: bool | None = None
+    read_back: bool | None = None
+    verdict: str | None = None
+
+
+def output_block(
+    point: str, commanded: bool | None, read_back: bool | None, verdict: str | None
+) -> dict[str, Any]:
+    """An output's ``point``, ``commanded``, ``read_back``, ``agrees`` and ``verdict``."""
+    return {
+        "point": point,
+        "commanded": commanded,
+        # what the device last read back; unknown (null) while it cannot be reached
+        "read_back": None if verdict == "comm-failure" else read_back,
+        "agrees": output_agrees(verdict),
+        "verdict": verdict,
+    }
+
+
+@dataclass(frozen=True, slots=True)
 class ZoneView:
     """One zone's latest decision plus what the service adds around it."""
 
@@ -130,6 +154,10 @@ class ZoneView:
     """The level the program (weekly, calendar, optimum start) asks for now."""
     window_1h_s: float = 3600.0
     """Seconds of the last hour the hour's figures cover (less in the first hour)."""
+    cooling_output: OutputView | None = None
+    """A zone with a cooling call: its cooling output."""
+    changeover_output: OutputView | None = None
+    """A zone with a changeover (reversing valve) output: that output."""
 
 
 def output_agrees(verdict: str | None) -> bool | None:
@@ -137,6 +165,22 @@ def output_agrees(verdict: str | None) -> bool | None:
     read-back configured, not read back yet, or the device cannot be reached). The alarms
     and the BMS face use this verdict."""
     return {"ok": True, "mismatch": False}.get(verdict) if verdict is not None else None
+
+
+def zone_outputs_agree(verdicts: Iterable[str | None]) -> bool | None:
+    """Whether a zone's outputs all read back as written: False if any disagrees, True if
+    at least one agrees and none disagrees, None while none can be known (the alarm's
+    ``output-unconfirmed`` input for a zone with cooling or changeover outputs too)."""
+    agreement = [output_agrees(v) for v in verdicts]
+    if False in agreement:
+        return False
+    return True if True in agreement else None
+
+
+def _view_block(view: OutputView | None) -> dict[str, Any] | None:
+    if view is None:
+        return None
+    return output_block(view.point, view.commanded, view.read_back, view.verdict)
 
 
 def shown_level(view: ZoneView) -> str | None:
@@ -165,6 +209,8 @@ def state_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, Any]
                     "droop": _delta(cooling.droop_k, units),
                     "on_fraction_1h": round(cooling.on_fraction_1h, 3),
                     "cycles_1h": cooling.cycles_1h,
+                    "output": _view_block(view.cooling_output),
+                    "changeover_output_device": _view_block(view.changeover_output),
                 },
             }
         )
@@ -201,14 +247,9 @@ def _heating_payload(view: ZoneView, *, units: str, tz: ZoneInfo) -> dict[str, A
         "on_fraction_1h": round(out.on_fraction_1h, 3),
         "cycles_1h": out.cycles_1h,
         "window_1h_s": round(view.window_1h_s),
-        "output": {
-            "point": view.output_point,
-            "commanded": view.output_commanded,
-            # what the device last read back; unknown (null) while it cannot be reached
-            "read_back": None if view.output_verdict == "comm-failure" else view.output_read_back,
-            "agrees": output_agrees(view.output_verdict),
-            "verdict": view.output_verdict,
-        },
+        "output": output_block(
+            view.output_point, view.output_commanded, view.output_read_back, view.output_verdict
+        ),
         "next_change": None
         if view.next_change is None
         else {
