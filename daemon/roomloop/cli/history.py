@@ -3,8 +3,8 @@
 The CSV (``time,temperature,relay,setpoint,fail_safe``; times ISO 8601 with the
 site's offset, temperatures in the site's units) is what ``tune --history`` and
 ``report --history`` read back. ``--csv -`` writes to standard output.
-Exit codes: 0 ok; 1 no history to read, or the file cannot be written; 2 a bad
-site file, an unknown zone, a bad time.
+Exit codes: 0 ok; 1 no history to read (none, or a damaged history file), or the
+file cannot be written; 2 a bad site file, an unknown zone, a bad time.
 """
 
 from __future__ import annotations
