@@ -1,9 +1,11 @@
-"""``history``, ``report`` and ``tune`` on a history file they cannot read: one clear line (no
-traceback), the exit code their module docstrings give."""
+"""``history``, ``report`` and ``tune`` on a history file they cannot read, and on a pipe that
+closes early: one clear line (no traceback), the exit code their module docstrings give."""
 
 from __future__ import annotations
 
 import sqlite3
+import subprocess
+import sys
 from pathlib import Path
 
 import pytest
@@ -117,3 +119,32 @@ def test_a_history_file_that_cannot_be_opened_is_one_line_too(
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and str(path) in err[0] and "cannot read" in err[0], err
     assert "damaged" not in err[0]
+
+
+def test_export_to_a_pipe_closed_early_stops_quietly(tmp_path: Path) -> None:
+    """``roomloop history ... --csv - | head -1``: the reader leaves after one line; the export
+    stops without a traceback and without Python's 'Exception ignored ... BrokenPipeError'
+    at exit (the approach of the Python docs' "Note on SIGPIPE", signal module), exit 0 as
+    ``check | head`` does. A day at 10 s is about 400 kB, far more than a pipe's buffer."""
+    site, _ = _site(tmp_path)
+    err_path = tmp_path / "stderr"
+    with open(err_path, "wb") as err_file:
+        proc = subprocess.Popen(
+            [sys.executable, "-m", "roomloop", "history", "-c", str(site), "--zone", "den",
+             "--csv", "-"],
+            stdout=subprocess.PIPE,
+            stderr=err_file,
+        )
+    assert proc.stdout is not None
+    try:
+        first = proc.stdout.readline()
+        proc.stdout.close()
+        code = proc.wait(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait(timeout=10)
+    err = err_path.read_bytes()
+    assert first.startswith(b"time,temperature,relay")
+    assert err == b"", err.decode()
+    assert code == 0
