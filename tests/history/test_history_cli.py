@@ -76,7 +76,7 @@ def test_export_reads_back_through_the_import(tmp_path: Path) -> None:
     assert main(["history", "-c", str(site), "--zone", "den", "--csv", str(out)]) == 0
     header = out.read_text().splitlines()[:2]
     assert header[0] == "time,temperature,relay,setpoint,fail_safe"
-    assert header[1].startswith("2026-01-02T00:00:00+01:00,19.800,1,20.000,0")
+    assert header[1].startswith("2026-01-02T00:00:00.000+01:00,19.800,1,20.000,0")
     back = read_csv(out, zone="den", tz=ZoneInfo("Europe/Vienna"), units="C")
     assert back.time == [t.at for t in ticks]
     assert back.relay == [t.relay for t in ticks]
@@ -95,7 +95,7 @@ def test_export_window_and_fahrenheit(tmp_path: Path) -> None:
     assert code == 0
     rows = out.read_text().splitlines()
     assert len(rows) == 1 + 6  # 12:00:00 ... 12:00:50
-    assert rows[1].startswith("2026-01-02T12:00:00+01:00,")
+    assert rows[1].startswith("2026-01-02T12:00:00.000+01:00,")
     temp = float(rows[1].split(",")[1])
     assert temp in (pytest.approx(19.8 * 9 / 5 + 32), pytest.approx(20.4 * 9 / 5 + 32))
 
