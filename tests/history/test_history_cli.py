@@ -239,3 +239,18 @@ def test_the_sites_outdoor_point_is_recorded_and_exported(tmp_path: Path) -> Non
     assert back.outdoor is not None
     assert back.outdoor[0] is None
     assert back.outdoor[-1] == pytest.approx(-2.0 + 8639 / 8640, abs=1e-3)
+
+
+def test_csv_with_a_byte_order_mark_reads(tmp_path: Path) -> None:
+    """Spreadsheets (Excel's "CSV UTF-8") start the file with a UTF-8 byte-order mark,
+    U+FEFF (the Unicode Standard, section 23.8 "Specials", recalled from memory); read as
+    UTF-8 it became part of the first column's name ('\\ufefftime': missing column time)."""
+    path = tmp_path / "from-a-spreadsheet.csv"
+    path.write_bytes(
+        "time,temperature,relay\r\n"
+        f"{T0:.0f},20.0,1\r\n"
+        f"{T0 + 10:.0f},20.1,0\r\n".encode("utf-8-sig")
+    )
+    h = read_csv(path, zone="den", tz=ZoneInfo("Europe/Vienna"), units="C")
+    assert h.time == [T0, T0 + 10]
+    assert h.relay == [True, False]

@@ -128,7 +128,8 @@ def read_csv(path: str | Path, *, zone: str, tz: ZoneInfo, units: str) -> ZoneHi
     """Read a history CSV into a :class:`ZoneHistory` (Celsius inside); :class:`CsvError`."""
     name = str(path)
     try:
-        with open(path, newline="", encoding="utf-8") as handle:
+        # utf-8-sig: a byte-order mark (spreadsheets write one) is not part of the header
+        with open(path, newline="", encoding="utf-8-sig") as handle:
             return _read(handle, name, zone=zone, tz=tz, units=units)
     except OSError as exc:
         raise CsvError(
