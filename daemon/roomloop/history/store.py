@@ -309,9 +309,10 @@ class HistoryFile:
                     ):
                         current = []
                     current.append(tick)
-                    if (
+                    if (  # the chunk is written before the next tick would close it
                         i + 1 == len(ticks)
                         or len(current) >= CHUNK_TICKS
+                        or ticks[i + 1].at - current[0].at >= CHUNK_SPAN_S
                         or _layout(ticks[i + 1]) != _layout(current[0])
                     ):
                         self._put(ids, zone, current)
