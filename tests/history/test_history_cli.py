@@ -76,7 +76,7 @@ def test_export_reads_back_through_the_import(tmp_path: Path) -> None:
     assert main(["history", "-c", str(site), "--zone", "den", "--csv", str(out)]) == 0
     header = out.read_text().splitlines()[:2]
     assert header[0] == "time,temperature,relay,setpoint,fail_safe"
-    assert header[1].startswith("2026-01-02T00:00:00+01:00,19.800,1,20.000,0")
+    assert header[1].startswith("2026-01-02T00:00:00.000+01:00,19.800,1,20.000,0")
     back = read_csv(out, zone="den", tz=ZoneInfo("Europe/Vienna"), units="C")
     assert back.time == [t.at for t in ticks]
     assert back.relay == [t.relay for t in ticks]
@@ -95,7 +95,7 @@ def test_export_window_and_fahrenheit(tmp_path: Path) -> None:
     assert code == 0
     rows = out.read_text().splitlines()
     assert len(rows) == 1 + 6  # 12:00:00 ... 12:00:50
-    assert rows[1].startswith("2026-01-02T12:00:00+01:00,")
+    assert rows[1].startswith("2026-01-02T12:00:00.000+01:00,")
     temp = float(rows[1].split(",")[1])
     assert temp in (pytest.approx(19.8 * 9 / 5 + 32), pytest.approx(20.4 * 9 / 5 + 32))
 
@@ -239,3 +239,18 @@ def test_the_sites_outdoor_point_is_recorded_and_exported(tmp_path: Path) -> Non
     assert back.outdoor is not None
     assert back.outdoor[0] is None
     assert back.outdoor[-1] == pytest.approx(-2.0 + 8639 / 8640, abs=1e-3)
+
+
+def test_csv_with_a_byte_order_mark_reads(tmp_path: Path) -> None:
+    """Spreadsheets (Excel's "CSV UTF-8") start the file with a UTF-8 byte-order mark,
+    U+FEFF (the Unicode Standard, section 23.8 "Specials", recalled from memory); read as
+    UTF-8 it became part of the first column's name ('\\ufefftime': missing column time)."""
+    path = tmp_path / "from-a-spreadsheet.csv"
+    path.write_bytes(
+        "time,temperature,relay\r\n"
+        f"{T0:.0f},20.0,1\r\n"
+        f"{T0 + 10:.0f},20.1,0\r\n".encode("utf-8-sig")
+    )
+    h = read_csv(path, zone="den", tz=ZoneInfo("Europe/Vienna"), units="C")
+    assert h.time == [T0, T0 + 10]
+    assert h.relay == [True, False]

@@ -86,6 +86,27 @@ def test_ticks_read_back_as_written_to_their_rounding(tmp_path: Path) -> None:
     assert len(read_zone(path, "other")) == 0
 
 
+def test_a_chunk_closed_by_its_time_span_within_a_batch_is_written(tmp_path: Path) -> None:
+    """A chunk spans at most CHUNK_SPAN_S (2 h). Within one batch, a chunk closed by that
+    span (a gap of more than 2 h: the service stopped; or a tick over 40 s, whose 180 ticks
+    span more) lost its ticks since the last write: at a 60 s tick committed every 50 min, the
+    20 ticks before every second hour."""
+    from roomloop.history.store import CHUNK_SPAN_S, CHUNK_TICKS
+
+    assert CHUNK_TICKS * 60.0 > CHUNK_SPAN_S
+    path = tmp_path / "h.sqlite"
+    db = HistoryFile(path)
+    ticks = [_tick(60.0 * k) for k in range(6 * 60)]  # 6 h at a 60 s tick
+    for i in range(0, len(ticks), 50):  # a commit every 50 min
+        db.write({"room": ticks[i : i + 50]})
+    gap = [_tick(7 * 3600.0 + 10 * k) for k in range(30)] + [
+        _tick(10 * 3600.0 + 10 * k) for k in range(30)
+    ]
+    db.write({"room": gap})  # the service stopped for 3 h inside one batch
+    db.close()
+    assert read_zone(path, "room").time == [t.at for t in ticks + gap]
+
+
 def test_prune_removes_only_chunks_older_than_the_cutoff(tmp_path: Path) -> None:
     db = HistoryFile(tmp_path / "h.sqlite")
     day = 86400.0

@@ -2,14 +2,16 @@
 
 The CSV (``time,temperature,relay,setpoint,fail_safe``; times ISO 8601 with the
 site's offset, temperatures in the site's units) is what ``tune --history`` and
-``report --history`` read back. ``--csv -`` writes to standard output.
-Exit codes: 0 ok; 1 no history to read, or the file cannot be written; 2 a bad
-site file, an unknown zone, a bad time.
+``report --history`` read back. ``--csv -`` writes to standard output; a reader
+that leaves early (``| head``) stops the export quietly, exit 0.
+Exit codes: 0 ok; 1 no history to read (none, or a damaged history file), or the
+file cannot be written; 2 a bad site file, an unknown zone, a bad time.
 """
 
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from zoneinfo import ZoneInfo
 
@@ -53,7 +55,7 @@ def _export(args: argparse.Namespace, site: Site) -> int:
     except HistoryUnavailable as exc:
         raise Refused(str(exc), EXIT_RUNTIME) from None
     if args.csv == "-":
-        write_csv(history, sys.stdout, tz=tz, units=site.site.units)
+        _write_stdout(history, tz, site.site.units)
         return EXIT_OK
     rows = _write_file(history, args.csv, tz, site.site.units)
     print(f"{rows} ticks of zone {args.zone} written to {args.csv}", file=sys.stderr)
@@ -86,6 +88,20 @@ def _check_csv_path(path: str) -> None:
     problem = output_path_problem("--csv", path)
     if problem:
         raise Refused(problem, EXIT_USAGE)
+
+
+def _write_stdout(history: ZoneHistory, tz: ZoneInfo, units: str) -> None:
+    """The CSV on standard output; a reader that left (``| head``) ends it quietly."""
+    try:
+        write_csv(history, sys.stdout, tz=tz, units=units)
+        sys.stdout.flush()
+    except BrokenPipeError:
+        # The Python docs' "Note on SIGPIPE" (signal module): what is still buffered cannot
+        # be written, and would be tried again at exit ("Exception ignored ... BrokenPipeError"):
+        # point standard output at /dev/null so that flush succeeds.
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        os.close(devnull)
 
 
 def _write_file(history: ZoneHistory, path: str, tz: ZoneInfo, units: str) -> int:

@@ -3,8 +3,9 @@
 Per zone and day: control accuracy (EN 15500), cycles per hour, on-time, shortest
 runs, energy (with ``heater_w``), minutes in fail-safe and of each point's faults,
 from the site's history file or from ``--history FILE.csv`` (one zone, ``--zone``).
-Exit codes: 0 ok; 1 no history to read; 2 a bad site file or CSV, an unknown zone,
-a bad time, an unwritable plot path, or ``--plot`` without matplotlib.
+Exit codes: 0 ok; 1 no history to read (none, or a damaged history file); 2 a bad
+site file or CSV, an unknown zone, a bad time, an unwritable plot path, or ``--plot``
+without matplotlib.
 """
 
 from __future__ import annotations
@@ -19,7 +20,7 @@ from roomloop.cli.refusal import Refused
 from roomloop.config.loader import load_site
 from roomloop.config.models import Site
 from roomloop.history.report import day_figures, format_report, tick_of
-from roomloop.history.source import Bound, HistoryUnavailable, load_history
+from roomloop.history.source import Bound, HistoryUnavailable, HistoryUnreadable, load_history
 from roomloop.history.store import ZoneHistory
 
 EXIT_OK = 0
@@ -92,7 +93,8 @@ def _read_zones(
     """Each zone's history and report text, and a line for each zone without history.
 
     A zone named with ``--zone`` and without history stops the report; among all the
-    site's zones, one without history is only named (the others are still reported).
+    site's zones, one without history is only named (the others are still reported). A
+    history file that cannot be read stops it too: no zone of it could be read.
     """
     histories: list[tuple[str, ZoneHistory]] = []
     texts: list[str] = []
@@ -108,6 +110,8 @@ def _read_zones(
                 since=since,
                 until=until,
             )
+        except HistoryUnreadable as exc:
+            raise Refused(str(exc), EXIT_RUNTIME) from None
         except HistoryUnavailable as exc:
             if args.zone is not None:
                 raise Refused(str(exc), EXIT_RUNTIME) from None

@@ -6,9 +6,9 @@ uncertainty, the RMS residual and a verdict on the data, optionally writes the p
 file ``simulate --plant`` reads, and runs the standard protocol on the identified
 plant over candidate tunings, printing today's tuning and the best side by side with
 the site-file lines to paste.
-Exit codes: 0 ok; 1 no history, or the data cannot support an identification, or the
-fit is poor (the reason is printed; no plant file, no recommendation); 2 a bad site file
-or CSV, an unknown zone, numpy/scipy missing.
+Exit codes: 0 ok; 1 no history (none, or a damaged history file), or the data cannot
+support an identification, or the fit is poor (the reason is printed; no plant file, no
+recommendation); 2 a bad site file or CSV, an unknown zone, numpy/scipy missing.
 """
 
 from __future__ import annotations

@@ -5,7 +5,9 @@ Columns (DESIGN.md glossary, "history"): ``time,temperature,relay`` required,
 ISO 8601 (with an offset, or without one in the site's time zone) or POSIX
 seconds; temperatures are in the site's units (``C`` or ``F``); ``relay`` and
 ``fail_safe`` are ``0`` or ``1``. An empty ``temperature`` is a tick without a
-reliable temperature. Rows must go forward in time.
+reliable temperature. Rows must go forward in time: each row's time, as read, later
+than the row before (the export writes times to the millisecond, so ticks less than a
+second apart keep their order).
 
 Every mistake is one line ``FILE:LINE: message`` (:class:`CsvError`, exit 2).
 """
@@ -43,13 +45,23 @@ def _from_site(value: float, units: str) -> float:
 
 
 def write_csv(history: ZoneHistory, out: TextIO, *, tz: ZoneInfo, units: str) -> int:
-    """Write ``history`` as CSV (times in ``tz`` with their offset); rows written. An
-    ``outdoor`` column follows when the history has the outdoor temperature."""
+    """Write ``history`` as CSV (times in ``tz`` with their offset, to the millisecond); rows
+    written. An ``outdoor`` column follows when the history has the outdoor temperature.
+
+    A command wakes a zone for an extra step, so two ticks may fall in one second: times are
+    written to the millisecond (what the history file keeps, :func:`~roomloop.history.store.
+    pack_chunk`) and ticks of one millisecond once, as the later (the state that then held),
+    so every row's time is later than the one before and the file reads back.
+    """
     writer = csv.writer(out, lineterminator="\n")
     outdoor = history.outdoor
     writer.writerow(EXPORTED + (("outdoor",) if outdoor is not None else ()))
-    for k, at in enumerate(history.time):
-        when = dt.datetime.fromtimestamp(at, tz).isoformat(timespec="seconds")
+    stamps = [round(at * 1000.0) for at in history.time]
+    rows = 0
+    for k, ms in enumerate(stamps):
+        if k + 1 < len(stamps) and stamps[k + 1] == ms:
+            continue  # the next tick has the same time: it is written instead
+        when = dt.datetime.fromtimestamp(ms / 1000.0, tz).isoformat(timespec="milliseconds")
         temp = history.temperature[k]
         setpoint = history.setpoint[k]
         row: tuple[object, ...] = (
@@ -63,7 +75,8 @@ def write_csv(history: ZoneHistory, out: TextIO, *, tz: ZoneInfo, units: str) ->
             value = outdoor[k]
             row += ("" if value is None else f"{_to_site(value, units):.3f}",)
         writer.writerow(row)
-    return len(history.time)
+        rows += 1
+    return rows
 
 
 def parse_time(text: str, tz: ZoneInfo) -> float:
@@ -115,7 +128,8 @@ def read_csv(path: str | Path, *, zone: str, tz: ZoneInfo, units: str) -> ZoneHi
     """Read a history CSV into a :class:`ZoneHistory` (Celsius inside); :class:`CsvError`."""
     name = str(path)
     try:
-        with open(path, newline="", encoding="utf-8") as handle:
+        # utf-8-sig: a byte-order mark (spreadsheets write one) is not part of the header
+        with open(path, newline="", encoding="utf-8-sig") as handle:
             return _read(handle, name, zone=zone, tz=tz, units=units)
     except OSError as exc:
         raise CsvError(

@@ -42,7 +42,7 @@ import structlog
 
 from roomloop.core.state import ZoneState
 from roomloop.core.types import ZoneOutputs
-from roomloop.history.store import HistoryFile, Tick, history_path
+from roomloop.history.store import HistoryDamaged, HistoryFile, Tick, history_path, is_damaged
 
 log = structlog.get_logger("roomloop.history")
 
@@ -58,21 +58,6 @@ STOP_WAIT_S = 3.0
 """Real seconds the final flush at stop may take before the service goes on without it."""
 
 _STOP = object()
-
-
-class _Damaged(sqlite3.DatabaseError):
-    """The file opens but fails SQLite's integrity check."""
-
-
-def _damaged(exc: sqlite3.DatabaseError) -> bool:
-    """Whether an error means the file itself is bad (not ours, corrupt), not the disk."""
-    if isinstance(exc, _Damaged):
-        return True
-    name = getattr(exc, "sqlite_errorname", "")
-    if name in ("SQLITE_CORRUPT", "SQLITE_NOTADB"):
-        return True
-    text = str(exc)
-    return "schema" in text and "is not" in text  # HistoryFile: another schema version
 
 
 def tick_from(
@@ -309,9 +294,9 @@ class HistoryRecorder:
                         log.info("history.opened", path=str(self.path))
                     return db
                 db.close()
-                raise _Damaged(f"integrity check: {problem}")
+                raise HistoryDamaged(f"integrity check: {problem}")
             except sqlite3.DatabaseError as exc:
-                if not _damaged(exc):  # cannot open, disk full, locked: try again later
+                if not is_damaged(exc):  # cannot open, disk full, locked: try again later
                     self.failures += 1
                     log.error("history.unavailable", path=str(self.path), error=str(exc))
                     return None
@@ -350,7 +335,7 @@ class HistoryRecorder:
         try:
             self.written += db.write(batches)
         except sqlite3.DatabaseError as exc:
-            if _damaged(exc):  # the file went bad under us
+            if is_damaged(exc):  # the file went bad under us
                 self.failures += 1
                 with contextlib.suppress(sqlite3.Error):
                     db.close()

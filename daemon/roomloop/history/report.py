@@ -1,14 +1,22 @@
 """``report``'s figures: per zone and day, the simulator's figures computed on recorded history.
 
-The figures are those of the standard protocol (:mod:`roomloop.plant.figures`, reused):
-control accuracy after EN 15500 (CA = |CSD| + CV, CSD = mean(T) - S, CV = (max T -
-min T) / 2) over each stretch of constant set point, once it has settled (the first
-``SETTLE_S`` after a set-point change are left out, as the protocol leaves out its
-warm-up and ramps; stretches shorter than ``MIN_STRETCH_S`` after that are not
-scored); the day's CA is the worst stretch's. Cycles per hour, on-fraction, shortest
-complete on and off runs and energy (``heater_w`` x on-time, when the zone has
-``heater_w``) over the whole day. Minutes in fail-safe, and minutes each input point
-was not ``ok``.
+The figures are those of the standard protocol (:mod:`roomloop.plant.figures`): control
+accuracy after EN 15500 (CA = |CSD| + CV, CSD = mean(T) - S, CV = (max T - min T) / 2)
+over each stretch of constant set point, once it has settled (the first ``SETTLE_S``
+after a set-point change are left out, as the protocol leaves out its warm-up and
+ramps; stretches with less than ``MIN_STRETCH_S`` after that are not scored); the day's
+CA is the worst stretch's. Cycles per hour, on-fraction, shortest complete on and off
+runs and energy (``heater_w`` x on-time, when the zone has ``heater_w``) over the whole
+day. Minutes in fail-safe, and minutes each input point was not ``ok``.
+
+Durations are real time, not a count of ticks: a recorded history is not evenly spaced
+(a command wakes a zone for an extra step, a tick changes, the service stops). Each
+sample holds from its time until the next sample, but at most ``MAX_COVER_TICKS``
+ticks (the tick: the median spacing), so a gap in the history (the service stopped,
+ticks lost) is not counted as time in the state before it; the newest sample holds one
+tick. A day's hours are the time its samples cover (a day with a gap reads less than
+24 h), split at midnight (the sample before midnight holds into the next day); the mean
+of T is weighted by that time.
 
 One difference from the simulator: T is the zone temperature the controller saw (its
 sensors), not a model's true room air, which the history cannot know.
@@ -17,6 +25,7 @@ sensors), not a model's true room air, which the history cannot know.
 from __future__ import annotations
 
 import datetime as dt
+import itertools
 import math
 import statistics
 from collections.abc import Sequence
@@ -24,11 +33,12 @@ from dataclasses import dataclass, field
 from zoneinfo import ZoneInfo
 
 from roomloop.history.store import ZoneHistory
-from roomloop.plant.figures import window_figures
 from roomloop.units import delta_from_kelvin
 
 SETTLE_S = 3600.0
 MIN_STRETCH_S = 3600.0
+MAX_COVER_TICKS = 3
+"""A sample holds at most this many ticks: a longer gap after it is not counted."""
 
 
 @dataclass(frozen=True, slots=True)
@@ -56,6 +66,16 @@ def tick_of(history: ZoneHistory) -> float:
     return float(statistics.median(gaps)) if gaps else 10.0
 
 
+def cover_s(history: ZoneHistory, tick_s: float) -> list[float]:
+    """How long each sample held: until the next sample, at most ``MAX_COVER_TICKS`` ticks;
+    the newest, one tick."""
+    cap = MAX_COVER_TICKS * tick_s
+    out = [max(0.0, min(b - a, cap)) for a, b in itertools.pairwise(history.time)]
+    if history.time:
+        out.append(tick_s)
+    return out
+
+
 def _days(history: ZoneHistory, tz: ZoneInfo) -> list[tuple[dt.date, int, int]]:
     """(local day, first index, end index) for each day the history touches."""
     out: list[tuple[dt.date, int, int]] = []
@@ -72,6 +92,13 @@ def _days(history: ZoneHistory, tz: ZoneInfo) -> list[tuple[dt.date, int, int]]:
     return out
 
 
+def _day_bounds(day: dt.date, tz: ZoneInfo) -> tuple[float, float]:
+    """The day's first and last instant (POSIX seconds; 23 or 25 h on a DST change)."""
+    begin = dt.datetime.combine(day, dt.time(0), tzinfo=tz).timestamp()
+    end = dt.datetime.combine(day + dt.timedelta(days=1), dt.time(0), tzinfo=tz).timestamp()
+    return begin, end
+
+
 def _stretches(setpoints: Sequence[float | None]) -> list[tuple[int, int]]:
     """Runs of a constant (known) set point: (first, end) indices."""
     out: list[tuple[int, int]] = []
@@ -84,82 +111,102 @@ def _stretches(setpoints: Sequence[float | None]) -> list[tuple[int, int]]:
     return out
 
 
+def _shortest_runs(
+    relay: Sequence[bool], cover: Sequence[float], first: int, end: int
+) -> dict[bool, float | None]:
+    """The shortest complete on and off run that starts in the day: from one switch to the
+    next, both at samples of the day (or the next day's first), as long as its samples held."""
+    switches = [
+        k for k in range(max(first, 1), min(end + 1, len(relay))) if relay[k] != relay[k - 1]
+    ]
+    elapsed = [0.0, *itertools.accumulate(cover)]
+    shortest: dict[bool, float | None] = {True: None, False: None}
+    for a, b in itertools.pairwise(switches):
+        length = elapsed[b] - elapsed[a]
+        current = shortest[relay[a]]
+        if current is None or length < current:
+            shortest[relay[a]] = length
+    return shortest
+
+
+def _accuracy(
+    history: ZoneHistory,
+    weight: dict[int, float],
+    first: int,
+    end: int,
+    stretch_start: Sequence[float],
+) -> tuple[tuple[float, float, float] | None, float]:
+    """The day's worst settled stretch (CA, CSD, CV) and the seconds scored."""
+    worst: tuple[float, float, float] | None = None
+    scored = 0.0
+    for s_first, s_end in _stretches(history.setpoint[first:end]):
+        settled = stretch_start[first + s_first] + SETTLE_S
+        ok: list[tuple[int, float]] = []  # (sample, T) of the settled part, not in fail-safe
+        for k in range(first + s_first, first + s_end):
+            temperature = history.temperature[k]
+            if history.time[k] >= settled and temperature is not None and not history.fail_safe[k]:
+                ok.append((k, temperature))
+        held = math.fsum(weight[k] for k, _ in ok)
+        if not ok or held < MIN_STRETCH_S:
+            continue
+        mean = math.fsum(weight[k] * t for k, t in ok) / held
+        temps = [t for _, t in ok]
+        setpoint = history.setpoint[ok[0][0]]
+        assert setpoint is not None
+        deviation = mean - setpoint
+        variation = (max(temps) - min(temps)) / 2.0
+        scored += held
+        if worst is None or abs(deviation) + variation > worst[0]:
+            worst = (abs(deviation) + variation, deviation, variation)
+    return worst, scored
+
+
 def day_figures(
     history: ZoneHistory, tz: ZoneInfo, *, heater_w: float | None
 ) -> list[DayFigures]:
     """The figures of each day of ``history`` (days in the site's time zone)."""
-    tick = tick_of(history)
-    out: list[DayFigures] = []
-    settle_ticks = math.ceil(SETTLE_S / tick)
-    min_ticks = math.ceil(MIN_STRETCH_S / tick)
+    cover = cover_s(history, tick_of(history))
     # set-point stretches over the whole history, so a change just before midnight still
     # counts as unsettled after it
-    stretch_of = [0] * len(history.time)
+    stretch_start = [0.0] * len(history.time)
     for first, end in _stretches(history.setpoint):
         for k in range(first, end):
-            stretch_of[k] = first
+            stretch_start[k] = history.time[first]
+    out: list[DayFigures] = []
     for day, first, end in _days(history, tz):
-        relay = history.relay[first:end]
-        n = end - first
-        temps = history.temperature[first:end]
-        known = [t if t is not None else math.nan for t in temps]
-        whole = window_figures(
-            [0.0 if math.isnan(t) else t for t in known],
-            relay,
-            tick_s=tick,
-            start_s=0.0,
-            end_s=n * tick,
-            setpoint_c=0.0,
-            heater_w=heater_w or 0.0,
+        begin, finish = _day_bounds(day, tz)
+        # the time each sample held within the day, the one before midnight included
+        weight = {
+            k: max(0.0, min(history.time[k] + cover[k], finish) - max(history.time[k], begin))
+            for k in range(max(first - 1, 0), end)
+        }
+        held = math.fsum(weight.values())
+        on_s = math.fsum(w for k, w in weight.items() if history.relay[k])
+        switch_ons = sum(
+            1 for k in range(max(first, 1), end) if history.relay[k] and not history.relay[k - 1]
         )
-        worst: tuple[float, float, float] | None = None
-        scored = 0
-        for s_first, s_end in _stretches(history.setpoint[first:end]):
-            a = max(first + s_first, stretch_of[first + s_first] + settle_ticks)
-            b = first + s_end
-            ok = [
-                k
-                for k in range(a, b)
-                if history.temperature[k] is not None and not history.fail_safe[k]
-            ]
-            if len(ok) < min_ticks:
-                continue
-            setpoint = history.setpoint[a]
-            assert setpoint is not None
-            figures = window_figures(
-                [history.temperature[k] for k in ok],  # type: ignore[misc]
-                [history.relay[k] for k in ok],
-                tick_s=tick,
-                start_s=0.0,
-                end_s=len(ok) * tick,
-                setpoint_c=setpoint,
-                heater_w=0.0,
-            )
-            scored += len(ok)
-            if worst is None or figures.control_accuracy_k > worst[0]:
-                worst = (
-                    figures.control_accuracy_k,
-                    figures.setpoint_deviation_k,
-                    figures.control_variation_k,
-                )
-        faults: dict[str, float] = {}
-        for name, column in history.points.items():
-            bad = sum(1 for value in column[first:end] if value[1] not in ("ok", "absent"))
-            faults[name] = bad * tick / 60.0
+        runs = _shortest_runs(history.relay, cover, first, end)
+        worst, scored = _accuracy(history, weight, first, end, stretch_start)
+        faults = {
+            name: math.fsum(w for k, w in weight.items() if column[k][1] not in ("ok", "absent"))
+            / 60.0
+            for name, column in history.points.items()
+        }
         out.append(
             DayFigures(
                 day=day,
-                hours=n * tick / 3600.0,
+                hours=held / 3600.0,
                 control_accuracy_k=None if worst is None else worst[0],
                 setpoint_deviation_k=None if worst is None else worst[1],
                 control_variation_k=None if worst is None else worst[2],
-                scored_hours=scored * tick / 3600.0,
-                cycles_per_hour=whole.cycles_per_hour,
-                on_fraction=whole.on_fraction,
-                shortest_on_s=whole.shortest_on_s,
-                shortest_off_s=whole.shortest_off_s,
-                energy_kwh=whole.energy_kwh if heater_w else None,
-                fail_safe_min=sum(1 for f in history.fail_safe[first:end] if f) * tick / 60.0,
+                scored_hours=scored / 3600.0,
+                cycles_per_hour=switch_ons / (held / 3600.0) if held > 0 else 0.0,
+                on_fraction=on_s / held if held > 0 else 0.0,
+                shortest_on_s=runs[True],
+                shortest_off_s=runs[False],
+                energy_kwh=heater_w * on_s / 3.6e6 if heater_w else None,
+                fail_safe_min=math.fsum(w for k, w in weight.items() if history.fail_safe[k])
+                / 60.0,
                 fault_min=faults,
             )
         )
@@ -198,5 +245,9 @@ def format_report(
     lines.append(
         "CA = |CSD| + CV (EN 15500), worst settled stretch of constant set point "
         f"(the first {SETTLE_S / 60:.0f} min after a change left out); min on/off in s"
+    )
+    lines.append(
+        "hours: the time the samples cover (each holds until the next, at most "
+        f"{MAX_COVER_TICKS} ticks: a longer gap, the service stopped, is not counted)"
     )
     return "\n".join(lines)

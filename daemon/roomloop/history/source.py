@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import os
 import re
+import sqlite3
 from dataclasses import dataclass
 from pathlib import Path
 from zoneinfo import ZoneInfo
@@ -17,7 +18,7 @@ from zoneinfo import ZoneInfo
 from roomloop.config.models import Site
 from roomloop.errors import RoomloopError
 from roomloop.history.csvfile import parse_time, read_csv
-from roomloop.history.store import HistoryFile, ZoneHistory, history_path
+from roomloop.history.store import HistoryFile, ZoneHistory, history_path, is_damaged
 
 _SPAN = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*([mhdw])\s*$")
 _UNIT_S = {"m": 60.0, "h": 3600.0, "d": 86400.0, "w": 604800.0}
@@ -25,6 +26,27 @@ _UNIT_S = {"m": 60.0, "h": 3600.0, "d": 86400.0, "w": 604800.0}
 
 class HistoryUnavailable(RoomloopError):
     """No history to read: no file, no such zone in it, or nothing in the window."""
+
+
+class HistoryUnreadable(HistoryUnavailable):
+    """The site's history file is there but cannot be read (damaged, or cannot be opened):
+    no zone of it can be read, so a command over all zones stops at the first."""
+
+
+def _unreadable(path: Path, exc: sqlite3.DatabaseError) -> HistoryUnreadable:
+    """One line naming the file, what is wrong and what to do."""
+    if is_damaged(exc):
+        return HistoryUnreadable(
+            f"the history file {path} is damaged ({exc}) and cannot be read: the service "
+            "(roomloop run) moves a damaged history file aside, to "
+            f"{path.name}.damaged-<time>, and starts a new one when it finds the damage (at "
+            "its start, or when a write fails); otherwise stop the service, move the file "
+            "aside yourself and start it again"
+        )
+    return HistoryUnreadable(
+        f"cannot read the history file {path}: {exc} (is it readable by this user, "
+        "and not locked by another program?)"
+    )
 
 
 @dataclass(frozen=True, slots=True)
@@ -82,7 +104,8 @@ def load_history(
     From the file, the site's outdoor point (recorded with each zone's ticks) becomes the
     history's outdoor temperature, which ``tune`` fits with.
 
-    Raises :class:`HistoryUnavailable` (one clear line) when there is nothing to read, and
+    Raises :class:`HistoryUnavailable` (one clear line) when there is nothing to read
+    (:class:`HistoryUnreadable` when the file is damaged or cannot be opened), and
     :class:`~roomloop.history.csvfile.CsvError` for a bad CSV.
     """
     tz = ZoneInfo(site.site.timezone)
@@ -96,18 +119,7 @@ def load_history(
                 f"no history file {path} (the service keeps one while it runs with "
                 "history enabled; or give --state-dir, or --history FILE.csv)"
             )
-        db = HistoryFile(path)
-        try:
-            zones = db.zones()
-            if zone not in zones:
-                raise HistoryUnavailable(
-                    f"no history of zone {zone!r} in {path} (zones there: "
-                    + (", ".join(zones) or "none")
-                    + ")"
-                )
-            full = db.read(zone)
-        finally:
-            db.close()
+        full = _read_file(path, zone)
         outdoor = site.site.outdoor_point
         if outdoor is not None and outdoor in full.points and full.outdoor is None:
             full.outdoor = [v if verdict == "ok" else None for v, verdict in full.points[outdoor]]
@@ -123,6 +135,26 @@ def load_history(
     if not out.time:
         raise HistoryUnavailable(f"{where}: no ticks of zone {zone!r} in the window asked for")
     return out
+
+
+def _read_file(path: Path, zone: str) -> ZoneHistory:
+    """The zone's ticks from the history file; :class:`HistoryUnreadable` for a file that
+    cannot be read, :class:`HistoryUnavailable` for a zone it does not hold."""
+    try:
+        db = HistoryFile(path)
+        try:
+            zones = db.zones()
+            if zone not in zones:
+                raise HistoryUnavailable(
+                    f"no history of zone {zone!r} in {path} (zones there: "
+                    + (", ".join(zones) or "none")
+                    + ")"
+                )
+            return db.read(zone)
+        finally:
+            db.close()
+    except sqlite3.DatabaseError as exc:
+        raise _unreadable(path, exc) from None
 
 
 def window(history: ZoneHistory, lo: float | None, hi: float | None) -> ZoneHistory:

@@ -47,6 +47,23 @@ CREATE INDEX IF NOT EXISTS chunks_t1 ON chunks (t1);
 """
 
 
+class HistoryDamaged(sqlite3.DatabaseError):
+    """The file is no sound history: it fails SQLite's integrity check, or a chunk of it does
+    not unpack."""
+
+
+def is_damaged(exc: sqlite3.DatabaseError) -> bool:
+    """Whether an error means the file itself is bad (not a database, corrupt, another schema),
+    not the disk or the file's access (locked, cannot open, disk full)."""
+    if isinstance(exc, HistoryDamaged):
+        return True
+    name = getattr(exc, "sqlite_errorname", "")
+    if name in ("SQLITE_CORRUPT", "SQLITE_NOTADB"):
+        return True
+    text = str(exc)
+    return "schema" in text and "is not" in text  # HistoryFile: another schema version
+
+
 def history_path(state_dir: str | Path, site_name: str) -> Path:
     """Where a site's history lives: ``<state_dir>/<site>.history.sqlite``."""
     return Path(state_dir) / f"{site_name}.history.sqlite"
@@ -292,9 +309,10 @@ class HistoryFile:
                     ):
                         current = []
                     current.append(tick)
-                    if (
+                    if (  # the chunk is written before the next tick would close it
                         i + 1 == len(ticks)
                         or len(current) >= CHUNK_TICKS
+                        or ticks[i + 1].at - current[0].at >= CHUNK_SPAN_S
                         or _layout(ticks[i + 1]) != _layout(current[0])
                     ):
                         self._put(ids, zone, current)
@@ -331,7 +349,8 @@ class HistoryFile:
     def read(
         self, zone: str, since: float | None = None, until: float | None = None
     ) -> ZoneHistory:
-        """The zone's ticks with ``since <= at < until``, in time order."""
+        """The zone's ticks with ``since <= at < until``, in time order; :class:`HistoryDamaged`
+        when a chunk does not unpack."""
         out = ZoneHistory(zone)
         zone_id = self._ids.get(zone)
         if zone_id is None:
@@ -344,7 +363,11 @@ class HistoryFile:
             (zone_id, lo if math.isfinite(lo) else -1e300, hi if math.isfinite(hi) else 1e300),
         )
         for t0, data in rows:
-            for tick in unpack_chunk(data, t0, id_name):
+            try:
+                ticks = unpack_chunk(data, t0, id_name)
+            except (ValueError, KeyError, TypeError, struct.error, zlib.error) as exc:
+                raise HistoryDamaged(f"a chunk of zone {zone} does not unpack: {exc}") from None
+            for tick in ticks:
                 if lo <= tick.at < hi:
                     _append(out, tick)
         return out
