@@ -182,7 +182,11 @@ async def test_a_slow_disk_stalls_no_zone_loop_and_the_last_state_is_saved(
     zone_went_on: list[bool] = []
 
     def slow_save(
-        zones: dict[str, Any], now: float, warm_up: dict[str, Any] | None = None
+        zones: dict[str, Any],
+        now: float,
+        warm_up: dict[str, Any] | None = None,
+        *,
+        sources: dict[str, Any] | None = None,
     ) -> bool:
         """A card that takes its time: waits (each wait bounded) for the zone to step 3 times."""
         runtime = service.zones["room0"]
@@ -190,7 +194,7 @@ async def test_a_slow_disk_stalls_no_zone_loop_and_the_last_state_is_saved(
         while runtime.steps < steps + 3 and ticked.wait(3.0):
             ticked.clear()
         zone_went_on.append(runtime.steps >= steps + 3)
-        return real_save(zones, now, warm_up)
+        return real_save(zones, now, warm_up, sources=sources)
 
     service.store.save = slow_save  # type: ignore[method-assign]
     async with RoomPlant(server, [17.0], clock), running(service):

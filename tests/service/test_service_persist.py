@@ -5,6 +5,7 @@ from __future__ import annotations
 import json
 import os
 from pathlib import Path
+from typing import Any
 
 import pytest
 from structlog.testing import capture_logs
@@ -143,3 +144,66 @@ def test_warm_up_models_round_trip_and_a_bad_one_is_dropped(tmp_path: Path) -> N
     # a site without learned models keeps the old document (no warm_up key)
     StateStore(tmp_path, "t").save({"z": {}}, now=1.0)
     assert "warm_up" not in json.loads((tmp_path / "t.state.json").read_text())
+
+
+def _site_with_sources(tmp_path: Path) -> Any:
+    import yaml
+    from service_rooms import site_yaml
+
+    from roomloop.config.loader import load_site
+
+    data = site_yaml(modbus_port=1502, broker_port=1883, zones=1)
+    data["points"] += [
+        {"name": f"enable-{n}", "type": "modbus-output", "link": "rooms", "address": 10 + k}
+        for k, n in enumerate(("a", "b", "c"))
+    ]
+    data["heat_sources"] = [
+        {"name": "a", "kind": "boiler", "output": "enable-a", "zones": ["room0"]},
+        {"name": "b", "kind": "heat-pump", "output": "enable-b", "zones": ["north/x"]},
+        {"name": "c", "kind": "boiler", "output": "enable-c", "zones": ["north/y"]},
+    ]
+    path = tmp_path / "site.yaml"
+    path.write_text(yaml.safe_dump(data))
+    return load_site(path)
+
+
+def test_sources_histories_round_trip_and_bad_ones_are_refused(tmp_path: Path) -> None:
+    """Each source's saved history is read back checked: one saved for another kind, one with
+    a start after the restart and one that is not an object are refused with a log event
+    (that source resumes as without a saved state); the rest of the file loads."""
+    from roomloop.core.source import SourceMemory
+    from roomloop.service.persistence import restored_sources
+
+    site = _site_with_sources(tmp_path)
+    good = SourceMemory("boiler", True, 900.0, 500.0, (100.0, 900.0))
+    store = StateStore(tmp_path / "state", site.name)
+    store.save({"room0": {"a": 1}}, now=1000.0, sources={
+        "a": good.to_dict(),
+        "b": {**good.to_dict(), "kind": "heat-pump", "starts": [100.0, 5000.0]},  # future
+        "c": {**good.to_dict(), "kind": "heat-pump"},  # saved for another kind
+        "gone": good.to_dict(),  # a source the file no longer has: ignored
+    })
+    again = StateStore(tmp_path / "state", site.name)
+    assert again.load() == {"room0": {"a": 1}}
+    with capture_logs() as events:
+        restored = restored_sources(site, again, now=1000.0)
+    assert restored == {"a": good}
+    rejected = {e["source"]: e["reason"] for e in events
+                if e["event"] == "persist.source_state_rejected"}
+    assert set(rejected) == {"b", "c"}
+    assert "after the restart" in rejected["b"] and "kind 'heat-pump'" in rejected["c"]
+    # an old file (no sources key) loads as before, with nothing to restore
+    StateStore(tmp_path / "old", site.name).save({"room0": {"a": 1}}, now=1.0)
+    assert "sources" not in json.loads((tmp_path / "old" / "test-annex.state.json").read_text())
+    old = StateStore(tmp_path / "old", site.name)
+    assert old.load() == {"room0": {"a": 1}} and restored_sources(site, old, now=2.0) == {}
+    # sources that are not an object: refused with an event, the zones still load
+    path = tmp_path / "state" / "test-annex.state.json"
+    document = json.loads(path.read_text())
+    path.write_text(json.dumps({**document, "sources": ["a", 1]}))
+    with capture_logs() as events:
+        broken = StateStore(tmp_path / "state", site.name)
+        assert broken.load() == {"room0": {"a": 1}}
+        assert restored_sources(site, broken, now=1000.0) == {}
+    assert "persist.source_states_rejected" in [e["event"] for e in events]
+    assert path.is_file()  # not moved aside: only the sources' part is refused

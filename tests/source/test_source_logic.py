@@ -10,9 +10,11 @@ from source_helpers import T0, first, local, run
 from roomloop.core.source import (
     SourceInputs,
     SourceLogic,
+    SourceMemory,
     SourceSettings,
     ZoneDemand,
 )
+from roomloop.core.state import StateFormatError
 
 BOILER = SourceSettings(name="boiler", zones=("office", "showroom"))
 """The boiler defaults: valve 180 s, pre-run 0, overrun 180 s, min on 120 s, min off 180 s,
@@ -142,6 +144,89 @@ def test_start_up_counts_as_a_stop() -> None:
         if out.enable:
             break
     assert now == T0 + 180 and out.enable
+
+
+LIMITED = SourceSettings(
+    name="b", zones=("office",), valve_opening_s=0, min_on_s=120, min_off_s=60,
+    max_starts_per_hour=2, pump_overrun_s=0,
+)
+
+
+def _calling(logic: SourceLogic, state: Any, now: float) -> Any:
+    return logic.step(state, SourceInputs((local("office", True, now),)), now)
+
+
+def test_a_restart_found_off_keeps_the_last_hours_starts() -> None:
+    """Two starts saved, the limit is two: after the restart the minimum off time passes and
+    the source still waits until the first saved start leaves the hour."""
+    logic = SourceLogic(LIMITED)
+    now = T0 + 1000
+    memory = SourceMemory("boiler", stopped_at=T0 + 900, starts=(T0 - 4000, T0, T0 + 800))
+    state = logic.resume(False, False, now, memory)
+    assert state.starts == (T0, T0 + 800)  # the one older than an hour is gone
+    assert state.stopped_at == now  # start-up still counts as a stop (conservative)
+    state, out = _calling(logic, state, now + 30)
+    assert (out.enable, out.lockout, out.starts_1h) == (False, "min-off", 2)
+    state, out = _calling(logic, state, now + 120)
+    assert (out.enable, out.lockout, out.lockout_until) == (False, "max-starts", T0 + 3600)
+    state, out = _calling(logic, state, T0 + 3599)
+    assert (out.enable, out.reason) == (False, "max-starts")
+    state, out = _calling(logic, state, T0 + 3600)  # the hour is (now - 3600, now]
+    assert (out.enable, out.reason, out.starts_1h) == (True, "firing", 2)
+    # without a memory (as before the state file kept it) the restart forgot both starts
+    state, out = _calling(logic, logic.resume(False, False, now), now + 120)
+    assert (out.enable, out.starts_1h) == (True, 1)
+
+
+def test_a_restart_found_firing_keeps_its_saved_run() -> None:
+    logic = SourceLogic(LIMITED)
+    now = T0 + 100
+    memory = SourceMemory("boiler", running=True, running_since=T0 + 50, starts=(T0 - 100, T0 + 50))
+    state = logic.resume(True, True, now, memory)
+    assert (state.running, state.running_since) == (True, T0 + 50)
+    assert state.starts == (T0 - 100, T0 + 50)  # no start of the restart's own
+    # the call ends: the minimum on time counts from the real start (T0 + 50), not the restart
+    state, out = logic.step(state, SourceInputs((local("office", False, now),)), now)
+    assert (out.enable, out.lockout, out.lockout_until) == (True, "min-on", T0 + 170)
+    assert out.starts_1h == 2
+    state, out = logic.step(state, SourceInputs((local("office", False, T0 + 170),)), T0 + 170)
+    assert not out.enable
+    # a run saved long ago: still no extra start, and its start has left the hour
+    old = SourceMemory("boiler", running=True, running_since=T0 - 7200, starts=())
+    assert logic.resume(True, False, now, old).starts == ()
+    # found firing but saved off: its run counts as a start now, beside the saved ones
+    off = SourceMemory("boiler", stopped_at=T0 + 60, starts=(T0 + 10,))
+    state = logic.resume(True, False, now, off)
+    assert (state.running_since, state.starts) == (now, (T0 + 10, now))
+
+
+def test_a_saved_source_state_round_trips_and_garbage_is_refused() -> None:
+    memory = SourceMemory("boiler", True, T0 - 30, T0 - 500, (T0 - 900, T0 - 30))
+    assert SourceMemory.from_dict(memory.to_dict(), kind="boiler", now=T0) == memory
+    good = memory.to_dict()
+    bad: list[tuple[Any, str]] = [
+        ([1, 2], "not an object"),
+        ({**good, "pump": True}, "unknown keys: pump"),
+        ({**good, "kind": "heat-pump"}, "kind 'heat-pump'"),
+        ({**good, "running": "yes"}, "running must be"),
+        ({**good, "running_since": None}, "running without running_since"),
+        ({**good, "stopped_at": T0 + 10}, "stopped_at"),  # after the restart
+        ({**good, "starts": [T0 - 10, T0 + 3000]}, "after the restart"),
+        ({**good, "starts": [True]}, "starts must be POSIX"),
+        ({**good, "starts": ["x"]}, "starts must be POSIX"),
+        ({**good, "starts": [float("nan")]}, "starts must be POSIX"),
+        ({**good, "starts": [-1e300]}, "starts must be POSIX"),
+        ({**good, "starts": [None]}, "null"),
+        ({**good, "starts": {"a": 1}}, "list"),
+        ({**good, "starts": [T0 - 1] * 4000}, "list"),
+    ]
+    for raw, fragment in bad:
+        with pytest.raises(StateFormatError, match=fragment):
+            SourceMemory.from_dict(raw, kind="boiler", now=T0)
+    # unsorted starts are put in order; missing keys are the defaults
+    assert SourceMemory.from_dict(
+        {"kind": "boiler", "starts": [T0 - 5, T0 - 50]}, kind="boiler", now=T0
+    ).starts == (T0 - 50, T0 - 5)
 
 
 REMOTE = SourceSettings(name="b", zones=("north/office",), valve_opening_s=0, min_on_s=0,

@@ -4,7 +4,8 @@ Whatever the zones do: the minimum on and off times and the starts per sliding h
 never violated, the pump runs whenever the source fires and for the overrun after, the
 source never fires before a calling zone's valve has had its opening time, a call that
 lasts a single tick never starts it, it never fires with nobody calling unless its
-minimum on time holds it, and a restart resumed from the relays as found switches nothing.
+minimum on time holds it, a restart resumed from the relays as found switches nothing, and
+one resumed with the saved history as well gets around no short-cycle limit.
 """
 
 from __future__ import annotations
@@ -15,7 +16,13 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from source_helpers import T0, Tick, local, run
 
-from roomloop.core.source import SourceInputs, SourceLogic, SourceSettings, ZoneDemand
+from roomloop.core.source import (
+    SourceInputs,
+    SourceLogic,
+    SourceMemory,
+    SourceSettings,
+    ZoneDemand,
+)
 
 ZONES = ("a", "b", "c")
 
@@ -254,3 +261,50 @@ def test_a_restart_from_the_relays_as_found_never_switches_the_source(
             assert held >= s.min_on_s - EPS
         else:  # a pause from a to b
             assert held >= s.min_off_s - EPS
+
+
+@settings(max_examples=50, deadline=None)
+@given(
+    timing=timings,
+    per_zone=zone_runs,
+    tick_s=ticks_s,
+    restarts=st.lists(st.integers(1, 299), max_size=12, unique=True),
+)
+def test_a_restart_with_the_saved_history_keeps_every_limit(
+    timing: dict[str, object],
+    per_zone: list[list[tuple[int, bool]]],
+    tick_s: float,
+    restarts: list[int],
+) -> None:
+    """The daemon restarts at random ticks, each time resumed from the relays as they were
+    and the history the state file kept (``SourceMemory`` of the state before): the starts
+    per sliding hour, counted over the whole timeline, never pass the limit; the minimum on
+    and off times hold; and every tick's ``starts_1h`` is the true count (a run found going
+    on is not counted again)."""
+    s = SourceSettings(name="s", zones=ZONES, **timing)  # type: ignore[arg-type]
+    logic = SourceLogic(s)
+    ticks = 300
+    calls = {z: _schedule(runs, ticks) for z, runs in zip(ZONES, per_zone, strict=True)}
+    state = logic.initial_state(T0 - 10 * 3600.0)
+    enable: list[bool] = []
+    reported: list[int] = []
+    pump = False
+    for k in range(ticks):
+        now = T0 + k * tick_s
+        if k in restarts:
+            state = logic.resume(enable[-1], pump, now, SourceMemory.of(s.kind, state))
+        demands = SourceInputs(tuple(local(z, calls[z][k], now) for z in ZONES))
+        state, out = logic.step(state, demands, now)
+        enable.append(out.enable)
+        reported.append(out.starts_1h)
+        pump = out.pump
+    starts = [T0 + k * tick_s for k in range(ticks) if enable[k] and (k == 0 or not enable[k - 1])]
+    for k in range(ticks):
+        now = T0 + k * tick_s
+        in_hour = [t for t in starts if now - 3600 < t <= now]
+        assert reported[k] == len(in_hour)
+        assert len(in_hour) <= s.max_starts_per_hour
+    changes = [k for k in range(1, ticks) if enable[k] != enable[k - 1]]
+    for a, b in itertools.pairwise(changes):
+        held = (b - a) * tick_s
+        assert held >= (s.min_on_s if enable[a] else s.min_off_s) - EPS

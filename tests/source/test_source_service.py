@@ -221,3 +221,63 @@ async def test_a_zone_whose_loop_fails_stops_calling_its_source(
             assert runtime.steps == steps and service.restarts["zone:room0"] >= 2
             assert not coils.now[2], coils.changes
     assert any(e["event"] == "service.task_failed" for e in logs)
+
+
+async def test_a_restart_keeps_the_sources_starts_of_the_last_hour(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    """A boiler allowed 2 starts an hour starts twice, the service stops, and a new one starts
+    on the same state directory: the boiler waits for the first start to leave the hour
+    (the restart does not reset the count), then fires."""
+    clock = VirtualClock()
+    server = await modbus_tcp_server()
+    data = site_yaml(modbus_port=server.port, broker_port=1, zones=1)
+    del data["broker"]
+    data["points"] += source_points()
+    data["heat_sources"] = [
+        boiler(["room0"], valve_opening_s=30, min_off_s=60, max_starts_per_hour=2)
+    ]
+    site = write_site(tmp_path, data)
+    state_dir = tmp_path / "state"
+    async with (
+        RoomPlant(server, [15.0], clock) as plant,
+        Coils(server, clock).watching() as coils,
+    ):
+        plant.frozen = True  # the room stays at 15 C: it calls whenever its set point is 26 C
+        service = Service(site, clock=clock, state_dir=state_dir)
+        async with running(service):
+            await until(clock, lambda: "room0" in service.zones, 30)
+            for _ in range(2):
+                service.apply_command("room0", "setpoint", 26.0)
+                await until(clock, lambda: coils.now[2], 600)
+                service.apply_command("room0", "setpoint", 10.0)
+                await until(clock, lambda: not coils.now[2], 600)
+            out = service.sources.sources["boiler"].outputs
+            assert out is not None and out.starts_1h == 2
+        started = [at for at, coil, on in coils.changes if coil == 2 and on]
+        assert len(started) == 2, coils.changes
+        saved = json.loads(service.store.path.read_text())["sources"]["boiler"]
+        assert len(saved["starts"]) == 2 and saved["kind"] == "boiler"
+
+        again = Service(site, clock=clock, state_dir=state_dir)
+        restarted = clock.now()
+        with capture_logs() as logs:
+            async with running(again):
+                await until(clock, lambda: "room0" in again.zones, 30)
+                again.apply_command("room0", "setpoint", 26.0)
+                loop = again.sources.sources["boiler"]
+                # valve 30 s, minimum off 60 s: a source that forgot would fire within 2 min
+                await until(clock, lambda: loop.outputs is not None
+                            and loop.outputs.reason == "max-starts", 300)
+                await clock.sleep(300)
+                out = loop.outputs
+                assert out is not None and not coils.now[2] and coils.now[0], coils.changes
+                assert (out.lockout, out.starts_1h) == ("max-starts", 2)
+                assert out.lockout_until is not None
+                assert abs(out.lockout_until - (started[0] + 3600)) <= 1.5
+                # the first start leaves the hour: the boiler fires again
+                await until(clock, lambda: coils.now[2], started[0] + 3600 - clock.now() + 60)
+        fired = coils.first(2, True, after=restarted)
+        assert fired >= started[0] + 3600 - 1.5, coils.changes
+    restored = [e for e in logs if e["event"] == "persist.source_restored"]
+    assert restored and restored[0]["source"] == "boiler" and restored[0]["starts"] == 2

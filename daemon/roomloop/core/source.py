@@ -27,6 +27,8 @@ Rules, in the order one step applies them:
    running ``min_on_s`` before it stops. A zone's frost-protection call (``protection``)
    lifts the starts-per-hour limit (a count never leaves a room to freeze); the minimum off
    time and the valve opening time still hold (minutes, against the hours frost takes).
+   A restart of the daemon keeps the history (:class:`SourceMemory`, in the state file):
+   the last hour's starts still count, and a run found going on keeps its start time.
 4. **Pump.** Pre-run: once everything else would let the source fire, the pump runs
    ``pump_pre_run_s`` first (a pump already running counts). It runs while the source
    fires and ``pump_overrun_s`` after the source stops, to carry the residual heat away
@@ -44,7 +46,9 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
-from typing import TYPE_CHECKING, Literal
+from typing import TYPE_CHECKING, Any, Literal
+
+from .state import MAX_TIME_S, StateFormatError
 
 if TYPE_CHECKING:  # the config models (pydantic) are imported only by the builder
     from roomloop.config.models import HeatSource
@@ -169,6 +173,103 @@ class SourceState:
     """Per calling zone (after the stale policy): since when it calls, in served order."""
 
 
+MAX_SAVED_STARTS = 3600
+"""More start times than one a second for an hour is not a file this code wrote."""
+
+
+@dataclass(frozen=True, slots=True)
+class SourceMemory:
+    """What a source remembers across a restart of the daemon (the state file's ``sources``).
+
+    Its short-cycle history, no more: the start times, whether it was running and since
+    when, when it last stopped. The pump, the valves' calls and the exercise run are not
+    kept: at a restart the pump overruns once and the zones' calls start again, both on the
+    safe side. :meth:`SourceLogic.resume` takes it with the outputs as found. The saved
+    stop time is kept for the record: a start-up found off counts as a later stop anyway.
+    """
+
+    kind: str
+    running: bool = False
+    running_since: float | None = None
+    stopped_at: float | None = None
+    starts: tuple[float, ...] = ()
+    """Start times, oldest first (those older than an hour are dropped at resume)."""
+
+    @classmethod
+    def of(cls, kind: str, state: SourceState) -> SourceMemory:
+        """What ``state`` holds of the source's history."""
+        return cls(kind, state.running, state.running_since, state.stopped_at, state.starts)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "kind": self.kind,
+            "running": self.running,
+            "running_since": self.running_since,
+            "stopped_at": self.stopped_at,
+            "starts": list(self.starts),
+        }
+
+    @classmethod
+    def from_dict(cls, raw: Any, *, kind: str, now: float) -> SourceMemory:
+        """The memory a state file holds (JSON-like ``raw``), checked against the source as
+        configured now (``kind``) and the time of the restart.
+
+        Raises :class:`~roomloop.core.state.StateFormatError` naming the field: not an object,
+        an unknown key, another kind of source (its history is not this one's), a time that
+        is not a number of POSIX seconds, or one after ``now`` (a start that has not happened
+        would hold the source off for an hour on nothing), a running source without its
+        start time.
+        """
+        if not isinstance(raw, dict):
+            raise StateFormatError("source state: not an object")
+        extra = sorted(str(k) for k in set(raw) - {"kind", "running", "running_since",
+                                                   "stopped_at", "starts"})
+        if extra:
+            raise StateFormatError(f"source state: unknown keys: {', '.join(extra)}")
+        saved_kind = raw.get("kind")
+        if saved_kind != kind:
+            raise StateFormatError(
+                f"source state: saved for a source of kind {saved_kind!r}, this one is {kind!r}"
+            )
+        running = raw.get("running", False)
+        if not isinstance(running, bool):
+            raise StateFormatError("source state: running must be true or false")
+        running_since = _saved_time(raw.get("running_since"), "running_since", now)
+        stopped_at = _saved_time(raw.get("stopped_at"), "stopped_at", now)
+        if running and running_since is None:
+            raise StateFormatError("source state: running without running_since")
+        items = raw.get("starts", [])
+        if not isinstance(items, list) or len(items) > MAX_SAVED_STARTS:
+            raise StateFormatError(
+                f"source state: starts must be a list of at most {MAX_SAVED_STARTS} times"
+            )
+        starts = [_saved_time(t, "starts", now) for t in items]
+        if any(t is None for t in starts):
+            raise StateFormatError("source state: starts holds a null")
+        return cls(
+            kind, running, running_since, stopped_at,
+            tuple(sorted(t for t in starts if t is not None)),
+        )
+
+
+def _saved_time(value: Any, key: str, now: float) -> float | None:
+    """A saved instant: None, or finite POSIX seconds within the years the core knows and not
+    after the restart at ``now``."""
+    if value is None:
+        return None
+    if isinstance(value, bool) or not isinstance(value, int | float) or not (
+        math.isfinite(value) and -MAX_TIME_S <= value <= MAX_TIME_S
+    ):
+        raise StateFormatError(
+            f"source state: {key} must be POSIX seconds within +/-{MAX_TIME_S:.0f} (year 9999)"
+        )
+    if value > now:
+        raise StateFormatError(
+            f"source state: {key} {value:.0f} is after the restart at {now:.0f}"
+        )
+    return float(value)
+
+
 @dataclass(frozen=True, slots=True)
 class SourceOutputs:
     """The decision of one tick, and everything ``source/<name>/state`` shows."""
@@ -214,22 +315,59 @@ class SourceLogic:
         """At start-up the source may have just run: minimum off time and pump overrun apply."""
         return SourceState(stopped_at=now, pump_off_since=now)
 
-    def resume(self, enable_on: bool | None, pump_on: bool | None, now: float) -> SourceState:
-        """At a restart, from the outputs as found on the device (None: not known).
+    def resume(
+        self,
+        enable_on: bool | None,
+        pump_on: bool | None,
+        now: float,
+        memory: SourceMemory | None = None,
+    ) -> SourceState:
+        """At a restart, from the outputs as found on the device (None: not known) and what
+        the source remembered (``memory``, from the state file; None: nothing saved).
 
-        A source found firing goes on from here (its run counts as a start now, so its
-        minimum on time and the starts per hour still hold): stopping it only to start it
-        again after the minimum off time would be a cycle the restart made. A pump found
-        running is running since now. Otherwise as :meth:`initial_state`.
+        The remembered starts of the last hour count against ``max_starts_per_hour``, so
+        restarting the daemon does not get around the limit. A source found firing goes on
+        from here: stopping it only to start it again after the minimum off time would be a
+        cycle the restart made. If it was saved running it has been running since its saved
+        ``running_since`` (its minimum on time holds from its real start, and no start is
+        counted); saved off (or nothing saved) its run counts as a start now. A source found
+        off (or not known) counts the start-up as a stop, as :meth:`initial_state`: it may
+        have run until just before. A pump found running is running since now.
         """
         state = self.initial_state(now)
+        kept: tuple[float, ...] = ()
+        if memory is not None:
+            kept = tuple(sorted(t for t in memory.starts if now - HOUR_S < t <= now))
+            state = replace(state, starts=kept)
         if enable_on:
-            state = replace(
-                state, running=True, running_since=now, stopped_at=None, starts=(now,)
-            )
+            since = None if memory is None or not memory.running else memory.running_since
+            if since is not None and since <= now:
+                if since > now - HOUR_S and since not in kept:
+                    kept = tuple(sorted((*kept, since)))
+                state = replace(
+                    state, running=True, running_since=since, stopped_at=None, starts=kept
+                )
+            else:
+                state = replace(
+                    state, running=True, running_since=now, stopped_at=None, starts=(*kept, now)
+                )
         if pump_on and self.settings.has_pump:
             state = replace(state, pump=True, pump_since=now, pump_off_since=None)
         return state
+
+    def carry_on(
+        self, state: SourceState, enable_on: bool | None, pump_on: bool | None, now: float
+    ) -> SourceState:
+        """After a reload: the state the old service had goes on unchanged (its starts, its
+        timers, its calls) when the outputs agree with it; an output that does not (moved
+        to another point, given up, not known) resumes from the state's memory as at a
+        restart (:meth:`resume`)."""
+        pump_agrees = state.pump == bool(pump_on) if self.settings.has_pump else not state.pump
+        if state.running == bool(enable_on) and pump_agrees:
+            return state
+        return self.resume(
+            enable_on, pump_on, now, SourceMemory.of(self.settings.kind, state)
+        )
 
     # ------------------------------------------------------------------ the step
 

@@ -4,7 +4,8 @@
 :class:`~roomloop.core.source_topics.RemoteBook`), its step's state, and which retained
 state message is due. The service owns the broker and the outputs and calls, per source:
 
-- at start: :meth:`SourceRuntime.resume` from the outputs as found on the device;
+- at start: :meth:`SourceRuntime.resume` from the outputs as found on the device and the
+  :attr:`SourceRuntime.memory` saved before (after a reload :meth:`SourceRuntime.carry_on`);
   subscribe to :attr:`SourceRuntime.subscriptions` (and again after each
   reconnection, then :meth:`SourceRuntime.reconnected`);
 - for every message on those topics: :meth:`SourceRuntime.heard`;
@@ -23,7 +24,15 @@ import datetime as dt
 import json
 from collections.abc import Mapping
 
-from .source import SourceInputs, SourceLogic, SourceOutputs, SourceSettings, local_demand
+from .source import (
+    SourceInputs,
+    SourceLogic,
+    SourceMemory,
+    SourceOutputs,
+    SourceSettings,
+    SourceState,
+    local_demand,
+)
 from .source_topics import (
     RemoteBook,
     RemoteTopics,
@@ -59,10 +68,29 @@ class SourceRuntime:
         self._at = now
         self._last_sent: tuple[str, float] | None = None
 
-    def resume(self, enable_on: bool | None, pump_on: bool | None, now: float) -> None:
+    def resume(
+        self,
+        enable_on: bool | None,
+        pump_on: bool | None,
+        now: float,
+        memory: SourceMemory | None = None,
+    ) -> None:
         """Before the first tick: go on from the outputs as found on the device (None: not
-        known), so a restart neither stops a firing source nor counts a start of its own."""
-        self.state = self.logic.resume(enable_on, pump_on, now)
+        known) and the history saved before the restart (``memory``), so a restart neither
+        stops a firing source nor counts a start of its own, nor forgets the last hour's."""
+        self.state = self.logic.resume(enable_on, pump_on, now, memory)
+
+    def carry_on(
+        self, state: SourceState, enable_on: bool | None, pump_on: bool | None, now: float
+    ) -> None:
+        """Before the first tick after a reload: the old service's state of this source
+        (see :meth:`SourceLogic.carry_on`)."""
+        self.state = self.logic.carry_on(state, enable_on, pump_on, now)
+
+    @property
+    def memory(self) -> SourceMemory:
+        """What a restart must not forget (saved in the state file)."""
+        return SourceMemory.of(self.settings.kind, self.state)
 
     @property
     def subscriptions(self) -> tuple[str, ...]:

@@ -61,7 +61,12 @@ from roomloop.service.description import description_payload
 from roomloop.service.notify import Progress, notify, watchdog_interval_s
 from roomloop.service.outputs import OutputWriter, SafeSink, outputs_as_found, zone_outputs
 from roomloop.service.persist import StateStore
-from roomloop.service.persistence import Persistence, restore_states, restored_warm_up
+from roomloop.service.persistence import (
+    Persistence,
+    restore_states,
+    restored_sources,
+    restored_warm_up,
+)
 from roomloop.service.publisher import (
     OutputView,
     StatePublisher,
@@ -144,6 +149,13 @@ class Service:
         self.runner = ZoneRunner(
             self.clock, self.zones, sources, self.outputs, self.progress, units=self.units
         )
+        self.persistence = Persistence(
+            self.store,
+            self.clock,
+            lambda: {n: r.state for n, r in self.zones.items()},
+            lambda: {n: r.program.model for n, r in self.zones.items()},
+            lambda: {n: loop.runtime.memory for n, loop in self.sources.sources.items()},
+        )
         self.sources = SourceRunner(
             site,
             self.clock,
@@ -152,6 +164,7 @@ class Service:
             tz=self.tz,
             publish_interval_s=self.publisher.interval_s,
             inputs_ready=self.runner.inputs_ready,
+            on_step=self.persistence.note_source,
         )
         """The heat sources (``heat_sources``), each on its own loop."""
         self.outputs.add(self.sources.writer_outputs())
@@ -163,12 +176,6 @@ class Service:
         self.supervisor = Supervisor(self.clock, on_failure=self._task_failed)
         self.restarts = self.supervisor.restarts
         """Restarts per task name (tests and status)."""
-        self.persistence = Persistence(
-            self.store,
-            self.clock,
-            lambda: {n: r.state for n, r in self.zones.items()},
-            lambda: {n: r.program.model for n, r in self.zones.items()},
-        )
         self.alarms = AlarmBook(site, self.prefix, self.tz)
         """The zones' alarms, evaluated after each step (published, and the BMS face's bits)."""
         self.session: BrokerSession | None = None
@@ -271,7 +278,14 @@ class Service:
                 ),
             )
             self.persistence.saved_as(name, restored.state)
-        for point, on in self.sources.resume(relays, self.clock.now()).items():
+        now = self.clock.now()
+        if self.carried is not None:  # a reload: each kept source's state in memory
+            held = self.sources.resume(relays, now, carried=self.carried.sources)
+        else:  # a start: each source's history from the state file
+            held = self.sources.resume(
+                relays, now, memories=restored_sources(self.site, self.store, now)
+            )
+        for point, on in held.items():
             self.outputs.hold_as_found(point, on)
 
     async def _journal_switch(self, zone: str, point: str, on: bool) -> None:

@@ -19,6 +19,12 @@ save (and before the first). A full save that covers the journal empties it.
 The document also keeps each zone's learned warm-up model of optimum start (``warm_up``:
 zone name -> :meth:`~roomloop.core.optimum_start.WarmUpModel.to_dict`), present only once a
 zone has learned something; :attr:`StateStore.warm_up` holds what the file had at load.
+Each heat source's short-cycle history (``sources``: source name ->
+:meth:`~roomloop.core.source.SourceMemory.to_dict`: its starts of the last hour, whether it
+runs and since when, when it last stopped) is kept beside them, so a restart does not get
+around its starts per hour; :attr:`StateStore.sources` holds what the file had at load (the
+reader checks each entry). A file without the key (from before sources were kept, or a site
+without sources) loads as before.
 
 A state directory that cannot be written (a read-only SD card, a lost mount,
 permissions) does not stop the service either: the zones start fresh (the file,
@@ -112,6 +118,9 @@ class StateStore:
         self._journal_synced = False
         self.warm_up: dict[str, Any] = {}
         """The saved warm-up models by zone as found at :meth:`load` (checked by the reader)."""
+        self.sources: dict[str, Any] = {}
+        """The saved heat sources' histories by name as found at :meth:`load` (checked by
+        the reader)."""
 
     @property
     def status(self) -> str:
@@ -152,6 +161,13 @@ class StateStore:
         zones: dict[str, Any] = document["zones"]
         warm_up = document.get("warm_up")
         self.warm_up = dict(warm_up) if isinstance(warm_up, dict) else {}
+        sources = document.get("sources")
+        if sources is not None and not isinstance(sources, dict):
+            log.warning(
+                "persist.source_states_rejected", path=str(self.path),
+                reason="sources is not an object", consequence="every source starts fresh",
+            )
+        self.sources = dict(sources) if isinstance(sources, dict) else {}
         self._last_written = _dump({**document, "saved_at": None})
         return zones
 
@@ -238,10 +254,15 @@ class StateStore:
         return applied
 
     def save(
-        self, zones: dict[str, Any], now: float, warm_up: dict[str, Any] | None = None
+        self,
+        zones: dict[str, Any],
+        now: float,
+        warm_up: dict[str, Any] | None = None,
+        *,
+        sources: dict[str, Any] | None = None,
     ) -> bool:
-        """Write the zone states (and the learned warm-up models, if any) if they differ from
-        what was last written; True if written."""
+        """Write the zone states (and the learned warm-up models and the heat sources'
+        histories, if any) if they differ from what was last written; True if written."""
         document: dict[str, Any] = {
             "format": FORMAT,
             "version": VERSION,
@@ -251,6 +272,8 @@ class StateStore:
         }
         if warm_up:
             document["warm_up"] = warm_up
+        if sources:
+            document["sources"] = sources
         comparable = _dump({**document, "saved_at": None})
         if comparable == self._last_written:
             return False

@@ -6,7 +6,9 @@ saves the states when something that must survive a restart changed (a command,
 the relay and its switch times, fail-safe: :func:`persist_key`), every
 ``PERIODIC_SAVE_S`` otherwise (the slowly drifting terms), and once more at stop.
 Each zone's learned warm-up model (optimum start) is saved with the states, soon after
-it learns from a warm-up; :func:`restored_warm_up` reads it back at start.
+it learns from a warm-up; :func:`restored_warm_up` reads it back at start. Each heat
+source's short-cycle history is saved likewise, soon after the source starts or stops
+(:meth:`Persistence.note_source`); :func:`restored_sources` reads it back, checked.
 """
 
 from __future__ import annotations
@@ -26,7 +28,8 @@ from roomloop.config.models import Site
 from roomloop.core.controller import ZoneController
 from roomloop.core.optimum_start import WarmUpModel
 from roomloop.core.settings import ZoneSettings
-from roomloop.core.state import ZoneState
+from roomloop.core.source import SourceMemory
+from roomloop.core.state import StateFormatError, ZoneState
 from roomloop.service.persist import StateStore
 from roomloop.service.restart import restore_zone
 
@@ -104,6 +107,41 @@ def restored_warm_up(store: StateStore, zone: str) -> WarmUpModel | None:
         return None
 
 
+def restored_sources(site: Site, store: StateStore, now: float) -> dict[str, SourceMemory]:
+    """Each source's saved history (after :meth:`StateStore.load`) that reads as one for the
+    source of that name as configured now; a bad one (garbage, a time after ``now``,
+    another kind of source) is refused with ``persist.source_state_rejected`` and that
+    source resumes as without a saved state."""
+    memories: dict[str, SourceMemory] = {}
+    for source in site.heat_sources:
+        raw = store.sources.get(source.name)
+        if raw is None:
+            continue
+        try:
+            memory = SourceMemory.from_dict(raw, kind=source.kind, now=now)
+        except StateFormatError as exc:
+            log.warning("persist.source_state_rejected", source=source.name, reason=str(exc))
+            continue
+        except (RecursionError, ValueError, TypeError) as exc:  # not JSON-like at all
+            log.warning(
+                "persist.source_state_rejected", source=source.name,
+                reason=f"source state cannot be read: {type(exc).__name__}",
+            )
+            continue
+        log.info(
+            "persist.source_restored", source=source.name, running=memory.running,
+            starts=len(memory.starts),
+        )
+        memories[source.name] = memory
+    return memories
+
+
+def source_key(memory: SourceMemory) -> str:
+    """What of a source's history must reach the disk at once: a start or a stop (the
+    starts ageing out of the hour wait for the next save)."""
+    return repr((memory.kind, memory.running, memory.running_since, memory.stopped_at))
+
+
 def _worth_keeping(model: WarmUpModel) -> bool:
     return bool(model.bands) or model.dead_time_s is not None
 
@@ -118,11 +156,14 @@ class Persistence:
         clock: Clock,
         states: Callable[[], Mapping[str, ZoneState]],
         models: Callable[[], Mapping[str, WarmUpModel]] | None = None,
+        sources: Callable[[], Mapping[str, SourceMemory]] | None = None,
     ) -> None:
         self.store = store
         self.clock = clock
         self.states = states
         self.models = models
+        self.sources = sources
+        self._saved_source_key: dict[str, str] = {}
         self._last_model: dict[str, WarmUpModel] = {}
         self._dirty = asyncio.Event()
         self._last_saved_key: dict[str, str] = {}
@@ -142,6 +183,11 @@ class Persistence:
             self._last_model[zone] = model
             if model != last:
                 self._dirty.set()
+
+    def note_source(self, name: str, memory: SourceMemory) -> None:
+        """A source stepped: save soon if it started or stopped since the last save."""
+        if source_key(memory) != self._saved_source_key.get(name):
+            self._dirty.set()
 
     def mark_dirty(self) -> None:
         """Save soon (a command was applied)."""
@@ -168,10 +214,14 @@ class Persistence:
             keys = {name: persist_key(state) for name, state in states.items()}
             models = self.models() if self.models is not None else {}
             warm_up = {n: m.to_dict() for n, m in models.items() if _worth_keeping(m)}
+            memories = self.sources() if self.sources is not None else {}
+            sources = {n: m.to_dict() for n, m in memories.items()}
+            source_keys = {n: source_key(m) for n, m in memories.items()}
+            extra: dict[str, Any] = {"sources": sources} if sources else {}
             saving = (
-                functools.partial(self.store.save, zones, now, warm_up)
+                functools.partial(self.store.save, zones, now, warm_up, **extra)
                 if warm_up
-                else functools.partial(self.store.save, zones, now)
+                else functools.partial(self.store.save, zones, now, **extra)
             )
             write = asyncio.ensure_future(asyncio.to_thread(saving))
             self._in_flight = write
@@ -181,6 +231,7 @@ class Persistence:
                 log.error("persist.save_failed", path=str(self.store.path), error=str(exc))
                 return
             self._last_saved_key.update(keys)
+            self._saved_source_key.update(source_keys)
             if written:
                 log.debug("persist.saved", path=str(self.store.path))
 

@@ -16,7 +16,9 @@ not a stop of the site, and a start of a new one from the new file:
 * The new service starts with what the old one handed over (:class:`Carried`):
   each kept zone's state as it was in memory (checked against the new settings
   as a saved state is at a restart: a hold outside the new limits starts the
-  zone fresh), and each unchanged output as last commanded. As at every start,
+  zone fresh), each heat source kept under the same name and kind with its whole state
+  (its starts of the last hour still count; a renamed or removed source's do not), and
+  each unchanged output as last commanded. As at every start,
   each Modbus output is read from its device first and held as found until its
   zone decides, so a kept zone's relay makes no off/on pulse. New zones start
   fresh; links and points are all built again from the new file.
@@ -43,6 +45,7 @@ from roomloop.clock import Clock, timeout
 from roomloop.config.loader import load_site_with_warnings
 from roomloop.config.models import HeatSource, ModbusOutput, Site
 from roomloop.core.alarms import ALARM_KINDS
+from roomloop.core.source import SourceState
 from roomloop.errors import ConfigError, ConfigProblem
 from roomloop.service.notify import notify
 from roomloop.service.outputs import OutputWriter, zone_outputs
@@ -67,6 +70,9 @@ class Carried:
     """Each kept zone's state, JSON-like (as the state file holds it)."""
     relays: Mapping[str, bool]
     """Each unchanged output as the old service last commanded it (where no read says)."""
+    sources: Mapping[str, tuple[str, SourceState]] = field(default_factory=dict)
+    """Each heat source's kind and whole state (its starts, timers, calls), by name: a source
+    the new file keeps under the same name and kind goes on with it."""
 
 
 def check_reload(path: str | Path, running: Site) -> Site | None:
@@ -162,6 +168,11 @@ class Handover:
                 if name not in removed
             },
             relays=_unchanged_outputs(old, self.new, service.outputs.commanded()),
+            sources={
+                name: kept
+                for name, kept in service.sources.carried().items()
+                if any(s.name == name and s.kind == kept[0] for s in self.new.heat_sources)
+            },
         )
 
 

@@ -16,6 +16,11 @@ sans-IO seam); :class:`SourceRunner` drives them:
   hands every message on those topics to :meth:`SourceRunner.handle`; it publishes what
   :meth:`SourceRunner.due` returns (retained) and reports it with :meth:`SourceRunner.sent`.
 
+* at start each source resumes from its outputs as found and its short-cycle history saved
+  in the state file (:meth:`SourceRunner.resume`; each runtime's ``memory`` is what is
+  saved, soon after each start or stop through :attr:`SourceRunner.on_step`); after a
+  reload a source of the same name and kind takes the old service's whole state.
+
 The broker going away changes nothing here: what was heard stays, and ages, so a remote
 zone turns stale only by the source's ``remote_stale.timeout_s`` (or its site's will), never
 by the reconnection itself; after it, the retained messages replayed are the last values.
@@ -35,7 +40,7 @@ import structlog
 
 from roomloop.clock import Clock, sleep_or_wake
 from roomloop.config.models import HeatSource, Site
-from roomloop.core.source import SourceOutputs, SourceSettings
+from roomloop.core.source import SourceMemory, SourceOutputs, SourceSettings, SourceState
 from roomloop.core.source_runtime import SourceRuntime
 from roomloop.core.source_topics import parse_status
 from roomloop.service.events import source_events
@@ -96,6 +101,7 @@ class SourceRunner:
         tz: ZoneInfo,
         publish_interval_s: float,
         inputs_ready: asyncio.Event,
+        on_step: Callable[[str, SourceMemory], None] | None = None,
     ) -> None:
         self.clock = clock
         self.outputs = outputs
@@ -103,6 +109,9 @@ class SourceRunner:
         self.inputs_ready = inputs_ready
         self.on_change: Callable[[], None] = lambda: None
         """Called when a source's state is due for publishing (the session's wake)."""
+        self.on_step: Callable[[str, SourceMemory], None] = on_step or (lambda _n, _m: None)
+        """Called after each step of a source with what a restart must not forget (the
+        persistence saves soon when it changed)."""
         now = clock.now()
         self.sources: dict[str, SourceLoop] = {}
         self._served_by: dict[str, SourceLoop] = {}
@@ -134,19 +143,42 @@ class SourceRunner:
             for point in loop.points
         ]
 
-    def resume(self, found: Mapping[str, bool | None], now: float) -> dict[str, bool]:
+    def resume(
+        self,
+        found: Mapping[str, bool | None],
+        now: float,
+        *,
+        memories: Mapping[str, SourceMemory] | None = None,
+        carried: Mapping[str, tuple[str, SourceState]] | None = None,
+    ) -> dict[str, bool]:
         """At start: each source goes on from its outputs as found on the device (None: not
-        known); returns what each output is held at until its source decides."""
+        known) and what it remembered (``memories``: checked, from the state file); after a
+        reload a source of the same name and kind takes the old service's state instead
+        (``carried``: name -> (kind, state)). Returns what each output is held at until its
+        source decides."""
         held: dict[str, bool] = {}
         for loop in self.sources.values():
             enable = found.get(loop.config.output)
             pump = None if loop.config.pump_output is None else found.get(loop.config.pump_output)
-            loop.runtime.resume(enable, pump, now)
+            kept = None if carried is None else carried.get(loop.name)
+            if kept is not None and kept[0] == loop.config.kind:
+                loop.runtime.carry_on(kept[1], enable, pump, now)
+                log.info("reload.source_kept", source=loop.name,
+                         starts_1h=len(loop.runtime.state.starts),
+                         running=loop.runtime.state.running)
+            else:
+                memory = None if memories is None else memories.get(loop.name)
+                loop.runtime.resume(enable, pump, now, memory)
             state = loop.runtime.state
             held[loop.config.output] = state.running
             if loop.config.pump_output is not None:
                 held[loop.config.pump_output] = state.pump
         return held
+
+    def carried(self) -> dict[str, tuple[str, SourceState]]:
+        """Each source's kind and whole state, for the service a reload starts."""
+        return {name: (loop.config.kind, loop.runtime.state)
+                for name, loop in self.sources.items()}
 
     def note_zone(self, report: TickReport) -> None:
         """A zone stepped (a per-step hook): a changed call of a served zone wakes its source."""
@@ -260,6 +292,7 @@ class SourceRunner:
             self.outputs.want(loop.config.pump_output, out.pump)
         for event in source_events(loop.name, previous=previous, outputs=out):
             getattr(log, event.level)(event.event, **event.fields)
+        self.on_step(loop.name, runtime.memory)
         if runtime.due(now):
             self.on_change()
         return out
