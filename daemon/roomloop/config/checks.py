@@ -115,7 +115,7 @@ def check_parts(parts: SiteParts) -> list[Finding]:
         findings += _setpoints(index, zone, parts.units)
         findings += _tuning(index, zone, parts.units)
         findings += _program(index, zone)
-        findings += _cooling(index, zone, parts.units)
+        findings += _cooling(index, zone, parts.units, parts.calendar)
     return findings
 
 
@@ -660,9 +660,11 @@ def _tuning(
     return findings
 
 
-def _cooling(index: int, zone: Zone, units: str) -> list[Finding]:
-    """The cooling call: set points in order and within the limits, the dead band in ``auto``
-    (ASHRAE Standard 90.1), its tuning, a compressor's minimum off time."""
+def _cooling(
+    index: int, zone: Zone, units: str, calendar: list[tuple[int, CalendarEntry]]
+) -> list[Finding]:
+    """The cooling call: set points in order and within the limits, the dead band wherever
+    ``auto`` is reachable (ASHRAE Standard 90.1), its tuning, a compressor's minimum off time."""
     cooling = zone.cooling
     if cooling is None:
         if zone.changeover.mode in ("cool", "auto"):
@@ -713,7 +715,7 @@ def _cooling(index: int, zone: Zone, units: str) -> list[Finding]:
                     f"limits {temperature_text(low, units)} to {temperature_text(high, units)}",
                 )
             )
-    findings += _dead_band(index, zone, units)
+    findings += _dead_band(index, zone, units, calendar)
     findings += _tuning(index, zone, units, cooling=True)
     tuning = zone.cooling_effective
     assert tuning is not None
@@ -736,14 +738,45 @@ def dead_band_k(zone: Zone, units: str) -> float:
     return ASHRAE_DEAD_BAND[units] if given is None else float(given)
 
 
-def _dead_band(index: int, zone: Zone, units: str) -> list[Finding]:
-    """In ``auto``, each level's cooling set point at least the dead band above its heating one.
+def _auto_reached_by(
+    zone: Zone, calendar: list[tuple[int, CalendarEntry]]
+) -> str | None:
+    """What makes changeover ``auto`` reachable for the zone: ``""`` its own changeover (as
+    written, or left out with both calls), else the first program or calendar entry that
+    switches it to ``auto`` (None: nothing does, so the zone never runs in ``auto``)."""
+    if zone.changeover_mode == "auto":
+        return ""
+    for k, entry in enumerate(zone.program):
+        if entry.changeover == "auto":
+            return f"program[{k}] (at {entry.at})"
+    for _, item in calendar:
+        if item.changeover == "auto" and item.applies_to(zone.name):
+            return f"calendar entry {item.name!r}"
+    return None
+
+
+def _dead_band(
+    index: int, zone: Zone, units: str, calendar: list[tuple[int, CalendarEntry]]
+) -> list[Finding]:
+    """Wherever ``auto`` is reachable (the zone's changeover, or a program or calendar entry
+    that switches it there), each level's cooling set point at least the dead band above its
+    heating one; otherwise the service refuses the entry's changeover at run time
+    (``program.changeover_refused``).
 
     ASHRAE Standard 90.1 (zone thermostatic controls): where a zone's heating and cooling are
     changed over automatically, the set points keep a dead band of at least 5 F (3 C).
     """
-    if zone.output is None or zone.changeover_mode != "auto":
+    if zone.output is None:
         return []
+    by = _auto_reached_by(zone, calendar)
+    if by is None:
+        return []
+    auto = (
+        "changeover auto needs"
+        if not by
+        else f"{by} switches the zone to changeover auto (its own is "
+        f"{zone.changeover_mode}), which needs"
+    )
     findings: list[Finding] = []
     base: KeyPath = ("zones", index)
     minimum = ASHRAE_DEAD_BAND[units]
@@ -767,7 +800,7 @@ def _dead_band(index: int, zone: Zone, units: str) -> list[Finding]:
                     (*base, "cooling", "setpoints", level),
                     f"cooling {level} {temperature_text(cool, units)} is less than the dead band "
                     f"{delta_text(band, units)} above heating {level} "
-                    f"{temperature_text(heat, units)}: changeover auto needs at least "
+                    f"{temperature_text(heat, units)}: {auto} at least "
                     f"{delta_text(minimum, units)} between them (ASHRAE Standard 90.1)",
                 )
             )
