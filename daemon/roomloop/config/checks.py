@@ -664,7 +664,8 @@ def _cooling(
     index: int, zone: Zone, units: str, calendar: list[tuple[int, CalendarEntry]]
 ) -> list[Finding]:
     """The cooling call: set points in order and within the limits, the dead band wherever
-    ``auto`` is reachable (ASHRAE Standard 90.1), its tuning, a compressor's minimum off time."""
+    ``auto`` is reachable (ASHRAE Standard 90.1), its tuning, a compressor's minimum off time,
+    and its rest before it reverses."""
     cooling = zone.cooling
     if cooling is None:
         if zone.changeover.mode in ("cool", "auto"):
@@ -727,6 +728,33 @@ def _cooling(
                 f"min_off_s {_num(tuning.min_off_s)} s is too short for a compressor "
                 f"(direct-expansion): at least {_num(COMPRESSOR_MIN_OFF_S)} s, a compressor "
                 "needs 3-5 min off between starts",
+            )
+        )
+    findings += _changeover_times(index, zone)
+    return findings
+
+
+def _changeover_times(index: int, zone: Zone) -> list[Finding]:
+    """A compressor that heats and cools rests before it reverses."""
+    findings: list[Finding] = []
+    co, base = zone.changeover, ("zones", index, "changeover")
+    assert zone.cooling is not None
+    if (
+        zone.cooling.type == "direct-expansion"
+        and zone.output is not None
+        and co.min_changeover_s < COMPRESSOR_MIN_OFF_S
+    ):
+        # COMPRESSOR_MIN_OFF_S: a compressor needs 3-5 min off between starts
+        # (REFERENCES.md [trade]: common practice, no source); in a heat pump the heating
+        # and the cooling call run the one compressor, so the changeover is such a rest.
+        findings.append(
+            Finding(
+                (*base, "min_changeover_s"),
+                f"min_changeover_s {_num(co.min_changeover_s)} s is too short for a compressor "
+                "(direct-expansion) that heats and cools: at least "
+                f"{_num(COMPRESSOR_MIN_OFF_S)} s between a heating and a cooling call, "
+                "for compressor protection: a compressor needs 3-5 min off between starts, "
+                "also before it starts the other way round",
             )
         )
     return findings
