@@ -665,7 +665,7 @@ def _cooling(
 ) -> list[Finding]:
     """The cooling call: set points in order and within the limits, the dead band wherever
     ``auto`` is reachable (ASHRAE Standard 90.1), its tuning, a compressor's minimum off time,
-    and its rest before it reverses."""
+    its rest before it reverses, the changeover output's hold."""
     cooling = zone.cooling
     if cooling is None:
         if zone.changeover.mode in ("cool", "auto"):
@@ -735,9 +735,12 @@ def _cooling(
 
 
 def _changeover_times(index: int, zone: Zone) -> list[Finding]:
-    """A compressor that heats and cools rests before it reverses."""
+    """A compressor that heats and cools rests before it reverses; a changeover output is
+    switched at least one tick before the call it is set for (with ``hold_s`` below a tick
+    the output and the call would change in the same step)."""
     findings: list[Finding] = []
     co, base = zone.changeover, ("zones", index, "changeover")
+    given = co.model_fields_set
     assert zone.cooling is not None
     if (
         zone.cooling.type == "direct-expansion"
@@ -755,6 +758,21 @@ def _changeover_times(index: int, zone: Zone) -> list[Finding]:
                 f"{_num(COMPRESSOR_MIN_OFF_S)} s between a heating and a cooling call, "
                 "for compressor protection: a compressor needs 3-5 min off between starts, "
                 "also before it starts the other way round",
+            )
+        )
+    if co.output is not None and co.hold_s < zone.tick_s - 1e-9:
+        if "hold_s" in given:
+            where: KeyPath = (*base, "hold_s")
+            hold = f"hold_s {_num(co.hold_s)} s"
+        else:
+            where = ("zones", index, "tick_s")
+            hold = f"hold_s {_num(co.hold_s)} s (default)"
+        findings.append(
+            Finding(
+                where,
+                f"{hold} is shorter than the zone's tick_s {_num(zone.tick_s)} s: the "
+                "changeover output would switch in the same tick as the call, not before it; "
+                f"give hold_s at least one tick ({_num(zone.tick_s)} s)",
             )
         )
     return findings
