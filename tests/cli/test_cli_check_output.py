@@ -138,3 +138,34 @@ def test_smoothing_shown_is_the_one_the_controller_uses(
         LawConstants.of(ZoneSettings.from_site(site, z.name)).smoothing_s for z in site.zones
     ]
     assert used == [1200.0, 720.0]
+
+
+def test_program_and_calendar_entries_show_their_changeover(
+    capsys: pytest.CaptureFixture[str], tmp_path: Path
+) -> None:
+    """An entry that sets the changeover shows it beside its level; one that does not shows
+    none (its zone keeps the changeover it has)."""
+    path = tmp_path / "site.yaml"
+    path.write_text(
+        COOLING_SITE
+        + """\
+    program:
+      - {days: mon-fri, at: "08:00", level: comfort, changeover: auto}
+      - {days: mon-fri, at: "18:00", level: economy}
+calendar:
+  - {name: summer, start: 2026-06-01, end: 2026-08-31, level: standby, changeover: cool,
+     zones: [studio]}
+  - {name: closure, start: 2026-12-24, end: 2027-01-01, level: protection}
+""",
+        encoding="utf-8",
+    )
+    code = main(["check", "-c", str(path)])
+    out = capsys.readouterr().out
+    assert code == 0, out
+    lines = out.splitlines()
+    assert "      mon,tue,wed,thu,fri      08:00  comfort, changeover auto" in lines, out
+    assert "      mon,tue,wed,thu,fri      18:00  economy" in lines, out
+    assert "  summer: 2026-06-01 to 2026-08-31 (whole day): standby, changeover cool, studio" in (
+        lines
+    ), out
+    assert "  closure: 2026-12-24 to 2027-01-01 (whole day): protection, every zone" in lines, out

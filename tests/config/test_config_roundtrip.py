@@ -139,9 +139,10 @@ def sites(draw: st.DrawFn) -> dict[str, Any]:
             c_comfort = comfort + draw(st.sampled_from([3.0, 4.0]))
             c_standby = max(c_comfort, standby + 3.0)
             c_economy = max(c_standby, economy + 3.0)
+            cooling_type = draw(st.sampled_from(["direct-expansion", "chilled-water"]))
             zone["cooling"] = {
                 "output": cool,
-                "type": draw(st.sampled_from(["direct-expansion", "chilled-water"])),
+                "type": cooling_type,
                 "setpoints": {
                     "comfort": _temperature(c_comfort, units),
                     "standby": _temperature(c_standby, units),
@@ -150,7 +151,12 @@ def sites(draw: st.DrawFn) -> dict[str, Any]:
             }
             zone["changeover"] = {
                 "mode": draw(st.sampled_from(["heat", "cool", "auto"])),
-                "min_changeover_s": draw(st.sampled_from([0, 300, 900])),
+                # a compressor that heats and cools rests at least 180 s before it reverses
+                # (check's compressor protection; common practice, no source)
+                "min_changeover_s": draw(
+                    st.sampled_from([300, 900] if cooling_type == "direct-expansion"
+                                    else [0, 300, 900])
+                ),
             }
             if draw(st.booleans()):
                 valve = f"z{z}-valve"

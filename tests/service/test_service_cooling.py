@@ -20,12 +20,13 @@ from service_rooms import running, site_yaml, until
 
 from roomloop.clock import VirtualClock
 from roomloop.config.loader import load_site
+from roomloop.config.presets import COMPRESSOR_MIN_OFF_S
 from roomloop.service.app import Service, TickReport
 from roomloop.service.publisher import state_payload
 
 HEAT, COOL, VALVE = 0, 1, 2
 HOLD_S = 30.0
-CHANGEOVER_S = 120.0
+CHANGEOVER_S = COMPRESSOR_MIN_OFF_S  # the least check takes for a heat pump's compressor
 
 
 def heat_pump_site(tmp_path: Path, port: int) -> Any:

@@ -115,7 +115,8 @@ def print_site(site: Site, out: TextIO) -> None:
         whole_day = len(entry.end) == 10
         until = f"{entry.end} (whole day)" if whole_day else entry.end
         zones = "every zone" if entry.zones is None else ", ".join(entry.zones)
-        w(f"  {entry.name}: {entry.start} to {until}: {entry.level}, {zones}\n")
+        w(f"  {entry.name}: {entry.start} to {until}: {entry.level}"
+          f"{_changeover(entry.changeover)}, {zones}\n")
 
     w("\nheat sources\n")
     if not site.heat_sources:
@@ -322,9 +323,15 @@ def _zone(
     if zone.program:
         write("    program:\n")
         for entry in zone.program:
-            write(f"      {_days(entry.days):<24} {entry.at}  {entry.level}\n")
+            write(f"      {_days(entry.days):<24} {entry.at}  {entry.level}"
+                  f"{_changeover(entry.changeover)}\n")
     else:
         write(f"    program: none (mode auto uses {zone.default_level})\n")
+
+
+def _changeover(changeover: str | None) -> str:
+    """A program or calendar entry's changeover, when it gives one (else the zone keeps its)."""
+    return "" if changeover is None else f", changeover {changeover}"
 
 
 def _days(days: list[str] | str) -> str:

@@ -115,7 +115,7 @@ def check_parts(parts: SiteParts) -> list[Finding]:
         findings += _setpoints(index, zone, parts.units)
         findings += _tuning(index, zone, parts.units)
         findings += _program(index, zone)
-        findings += _cooling(index, zone, parts.units)
+        findings += _cooling(index, zone, parts.units, parts.calendar)
     return findings
 
 
@@ -660,9 +660,12 @@ def _tuning(
     return findings
 
 
-def _cooling(index: int, zone: Zone, units: str) -> list[Finding]:
-    """The cooling call: set points in order and within the limits, the dead band in ``auto``
-    (ASHRAE Standard 90.1), its tuning, a compressor's minimum off time."""
+def _cooling(
+    index: int, zone: Zone, units: str, calendar: list[tuple[int, CalendarEntry]]
+) -> list[Finding]:
+    """The cooling call: set points in order and within the limits, the dead band wherever
+    ``auto`` is reachable (ASHRAE Standard 90.1), its tuning, a compressor's minimum off time,
+    its rest before it reverses, the changeover output's hold."""
     cooling = zone.cooling
     if cooling is None:
         if zone.changeover.mode in ("cool", "auto"):
@@ -713,7 +716,7 @@ def _cooling(index: int, zone: Zone, units: str) -> list[Finding]:
                     f"limits {temperature_text(low, units)} to {temperature_text(high, units)}",
                 )
             )
-    findings += _dead_band(index, zone, units)
+    findings += _dead_band(index, zone, units, calendar)
     findings += _tuning(index, zone, units, cooling=True)
     tuning = zone.cooling_effective
     assert tuning is not None
@@ -727,6 +730,51 @@ def _cooling(index: int, zone: Zone, units: str) -> list[Finding]:
                 "needs 3-5 min off between starts",
             )
         )
+    findings += _changeover_times(index, zone)
+    return findings
+
+
+def _changeover_times(index: int, zone: Zone) -> list[Finding]:
+    """A compressor that heats and cools rests before it reverses; a changeover output is
+    switched at least one tick before the call it is set for (with ``hold_s`` below a tick
+    the output and the call would change in the same step)."""
+    findings: list[Finding] = []
+    co, base = zone.changeover, ("zones", index, "changeover")
+    given = co.model_fields_set
+    assert zone.cooling is not None
+    if (
+        zone.cooling.type == "direct-expansion"
+        and zone.output is not None
+        and co.min_changeover_s < COMPRESSOR_MIN_OFF_S
+    ):
+        # COMPRESSOR_MIN_OFF_S: a compressor needs 3-5 min off between starts
+        # (REFERENCES.md [trade]: common practice, no source); in a heat pump the heating
+        # and the cooling call run the one compressor, so the changeover is such a rest.
+        findings.append(
+            Finding(
+                (*base, "min_changeover_s"),
+                f"min_changeover_s {_num(co.min_changeover_s)} s is too short for a compressor "
+                "(direct-expansion) that heats and cools: at least "
+                f"{_num(COMPRESSOR_MIN_OFF_S)} s between a heating and a cooling call, "
+                "for compressor protection: a compressor needs 3-5 min off between starts, "
+                "also before it starts the other way round",
+            )
+        )
+    if co.output is not None and co.hold_s < zone.tick_s - 1e-9:
+        if "hold_s" in given:
+            where: KeyPath = (*base, "hold_s")
+            hold = f"hold_s {_num(co.hold_s)} s"
+        else:
+            where = ("zones", index, "tick_s")
+            hold = f"hold_s {_num(co.hold_s)} s (default)"
+        findings.append(
+            Finding(
+                where,
+                f"{hold} is shorter than the zone's tick_s {_num(zone.tick_s)} s: the "
+                "changeover output would switch in the same tick as the call, not before it; "
+                f"give hold_s at least one tick ({_num(zone.tick_s)} s)",
+            )
+        )
     return findings
 
 
@@ -736,14 +784,45 @@ def dead_band_k(zone: Zone, units: str) -> float:
     return ASHRAE_DEAD_BAND[units] if given is None else float(given)
 
 
-def _dead_band(index: int, zone: Zone, units: str) -> list[Finding]:
-    """In ``auto``, each level's cooling set point at least the dead band above its heating one.
+def _auto_reached_by(
+    zone: Zone, calendar: list[tuple[int, CalendarEntry]]
+) -> str | None:
+    """What makes changeover ``auto`` reachable for the zone: ``""`` its own changeover (as
+    written, or left out with both calls), else the first program or calendar entry that
+    switches it to ``auto`` (None: nothing does, so the zone never runs in ``auto``)."""
+    if zone.changeover_mode == "auto":
+        return ""
+    for k, entry in enumerate(zone.program):
+        if entry.changeover == "auto":
+            return f"program[{k}] (at {entry.at})"
+    for _, item in calendar:
+        if item.changeover == "auto" and item.applies_to(zone.name):
+            return f"calendar entry {item.name!r}"
+    return None
+
+
+def _dead_band(
+    index: int, zone: Zone, units: str, calendar: list[tuple[int, CalendarEntry]]
+) -> list[Finding]:
+    """Wherever ``auto`` is reachable (the zone's changeover, or a program or calendar entry
+    that switches it there), each level's cooling set point at least the dead band above its
+    heating one; otherwise the service refuses the entry's changeover at run time
+    (``program.changeover_refused``).
 
     ASHRAE Standard 90.1 (zone thermostatic controls): where a zone's heating and cooling are
     changed over automatically, the set points keep a dead band of at least 5 F (3 C).
     """
-    if zone.output is None or zone.changeover_mode != "auto":
+    if zone.output is None:
         return []
+    by = _auto_reached_by(zone, calendar)
+    if by is None:
+        return []
+    auto = (
+        "changeover auto needs"
+        if not by
+        else f"{by} switches the zone to changeover auto (its own is "
+        f"{zone.changeover_mode}), which needs"
+    )
     findings: list[Finding] = []
     base: KeyPath = ("zones", index)
     minimum = ASHRAE_DEAD_BAND[units]
@@ -767,7 +846,7 @@ def _dead_band(index: int, zone: Zone, units: str) -> list[Finding]:
                     (*base, "cooling", "setpoints", level),
                     f"cooling {level} {temperature_text(cool, units)} is less than the dead band "
                     f"{delta_text(band, units)} above heating {level} "
-                    f"{temperature_text(heat, units)}: changeover auto needs at least "
+                    f"{temperature_text(heat, units)}: {auto} at least "
                     f"{delta_text(minimum, units)} between them (ASHRAE Standard 90.1)",
                 )
             )
