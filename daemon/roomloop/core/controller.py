@@ -70,7 +70,7 @@ class ZoneController:
         hours droop compensation would take to integrate up from 0.
         """
         s = self.settings
-        start_k = s.anticipator_gain_k * s.fail_safe_duty if s.droop_compensation else 0.0
+        start_k = droop.start_k(s, s.fail_safe_duty)
         return ZoneState(
             mode=s.initial_mode,
             hold_setpoint=None,
@@ -290,7 +290,7 @@ class ZoneController:
             recovering = recovery.ended_by_switch(recovering, reason)
         if ordinary and recovering == 0 and temperature is not None:
             saturated = on and switched_at is not None and now - switched_at > k.target_period_s
-            b = droop.integrated(s, b, target, temperature, dt, saturated=saturated)
+            b = droop.integrated(s, b, target - temperature, dt, saturated=saturated)
         duty = failsafe.learn(state, on_s, dt, now, k.learn_s)
         figures_1h = figures.last_hour(switches, on, state.started_at, now)
 

@@ -19,8 +19,8 @@ from __future__ import annotations
 from .controller import ZoneController
 from .records import outputs_with_cooling, with_cooling
 from .settings import CoolingSettings, ZoneSettings
-from .stages import anticipator, cooling, figures, switching
-from .stages.short_cycle import MAX_SWITCH_LOG, logged
+from .stages import anticipator, cooling, droop, figures, switching
+from .stages.short_cycle import HOUR_S, MAX_SWITCH_LOG, logged
 from .stages.short_cycle import hold as short_cycle_hold
 from .state import CoolingState, ZoneState, with_cooling_state
 from .types import CallName, CoolingOutputs, Reason, ZoneInputs, ZoneOutputs
@@ -31,18 +31,24 @@ __all__ = ["DualZoneController"]
 class DualZoneController(ZoneController):
     """Heating and cooling calls of one zone with changeover (conforms to ``types.Controller``)."""
 
-    __slots__ = ("_cooling",)
+    __slots__ = ("_cooling", "_period_s")
 
     def __init__(self, settings: ZoneSettings) -> None:
         super().__init__(settings)
         assert settings.cooling is not None
         self._cooling: CoolingSettings = settings.cooling
+        # the cooling cycle period: a call on for longer is saturated (:mod:`.stages.droop`)
+        self._period_s = HOUR_S / settings.cooling.cycle_rate_cph
+
+    def _fresh(self) -> CoolingState:
+        """A fresh cooling part (its terms at ``G x`` the zone's fail-safe duty)."""
+        return cooling.initial(self._cooling, self.settings.fail_safe_duty)
 
     # ------------------------------------------------------------------ state
 
     def initial_state(self, now: float) -> ZoneState:
         state = super().initial_state(now)
-        return _replace_cooling(state, cooling.initial(self._cooling))
+        return _replace_cooling(state, self._fresh())
 
     def resume(
         self,
@@ -59,9 +65,9 @@ class DualZoneController(ZoneController):
         restart; the anticipator follows the call over the gap."""
         resumed = super().resume(state, now, relay_on, safe_on=safe_on)
         cs = self._cooling
-        c = state.cooling if state.cooling is not None else cooling.initial(cs)
+        c = state.cooling if state.cooling is not None else self._fresh()
         if c.changeover not in _allowed(cs):
-            c = cooling.initial(cs)
+            c = self._fresh()
         on = False if cooling_on is None else cooling_on
         gap = max(0.0, now - state.last_step_at)
         a, _ = anticipator.advance(
@@ -103,7 +109,7 @@ class DualZoneController(ZoneController):
         """One tick of both calls; ``lock`` (from outside) keeps the heating call off too."""
         cs = self._cooling
         k = self._law
-        c = state.cooling if state.cooling is not None else cooling.initial(cs)
+        c = state.cooling if state.cooling is not None else self._fresh()
         dt = max(0.0, now - state.last_step_at)
 
         # 1. the side and the changeover output (both calls as the last tick left them)
@@ -139,7 +145,7 @@ class DualZoneController(ZoneController):
             c.relay_on, dt,
         )
         recovering = cooling.recovery(half, c, sp, temperature, last_temperature)
-        b = c.droop_k * decay if recovering < 0 and not c.relay_on else c.droop_k
+        b = droop.faded(c.droop_k, recovering, c.relay_on, decay)
         cool_lock = cooling.lock(
             cs, to, "cool", heat_on,
             None if heat_on else _heat_off_at(state, h_state), position, moved_at, now,
@@ -165,7 +171,8 @@ class DualZoneController(ZoneController):
             and not forced and not mode_off and cool_lock is None
         )
         if ordinary and recovering == 0 and temperature is not None and sp is not None:
-            b = cooling.droop(cs, b, sp, temperature, dt)
+            saturated = on and switched_at is not None and now - switched_at > self._period_s
+            b = droop.integrated(cs, b, temperature - sp, dt, saturated=saturated)
         new_c = CoolingState(
             changeover=c.changeover,
             hold_setpoint=c.hold_setpoint,
