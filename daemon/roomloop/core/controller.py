@@ -146,9 +146,7 @@ class ZoneController:
         gap = max(0.0, now - state.last_step_at)
         gain = s.anticipator_gain_k
         u = gain if relay else 0.0
-        tau_scale = (
-            min(max(state.tau_scale, MIN_TAU_SCALE), MAX_TAU_SCALE) if self._regulate else 1.0
-        )
+        tau_scale = regulation.clamped(state.tau_scale) if self._regulate else 1.0
         tau = s.anticipator_time_constant_s * tau_scale
         anticipator = u + (state.anticipator_k - u) * math.exp(-gap / tau)
         switches = tuple(sw for sw in state.switches if sw[0] <= now)

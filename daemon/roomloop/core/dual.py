@@ -11,7 +11,10 @@ Each tick, sans-IO:
    the zone is on the heating side, the cooling call has been off for ``changeover_s`` and
    the changeover output has been held in the heating position for ``hold_s``;
 3. the cooling call on the same temperature, level and mode, with the mirror lock (the
-   heating call's state *after* this tick's step), so the two are never on together.
+   heating call's state *after* this tick's step), so the two are never on together; its
+   anticipator, droop term and cycle-rate regulation by the heating call's stages
+   (:mod:`.stages.anticipator`, :mod:`.stages.droop`, :mod:`.stages.regulation`) on the
+   cooling call's own tuning and state.
 """
 
 from __future__ import annotations
@@ -19,8 +22,9 @@ from __future__ import annotations
 from .controller import ZoneController
 from .records import outputs_with_cooling, with_cooling
 from .settings import CoolingSettings, ZoneSettings
-from .stages import anticipator, cooling, droop, figures, switching
-from .stages.short_cycle import HOUR_S, MAX_SWITCH_LOG, logged
+from .stages import anticipator, cooling, droop, figures, regulation, switching
+from .stages.constants import CoolingLaw
+from .stages.short_cycle import MAX_SWITCH_LOG, logged
 from .stages.short_cycle import hold as short_cycle_hold
 from .state import CoolingState, ZoneState, with_cooling_state
 from .types import CallName, CoolingOutputs, Reason, ZoneInputs, ZoneOutputs
@@ -31,14 +35,13 @@ __all__ = ["DualZoneController"]
 class DualZoneController(ZoneController):
     """Heating and cooling calls of one zone with changeover (conforms to ``types.Controller``)."""
 
-    __slots__ = ("_cooling", "_period_s")
+    __slots__ = ("_cooling", "_cooling_law")
 
     def __init__(self, settings: ZoneSettings) -> None:
         super().__init__(settings)
         assert settings.cooling is not None
         self._cooling: CoolingSettings = settings.cooling
-        # the cooling cycle period: a call on for longer is saturated (:mod:`.stages.droop`)
-        self._period_s = HOUR_S / settings.cooling.cycle_rate_cph
+        self._cooling_law = CoolingLaw.of(settings, settings.cooling)
 
     def _fresh(self) -> CoolingState:
         """A fresh cooling part (its terms at ``G x`` the zone's fail-safe duty)."""
@@ -70,8 +73,10 @@ class DualZoneController(ZoneController):
             c = self._fresh()
         on = False if cooling_on is None else cooling_on
         gap = max(0.0, now - state.last_step_at)
+        tau_scale = regulation.clamped(c.tau_scale) if self._cooling_law.regulate else 1.0
         a, _ = anticipator.advance(
-            c.anticipator_k, cs.anticipator_gain_k, cs.anticipator_time_constant_s, on, gap
+            c.anticipator_k, cs.anticipator_gain_k,
+            cs.anticipator_time_constant_s * tau_scale, on, gap,
         )
         switches = tuple(sw for sw in c.switches if sw[0] <= now)
         switched_at = None if c.switched_at is None else min(c.switched_at, now)
@@ -95,6 +100,8 @@ class DualZoneController(ZoneController):
                 droop_k=min(max(c.droop_k, 0.0), cs.anticipator_gain_k)
                 if cs.droop_compensation
                 else 0.0,
+                tau_scale=tau_scale,
+                cycle_clean=False,
                 last_setpoint=c.last_setpoint,
                 recovering=c.recovering,
                 overheat_run=False,
@@ -141,7 +148,7 @@ class DualZoneController(ZoneController):
         )
         half = cs.differential_k / 2.0
         a, decay = anticipator.advance(
-            c.anticipator_k, cs.anticipator_gain_k, cs.anticipator_time_constant_s,
+            c.anticipator_k, cs.anticipator_gain_k, cs.anticipator_time_constant_s * c.tau_scale,
             c.relay_on, dt,
         )
         recovering = cooling.recovery(half, c, sp, temperature, last_temperature)
@@ -161,17 +168,25 @@ class DualZoneController(ZoneController):
         # protection is never cut short); a stop by the lock or mode off is at once.
         if want != c.relay_on and (want or (cool_lock is None and not mode_off)):
             on, held, reason = short_cycle_hold(cs, c, want, reason, now)
-        switched_at, switches = c.switched_at, c.switches
-        if on != c.relay_on:
-            switched_at, switches = now, logged(switches, now, on)
-            if (recovering > 0 and reason == "cut-out") or (recovering < 0 and reason == "cut-in"):
-                recovering = 0
+        # ordinary control: what regulation and droop may learn from
         ordinary = (
             temperature is not None and sp is not None and not h_out.fail_safe and not held
             and not forced and not mode_off and cool_lock is None
         )
+        cycling = ordinary and recovering == 0
+        kc = self._cooling_law
+        tau_scale, cycle_clean = c.tau_scale, c.cycle_clean and cycling
+        switched_at, switches = c.switched_at, c.switches
+        if on != c.relay_on:
+            if on:
+                tau_scale, cycle_clean = regulation.at_switch_on(
+                    kc, c, now, ordinary=cycling, reason=reason, level=h_out.level
+                )
+            switched_at, switches = now, logged(switches, now, on)
+            if (recovering > 0 and reason == "cut-out") or (recovering < 0 and reason == "cut-in"):
+                recovering = 0
         if ordinary and recovering == 0 and temperature is not None and sp is not None:
-            saturated = on and switched_at is not None and now - switched_at > self._period_s
+            saturated = on and switched_at is not None and now - switched_at > kc.target_period_s
             b = droop.integrated(cs, b, temperature - sp, dt, saturated=saturated)
         new_c = CoolingState(
             changeover=c.changeover,
@@ -184,6 +199,8 @@ class DualZoneController(ZoneController):
             switches=switches,
             anticipator_k=a,
             droop_k=b,
+            tau_scale=tau_scale,
+            cycle_clean=cycle_clean,
             last_setpoint=sp,
             recovering=recovering,
             overheat_run=on and forced,

@@ -14,6 +14,9 @@ cooling set point (with ``h`` it would, which in ``auto`` eats the dead band). T
 cycle is the heating one with the sign of the temperature reversed, so the sizing formula
 is the same: at 50 % on-time on = off = ``tau ln((G + D)/(G - D))``, and the cooling type's
 ``tau`` comes from its cycle rate by :func:`roomloop.config.presets.time_constant_for_cycle_rate`.
+Such a derived ``tau`` is regulated as the heating one is (:mod:`.regulation`, the cooling
+call's own scale in :class:`~roomloop.core.state.CoolingState`), so the plant really cycles at
+the cooling cycle rate.
 
 ``Ts`` is the zone's switching temperature (:mod:`.smoothing`), shared with the heating call;
 a zone that only cools smooths it over the cooling call's own cycle period
@@ -83,6 +86,8 @@ def initial(cs: CoolingSettings, duty: float) -> CoolingState:
         switches=(),
         anticipator_k=k,
         droop_k=k,
+        tau_scale=1.0,
+        cycle_clean=False,
         last_setpoint=None,
         recovering=0,
         overheat_run=False,
