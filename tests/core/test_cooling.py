@@ -231,6 +231,7 @@ def scenarios(
         heating=True,
         anticipator_gain_k=draw(st.floats(0.0, 3.0)),
         anticipator_time_constant_s=draw(st.floats(60.0, 3000.0)),
+        cycle_rate_regulation=draw(st.booleans()),
         min_on_s=draw(st.sampled_from([0.0, 60.0, 180.0])),
         min_off_s=draw(st.sampled_from([180.0, 300.0, 600.0])),
         max_cycles_per_hour=draw(st.integers(1, 8)),

@@ -260,7 +260,7 @@ def _cooling_command(  # noqa: PLR0917 - apply_command's arguments
         raise CommandRejected(field, "this zone has no cooling call")
     from .stages.cooling import initial
 
-    c = state.cooling if state.cooling is not None else initial(cs)
+    c = state.cooling if state.cooling is not None else initial(cs, settings.fail_safe_duty)
     low, high = settings.limit_min_c, settings.limit_max_c
     if field == "changeover":
         allowed = ("heat", "cool", "auto") if cs.heating else ("cool",)

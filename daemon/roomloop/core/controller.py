@@ -70,7 +70,7 @@ class ZoneController:
         hours droop compensation would take to integrate up from 0.
         """
         s = self.settings
-        start_k = s.anticipator_gain_k * s.fail_safe_duty if s.droop_compensation else 0.0
+        start_k = droop.start_k(s, s.fail_safe_duty)
         return ZoneState(
             mode=s.initial_mode,
             hold_setpoint=None,
@@ -146,9 +146,7 @@ class ZoneController:
         gap = max(0.0, now - state.last_step_at)
         gain = s.anticipator_gain_k
         u = gain if relay else 0.0
-        tau_scale = (
-            min(max(state.tau_scale, MIN_TAU_SCALE), MAX_TAU_SCALE) if self._regulate else 1.0
-        )
+        tau_scale = regulation.clamped(state.tau_scale) if self._regulate else 1.0
         tau = s.anticipator_time_constant_s * tau_scale
         anticipator = u + (state.anticipator_k - u) * math.exp(-gap / tau)
         switches = tuple(sw for sw in state.switches if sw[0] <= now)
@@ -290,7 +288,7 @@ class ZoneController:
             recovering = recovery.ended_by_switch(recovering, reason)
         if ordinary and recovering == 0 and temperature is not None:
             saturated = on and switched_at is not None and now - switched_at > k.target_period_s
-            b = droop.integrated(s, b, target, temperature, dt, saturated=saturated)
+            b = droop.integrated(s, b, target - temperature, dt, saturated=saturated)
         duty = failsafe.learn(state, on_s, dt, now, k.learn_s)
         figures_1h = figures.last_hour(switches, on, state.started_at, now)
 

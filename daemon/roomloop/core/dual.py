@@ -11,7 +11,10 @@ Each tick, sans-IO:
    the zone is on the heating side, the cooling call has been off for ``changeover_s`` and
    the changeover output has been held in the heating position for ``hold_s``;
 3. the cooling call on the same temperature, level and mode, with the mirror lock (the
-   heating call's state *after* this tick's step), so the two are never on together.
+   heating call's state *after* this tick's step), so the two are never on together; its
+   anticipator, droop term and cycle-rate regulation by the heating call's stages
+   (:mod:`.stages.anticipator`, :mod:`.stages.droop`, :mod:`.stages.regulation`) on the
+   cooling call's own tuning and state.
 """
 
 from __future__ import annotations
@@ -19,7 +22,8 @@ from __future__ import annotations
 from .controller import ZoneController
 from .records import outputs_with_cooling, with_cooling
 from .settings import CoolingSettings, ZoneSettings
-from .stages import anticipator, cooling, figures, switching
+from .stages import anticipator, cooling, droop, figures, regulation, switching
+from .stages.constants import CoolingLaw
 from .stages.short_cycle import MAX_SWITCH_LOG, logged
 from .stages.short_cycle import hold as short_cycle_hold
 from .state import CoolingState, ZoneState, with_cooling_state
@@ -31,18 +35,23 @@ __all__ = ["DualZoneController"]
 class DualZoneController(ZoneController):
     """Heating and cooling calls of one zone with changeover (conforms to ``types.Controller``)."""
 
-    __slots__ = ("_cooling",)
+    __slots__ = ("_cooling", "_cooling_law")
 
     def __init__(self, settings: ZoneSettings) -> None:
         super().__init__(settings)
         assert settings.cooling is not None
         self._cooling: CoolingSettings = settings.cooling
+        self._cooling_law = CoolingLaw.of(settings, settings.cooling)
+
+    def _fresh(self) -> CoolingState:
+        """A fresh cooling part (its terms at ``G x`` the zone's fail-safe duty)."""
+        return cooling.initial(self._cooling, self.settings.fail_safe_duty)
 
     # ------------------------------------------------------------------ state
 
     def initial_state(self, now: float) -> ZoneState:
         state = super().initial_state(now)
-        return _replace_cooling(state, cooling.initial(self._cooling))
+        return _replace_cooling(state, self._fresh())
 
     def resume(
         self,
@@ -59,13 +68,15 @@ class DualZoneController(ZoneController):
         restart; the anticipator follows the call over the gap."""
         resumed = super().resume(state, now, relay_on, safe_on=safe_on)
         cs = self._cooling
-        c = state.cooling if state.cooling is not None else cooling.initial(cs)
+        c = state.cooling if state.cooling is not None else self._fresh()
         if c.changeover not in _allowed(cs):
-            c = cooling.initial(cs)
+            c = self._fresh()
         on = False if cooling_on is None else cooling_on
         gap = max(0.0, now - state.last_step_at)
+        tau_scale = regulation.clamped(c.tau_scale) if self._cooling_law.regulate else 1.0
         a, _ = anticipator.advance(
-            c.anticipator_k, cs.anticipator_gain_k, cs.anticipator_time_constant_s, on, gap
+            c.anticipator_k, cs.anticipator_gain_k,
+            cs.anticipator_time_constant_s * tau_scale, on, gap,
         )
         switches = tuple(sw for sw in c.switches if sw[0] <= now)
         switched_at = None if c.switched_at is None else min(c.switched_at, now)
@@ -89,6 +100,8 @@ class DualZoneController(ZoneController):
                 droop_k=min(max(c.droop_k, 0.0), cs.anticipator_gain_k)
                 if cs.droop_compensation
                 else 0.0,
+                tau_scale=tau_scale,
+                cycle_clean=False,
                 last_setpoint=c.last_setpoint,
                 recovering=c.recovering,
                 overheat_run=False,
@@ -103,7 +116,7 @@ class DualZoneController(ZoneController):
         """One tick of both calls; ``lock`` (from outside) keeps the heating call off too."""
         cs = self._cooling
         k = self._law
-        c = state.cooling if state.cooling is not None else cooling.initial(cs)
+        c = state.cooling if state.cooling is not None else self._fresh()
         dt = max(0.0, now - state.last_step_at)
 
         # 1. the side and the changeover output (both calls as the last tick left them)
@@ -135,11 +148,11 @@ class DualZoneController(ZoneController):
         )
         half = cs.differential_k / 2.0
         a, decay = anticipator.advance(
-            c.anticipator_k, cs.anticipator_gain_k, cs.anticipator_time_constant_s,
+            c.anticipator_k, cs.anticipator_gain_k, cs.anticipator_time_constant_s * c.tau_scale,
             c.relay_on, dt,
         )
         recovering = cooling.recovery(half, c, sp, temperature, last_temperature)
-        b = c.droop_k * decay if recovering < 0 and not c.relay_on else c.droop_k
+        b = droop.faded(c.droop_k, recovering, c.relay_on, decay)
         cool_lock = cooling.lock(
             cs, to, "cool", heat_on,
             None if heat_on else _heat_off_at(state, h_state), position, moved_at, now,
@@ -155,17 +168,26 @@ class DualZoneController(ZoneController):
         # protection is never cut short); a stop by the lock or mode off is at once.
         if want != c.relay_on and (want or (cool_lock is None and not mode_off)):
             on, held, reason = short_cycle_hold(cs, c, want, reason, now)
-        switched_at, switches = c.switched_at, c.switches
-        if on != c.relay_on:
-            switched_at, switches = now, logged(switches, now, on)
-            if (recovering > 0 and reason == "cut-out") or (recovering < 0 and reason == "cut-in"):
-                recovering = 0
+        # ordinary control: what regulation and droop may learn from
         ordinary = (
             temperature is not None and sp is not None and not h_out.fail_safe and not held
             and not forced and not mode_off and cool_lock is None
         )
+        cycling = ordinary and recovering == 0
+        kc = self._cooling_law
+        tau_scale, cycle_clean = c.tau_scale, c.cycle_clean and cycling
+        switched_at, switches = c.switched_at, c.switches
+        if on != c.relay_on:
+            if on:
+                tau_scale, cycle_clean = regulation.at_switch_on(
+                    kc, c, now, ordinary=cycling, reason=reason, level=h_out.level
+                )
+            switched_at, switches = now, logged(switches, now, on)
+            if (recovering > 0 and reason == "cut-out") or (recovering < 0 and reason == "cut-in"):
+                recovering = 0
         if ordinary and recovering == 0 and temperature is not None and sp is not None:
-            b = cooling.droop(cs, b, sp, temperature, dt)
+            saturated = on and switched_at is not None and now - switched_at > kc.target_period_s
+            b = droop.integrated(cs, b, temperature - sp, dt, saturated=saturated)
         new_c = CoolingState(
             changeover=c.changeover,
             hold_setpoint=c.hold_setpoint,
@@ -177,6 +199,8 @@ class DualZoneController(ZoneController):
             switches=switches,
             anticipator_k=a,
             droop_k=b,
+            tau_scale=tau_scale,
+            cycle_clean=cycle_clean,
             last_setpoint=sp,
             recovering=recovering,
             overheat_run=on and forced,

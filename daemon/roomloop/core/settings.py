@@ -75,6 +75,9 @@ def cooling_settings(zone: Zone, units: str = "C") -> CoolingSettings | None:
     return CoolingSettings(
         type=cooling.type,
         **call_tuning(tuning),
+        cycle_rate_regulation=(
+            zone.cooling_origins.get("anticipator_time_constant_s") == "derived from cycle rate"
+        ),
         comfort_c=float(sp.comfort),
         standby_c=float(sp.standby),
         economy_c=float(sp.economy),
@@ -140,6 +143,9 @@ class CoolingSettings:
     max_cycles_per_hour: int = 4
     droop_compensation: bool = True
     droop_time_s: float = 3600.0
+    cycle_rate_regulation: bool = True
+    """Adjust the cooling anticipator's time constant so the plant really cycles at the cooling
+    cycle rate (on when the time constant was derived from the cycle rate, off when given)."""
     comfort_c: float = 24.0
     standby_c: float = 26.0
     economy_c: float = 28.0
@@ -185,7 +191,9 @@ class CoolingSettings:
         **values: float | bool | str | None,
     ) -> CoolingSettings:
         """A cooling call with ``cooling_type``'s preset (time constant derived from its cycle
-        rate), for the simulator and tests; ``values`` override single fields."""
+        rate), for the simulator and tests; ``values`` override single fields. As from a site
+        file, a time constant given in ``values`` turns cycle-rate regulation off (unless
+        ``values`` says otherwise)."""
         from roomloop.config.presets import COOLING_PRESETS, time_constant_for_cycle_rate
 
         try:
@@ -206,6 +214,7 @@ class CoolingSettings:
             "droop_time_s": preset.droop_time_s,
             "heating": heating,
             "initial_changeover": changeover or ("auto" if heating else "cool"),
+            "cycle_rate_regulation": "anticipator_time_constant_s" not in values,
         }
         fields.update(values)
         return cls(**fields)  # type: ignore[arg-type]

@@ -107,6 +107,10 @@ class CoolingState:
     """The cooling call's switchings of the last hour, oldest first."""
     anticipator_k: float
     droop_k: float
+    tau_scale: float
+    """Cycle-rate regulation: the cooling anticipator runs with ``time_constant x tau_scale``."""
+    cycle_clean: bool
+    """The running cooling cycle has been ordinary control so far (it may adjust ``tau_scale``)."""
     last_setpoint: float | None
     recovering: int
     """+1 pulling down to a lowered cooling set point, -1 resting up to a raised one, 0 cycling."""
@@ -344,6 +348,9 @@ def _cooling_from(raw: Any) -> CoolingState | None:
         switches=switches,
         anticipator_k=r.non_negative("anticipator_k"),
         droop_k=r.non_negative("droop_k"),
+        # a file written before the cooling call was regulated: unregulated, no cycle running
+        tau_scale=r.positive("tau_scale") if "tau_scale" in raw else 1.0,
+        cycle_clean=r.flag("cycle_clean") if "cycle_clean" in raw else False,
         last_setpoint=r.opt_celsius("last_setpoint"),
         recovering=int(r.choice("recovering", (-1, 0, 1))),
         overheat_run=r.flag("overheat_run"),

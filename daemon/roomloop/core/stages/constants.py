@@ -5,7 +5,7 @@ from __future__ import annotations
 from collections.abc import Mapping
 from dataclasses import dataclass
 
-from ..settings import ZoneSettings
+from ..settings import CoolingSettings, ZoneSettings
 from ..types import Reason
 from .regulation import GUARD_CPH
 from .setpoint import level_setpoints
@@ -87,4 +87,28 @@ class LawConstants:
             default_level=s.default_level,
             level_setpoints=level_setpoints(s),
             fail_safe_reason=reasons[s.fail_safe_policy],
+        )
+
+
+@dataclass(frozen=True, slots=True)
+class CoolingLaw:
+    """Per-settings constants of the cooling call (a zone with a cooling call only)."""
+
+    regulate: bool
+    """Cycle-rate regulation of the cooling anticipator is on (see :mod:`.regulation`)."""
+    target_period_s: float
+    """The cooling cycle period ``3600 / cycle_rate_cph``; a call on for longer is saturated
+    (see :mod:`.droop`)."""
+    guard_ons: float
+    """Switch-ons in the sliding hour at which regulation stops shortening the time constant."""
+    default_level: str
+    """The zone's default level (regulation adapts only there)."""
+
+    @classmethod
+    def of(cls, s: ZoneSettings, cs: CoolingSettings) -> CoolingLaw:
+        return cls(
+            regulate=cs.cycle_rate_regulation and cs.anticipator_gain_k > cs.differential_k,
+            target_period_s=HOUR_S / cs.cycle_rate_cph,
+            guard_ons=cs.cycle_rate_cph + GUARD_CPH,
+            default_level=s.default_level,
         )

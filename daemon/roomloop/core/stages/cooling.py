@@ -14,17 +14,25 @@ cooling set point (with ``h`` it would, which in ``auto`` eats the dead band). T
 cycle is the heating one with the sign of the temperature reversed, so the sizing formula
 is the same: at 50 % on-time on = off = ``tau ln((G + D)/(G - D))``, and the cooling type's
 ``tau`` comes from its cycle rate by :func:`roomloop.config.presets.time_constant_for_cycle_rate`.
+Such a derived ``tau`` is regulated as the heating one is (:mod:`.regulation`, the cooling
+call's own scale in :class:`~roomloop.core.state.CoolingState`), so the plant really cycles at
+the cooling cycle rate.
 
 ``Ts`` is the zone's switching temperature (:mod:`.smoothing`), shared with the heating call;
 a zone that only cools smooths it over the cooling call's own cycle period
 (:class:`~.constants.LawConstants`).
 
 **Droop compensation.** ``b`` integrates ``(T - Sc) dt / droop_time_s``, clamped to
-``[0, G]``, and so converges to the anticipator's mean ``G x duty``; the same anti-windup
-rules as heating (:mod:`.droop`): frozen while recovering from a set-point change, in
-fail-safe, while the temperature is missing, in mode ``off``, during an overheat run, while
-short-cycle protection holds the call and while the changeover locks it; while resting after
-a set-up (a raised cooling set point) it fades with the anticipator.
+``[0, G]``, and so converges to the anticipator's mean ``G x duty``, by the heating call's
+functions with the error's sign reversed (:mod:`.droop`), so the same rules hold: a fresh
+call starts ``c`` and ``b`` together at ``G x`` the zone's fail-safe duty (they cancel in
+the switching temperature, and the room does not sit ``G x duty`` above ``Sc`` while ``b``
+integrates up from 0); ``b`` integrates at half rate while the call is saturated on (it has
+run for longer than a whole cooling cycle period while the room is still above ``Sc``); it
+is frozen while recovering from a set-point change, in fail-safe, while the temperature is
+missing, in mode ``off``, during an overheat run, while short-cycle protection holds the
+call and while the changeover locks it; while resting after a set-up (a raised cooling set
+point) it fades with the anticipator.
 
 **Changeover.** ``heat``, ``cool`` or ``auto`` (commands set it). The zone is set up for one
 call at a time, its *side*: ``heat`` or ``cool`` when the changeover says so, in ``auto``
@@ -51,6 +59,7 @@ from __future__ import annotations
 from ..settings import CoolingSettings
 from ..state import CoolingState
 from ..types import CallName, Reason
+from .droop import start_k
 from .short_cycle import logged
 
 _COASTING: dict[str, Reason] = {
@@ -61,9 +70,11 @@ _COASTING: dict[str, Reason] = {
 }
 
 
-def initial(cs: CoolingSettings) -> CoolingState:
-    """A fresh cooling part: call off, nothing learned, the configured changeover."""
+def initial(cs: CoolingSettings, duty: float) -> CoolingState:
+    """A fresh cooling part: call off, the configured changeover, the anticipator and the
+    droop term at ``G x duty`` (``duty``: the zone's fail-safe duty, :func:`.droop.start_k`)."""
     side = first_side(cs, cs.initial_changeover)
+    k = start_k(cs, duty)
     return CoolingState(
         changeover=cs.initial_changeover,
         hold_setpoint=None,
@@ -73,8 +84,10 @@ def initial(cs: CoolingSettings) -> CoolingState:
         relay_on=False,
         switched_at=None,
         switches=(),
-        anticipator_k=0.0,
-        droop_k=0.0,
+        anticipator_k=k,
+        droop_k=k,
+        tau_scale=1.0,
+        cycle_clean=False,
         last_setpoint=None,
         recovering=0,
         overheat_run=False,
@@ -245,19 +258,8 @@ def band(
     return False, _COASTING["off-to-cut-in"] if coasting else "off-to-cut-in"
 
 
-def droop(
-    cs: CoolingSettings, droop_k: float, sp: float, temperature: float, dt: float
-) -> float:
-    """``b`` after an ordinary tick: ``+(T - Sc) dt / droop_time_s``, clamped to ``[0, G]``."""
-    if not cs.droop_compensation or dt <= 0.0:
-        return droop_k
-    b = droop_k + (temperature - sp) * dt / cs.droop_time_s
-    return min(max(b, 0.0), cs.anticipator_gain_k)
-
-
 __all__ = [
     "band",
-    "droop",
     "first_side",
     "initial",
     "lock",

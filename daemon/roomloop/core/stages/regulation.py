@@ -7,7 +7,8 @@ short-cycle hold in it) the time constant is scaled by
 ``(3600 / cycle_rate / period) ** 0.2`` within [0.5, 2], so the plant settles at the
 configured cycle rate whatever its on-fraction; the floor of 0.5 keeps the
 anticipator from racing at very low on-fractions. On when the time constant was
-derived from the cycle rate (``cycle_rate_regulation``) and ``G > D``.
+derived from the cycle rate (``cycle_rate_regulation``) and ``G > D``. The cooling call
+(:mod:`.cooling`) is regulated the same way with its own cycle rate, time constant and scale.
 
 Two guards keep the cycle limit a backstop: regulation adapts only at the zone's
 default level (a set-back runs at a low on-fraction, and a time constant shortened
@@ -18,14 +19,10 @@ shortens the time constant after a switch-on that brings the sliding hour to
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
+from typing import Protocol
 
-from ..state import ZoneState
 from ..types import Reason
-from .short_cycle import HOUR_S, ons_since
-
-if TYPE_CHECKING:
-    from .constants import LawConstants
+from .short_cycle import HOUR_S, Switches, ons_since
 
 MIN_TAU_SCALE = 0.5
 MAX_TAU_SCALE = 2.0
@@ -33,14 +30,51 @@ REGULATION_EXPONENT = 0.2
 GUARD_CPH = 1.0
 
 
+class RegulationLaw(Protocol):
+    """A call's regulation constants (the zone's :class:`~.constants.LawConstants` for the
+    heating call, :class:`~.constants.CoolingLaw` for the cooling call)."""
+
+    @property
+    def regulate(self) -> bool: ...
+    @property
+    def target_period_s(self) -> float: ...
+    @property
+    def guard_ons(self) -> float: ...
+    @property
+    def default_level(self) -> str: ...
+
+
+class RegulatedCall(Protocol):
+    """What a call's state keeps for regulation (the zone's state, or its cooling state)."""
+
+    @property
+    def tau_scale(self) -> float: ...
+    @property
+    def cycle_clean(self) -> bool: ...
+    @property
+    def switches(self) -> Switches: ...
+
+
+def clamped(scale: float) -> float:
+    """A scale (a restored one, say) within [MIN_TAU_SCALE, MAX_TAU_SCALE]."""
+    return min(max(scale, MIN_TAU_SCALE), MAX_TAU_SCALE)
+
+
 def at_switch_on(
-    k: LawConstants, state: ZoneState, now: float, *, ordinary: bool, reason: Reason, level: str
+    k: RegulationLaw,
+    state: RegulatedCall,
+    now: float,
+    *,
+    ordinary: bool,
+    reason: Reason,
+    level: str,
 ) -> tuple[float, bool]:
     """(time-constant scale, the new cycle is ordinary so far) at a switch-on at ``now``.
 
     ``ordinary``: this tick was ordinary control (no recovery, protection, fail-safe or
     short-cycle hold). A cycle runs from one band switch-on (``cut-in``) to the next; one
-    that was ordinary throughout, at the zone's default level, adjusts the scale.
+    that was ordinary throughout, at the zone's default level, adjusts the scale. ``state``
+    is the call's state before this switch-on (the heating call's or the cooling call's).
     """
     cut_in = reason == "cut-in"
     switches = state.switches
@@ -61,7 +95,7 @@ def at_switch_on(
     return state.tau_scale, ordinary and cut_in
 
 
-def regulated(k: LawConstants, scale: float, period: float, ons_in_hour: int = 0) -> float:
+def regulated(k: RegulationLaw, scale: float, period: float, ons_in_hour: int = 0) -> float:
     """The scale after one ordinary cycle of ``period`` seconds (on to on).
 
     Scaled by ``(target period / measured period) ** 0.2`` per cycle (a gentle integral
