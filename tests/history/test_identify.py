@@ -203,7 +203,12 @@ def test_without_the_outdoor_temperature_no_confident_wrong_answer() -> None:
     assert series.outdoor is None
     assert fit.structure != "room"
     room = [f for f in tried if f.structure == "room"]
-    assert room and room[0].determined  # the confident wrong answer was there to be taken
+    assert room and room[0].spread_determined  # the confident wrong answer was there to take
+    # ... and its loss to outdoors (five times the true one, with a small spread) is not
+    # passed off as determined: without the outdoor temperature no structure determines it
+    assert room[0].params["H"] > 2.0 * plant.room.loss_w_per_k
+    assert "H" in room[0].undetermined() and not room[0].determined
+    assert "H" in fit.undetermined()
     assert room[0].node_time_constants_s()["building"] < 0.2 * 86400.0
     assert any("too simple" in note for note in fit.notes)
     assert fit.rms_k < 0.1

@@ -166,8 +166,14 @@ def _print_fit(zone: Zone, history: ZoneHistory, fit: Fit, tried: list[Fit]) -> 
         sd = fit.rel_sd[key]
         spread = f"+- {sd:.0f} s" if key == "delay_s" else f"+- {100 * sd:.0f} %"
         flag = "  (not determined)" if key in fit.undetermined() else ""
+        if key in fit.confounded:  # its spread would pass for a precision it does not have
+            spread, flag = "+- ?", "  (not determined without the outdoor temperature)"
         print(f"  {label:<20} {value:>12.4g} {unit:<4} {spread}{flag}")
-    taus = ", ".join(f"{k} {v / 3600:.2f} h" for k, v in fit.node_time_constants_s().items())
+    loose = "H" in fit.undetermined()
+    taus = ", ".join(
+        f"{k} {v / 3600:.2f} h" + (" (not determined)" if k == "building" and loose else "")
+        for k, v in fit.node_time_constants_s().items()
+    )
     print(f"  time constants: {taus}")
     print(f"RMS residual {fit.rms_k:.3f} K over {fit.points} points; verdict: {_verdict(fit)}")
     for note in fit.notes:
@@ -196,6 +202,15 @@ def _write_plant(path: str, spec: PlantSpec, fit: Fit, source: str) -> None:
     except OSError as exc:
         raise Refused(f"cannot write {path}: {exc.strerror or exc}", EXIT_RUNTIME) from None
     print(f"plant written to {path} (roomloop simulate --plant reads it)")
+    if not fit.determined:
+        print(
+            f"the plant file's {_undetermined_text(fit)} are not determined by these data "
+            "(its header says so): what simulate predicts from them is indicative only"
+        )
+
+
+def _undetermined_text(fit: Fit) -> str:
+    return ", ".join(PARAM_TEXT[key][0] for key in fit.undetermined())
 
 
 def _print_recommendation(site: Site, zone_name: str, spec: PlantSpec, fit: Fit) -> None:

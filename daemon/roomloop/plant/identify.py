@@ -80,6 +80,13 @@ PARAM_NAMES = {
     "delay_s": "transport delay",
 }
 """A parameter counts as determined when its relative standard uncertainty is below this."""
+CONFOUNDED_WITHOUT_OUTDOOR = ("H",)
+"""Without the outdoor temperature the loss to outdoors is not determined, whatever its
+spread: the free load (a slow part and a daily profile) spans the room's steady response to
+the program's daily set points, so a loss of any size is matched by a load. A structure
+that leaves out a node then takes the node's part in ``H`` with a spread of a few per cent
+(the underfloor plant's week: 102 W/K +- 3 % against a true 40; the spread is computed as
+if the model were right, and says nothing of what the load absorbed)."""
 
 
 class IdentificationRefused(Exception):
@@ -117,14 +124,26 @@ class Fit:
     coef: Any = None
     predicted: Any = None
     notes: list[str] = field(default_factory=list)
+    confounded: tuple[str, ...] = ()
+    """Parameters the data cannot determine whatever their stated spread: without the
+    outdoor temperature, the loss to outdoors (see :data:`CONFOUNDED_WITHOUT_OUTDOOR`)."""
 
     @property
     def determined(self) -> bool:
         return not self.undetermined()
 
+    @property
+    def spread_determined(self) -> bool:
+        """Every parameter's stated spread is small (the structures are chosen on this)."""
+        return not self._wide_spread()
+
     def undetermined(self) -> list[str]:
-        """The parameters these data do not determine (relative uncertainty of 50 % or more;
-        the delay: more than itself or two minutes)."""
+        """The parameters these data do not determine: relative uncertainty of 50 % or more
+        (the delay: more than itself or two minutes), or confounded by the setup."""
+        wide = self._wide_spread()
+        return wide + [name for name in self.confounded if name in self.params and name not in wide]
+
+    def _wide_spread(self) -> list[str]:
         return [
             name for name, sd in self.rel_sd.items()
             if not (
@@ -494,6 +513,7 @@ def _fit_structure(
         mode_time_constants_s=model.time_constants,
         points=m,
         coef=coef,
+        confounded=() if use_outdoor else CONFOUNDED_WITHOUT_OUTDOOR,
     )
     fit.predicted = predicted
     fit.notes.append(f"{result.nfev} evaluations")
@@ -508,11 +528,13 @@ def identify(
     structures: Sequence[str] = STRUCTURES,
     step_s: float = STEP_S,
 ) -> tuple[Fit, list[Fit], Series]:
-    """Fit the structures richest first, stopping at the first whose parameters the data
-    all determine; the chosen fit, all fits tried, and the data.
+    """Fit the structures richest first, stopping at the first whose parameters all have a
+    small spread; the chosen fit, all fits tried, and the data. (A confounded parameter,
+    the loss to outdoors without the outdoor temperature, is left out of this choice: no
+    structure determines it; the chosen fit names it as not determined.)
 
-    The chosen fit is the determined one with the lowest BIC, unless it fits more than
-    ``REDUCED_RMS_MARGIN`` worse than the best fit tried (a reduced structure too simple
+    The chosen fit is the one with the lowest BIC whose spreads are all small, unless it fits
+    more than ``REDUCED_RMS_MARGIN`` worse than the best fit tried (a reduced structure too simple
     for the room: without the outdoor temperature a single-node room fits the fast part
     "precisely" with a building time constant of an hour instead of a day). Else it is the
     best fit by BIC, with its undetermined parameters named in its notes.
@@ -530,13 +552,13 @@ def identify(
             series, structure, power, heating, len(series.u), heater_known=heater_w is not None
         )
         fits.append(fit)
-        if fit.determined:
+        if fit.spread_determined:
             break
     best = min(fits, key=lambda f: f.bic)
-    usable = [f for f in fits if f.determined and not _too_simple(f, best)]
+    usable = [f for f in fits if f.spread_determined and not _too_simple(f, best)]
     chosen = min(usable, key=lambda f: f.bic) if usable else best
     for f in fits:
-        if f.determined and _too_simple(f, best):
+        if f.spread_determined and _too_simple(f, best):
             chosen.notes.append(
                 f"the {f.structure} structure's parameters look precise, but it fits clearly "
                 f"worse (RMS {f.rms_k:.3f} K against {best.rms_k:.3f} K): a model too simple "
@@ -550,10 +572,10 @@ def identify(
         )
     if series.outdoor is None:
         chosen.notes.append(
-            "without the outdoor temperature the loss to outdoors and the building's time "
-            "constant rest on the room's response alone (the load is fitted as a slow part "
-            "and a daily profile); give the site an outdoor_point, or an outdoor column in "
-            "--history, for a firmer answer"
+            "without the outdoor temperature the loss to outdoors, and the building's time "
+            "constant built on it, are not determined: the load fitted instead (a slow part "
+            "and a daily profile) matches a loss of any size; give the site an outdoor_point, "
+            "or an outdoor column in --history"
         )
     return chosen, fits, series
 
@@ -632,6 +654,15 @@ def plant_yaml(spec: PlantSpec, fit: Fit, source: str) -> str:
         f"# Identified by 'roomloop tune' from {source}",
         f"# structure {fit.structure}, RMS residual {fit.rms_k:.3f} K over {fit.points} points"
         + ("" if fit.heater_known else f"; heater_w unknown: nominal {fit.heater_w:.0f} W scale"),
+        *(
+            [
+                "# not determined by these data: "
+                + ", ".join(PARAM_NAMES[name] for name in fit.undetermined())
+                + "; a simulation resting on them is indicative only"
+            ]
+            if not fit.determined
+            else []
+        ),
         f"name: {spec.name}",
         f"heater_w: {spec.heater_w:.6g}",
         f"transport_delay_s: {spec.transport_delay_s:.6g}",
