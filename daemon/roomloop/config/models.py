@@ -181,25 +181,32 @@ Topic = Annotated[str, Field(min_length=1), AfterValidator(_topic)]
 _HOST_LABEL = re.compile(r"[A-Za-z0-9_]([A-Za-z0-9_-]{0,61}[A-Za-z0-9_])?")
 
 
-def _host(value: str) -> str:
+MODBUS_TCP_SCHEME = "the link is Modbus TCP, its host takes no scheme"
+BROKER_SCHEME = "mqtt:// is implied; for mqtts:// add a tls: section"
+"""What a URL in ``host`` is told about its scheme: the link's kind decides it, never the
+scheme typed (``mqtt://`` on a Modbus link is no MQTT)."""
+
+
+def _host(value: str, scheme_note: str) -> str:
     """A host name or an IP address, as the socket layer takes it: nothing else.
 
     Names follow RFC 1123 section 2.1 (labels of letters, digits and '-', at most 63
     characters, 253 in all; '_' is tolerated, as local networks use it). A name made of
     numbers only must be a dotted-quad IPv4 address (RFC 1123 section 2.1 asks to check
-    that first); an IPv6 address is written without brackets.
+    that first); an IPv6 address is written without brackets. ``scheme_note``: what a URL's
+    scheme is told, for the kind of peer the host names.
     """
     if any(c.isspace() for c in value):
         raise ValueError(f"{value!r} contains a space: a host is one name or address")
     if "://" in value:
-        scheme, _, rest = value.partition("://")
+        _scheme, _, rest = value.partition("://")
         host, _, port = rest.partition(":")
         hint = f"host: {host.rstrip('/') or '...'}" + (
             f" and port: {port.rstrip('/')}" if port else ""
         )
         raise ValueError(
             f"{value!r} is a URL; give the host alone ({hint}; port is its own key, "
-            f"and {scheme}:// is implied)"
+            f"and {scheme_note})"
         )
     try:
         ipaddress.ip_address(value)
@@ -229,8 +236,18 @@ def _host(value: str) -> str:
     return value
 
 
-Host = Annotated[str, Field(min_length=1), AfterValidator(_host)]
-"""A host name or an IP address; the port is its own key."""
+def _modbus_tcp_host(value: str) -> str:
+    return _host(value, MODBUS_TCP_SCHEME)
+
+
+def _broker_host(value: str) -> str:
+    return _host(value, BROKER_SCHEME)
+
+
+ModbusTcpHost = Annotated[str, Field(min_length=1), AfterValidator(_modbus_tcp_host)]
+"""A Modbus TCP device's or gateway's host name or IP address; the port is its own key."""
+BrokerHost = Annotated[str, Field(min_length=1), AfterValidator(_broker_host)]
+"""The MQTT broker's host name or IP address; the port is its own key."""
 
 
 class Strict(BaseModel):
@@ -285,7 +302,7 @@ class ModbusLinkBase(Strict):
 
 class ModbusTcpLink(ModbusLinkBase):
     type: Literal["modbus-tcp"]
-    host: Host
+    host: ModbusTcpHost
     port: Annotated[Int, Field(ge=1, le=65535)] = 502
 
 
@@ -345,7 +362,7 @@ SECRET_KEYS = frozenset({"password_file", "password_env"})
 class Broker(Strict):
     """The site's MQTT broker: monitoring, commands and MQTT points go through it."""
 
-    host: Host
+    host: BrokerHost
     port: Annotated[Int, Field(ge=1, le=65535)] = 1883
     client_id: str | None = None
     keepalive_s: Annotated[Int, Field(ge=5, le=3600)] = 30
