@@ -97,6 +97,42 @@ def _not_a_bool(value: Any) -> Any:
     return value
 
 
+class WrittenInt(int):
+    """A whole number with the text YAML read it from, where the number loses that text
+    (``0730`` is octal 472 in YAML 1.1): the loader makes it, a hint quotes the text. It is
+    an ``int`` everywhere else (pydantic gives the model a plain one)."""
+
+    yaml_text: str
+
+    def __new__(cls, value: int, text: str) -> WrittenInt:
+        number = super().__new__(cls, value)
+        number.yaml_text = text
+        return number
+
+    def __getnewargs__(self) -> tuple[int, str]:  # type: ignore[override]
+        return int(self), self.yaml_text
+
+
+class WrittenFloat(float):
+    """A number with the text YAML read it from, where the number loses that text
+    (``7.30`` is 7.3), like :class:`WrittenInt`."""
+
+    yaml_text: str
+
+    def __new__(cls, value: float, text: str) -> WrittenFloat:
+        number = super().__new__(cls, value)
+        number.yaml_text = text
+        return number
+
+    def __getnewargs__(self) -> tuple[float, str]:  # type: ignore[override]
+        return float(self), self.yaml_text
+
+
+def written_text(value: int | float) -> str:
+    """The number as the file wrote it (the loader's text when the number lost it)."""
+    return getattr(value, "yaml_text", None) or str(value)
+
+
 Int = Annotated[int, StrictType()]
 """A whole number as written: ``true`` is no 1, ``12.0`` and ``"12"`` are no 12 (use it, not
 ``int``, for every whole-number key of the site file)."""
@@ -829,11 +865,18 @@ class ProgramEntry(Strict):
     @field_validator("at", mode="before")
     @classmethod
     def _quoted(cls, value: Any) -> Any:
-        """YAML reads a bare ``0730`` as a number (octal: 472) and ``7.30`` as 7.3."""
+        """YAML reads a bare ``1730`` as a number, ``0730`` as octal 472 (YAML 1.1) and
+        ``7.30`` as 7.3; the hint quotes the file's own digits as a time."""
         if isinstance(value, int | float) and not isinstance(value, bool):
+            text = written_text(value)
+            digits = text.lstrip("+")
+            octal = isinstance(value, int) and len(digits) > 1 and digits.startswith("0")
+            why = f" ({text} with a leading 0 is octal)" if octal and value != int(digits) else ""
+            as_time = _time_of_digits(text)
+            hint = f'at: "{as_time}"' if as_time else 'e.g. at: "07:30"'
             raise ValueError(
-                f"YAML read this time as the number {value:g} (a bare 0730 is even octal); "
-                'write times as HH:MM in quotes, e.g. at: "07:30"'
+                f"YAML read this time as the number {value:g}{why}; "
+                f"write times as HH:MM in quotes, {hint}"
             )
         return value
 
@@ -842,8 +885,8 @@ class ProgramEntry(Strict):
     def _time(cls, value: str) -> str:
         match = re.fullmatch(r"([01]?\d|2[0-3]):([0-5]\d)", value.strip())
         if not match:
-            digits = re.fullmatch(r"(\d{1,2})(\d\d)", value.strip())
-            hint = f'; write it as "{int(digits[1]):02d}:{digits[2]}"' if digits else ""
+            as_time = _time_of_digits(value)
+            hint = f'; write it as "{as_time}"' if as_time else ""
             raise ValueError(f"{value!r} is not a time of day HH:MM (00:00 to 23:59){hint}")
         return f"{int(match.group(1)):02d}:{match.group(2)}"
 
@@ -851,6 +894,14 @@ class ProgramEntry(Strict):
     def minute_of_day(self) -> int:
         hours, minutes = self.at.split(":")
         return int(hours) * 60 + int(minutes)
+
+
+def _time_of_digits(text: str) -> str | None:
+    """``1730``, ``0730``, ``730`` or ``7.30`` as the time ``HH:MM`` they mean, if one."""
+    digits = re.fullmatch(r"(\d{1,2})\.?(\d\d)", text.strip())
+    if digits is None or int(digits[1]) > 23 or int(digits[2]) > 59:
+        return None
+    return f"{int(digits[1]):02d}:{digits[2]}"
 
 
 def expand_days(value: list[str] | str) -> list[str]:
