@@ -80,6 +80,16 @@ def test_derived_seconds_are_rounded(capsys: pytest.CaptureFixture[str], tmp_pat
     # Smoothing: the hydronic type's three cycle periods, 3 x 3600 / 7 = 1542.86 s, shown as 1543 s.
     smoothing = re.search(r"smoothing\s+(\S+) s\s+derived from cycle rate", out)
     assert smoothing is not None and smoothing[1] == "1543"
+    # The cooling call's time constant too: direct expansion (3 cph, gain 1.5 K, differential
+    # 0.5 K), tau = 3600 / (2 * 3 * ln(2.0 / 1.0)) = 865.62 s, shown as 866 s.
+    path = tmp_path / "cooling.yaml"
+    path.write_text(COOLING_SITE, encoding="utf-8")
+    code = main(["check", "-c", str(path)])
+    out = capsys.readouterr().out
+    assert code == 0, out
+    cooling_tau = 3600 / (2 * 3 * math.log(2.0 / 1.0))
+    shown = re.findall(r"cooling: .*\n\s+differential .*, time constant (\S+) s,", out)
+    assert shown == [str(round(cooling_tau))] * 2 == ["866", "866"], out
 
 
 COOLING_SITE = """\

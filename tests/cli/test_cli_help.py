@@ -53,18 +53,28 @@ def test_the_help_states_the_demos_ranges_and_the_heating_types(
 ) -> None:
     from typing import get_args
 
-    from roomloop.cli import COOLING_TYPES, DEMO_HOURS, DEMO_MAX_SPEED, HEATING_TYPES
+    from roomloop.cli import (
+        COOLING_TYPES,
+        DEMO_HEATING,
+        DEMO_HOURS,
+        DEMO_MAX_SPEED,
+        HEATING_TYPES,
+    )
     from roomloop.config.models import CoolingType, HeatingType
-    from roomloop.demo.runner import MAX_SPEED
+    from roomloop.demo.runner import MAX_SPEED, demo_site
     from roomloop.demo.timeline import MAX_HOURS, MIN_HOURS
 
     # the parser's written-out copies stay equal to what the commands check
     assert get_args(HeatingType) == HEATING_TYPES
     assert get_args(CoolingType) == COOLING_TYPES
     assert DEMO_HOURS == (MIN_HOURS, MAX_HOURS) and DEMO_MAX_SPEED == MAX_SPEED
+    site = demo_site(port=1502, state_dir="/nonexistent-demo-state")
+    assert tuple(zone.heating for zone in site.zones) == DEMO_HEATING
     demo = " ".join(_help(capsys, monkeypatch, "demo").split())
     assert "simulated hours, 1 to 48 (default 8)" in demo
     assert "above 0 and at most 3600" in demo
+    assert "Its zones' heating types: underfloor, hydronic, electric." in demo
+    assert "(heating: TYPE): forced-air, hydronic, underfloor, electric, steam;" in demo
     simulate = " ".join(_help(capsys, monkeypatch, "simulate").split())
     assert "forced-air, hydronic, underfloor, electric, steam" in simulate
 

@@ -26,6 +26,9 @@ HEATING_TYPES = ("forced-air", "hydronic", "underfloor", "electric", "steam")
 keeps the two equal)."""
 COOLING_TYPES = ("direct-expansion", "chilled-water")
 """``config.models.CoolingType``, written out likewise (a test keeps the two equal)."""
+DEMO_HEATING = ("underfloor", "hydronic", "electric")
+"""The demo site's zones' heating types, in its order (``demo/site.yaml``, written out
+likewise; a test keeps the two equal)."""
 DEMO_HOURS = (1.0, 48.0)
 DEMO_MAX_SPEED = 3600.0
 """The demo's ranges for its help (``demo.timeline`` and ``demo.runner`` check them; a test
@@ -177,6 +180,18 @@ def build_parser() -> argparse.ArgumentParser:
 
     demo = add(
         "demo", "run an invented three-zone site against simulated plants over real Modbus TCP"
+    )
+    demo.description = "\n\n".join(
+        (
+            demo.description or "",
+            textwrap.fill(
+                f"Its zones' heating types: {', '.join(DEMO_HEATING)}. Every heating type a "
+                "site file can give a zone (heating: TYPE): "
+                + ", ".join(HEATING_TYPES)
+                + "; 'roomloop simulate --heating TYPE' runs one alone.",
+                HELP_WIDTH,
+            ),
+        )
     )
     demo.add_argument(
         "--hours",

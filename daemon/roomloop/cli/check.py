@@ -230,10 +230,14 @@ def _cooling_text(zone: Zone, units: str, write: Callable[[str], object]) -> Non
     overheat = "none" if sp.overheat is None else temperature_text(sp.overheat, units)
     write(f"    cooling: {cooling.type}, output {cooling.output}; set points {shown}, "
           f"overheat limit {overheat}\n")
+    time_constant = _seconds(
+        tuning.anticipator_time_constant_s,
+        derived=zone.cooling_origins.get("anticipator_time_constant_s") != "file",
+    )
     write(
         f"      differential {delta_text(tuning.differential_k, units)}, anticipator gain "
         f"{delta_text(tuning.anticipator_gain_k, units)}, time constant "
-        f"{_n(tuning.anticipator_time_constant_s)} s, cycle rate {_n(tuning.cycle_rate_cph)} "
+        f"{time_constant}, cycle rate {_n(tuning.cycle_rate_cph)} "
         f"per hour, minimum on {_n(tuning.min_on_s)} s, minimum off {_n(tuning.min_off_s)} s, "
         f"most starts per hour {tuning.max_cycles_per_hour}, droop compensation "
         f"{'on' if tuning.droop_compensation else 'off'}\n"

@@ -48,6 +48,8 @@ from roomloop.config.models import (
     Point,
     Site,
     SiteInfo,
+    WrittenFloat,
+    WrittenInt,
     Zone,
 )
 from roomloop.errors import ConfigError, ConfigProblem
@@ -147,7 +149,8 @@ _EXPONENT_FLOAT = re.compile(r"[-+]?(\d+\.?\d*|\.\d+)[eE][-+]?\d+")
 
 
 def _scalar(node: ScalarNode, constructor: _Scalars) -> Any:
-    """A scalar as the safe loader reads it, with three YAML 1.1 traps defused.
+    """A scalar as the safe loader reads it, with three YAML 1.1 traps defused, and a
+    number's text kept where the number loses it (:class:`WrittenInt`).
 
     Plain ``06:30`` is a base-60 integer (390) in YAML 1.1 and plain ``on`` / ``off``
     are booleans; both keep their text here, so a time of day stays a time and an
@@ -165,7 +168,20 @@ def _scalar(node: ScalarNode, constructor: _Scalars) -> Any:
         if node.tag == "tag:yaml.org,2002:timestamp":
             # a date keeps its text: the model reads it (YAML would raise on 2026-02-30)
             return node.value
-    return constructor.construct_object(node, deep=True)
+    value = constructor.construct_object(node, deep=True)
+    if node.style is None and str(value) != node.value:
+        return _with_text(value, node.value)
+    return value
+
+
+def _with_text(value: Any, text: str) -> Any:
+    """A number that lost its text (``0730`` is octal 472, ``7.30`` is 7.3) keeps it, for
+    hints; anything else as it is."""
+    if type(value) is int:
+        return WrittenInt(value, text)
+    if type(value) is float:
+        return WrittenFloat(value, text)
+    return value
 
 
 class _Builder:

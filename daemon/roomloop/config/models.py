@@ -97,6 +97,42 @@ def _not_a_bool(value: Any) -> Any:
     return value
 
 
+class WrittenInt(int):
+    """A whole number with the text YAML read it from, where the number loses that text
+    (``0730`` is octal 472 in YAML 1.1): the loader makes it, a hint quotes the text. It is
+    an ``int`` everywhere else (pydantic gives the model a plain one)."""
+
+    yaml_text: str
+
+    def __new__(cls, value: int, text: str) -> WrittenInt:
+        number = super().__new__(cls, value)
+        number.yaml_text = text
+        return number
+
+    def __getnewargs__(self) -> tuple[int, str]:  # type: ignore[override]
+        return int(self), self.yaml_text
+
+
+class WrittenFloat(float):
+    """A number with the text YAML read it from, where the number loses that text
+    (``7.30`` is 7.3), like :class:`WrittenInt`."""
+
+    yaml_text: str
+
+    def __new__(cls, value: float, text: str) -> WrittenFloat:
+        number = super().__new__(cls, value)
+        number.yaml_text = text
+        return number
+
+    def __getnewargs__(self) -> tuple[float, str]:  # type: ignore[override]
+        return float(self), self.yaml_text
+
+
+def written_text(value: int | float) -> str:
+    """The number as the file wrote it (the loader's text when the number lost it)."""
+    return getattr(value, "yaml_text", None) or str(value)
+
+
 Int = Annotated[int, StrictType()]
 """A whole number as written: ``true`` is no 1, ``12.0`` and ``"12"`` are no 12 (use it, not
 ``int``, for every whole-number key of the site file)."""
@@ -181,25 +217,32 @@ Topic = Annotated[str, Field(min_length=1), AfterValidator(_topic)]
 _HOST_LABEL = re.compile(r"[A-Za-z0-9_]([A-Za-z0-9_-]{0,61}[A-Za-z0-9_])?")
 
 
-def _host(value: str) -> str:
+MODBUS_TCP_SCHEME = "the link is Modbus TCP, its host takes no scheme"
+BROKER_SCHEME = "mqtt:// is implied; for mqtts:// add a tls: section"
+"""What a URL in ``host`` is told about its scheme: the link's kind decides it, never the
+scheme typed (``mqtt://`` on a Modbus link is no MQTT)."""
+
+
+def _host(value: str, scheme_note: str) -> str:
     """A host name or an IP address, as the socket layer takes it: nothing else.
 
     Names follow RFC 1123 section 2.1 (labels of letters, digits and '-', at most 63
     characters, 253 in all; '_' is tolerated, as local networks use it). A name made of
     numbers only must be a dotted-quad IPv4 address (RFC 1123 section 2.1 asks to check
-    that first); an IPv6 address is written without brackets.
+    that first); an IPv6 address is written without brackets. ``scheme_note``: what a URL's
+    scheme is told, for the kind of peer the host names.
     """
     if any(c.isspace() for c in value):
         raise ValueError(f"{value!r} contains a space: a host is one name or address")
     if "://" in value:
-        scheme, _, rest = value.partition("://")
+        _scheme, _, rest = value.partition("://")
         host, _, port = rest.partition(":")
         hint = f"host: {host.rstrip('/') or '...'}" + (
             f" and port: {port.rstrip('/')}" if port else ""
         )
         raise ValueError(
             f"{value!r} is a URL; give the host alone ({hint}; port is its own key, "
-            f"and {scheme}:// is implied)"
+            f"and {scheme_note})"
         )
     try:
         ipaddress.ip_address(value)
@@ -229,8 +272,18 @@ def _host(value: str) -> str:
     return value
 
 
-Host = Annotated[str, Field(min_length=1), AfterValidator(_host)]
-"""A host name or an IP address; the port is its own key."""
+def _modbus_tcp_host(value: str) -> str:
+    return _host(value, MODBUS_TCP_SCHEME)
+
+
+def _broker_host(value: str) -> str:
+    return _host(value, BROKER_SCHEME)
+
+
+ModbusTcpHost = Annotated[str, Field(min_length=1), AfterValidator(_modbus_tcp_host)]
+"""A Modbus TCP device's or gateway's host name or IP address; the port is its own key."""
+BrokerHost = Annotated[str, Field(min_length=1), AfterValidator(_broker_host)]
+"""The MQTT broker's host name or IP address; the port is its own key."""
 
 
 class Strict(BaseModel):
@@ -285,7 +338,7 @@ class ModbusLinkBase(Strict):
 
 class ModbusTcpLink(ModbusLinkBase):
     type: Literal["modbus-tcp"]
-    host: Host
+    host: ModbusTcpHost
     port: Annotated[Int, Field(ge=1, le=65535)] = 502
 
 
@@ -345,7 +398,7 @@ SECRET_KEYS = frozenset({"password_file", "password_env"})
 class Broker(Strict):
     """The site's MQTT broker: monitoring, commands and MQTT points go through it."""
 
-    host: Host
+    host: BrokerHost
     port: Annotated[Int, Field(ge=1, le=65535)] = 1883
     client_id: str | None = None
     keepalive_s: Annotated[Int, Field(ge=5, le=3600)] = 30
@@ -812,11 +865,18 @@ class ProgramEntry(Strict):
     @field_validator("at", mode="before")
     @classmethod
     def _quoted(cls, value: Any) -> Any:
-        """YAML reads a bare ``0730`` as a number (octal: 472) and ``7.30`` as 7.3."""
+        """YAML reads a bare ``1730`` as a number, ``0730`` as octal 472 (YAML 1.1) and
+        ``7.30`` as 7.3; the hint quotes the file's own digits as a time."""
         if isinstance(value, int | float) and not isinstance(value, bool):
+            text = written_text(value)
+            digits = text.lstrip("+")
+            octal = isinstance(value, int) and len(digits) > 1 and digits.startswith("0")
+            why = f" ({text} with a leading 0 is octal)" if octal and value != int(digits) else ""
+            as_time = _time_of_digits(text)
+            hint = f'at: "{as_time}"' if as_time else 'e.g. at: "07:30"'
             raise ValueError(
-                f"YAML read this time as the number {value:g} (a bare 0730 is even octal); "
-                'write times as HH:MM in quotes, e.g. at: "07:30"'
+                f"YAML read this time as the number {value:g}{why}; "
+                f"write times as HH:MM in quotes, {hint}"
             )
         return value
 
@@ -825,8 +885,8 @@ class ProgramEntry(Strict):
     def _time(cls, value: str) -> str:
         match = re.fullmatch(r"([01]?\d|2[0-3]):([0-5]\d)", value.strip())
         if not match:
-            digits = re.fullmatch(r"(\d{1,2})(\d\d)", value.strip())
-            hint = f'; write it as "{int(digits[1]):02d}:{digits[2]}"' if digits else ""
+            as_time = _time_of_digits(value)
+            hint = f'; write it as "{as_time}"' if as_time else ""
             raise ValueError(f"{value!r} is not a time of day HH:MM (00:00 to 23:59){hint}")
         return f"{int(match.group(1)):02d}:{match.group(2)}"
 
@@ -834,6 +894,14 @@ class ProgramEntry(Strict):
     def minute_of_day(self) -> int:
         hours, minutes = self.at.split(":")
         return int(hours) * 60 + int(minutes)
+
+
+def _time_of_digits(text: str) -> str | None:
+    """``1730``, ``0730``, ``730`` or ``7.30`` as the time ``HH:MM`` they mean, if one."""
+    digits = re.fullmatch(r"(\d{1,2})\.?(\d\d)", text.strip())
+    if digits is None or int(digits[1]) > 23 or int(digits[2]) > 59:
+        return None
+    return f"{int(digits[1]):02d}:{digits[2]}"
 
 
 def expand_days(value: list[str] | str) -> list[str]:

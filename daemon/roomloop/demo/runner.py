@@ -502,6 +502,7 @@ class _Demo:
                 comfort_c=z.zone.setpoints.comfort,
                 heater_w=z.spec.heater_w,
                 fail_safe_s=self.records[z.name].fail_safe_s,
+                silenced=z.name == SILENT_ZONE,
             )
             for z in server.zones
         ]

@@ -6,7 +6,8 @@ swing) and cycles per hour over the second half of the comfort stretch; the
 overshoot and the time to come within 0.5 K over the stretch after the
 program's switch; energy as heater power times relay-on time over the whole
 run (for a zone on a heat source, the time its relay was on while the source fired);
-time in fail-safe from the service's own decisions.
+time in fail-safe from the service's own decisions (for the zone whose sensor the scenario
+silences, the figure of that silence: none for a run stopped before it).
 """
 
 from __future__ import annotations
@@ -34,6 +35,9 @@ class ZoneSummary:
     """From the switch until the room first came within 0.5 K of comfort (None: not yet)."""
     energy_kwh: float
     fail_safe_s: float
+    silenced: bool = False
+    """The scenario silences this zone's sensor (``Timeline.silence_start`` to
+    ``silence_end``): its fail-safe time is that window's figure."""
 
 
 def _window(
@@ -78,6 +82,7 @@ def summarize_zone(
     heater_w: float,
     fail_safe_s: float,
     ended_at: float | None = None,
+    silenced: bool = False,
 ) -> ZoneSummary:
     """The figures of one zone's run (see the module docstring for the windows); a run that
     ended at ``ended_at`` before ``timeline.end`` has no figures for windows it did not
@@ -113,6 +118,7 @@ def summarize_zone(
         reach_s=None if step is None else step.settle_s,
         energy_kwh=heater_w * on_steps * STEP_S / 3.6e6,
         fail_safe_s=fail_safe_s,
+        silenced=silenced,
     )
 
 
@@ -176,6 +182,8 @@ def format_summary(
     run stopped early, which windows it did not reach (``n/r`` cells) or cut short."""
     scored = Coverage(timeline.score_from, timeline.comfort_end, stopped_at)
     step = Coverage(timeline.switch_at, timeline.comfort_end, stopped_at)
+    silence = Coverage(timeline.silence_start, timeline.silence_end, stopped_at)
+    silenced = [r.zone for r in rows if r.silenced]
     lines = [
         f"{'zone':<14}{'heating':<12}{'CA K':>6}{'cyc/h':>7}{'overshoot K':>13}"
         f"{'reach min':>11}{'energy kWh':>12}{'fail-safe min':>15}",
@@ -188,9 +196,12 @@ def format_summary(
             ca = cph = NOT_REACHED
         if not step.reached:
             overshoot = reach = NOT_REACHED
+        fail_safe = f"{r.fail_safe_s / 60:.0f}"
+        if r.silenced and not silence.reached:
+            fail_safe = NOT_REACHED
         lines.append(
             f"{r.zone:<14}{r.heating:<12}{ca:>6}{cph:>7}{overshoot:>13}{reach:>11}"
-            f"{r.energy_kwh:>12.2f}{r.fail_safe_s / 60:>15.0f}"
+            f"{r.energy_kwh:>12.2f}{fail_safe:>15}"
         )
     score = f"{clock_text(timeline.score_from, tz)}-{clock_text(timeline.comfort_end, tz)}"
     switch = clock_text(timeline.switch_at, tz)
@@ -210,6 +221,12 @@ def format_summary(
         f"energy = heater power x time heated {run} (relay on and, on the boiler, the boiler "
         "firing). T is the simulated room air (true value, not the sensor).",
     ]
-    if not (scored.reached and step.reached):
+    if silenced:
+        lines.append(
+            f"fail-safe = minutes in fail-safe {run}; {', '.join(silenced)}'s sensor silent "
+            f"{clock_text(timeline.silence_start, tz)}-{clock_text(timeline.silence_end, tz)}"
+            f"{silence.text(tz)}."
+        )
+    if not (scored.reached and step.reached and (silence.reached or not silenced)):
         lines.append(f"{NOT_REACHED} = not reached: the run stopped before that window began.")
     return "\n".join(lines)
