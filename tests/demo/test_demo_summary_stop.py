@@ -85,17 +85,22 @@ async def test_a_run_stopped_before_the_silence_has_no_fail_safe_figure_for_that
     assert "n/r = not reached: the run stopped before that window began." in text
 
 
-def test_a_run_stopped_inside_the_silence_gives_its_fail_safe_figure() -> None:
-    site = demo_site(1502, "/tmp/unused")
-    tz = ZoneInfo(site.site.timezone)
-    t = Timeline.for_run(8.0, site.zone(SILENT_ZONE), tz)
+def _steady_trace(t: Timeline) -> PlantTrace:
+    """The whole run's trace of a room held at 20 C, the relay on half of every minute."""
     steps = int((t.end - t.start) / STEP_S)
-    trace = PlantTrace(
+    return PlantTrace(
         time_s=[i * STEP_S for i in range(steps)],
         room_c=[20.0] * steps,
         sensor_c=[20.0] * steps,
         relay=[i % 6 < 3 for i in range(steps)],
     )
+
+
+def test_a_run_stopped_inside_the_silence_gives_its_fail_safe_figure() -> None:
+    site = demo_site(1502, "/tmp/unused")
+    tz = ZoneInfo(site.site.timezone)
+    t = Timeline.for_run(8.0, site.zone(SILENT_ZONE), tz)
+    trace = _steady_trace(t)
     stopped = t.silence_start + 1800.0
     row = summarize_zone(
         SILENT_ZONE, "hydronic", trace, started_at=t.start, timeline=t, comfort_c=20.0,
@@ -111,13 +116,7 @@ def test_a_whole_run_shows_the_silence_window_without_a_mark(silenced: bool) -> 
     site = demo_site(1502, "/tmp/unused")
     tz = ZoneInfo(site.site.timezone)
     t = Timeline.for_run(8.0, site.zone(SILENT_ZONE), tz)
-    steps = int((t.end - t.start) / STEP_S)
-    trace = PlantTrace(
-        time_s=[i * STEP_S for i in range(steps)],
-        room_c=[20.0] * steps,
-        sensor_c=[20.0] * steps,
-        relay=[i % 6 < 3 for i in range(steps)],
-    )
+    trace = _steady_trace(t)
     row = summarize_zone(
         SILENT_ZONE, "hydronic", trace, started_at=t.start, timeline=t, comfort_c=20.0,
         heater_w=1000.0, fail_safe_s=70 * 60.0, silenced=silenced,

@@ -9,28 +9,15 @@ from pathlib import Path
 from zoneinfo import ZoneInfo
 
 import pytest
+from history_site import SITE, T0, write_site
 
 from roomloop.cli import main
 from roomloop.history.csvfile import read_csv
 from roomloop.history.store import HistoryFile, Tick, history_path
 
-SITE = """\
-site: {{name: test-house, timezone: Europe/Vienna, units: {units}, state_dir: {state}}}
-links:
-  - {{type: modbus-tcp, name: io, host: 127.0.0.1}}
-points:
-  - {{type: modbus-input, name: t1, link: io, address: 0}}
-  - {{type: modbus-output, name: r, link: io, address: 0}}
-zones:
-  - {{name: den, inputs: [t1], output: r, heating: hydronic, heater_w: 1500}}
-"""
-T0 = 1_767_225_600.0 + 23 * 3600.0  # 2026-01-02 00:00 in Vienna (UTC+1)
-
 
 def _site(tmp_path: Path, units: str = "C") -> Path:
-    path = tmp_path / "site.yaml"
-    path.write_text(SITE.format(units=units, state=tmp_path / "state"))
-    return path
+    return write_site(tmp_path, units)
 
 
 def _square_day() -> list[Tick]:
@@ -219,8 +206,7 @@ def test_the_sites_outdoor_point_is_recorded_and_exported(tmp_path: Path) -> Non
     assert bad.points[-1][2] != "ok"
     assert tick_from(T0, outputs, state).points == good.points[:-1]
 
-    site = tmp_path / "site.yaml"
-    site.write_text(SITE_OUTDOOR.format(units="C", state=tmp_path / "state"))
+    site = write_site(tmp_path, template=SITE_OUTDOOR)
     ticks = [
         dataclasses.replace(
             t, points=(*t.points, ("outside", None if k < 10 else -2.0 + k / 8640, "ok"

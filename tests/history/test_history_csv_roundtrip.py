@@ -3,26 +3,13 @@
 from __future__ import annotations
 
 from pathlib import Path
-from zoneinfo import ZoneInfo
 
 import pytest
+from history_site import T0, VIENNA, write_site
 
 from roomloop.cli import main
 from roomloop.history.csvfile import read_csv
 from roomloop.history.store import HistoryFile, Tick, history_path
-
-SITE = """\
-site: {{name: test-house, timezone: Europe/Vienna, units: C, state_dir: {state}}}
-links:
-  - {{type: modbus-tcp, name: io, host: 127.0.0.1}}
-points:
-  - {{type: modbus-input, name: t1, link: io, address: 0}}
-  - {{type: modbus-output, name: r, link: io, address: 0}}
-zones:
-  - {{name: den, inputs: [t1], output: r, heating: hydronic}}
-"""
-T0 = 1_767_225_600.0 + 23 * 3600.0  # 2026-01-02 00:00 in Vienna (UTC+1)
-VIENNA = ZoneInfo("Europe/Vienna")
 
 
 def _tick(at: float, relay: bool) -> Tick:
@@ -34,9 +21,8 @@ def _tick(at: float, relay: bool) -> Tick:
 
 
 def _export(tmp_path: Path, times: list[float]) -> Path:
-    site = tmp_path / "site.yaml"
+    site = write_site(tmp_path)
     state = tmp_path / "state"
-    site.write_text(SITE.format(state=state))
     state.mkdir()
     db = HistoryFile(history_path(state, "test-house"))
     db.write({"den": [_tick(at, k % 2 == 1) for k, at in enumerate(times)]})

@@ -11,28 +11,16 @@ from __future__ import annotations
 
 import math
 from pathlib import Path
-from zoneinfo import ZoneInfo
 
 import pytest
+from history_site import T0, VIENNA, write_site
 
 from roomloop.cli import main
 from roomloop.history.csvfile import read_csv
 from roomloop.history.report import MAX_COVER_TICKS, DayFigures, day_figures
 from roomloop.history.store import HistoryFile, Tick, ZoneHistory, history_path
 
-VIENNA = ZoneInfo("Europe/Vienna")
-T0 = 1_767_225_600.0 + 23 * 3600.0  # 2026-01-02 00:00 in Vienna (UTC+1)
 H = 3600.0
-SITE = """\
-site: {{name: test-house, timezone: Europe/Vienna, units: C, state_dir: {state}}}
-links:
-  - {{type: modbus-tcp, name: io, host: 127.0.0.1}}
-points:
-  - {{type: modbus-input, name: t1, link: io, address: 0}}
-  - {{type: modbus-output, name: r, link: io, address: 0}}
-zones:
-  - {{name: den, inputs: [t1], output: r, heating: hydronic, heater_w: 1500}}
-"""
 
 
 def _offsets() -> list[float]:
@@ -139,9 +127,8 @@ def test_the_history_file_and_its_csv_read_the_same(tmp_path: Path) -> None:
     """The audit's case: one day read 23.7 h from the history file and 24.5 h from its
     exported CSV (real 24.0 h), since each reading multiplied its own tick count by its own
     median spacing. Read through ``history --csv``, the same day gives the same figures."""
-    site = tmp_path / "site.yaml"
+    site = write_site(tmp_path)
     state = tmp_path / "state"
-    site.write_text(SITE.format(state=state))
     state.mkdir()
     ticks = [_tick(s) for s in _offsets()]
     db = HistoryFile(history_path(state, "test-house"))
