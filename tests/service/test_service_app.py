@@ -65,6 +65,36 @@ async def test_embedded_service_holds_the_safe_state_until_its_first_decision(
     assert (await server.get_coils(0, 1)) == [True]
 
 
+async def test_a_write_the_relay_module_ignores_is_a_warning_not_a_switch(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    """Issue 16: a write the read-back contradicts must not be journalled as switched."""
+    clock = VirtualClock()
+    server = await modbus_tcp_server()
+
+    def coil_stays_off(function_code: int, _address: int, values: list[Any]) -> None:
+        if function_code in (5, 15):  # write single / multiple coils
+            values[:] = [False] * len(values)
+
+    server.write_filter = coil_stays_off
+    site = make_site(tmp_path, server.port)
+    service = Service(site, clock=clock, state_dir=tmp_path / "state")
+    with capture_logs() as events:
+        async with RoomPlant(server, [15.0], clock) as plant, running(service):
+            await until(clock, lambda: any(
+                e["event"] == "output.readback_disagrees" for e in events
+            ))
+            assert not plant.rooms[0].coil
+            # the module works again: the poll's re-assert switches the relay on
+            server.write_filter = None
+            await until(clock, lambda: plant.rooms[0].coil, timeout_s=120)
+    disagrees = [e for e in events if e["event"] == "output.readback_disagrees"]
+    assert disagrees[0]["log_level"] == "warning"
+    assert disagrees[0]["on"] is True and disagrees[0]["point"] == "relay0"
+    assert "read back" in disagrees[0]["detail"]
+    assert not [e for e in events if e["event"] == "output.switched" and e["on"] is True]
+
+
 class FlakyController(ZoneController):
     """Our controller, failing on its 3rd step (a bug the service must survive)."""
 

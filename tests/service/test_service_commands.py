@@ -13,6 +13,7 @@ from zoneinfo import ZoneInfo
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from structlog.testing import capture_logs
 
 from roomloop.config.models import Limits, ModbusInput, Zone
 from roomloop.core.commands import CommandRejected, apply_command
@@ -182,21 +183,29 @@ def test_handler_applies_answers_and_ignores_retained_and_foreign() -> None:
 def test_a_command_for_an_unknown_zone_is_refused_by_name_and_changes_nothing() -> None:
     rec = Recorder()
     h = handler(rec)
-    answer = h.handle(
-        "roomloop/annex/zone/attic/cmd/mode", b"off", retained=False, now=NOW, monotonic=0.0
-    )
+    with capture_logs() as events:
+        answer = h.handle(
+            "roomloop/annex/zone/attic/cmd/mode", b"off", retained=False, now=NOW, monotonic=0.0
+        )
+    # the journal shows it too (issue 16): a warning naming the zone and the field
+    assert [(e["event"], e["log_level"], e["zone"], e["field"]) for e in events] == [
+        ("command.unknown_zone", "warning", "attic", "mode")
+    ]
     assert answer is not None and answer.topic == "roomloop/annex/zone/attic/cmd/result"
     body = json.loads(answer.payload)
     assert body["ok"] is False and body["field"] == "mode"
     assert "no zone named 'attic'" in body["reason"] and "studio" in body["reason"]
     assert rec.applied == []
     # A flood of made-up names shares one rate limit: answered at most so often, then silence.
-    answers = [
-        h.handle(f"roomloop/annex/zone/x{k}/cmd/mode", b"off", retained=False, now=NOW,
-                 monotonic=1.0)
-        for k in range(500)
-    ]
-    assert 0 < sum(a is not None for a in answers) <= h.limit.per_minute
+    with capture_logs() as flood:
+        answers = [
+            h.handle(f"roomloop/annex/zone/x{k}/cmd/mode", b"off", retained=False, now=NOW,
+                     monotonic=1.0)
+            for k in range(500)
+        ]
+    answered = sum(a is not None for a in answers)
+    assert 0 < answered <= h.limit.per_minute
+    assert len(flood) == answered  # and the journal is not flooded either
     assert rec.applied == []
 
 

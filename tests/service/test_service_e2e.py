@@ -262,6 +262,14 @@ async def test_sensor_server_stopped_engages_fail_safe_visibly(rig: Rig) -> None
     assert state["reliability"]["t0"] == "comm-failure"
     # sensor_timeout_s is 300 simulated seconds: 2.5 s real at SPEED, plus polling and a tick.
     assert time.monotonic() - stopped < 300 / SPEED + 5
+    # The journal says so too (issue 16): the point first, then the fail-safe, with the reason.
+    events = [e for e in rig.service.log_events() if e.get("zone") == "room0"]
+    names = [e["event"] for e in events]
+    assert "zone.point_unreliable" in names and "zone.fail_safe_engaged" in names
+    assert names.index("zone.point_unreliable") < names.index("zone.fail_safe_engaged")
+    engaged = events[names.index("zone.fail_safe_engaged")]
+    assert engaged["level"] == "warning" and engaged["policy"] == "fixed-duty"
+    assert "no reliable temperature" in engaged["reason"]
 
 
 async def test_program_entry_switches_the_level_at_its_time(

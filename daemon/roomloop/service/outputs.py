@@ -225,6 +225,16 @@ class OutputWriter:
                 decided=decided,
             )
             return
+        if state.verdict == "mismatch":
+            # written, but the device reads back something else: not switched as far as we
+            # know; the poll's re-assert writes it again
+            log.warning(
+                "output.readback_disagrees", zone=zone, point=point, on=on,
+                detail=state.detail, decided=decided,
+            )
+            return
+        # "ok" (read back as written), "unverified" (no read-back configured) or "pending"
+        # (the read-back has not come yet: an MQTT relay's state topic)
         log.info(
             "output.switched", zone=zone, point=point, on=on, verdict=state.verdict, decided=decided
         )
