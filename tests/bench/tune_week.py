@@ -132,7 +132,7 @@ def main() -> None:
             )
             told = (
                 "recommends new settings" if "site-file lines to paste" in text
-                else "today's tuning is the best" if "already the best" in text
+                else "today's tuning is the best" if "nothing to change" in text
                 else "no recommendation" if "no recommendation" in text
                 else "no fit"
             )

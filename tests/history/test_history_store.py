@@ -260,7 +260,7 @@ def test_kill_9_during_writes_loses_at_most_the_last_batch(tmp_path: Path) -> No
         [sys.executable, "-c", code], stdout=subprocess.PIPE, text=True, env=dict(os.environ)
     )
     assert child.stdout is not None
-    recorded = written = 0
+    written = 0
     deadline = time.monotonic() + 30
     try:
         while written < 300 and time.monotonic() < deadline:
@@ -268,7 +268,7 @@ def test_kill_9_during_writes_loses_at_most_the_last_batch(tmp_path: Path) -> No
             if not line:
                 break
             if line.startswith("at "):  # (log events go to stdout too)
-                recorded, written = (int(x) for x in line.split()[1:])
+                written = int(line.split()[2])
     finally:
         child.send_signal(signal.SIGKILL)
         child.wait(10)
@@ -278,10 +278,10 @@ def test_kill_9_during_writes_loses_at_most_the_last_batch(tmp_path: Path) -> No
     db.close()
     kept = read_zone(path, "room").time
     assert kept == [float(k) for k in range(len(kept))]  # a prefix, nothing torn
-    assert len(kept) >= written  # every commit the child saw survived
-    # lost: only what was recorded since the last commit (one batch of at most
-    # commit_s / 5 ms ticks, with slack for a slow machine)
-    assert recorded - len(kept) <= 0.2 / 0.005 * 3
+    # every commit the child saw survived: lost is at most what it had recorded since its
+    # last commit (the batch; how often batches commit is checked on a virtual clock above,
+    # not here, where a loaded machine stretches the child's wall-clock ticks)
+    assert len(kept) >= written
 
 
 def _fill(path: Path, max_pages: int) -> None:

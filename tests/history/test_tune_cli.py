@@ -14,9 +14,15 @@ from pathlib import Path
 import pytest
 
 from roomloop.cli import main
-from roomloop.cli.tune import today_on
+from roomloop.cli.tune import (
+    LOSS_FACTORS,
+    WORTH_CHANGING,
+    recommendation_text,
+    search_tuning,
+    today_on,
+)
 from roomloop.config.loader import load_site
-from roomloop.plant.loader import load_plant
+from roomloop.plant.loader import builtin_plant_path, load_plant
 
 SITE = """\
 site: {name: elm-cottage, timezone: Europe/London, units: C, state_dir: /tmp/unused}
@@ -47,3 +53,78 @@ def test_tune_today_is_simulate_of_the_zone(tmp_path: Path) -> None:
     assert today.control_accuracy_k == pytest.approx(simulated["control_accuracy_k"], abs=1e-9)
     assert today.energy_kwh == pytest.approx(simulated["energy_kwh"], abs=1e-9)
     assert today.control_accuracy_k < 0.5  # a zone in fail-safe throughout gave about 5 K
+
+
+def test_a_too_wide_differential_is_narrowed_and_the_pasted_lines_predict_as_printed(
+    tmp_path: Path,
+) -> None:
+    """The recommendation varies the differential (issue 11), and its site-file lines mean
+    what the 'recommended' column says: pasted into the site, ``simulate -c SITE --zone Z``
+    on the same plant gives the same figures (the search and the site file agree on the
+    derived time constant)."""
+    wide = SITE.replace(
+        "    heater_w: 1500\n", "    heater_w: 1500\n    tuning: {differential_k: 1.5}\n"
+    )
+    path = tmp_path / "site.yaml"
+    path.write_text(wide)
+    plant = load_plant("hydronic")
+    found = search_tuning(load_site(str(path)), "den", plant)
+    assert found.changes
+    assert found.settings.differential_k < 1.5
+    assert found.best.control_accuracy_k < found.today.control_accuracy_k - WORTH_CHANGING
+    text = recommendation_text(found, "den")
+    pasted = text.split("site-file lines to paste (zone den):\n")[1]
+    lines = dict(
+        line.strip().split(": ") for line in pasted.splitlines() if line.startswith("      ")
+    )
+    assert float(lines["differential_k"]) == found.settings.differential_k
+    tuning = ", ".join(f"{key}: {value}" for key, value in lines.items())
+    tuned = SITE.replace(
+        "    heater_w: 1500\n", "    heater_w: 1500\n    tuning: {" + tuning + "}\n"
+    )
+    path.write_text(tuned)
+    out = tmp_path / "sim.json"
+    assert main(
+        ["simulate", "-c", str(path), "--zone", "den", "--plant", "hydronic", "--json", str(out)]
+    ) == 0
+    simulated = json.loads(out.read_text())["overall"]
+    assert simulated["control_accuracy_k"] == pytest.approx(found.best.control_accuracy_k,
+                                                            abs=1e-9)
+    assert simulated["cycles_per_hour"] == pytest.approx(found.best.cycles_per_hour, abs=1e-9)
+
+
+def test_an_undetermined_loss_is_spanned_and_the_span_is_simulate_of_the_scaled_plant(
+    tmp_path: Path,
+) -> None:
+    """Without a determined loss to outdoors (no outdoor point), the recommendation is
+    searched at the fitted loss and must hold at a third of it and three times it too; the
+    figures printed for those are ``simulate`` on the plant with that loss."""
+    path = tmp_path / "site.yaml"
+    path.write_text(SITE.replace(
+        "    heater_w: 1500\n", "    heater_w: 1500\n    tuning: {differential_k: 1.5}\n"
+    ))
+    site = load_site(str(path))
+    plant = load_plant("hydronic")
+    found = search_tuning(site, "den", plant, span_loss=True)
+    assert found.changes and found.settings.differential_k < 1.5
+    assert len(found.spans) == len(LOSS_FACTORS)
+    for today_there, best_there in found.spans:
+        assert best_there.control_accuracy_k < today_there.control_accuracy_k
+    # the span's 'today' at three times the loss is simulate on such a plant file
+    text = builtin_plant_path("hydronic").read_text()
+    loss = plant.room.loss_w_per_k
+    assert f"loss_w_per_k: {loss:g}" in text
+    scaled = tmp_path / "lossy.yaml"
+    scaled.write_text(text.replace(f"loss_w_per_k: {loss:g}", f"loss_w_per_k: {loss * 3!r}"))
+    out = tmp_path / "sim.json"
+    assert main(
+        ["simulate", "-c", str(path), "--zone", "den", "--plant", str(scaled), "--json", str(out)]
+    ) == 0
+    simulated = json.loads(out.read_text())["overall"]
+    assert LOSS_FACTORS[1] == 3.0
+    assert found.spans[1][0].control_accuracy_k == pytest.approx(
+        simulated["control_accuracy_k"], abs=1e-9
+    )
+    shown = recommendation_text(found, "den", loss_w_per_k=loss)
+    assert f"from {loss / 3:.3g} to {loss * 3:.3g} W/K" in shown
+    assert "site-file lines to paste" in shown

@@ -16,6 +16,7 @@ from __future__ import annotations
 import argparse
 import dataclasses
 import importlib.util
+import math
 import sys
 from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
@@ -214,22 +215,16 @@ def _undetermined_text(fit: Fit) -> str:
 
 
 def _print_recommendation(site: Site, zone_name: str, spec: PlantSpec, fit: Fit) -> None:
-    """Today's tuning against the best candidate on the identified plant, unless the loss to
-    outdoors, which the protocol's loads rest on, is not determined."""
-    if "H" in fit.undetermined():
-        print(
-            "no recommendation: the loss to outdoors is not determined by these data, and the "
-            "standard protocol's loads (its outdoor temperatures) rest on it; "
-            + ("more history with program changes" if fit.outdoor else "the outdoor temperature")
-            + " would determine it"
-        )
-        return
+    """Today's tuning against the best candidate on the identified plant. A loss to outdoors
+    the data do not determine is spanned (:data:`LOSS_FACTORS`): the recommendation must hold
+    over the whole span."""
+    loss_undetermined = "H" in fit.undetermined()
     if not fit.determined:
         print(
             "the prediction below uses the fitted values of the undetermined parameters: "
             "indicative only"
         )
-    print(recommend(site, zone_name, spec))
+    print(recommend(site, zone_name, spec, span_loss=loss_undetermined))
 
 
 def _protocol_runner(
@@ -267,47 +262,179 @@ def today_on(site: object, zone_name: str, spec: object) -> Any:
     return run(base)[1]
 
 
-def recommend(site: object, zone_name: str, spec: object) -> str:
-    """The standard protocol on the identified plant: today's tuning and candidates."""
+GAINS_K = (1.5, 2.5, 3.5)
+"""Anticipator gains tried (K): the range of the heating-type presets."""
+CYCLE_RATE_SHARES = (0.5, 0.75, 1.0)
+"""Cycle rates tried, as shares of the heating type's cap on cycles per hour."""
+DROOP_TIMES_S = (3600.0, 10800.0)
+WORTH_CHANGING = 0.02
+"""A candidate must beat today's score (about K of control accuracy) by this much to be
+recommended: less is within what the plant's identification can tell apart."""
+DIFFERENTIALS_K = (0.3, 0.5, 0.8)
+"""Differentials tried (K) besides today's. Not below 0.3 K: with a 0.1 K transmitter step a
+narrower band switches on the sensor's steps (common practice, no source)."""
+
+
+LOSS_FACTORS = (1 / 3, 3.0)
+"""A loss to outdoors the data do not determine is spanned from a third of the fitted one to
+three times it (a fit without the outdoor temperature was seen 2.6 times too high:
+roomloop.plant.identify.CONFOUNDED_WITHOUT_OUTDOOR). The protocol's loads are shares of the
+heater's output, so the loss enters only through how the room's loss changes with its
+temperature (the set-back and the recovery): the figures move little over the span."""
+
+
+@dataclasses.dataclass(frozen=True)
+class Recommendation:
+    """The protocol's overall figures for today's tuning and the best candidate found."""
+
+    today: Any
+    best: Any
+    today_settings: Any
+    settings: Any
+    """The best candidate's ZoneSettings (``today_settings`` itself when nothing beat it)."""
+    tried: int
+    spans: tuple[tuple[Any, Any], ...] = ()
+    """With the loss to outdoors spanned: (today, best) figures at each of
+    :data:`LOSS_FACTORS` times the fitted loss."""
+
+    @property
+    def changes(self) -> bool:
+        return self.settings is not self.today_settings
+
+
+def search_tuning(
+    site: object, zone_name: str, spec: object, *, span_loss: bool = False
+) -> Recommendation:
+    """The standard protocol on ``spec`` over candidate tunings, best by the runner's score.
+
+    A coordinate search, cheap enough for a Pi: gain x cycle rate x droop time at today's
+    differential, then the differential at the best of those (the anticipator's time
+    constant follows the cycle rate, gain and differential), then the gain again at a
+    changed differential. A candidate must leave the cycle room for the minimum on and off
+    times, and its gain must exceed its differential (the anticipator alone cycles the relay).
+    With ``span_loss`` (the loss to outdoors not determined) the best is run again at each of
+    :data:`LOSS_FACTORS` times the loss, and it is recommended only if it beats today's
+    tuning there too.
+    """
     from roomloop.core.sizing import time_constant_for_cycle_rate
 
     base, run = _protocol_runner(site, zone_name, spec)
     cap = float(base.max_cycles_per_hour)
     today_score, today = run(base)
-    best = (today_score, today, base)
-    d = base.differential_k
-    for gain in (1.5, 2.5, 3.5):
-        if gain <= d:
-            continue
-        for cph in sorted({max(1.0, round(cap * f)) for f in (0.5, 0.75, 1.0)}):
-            if base.min_on_s + base.min_off_s > 3600.0 / cph:
-                continue
-            for droop in (3600.0, 10800.0):
-                tau = time_constant_for_cycle_rate(cph, gain, d)
-                cand = dataclasses.replace(
-                    base, anticipator_gain_k=gain, cycle_rate_cph=cph,
-                    anticipator_time_constant_s=tau, droop_time_s=droop,
-                )
-                score, o = run(cand)
-                if score < best[0] - 1e-9:
-                    best = (score, o, cand)
-    _, o_best, s_best = best
+    best: list[Any] = [today_score, today, base]
+    tried = 1
+    seen: set[tuple[float, float, float, float]] = set()
+    if math.isclose(
+        base.anticipator_time_constant_s,
+        time_constant_for_cycle_rate(
+            base.cycle_rate_cph, base.anticipator_gain_k, base.differential_k
+        ),
+    ):  # today's tuning is a grid point: already run
+        seen.add((base.anticipator_gain_k, base.cycle_rate_cph, base.droop_time_s,
+                  base.differential_k))
+
+    def consider(gain: float, cph: float, droop: float, d: float) -> None:
+        nonlocal tried
+        key = (gain, cph, droop, d)
+        if key in seen or gain <= d or base.min_on_s + base.min_off_s > 3600.0 / cph:
+            return
+        seen.add(key)
+        cand = dataclasses.replace(
+            base, anticipator_gain_k=gain, cycle_rate_cph=cph, differential_k=d,
+            anticipator_time_constant_s=time_constant_for_cycle_rate(cph, gain, d),
+            droop_time_s=droop,
+        )
+        score, figures = run(cand)
+        tried += 1
+        if score < best[0] - 1e-9:
+            best[:] = [score, figures, cand]
+
+    rates = sorted({max(1.0, round(cap * f)) for f in CYCLE_RATE_SHARES})
+    for gain in GAINS_K:
+        for cph in rates:
+            for droop in DROOP_TIMES_S if base.droop_compensation else (base.droop_time_s,):
+                consider(gain, cph, droop, base.differential_k)
+
+    def current() -> tuple[float, float, float, float]:
+        s = best[2]
+        return (s.anticipator_gain_k, s.cycle_rate_cph, s.droop_time_s, s.differential_k)
+
+    gain, cph, droop, _ = current()
+    for d in sorted({*DIFFERENTIALS_K, base.differential_k}):
+        consider(gain, cph, droop, d)
+    _, cph, droop, d = current()
+    if d != base.differential_k:
+        for gain in GAINS_K:
+            consider(gain, cph, droop, d)
+    if today_score - best[0] < WORTH_CHANGING:
+        best[:] = [today_score, today, base]
+    spans: list[tuple[Any, Any]] = []
+    if span_loss:
+        holds = True
+        for factor in LOSS_FACTORS:
+            _, run_there = _protocol_runner(site, zone_name, _with_loss(spec, factor))
+            today_there = run_there(base)
+            best_there = today_there if best[2] is base else run_there(best[2])
+            holds = holds and best_there[0] <= today_there[0]
+            spans.append((today_there[1], best_there[1]))
+        if not holds:  # better only at the fitted loss: not a recommendation
+            best[:] = [today_score, today, base]
+            spans = [(t, t) for t, _ in spans]
+    return Recommendation(today, best[1], base, best[2], tried, tuple(spans))
+
+
+def _with_loss(spec: Any, factor: float) -> Any:
+    """``spec`` with its loss to outdoors scaled by ``factor``."""
+    room = spec.room.model_copy(update={"loss_w_per_k": spec.room.loss_w_per_k * factor})
+    return spec.model_copy(update={"room": room})
+
+
+def recommend(site: object, zone_name: str, spec: Any, *, span_loss: bool = False) -> str:
+    """The standard protocol on the identified plant: today's tuning and the best candidate
+    side by side, and the site-file lines to paste."""
+    found = search_tuning(site, zone_name, spec, span_loss=span_loss)
+    return recommendation_text(found, zone_name, loss_w_per_k=spec.room.loss_w_per_k)
+
+
+def recommendation_text(
+    found: Recommendation, zone_name: str, *, loss_w_per_k: float | None = None
+) -> str:
+    """Today's figures and the recommendation's side by side, and the lines to paste; with
+    the loss spanned, each figure as its range over the span."""
+    today, o_best, s_best = found.today, found.best, found.settings
     rows = [
-        "predicted on the identified plant (standard protocol, true room air):",
-        f"{'':<24} {'today':>10} {'recommended':>12}",
+        f"predicted on the identified plant (standard protocol, true room air; "
+        f"{found.tried} tunings tried):",
     ]
+    if found.spans:
+        low, high = (f * (loss_w_per_k or float("nan")) for f in LOSS_FACTORS)
+        rows.append(
+            "the loss to outdoors is not determined: each figure is its range over losses "
+            f"from {low:.3g} to {high:.3g} W/K (a third of the fitted one to three times it), "
+            "and a recommendation must beat today's tuning over all of them"
+        )
+    width = 14 if found.spans else 10
+    rows.append(f"{'':<24} {'today':>{width}} {'recommended':>{width + 2}}")
+
+    def cell(fmt: str, key: str, figures: list[Any]) -> str:
+        values = sorted(getattr(f, key) for f in figures)
+        low, high = fmt.format(values[0]), fmt.format(values[-1])
+        return low if low == high else f"{low}..{high}"
+
     for label, key, fmt in (
         ("control accuracy K", "control_accuracy_k", "{:.2f}"),
         ("recovery overshoot K", "overshoot_k", "{:+.2f}"),
         ("cycles per hour", "cycles_per_hour", "{:.1f}"),
         ("energy kWh", "energy_kwh", "{:.2f}"),
     ):
+        today_cell = cell(fmt, key, [today, *(t for t, _ in found.spans)])
+        best_cell = cell(fmt, key, [o_best, *(b for _, b in found.spans)])
+        rows.append(f"{label:<24} {today_cell:>{width}} {best_cell:>{width + 2}}")
+    if not found.changes:
         rows.append(
-            f"{label:<24} {fmt.format(getattr(today, key)):>10} "
-            f"{fmt.format(getattr(o_best, key)):>12}"
+            "today's tuning is as good as the best candidate (within "
+            f"{WORTH_CHANGING:g} K): nothing to change"
         )
-    if s_best is base:
-        rows.append("today's tuning is already the best of the candidates: nothing to change")
         return "\n".join(rows)
     rows += [
         "site-file lines to paste (zone " + zone_name + "):",
@@ -315,6 +442,7 @@ def recommend(site: object, zone_name: str, spec: object) -> str:
         f"      differential_k: {s_best.differential_k:g}",
         f"      anticipator_gain_k: {s_best.anticipator_gain_k:g}",
         f"      cycle_rate_cph: {s_best.cycle_rate_cph:g}",
-        f"      droop_time_s: {s_best.droop_time_s:g}",
     ]
+    if s_best.droop_compensation:
+        rows.append(f"      droop_time_s: {s_best.droop_time_s:g}")
     return "\n".join(rows)
