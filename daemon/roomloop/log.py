@@ -1,10 +1,10 @@
 """Logging set-up: structlog, configured once at start by the command line or the service.
 
 Under systemd stdout is no terminal and journald stores what we write, so each event
-becomes one JSON line (``{"event": "config.loaded", "level": "info", ...}``) that
+becomes one JSON line (``{"event": "service.ready", "level": "info", ...}``) that
 ``journalctl -o cat | jq`` can read. On a terminal the same events are readable
 ``time level event key=value`` lines. Event names are namespaced by area
-(``config.loaded``, ``modbus.read_failed``); get a logger with
+(``service.ready``, ``modbus.read_failed``; docs/journal.md lists them all); get a logger with
 ``structlog.get_logger("roomloop.<area>")``.
 
 The console renderer is our own: structlog's dev renderer pulls in ``rich`` when it

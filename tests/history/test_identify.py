@@ -88,13 +88,13 @@ def test_scipy_curve_fit_is_the_reference_on_the_same_cooling() -> None:
     assert fit.params["Cr"] / fit.params["H"] == pytest.approx(tau_ref, rel=0.01)
 
 
-RANDOM_SEEDS = (1, 2)
+RANDOM_SEEDS = (1, 2, 3, 4)
 LONG = os.environ.get("ROOMLOOP_LONG_TESTS") == "1"
-"""Each case costs 10-20 s of CPU (a simulated week and its fit), so the suite runs the
-hydronic plant and one random plant; ``ROOMLOOP_LONG_TESTS=1`` runs every built-in plant
-and both random ones, and ``tests/bench/identify_plants.py`` prints the figures of all of
-them and of more random plants."""
-IN_SUITE = {"hydronic", 1}
+"""Each case costs 15-45 s of CPU (a simulated week and its fit): the suite runs every
+built-in plant and two random ones (about 2.5 minutes on 2 cores); ``ROOMLOOP_LONG_TESTS=1``
+adds two more random plants, and ``tests/bench/identify_plants.py`` prints the figures of
+all of them and of more random plants."""
+IN_SUITE = {*BUILTIN_PLANTS, 1, 2}
 
 
 KNOWN_MISSES = {
