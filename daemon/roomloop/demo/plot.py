@@ -10,9 +10,11 @@ from typing import TYPE_CHECKING, Any
 from roomloop.plant.plot import PlotUnavailable
 
 if TYPE_CHECKING:
+    from matplotlib.figure import Figure
+
     from roomloop.demo.runner import DemoResult
 
-__all__ = ["PlotUnavailable", "matplotlib_available", "write_demo_plot"]
+__all__ = ["PlotUnavailable", "demo_figure", "matplotlib_available", "write_demo_plot"]
 
 
 def matplotlib_available() -> bool:
@@ -23,16 +25,23 @@ def matplotlib_available() -> bool:
 
 
 def write_demo_plot(result: DemoResult, path: str | os.PathLike[str]) -> None:
-    """Room air (true), sensor, set point, the relay on its own strip, and fail-safe, per zone,
-    against the site's clock times (the text log's).
+    """The run's :func:`demo_figure` as a PNG.
 
     Raises :class:`PlotUnavailable` without matplotlib, ``OSError`` if the file is unwritable.
     """
-    try:
-        import matplotlib
+    demo_figure(result).savefig(os.fspath(path), dpi=100)
 
-        matplotlib.use("Agg")
-        import matplotlib.pyplot as plt
+
+def demo_figure(result: DemoResult) -> Figure:
+    """Room air (true), sensor, set point, the relay on its own strip, and fail-safe, per zone,
+    against the site's clock times (the text log's); a strip per heat source below.
+
+    A figure on matplotlib's non-interactive Agg canvas, outside pyplot (nothing to close).
+    Raises :class:`PlotUnavailable` without matplotlib.
+    """
+    try:
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+        from matplotlib.figure import Figure
     except ImportError as exc:
         raise PlotUnavailable(str(exc)) from None
 
@@ -45,9 +54,10 @@ def write_demo_plot(result: DemoResult, path: str | os.PathLike[str]) -> None:
     sources = [n for n in result.sources if f"{n}:enable" in result.watched]
     # per zone: temperatures on a tall axis, the relay on its own strip below it; then a
     # strip per heat source (its enable and its pump)
-    fig, axes = plt.subplots(
-        2 * len(zones) + len(sources), 1,
-        figsize=(12, 3.6 * len(zones) + 1.2 * len(sources)), sharex=True,
+    fig = Figure(figsize=(12, 3.6 * len(zones) + 1.2 * len(sources)))
+    FigureCanvasAgg(fig)
+    axes = fig.subplots(
+        2 * len(zones) + len(sources), 1, sharex=True,
         gridspec_kw={"height_ratios": [4, 1] * len(zones) + [1.2] * len(sources)},
     )
 
@@ -67,10 +77,7 @@ def write_demo_plot(result: DemoResult, path: str | os.PathLike[str]) -> None:
     )
     fig.suptitle(f"roomloop demo: {result.site.name}", fontsize=11)
     fig.tight_layout()
-    try:
-        fig.savefig(os.fspath(path), dpi=100)
-    finally:
-        plt.close(fig)
+    return fig
 
 
 def _zone_panels(

@@ -3,8 +3,12 @@
 from __future__ import annotations
 
 import os
+from typing import TYPE_CHECKING
 
 from roomloop.plant.protocol import SCHEDULE, ProtocolResult
+
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
 
 
 class PlotUnavailable(Exception):
@@ -12,21 +16,30 @@ class PlotUnavailable(Exception):
 
 
 def write_plot(result: ProtocolResult, path: str | os.PathLike[str]) -> None:
-    """Temperature and set point, relay, anticipator and droop terms, outdoor temperature and
-    load; phases shaded; figures in the title. Raises :class:`PlotUnavailable` without
+    """The run's :func:`protocol_figure` as a PNG. Raises :class:`PlotUnavailable` without
     matplotlib, ``OSError`` if unwritable."""
-    try:
-        import matplotlib
+    protocol_figure(result).savefig(os.fspath(path), dpi=100)
 
-        matplotlib.use("Agg")
-        import matplotlib.pyplot as plt
+
+def protocol_figure(result: ProtocolResult) -> Figure:
+    """Temperature and set point, relay, anticipator and droop terms, outdoor temperature and
+    load (on a second y axis of the outdoor panel), against hours since the start; phases
+    shaded; figures in the title.
+
+    A figure on matplotlib's non-interactive Agg canvas, outside pyplot (nothing to close).
+    Raises :class:`PlotUnavailable` without matplotlib."""
+    try:
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+        from matplotlib.figure import Figure
     except ImportError as exc:
         raise PlotUnavailable(str(exc)) from None
 
     trace = result.trace
     hours = [t / 3600.0 for t in trace.time_s]
-    fig, (ax_t, ax_r, ax_a, ax_o) = plt.subplots(
-        4, 1, figsize=(12, 9.5), sharex=True, gridspec_kw={"height_ratios": [3, 1, 1.5, 1.5]}
+    fig = Figure(figsize=(12, 9.5))
+    FigureCanvasAgg(fig)
+    ax_t, ax_r, ax_a, ax_o = fig.subplots(
+        4, 1, sharex=True, gridspec_kw={"height_ratios": [3, 1, 1.5, 1.5]}
     )
     for segment in SCHEDULE:
         if segment.scored:
@@ -77,7 +90,4 @@ def write_plot(result: ProtocolResult, path: str | os.PathLike[str]) -> None:
         fontsize=10,
     )
     fig.tight_layout()
-    try:
-        fig.savefig(os.fspath(path), dpi=100)
-    finally:
-        plt.close(fig)
+    return fig
