@@ -908,9 +908,10 @@ def _section_names(data: Mapping[str, Any], file: str, lines: LineMap) -> list[C
             for section in ("site", "broker", "logging")
             if str(key) in _SECTIONS[section].model_fields
         ]
+        in_item = _item_dedent_hint(data, str(key))
         close = difflib.get_close_matches(str(key), list(_SECTIONS), n=1, cutoff=0.6)
-        hint = f"; did you mean {close[0]!r}?" if close and not homes else ""
-        hint += _dedent_hint(str(key), homes, data)
+        hint = f"; did you mean {close[0]!r}?" if close and not homes and not in_item else ""
+        hint += in_item or _dedent_hint(str(key), homes, data)
         found.append(
             ConfigProblem(
                 file,
@@ -923,6 +924,36 @@ def _section_names(data: Mapping[str, Any], file: str, lines: LineMap) -> list[C
         if key not in data and not (key == "zones" and _has_sources(data)):
             found.append(ConfigProblem(file, 1, key, f"missing: the '{key}' section is required"))
     return found
+
+
+def _item_dedent_hint(data: Mapping[str, Any], key: str) -> str:
+    """Where a key dedented to the file's first column belongs when the section above it is
+    a list (``zones:``): the last item of that list, or one of the item's sub-sections."""
+    keys = [str(k) for k in data]
+    known_above = [k for k in keys[: keys.index(key)] if k in _SECTIONS]  # past other strays
+    above = known_above[-1] if known_above else None
+    items = data.get(above) if above in _LIST_SECTIONS else None
+    if not isinstance(items, list) or not items or not isinstance(items[-1], Mapping):
+        return ""
+    item = items[-1]
+    model = _narrow(_SECTIONS[str(above)], item)
+    if not (isinstance(model, type) and issubclass(model, BaseModel)):
+        return ""
+    label = format_path((str(above), len(items) - 1), data)
+    if key in model.model_fields:
+        return (
+            f"; {key!r} is a key of {label}, the item above it: indent it as that item's other "
+            "keys (is it dedented out of its section?)"
+        )
+    homes = _homes(model, item, key)
+    if not homes:
+        return ""
+    chosen = [home for home in homes if home in item] or homes
+    return (
+        f"; {key!r} is a key of {' or '.join(f'{label}.{home}' for home in chosen)}: indent it "
+        f"under that item's {' or '.join(repr(home + ':') for home in chosen)} "
+        "(is it dedented out of its section?)"
+    )
 
 
 def _has_sources(data: Mapping[str, Any]) -> bool:
