@@ -142,14 +142,14 @@ def test_fahrenheit_site_holds_celsius(tmp_path: Path) -> None:
 def test_a_number_that_loses_its_text_keeps_it_and_the_site_gets_plain_numbers(
     tmp_path: Path,
 ) -> None:
-    # 010 is octal 8 to YAML 1.1 and 21.50 is 21.5: the document keeps each text (for hints),
+    # 0x10 is 16 and 21.50 is 21.5: the document keeps each text (for hints),
     # the values stay numbers, and the built site holds plain int and float.
     path = _write(
         tmp_path,
         "site: {name: texts}\n"
         "links: [{name: io, type: modbus-tcp, host: 127.0.0.1}]\n"
         "points:\n"
-        "  - {name: t, type: modbus-input, link: io, address: 010}\n"
+        "  - {name: t, type: modbus-input, link: io, address: 0x10}\n"
         "  - {name: r, type: modbus-output, link: io, address: 1}\n"
         "zones:\n"
         "  - {name: z, inputs: [t], output: r, heating: electric, setpoints: {comfort: 21.50}}\n",
@@ -157,11 +157,11 @@ def test_a_number_that_loses_its_text_keeps_it_and_the_site_gets_plain_numbers(
     data, _lines = load_yaml_document(path)
     address = data["points"][0]["address"]
     comfort = data["zones"][0]["setpoints"]["comfort"]
-    assert (address, comfort) == (8, 21.5)
-    assert (address.yaml_text, comfort.yaml_text) == ("010", "21.50")
+    assert (address, comfort) == (16, 21.5)
+    assert (address.yaml_text, comfort.yaml_text) == ("0x10", "21.50")
     assert not hasattr(data["points"][1]["address"], "yaml_text")  # 1 lost nothing
     site = load_site(path)
     point = site.point("t")
     assert isinstance(point, ModbusInput)
-    assert type(point.address) is int and point.address == 8
+    assert type(point.address) is int and point.address == 16
     assert type(site.zone("z").setpoints.comfort) is float

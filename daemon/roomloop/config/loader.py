@@ -174,6 +174,25 @@ def _scalar(node: ScalarNode, constructor: _Scalars) -> Any:
     return value
 
 
+_OCTAL = re.compile(r"[-+]?0[0-7_]+")
+
+
+def _octal_surprise(node: ScalarNode, value: Any) -> str | None:
+    """A plain whole number with a leading zero is octal in YAML 1.1 (``address: 0100`` is
+    64), but decimal to YAML 1.2 and to a reader: refused, with both readings."""
+    if node.style is not None or node.tag != "tag:yaml.org,2002:int":
+        return None
+    if not _OCTAL.fullmatch(node.value) or isinstance(value, bool):
+        return None
+    decimal = int(node.value.replace("_", ""), 10)
+    if decimal == value:
+        return None  # 00 to 07: the same number either way
+    return (
+        f"{node.value} is read as the octal number {value} (a leading zero, YAML 1.1); "
+        f"write {decimal} without the leading zero (or {value}, if that is meant)"
+    )
+
+
 def _with_text(value: Any, text: str) -> Any:
     """A number that lost its text (``0730`` is octal 472, ``7.30`` is 7.3) keeps it, for
     hints; anything else as it is."""
@@ -209,7 +228,11 @@ class _Builder:
                 self._problem(node, path, f"more than {MAX_VALUES} values (aliases expanding?)")
             return None
         if isinstance(node, ScalarNode):
-            return _scalar(node, self._constructor)
+            value = _scalar(node, self._constructor)
+            octal = _octal_surprise(node, value)
+            if octal is not None and path and path[-1] != "at":  # a time has its own hint
+                self._problem(node, path, octal)
+            return value
         if isinstance(node, SequenceNode):
             return [self.build(item, (*path, i), depth + 1) for i, item in enumerate(node.value)]
         if isinstance(node, MappingNode):
