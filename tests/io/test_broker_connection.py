@@ -14,6 +14,7 @@ import aiomqtt
 import pytest
 from structlog.testing import capture_logs
 
+from roomloop.config.loader import load_site
 from roomloop.config.models import Broker, Tls
 from roomloop.errors import BrokerError
 from roomloop.io.broker import (
@@ -129,6 +130,25 @@ def test_tls_and_last_will_options(tmp_path: Path) -> None:
         True,
     )
     assert "tls_params" not in client_options(Broker(host="127.0.0.1"))
+
+
+def test_tls_without_a_port_is_mqtt_over_tls_on_8883(tmp_path: Path) -> None:
+    """8883 is MQTT over TLS's registered port (IANA "secure-mqtt", recalled from memory):
+    a site that turns TLS on and gives no port must not knock at plain MQTT's 1883."""
+    site = tmp_path / "site.yaml"
+    site.write_text(
+        "site: {name: tls-lodge}\n"
+        "broker: {host: 127.0.0.1, tls: {}}\n"
+        "links: [{name: io, type: modbus-tcp, host: 127.0.0.1}]\n"
+        "points:\n"
+        "  - {name: t, type: modbus-input, link: io, address: 0}\n"
+        "  - {name: r, type: modbus-output, link: io, address: 0}\n"
+        "zones: [{name: z, inputs: [t], output: r, heating: electric}]\n"
+    )
+    loaded = load_site(site).broker
+    assert loaded is not None and loaded.port == 8883
+    assert Broker(host="127.0.0.1").port == 1883  # plain MQTT
+    assert Broker(host="127.0.0.1", port=1883, tls=Tls()).port == 1883  # as written
 
 
 async def test_unreachable_broker_keeps_retrying_with_backoff() -> None:

@@ -19,6 +19,7 @@ import ipaddress
 import math
 import re
 import zoneinfo
+from collections.abc import Mapping
 from typing import Annotated, Any, Literal
 
 from pydantic import (
@@ -412,6 +413,15 @@ class Broker(Strict):
     """Defaults to ``roomloop/<site name>``."""
     publish_interval_s: Annotated[Seconds, Field(ge=1)] = 60.0
     command_rate_per_min: Annotated[Int, Field(ge=1, le=600)] = 30
+
+    @model_validator(mode="before")
+    @classmethod
+    def _tls_port(cls, data: Any) -> Any:
+        """With ``tls`` and no ``port``, MQTT over TLS's registered port 8883 (IANA's service
+        name registry, "secure-mqtt"; recalled from memory), not plain MQTT's 1883."""
+        if isinstance(data, Mapping) and data.get("tls") is not None and "port" not in data:
+            return {**data, "port": 8883}
+        return data
 
     @model_validator(mode="after")
     def _one_password_source(self) -> Broker:
