@@ -226,6 +226,36 @@ async def test_damaged_file_is_moved_aside_and_a_new_one_started(tmp_path: Path)
     assert read_zone(path, "room").time == [1000.0]
 
 
+async def test_a_history_that_cannot_be_opened_is_said_once_then_folded_until_it_recovers(
+    tmp_path: Path,
+) -> None:
+    """Tried every 30 s of recorded time, an hour of a missing state directory is a handful
+    of journal lines, not 120; the opening that works closes it with one event."""
+    outputs, state = _outputs_and_state()
+    blocker = tmp_path / "state"
+    blocker.write_text("a file where the state directory should be\n")
+    recorder = HistoryRecorder(blocker / "h.sqlite", commit_s=60.0)
+    with capture_logs() as events:
+        async with recorder:
+            for minute in range(60):
+                for k in range(6):
+                    recorder.record("room", 1000.0 + 60 * minute + 10 * k, outputs, state)
+                assert await asyncio.to_thread(recorder.wait_until, lambda r: r.queued == 0, 10.0)
+            blocker.unlink()  # the directory is back
+            for k in range(12):
+                recorder.record("room", 4600.0 + 10 * k, outputs, state)
+            assert await asyncio.to_thread(recorder.wait_until, lambda r: r.written > 0, 10.0)
+    unavailable = [e for e in events if e["event"] == "history.unavailable"]
+    tries = recorder.failures
+    assert tries >= 50  # it kept trying, every 30 to 60 recorded seconds
+    assert 1 <= len(unavailable) <= 6, len(unavailable)
+    assert unavailable[0]["reason"] and unavailable[0]["path"].endswith("h.sqlite")
+    assert sum(e.get("suppressed", 0) for e in unavailable) + len(unavailable) <= tries
+    recovered = [e for e in events if e["event"] == "history.recovered"]
+    assert len(recovered) == 1 and recovered[0]["failures"] == tries
+    assert recovered[0]["failed_for_s"] >= 3000.0
+
+
 def _head(path: Path) -> bytes:
     return path.read_bytes()[:64]
 

@@ -14,6 +14,10 @@ Nothing here may stop control:
   logged as ``history.dropped`` (the first, then every ``DROP_LOG_EVERY``);
 - a failed write (disk full, I/O error) logs ``history.write_failed``; its ticks
   are kept for the next try up to the queue's bound, the oldest dropped beyond it;
+- a file that cannot be opened (no permission, the disk gone) logs
+  ``history.unavailable``, tried again every ``RETRY_OPEN_S`` of recorded time, its
+  repeats folded (:class:`~roomloop.io.eventlog.RateLimitedLog`) until
+  ``history.recovered``;
 - a damaged file (not a database, malformed) is renamed aside to
   ``<file>.damaged-<time>`` with ``history.damaged_moved_aside`` and a new one is
   started.
@@ -43,6 +47,7 @@ import structlog
 from roomloop.core.state import ZoneState
 from roomloop.core.types import ZoneOutputs
 from roomloop.history.store import HistoryDamaged, HistoryFile, Tick, history_path, is_damaged
+from roomloop.io.eventlog import RateLimitedLog
 
 log = structlog.get_logger("roomloop.history")
 
@@ -118,6 +123,8 @@ class HistoryRecorder:
         self.failures = 0
         self.moved_aside: list[Path] = []
         self._failing = 0
+        self._events = RateLimitedLog(log)
+        """Folds the repeats of ``history.unavailable`` (a try every RETRY_OPEN_S)."""
         self._progress = threading.Condition()
         """Notified when the writer has taken the queue and after each try to write a batch."""
 
@@ -233,7 +240,7 @@ class HistoryRecorder:
         """Write the batch, opening the file first if it is not open (and an attempt is due
         at ``seen``); the file as it is after, and when to try opening it next."""
         if db is None and seen >= next_open:
-            db = self._open()
+            db = self._open(seen)
             if db is None:
                 next_open = seen + RETRY_OPEN_S
         if db is None:
@@ -282,8 +289,9 @@ class HistoryRecorder:
                 return False, taken
         return True, taken
 
-    def _open(self) -> HistoryFile | None:
-        """Open (or create) the file; a damaged one is moved aside and a new one started."""
+    def _open(self, now: float) -> HistoryFile | None:
+        """Open (or create) the file; a damaged one is moved aside and a new one started.
+        ``now``: the recorded time of the try (what the repeats are folded on)."""
         for attempt in range(2):
             try:
                 self.path.parent.mkdir(parents=True, exist_ok=True)
@@ -292,23 +300,25 @@ class HistoryRecorder:
                 if problem == "ok":
                     if attempt == 0:
                         log.info("history.opened", path=str(self.path))
+                    self._events.recovered("open", "history.recovered", now, path=str(self.path))
                     return db
                 db.close()
                 raise HistoryDamaged(f"integrity check: {problem}")
             except sqlite3.DatabaseError as exc:
                 if not is_damaged(exc):  # cannot open, disk full, locked: try again later
-                    self.failures += 1
-                    log.error("history.unavailable", path=str(self.path), error=str(exc))
-                    return None
+                    return self._unavailable(now, exc)
                 if attempt == 1 or not self._move_aside(str(exc)):
-                    self.failures += 1
-                    log.error("history.unavailable", path=str(self.path), error=str(exc))
-                    return None
+                    return self._unavailable(now, exc)
             except OSError as exc:
-                self.failures += 1
-                log.error("history.unavailable", path=str(self.path), error=str(exc))
-                return None
+                return self._unavailable(now, exc)
         return None
+
+    def _unavailable(self, now: float, exc: Exception) -> None:
+        self.failures += 1
+        self._events.problem(
+            "open", "history.unavailable", now, path=str(self.path), reason=str(exc),
+            retry_s=RETRY_OPEN_S,
+        )
 
     def _move_aside(self, reason: str) -> bool:
         stamp = time.strftime("%Y%m%dT%H%M%S", time.gmtime())
