@@ -305,12 +305,13 @@ class HistoryRecorder:
                 db.close()
                 raise HistoryDamaged(f"integrity check: {problem}")
             except sqlite3.DatabaseError as exc:
-                if not is_damaged(exc):  # cannot open, disk full, locked: try again later
-                    return self._unavailable(now, exc)
-                if attempt == 1 or not self._move_aside(str(exc)):
-                    return self._unavailable(now, exc)
+                # cannot open, disk full, locked: try again later; damaged: once moved aside
+                if not is_damaged(exc) or attempt == 1 or not self._move_aside(str(exc)):
+                    self._unavailable(now, exc)
+                    return None
             except OSError as exc:
-                return self._unavailable(now, exc)
+                self._unavailable(now, exc)
+                return None
         return None
 
     def _unavailable(self, now: float, exc: Exception) -> None:
