@@ -41,14 +41,20 @@ zones:
 """
 
 
+def simulated_overall(site: Path, plant: str) -> dict[str, float]:
+    """``roomloop simulate -c SITE --zone den --plant PLANT``'s overall figures."""
+    out = site.parent / "sim.json"
+    assert main(
+        ["simulate", "-c", str(site), "--zone", "den", "--plant", plant, "--json", str(out)]
+    ) == 0
+    overall: dict[str, float] = json.loads(out.read_text())["overall"]
+    return overall
+
+
 def test_tune_today_is_simulate_of_the_zone(tmp_path: Path) -> None:
     path = tmp_path / "site.yaml"
     path.write_text(SITE)
-    out = tmp_path / "sim.json"
-    assert main(
-        ["simulate", "-c", str(path), "--zone", "den", "--plant", "hydronic", "--json", str(out)]
-    ) == 0
-    simulated = json.loads(out.read_text())["overall"]
+    simulated = simulated_overall(path, "hydronic")
     today = today_on(load_site(str(path)), "den", load_plant("hydronic"))
     assert today.control_accuracy_k == pytest.approx(simulated["control_accuracy_k"], abs=1e-9)
     assert today.energy_kwh == pytest.approx(simulated["energy_kwh"], abs=1e-9)
@@ -83,11 +89,7 @@ def test_a_too_wide_differential_is_narrowed_and_the_pasted_lines_predict_as_pri
         "    heater_w: 1500\n", "    heater_w: 1500\n    tuning: {" + tuning + "}\n"
     )
     path.write_text(tuned)
-    out = tmp_path / "sim.json"
-    assert main(
-        ["simulate", "-c", str(path), "--zone", "den", "--plant", "hydronic", "--json", str(out)]
-    ) == 0
-    simulated = json.loads(out.read_text())["overall"]
+    simulated = simulated_overall(path, "hydronic")
     assert simulated["control_accuracy_k"] == pytest.approx(found.best.control_accuracy_k,
                                                             abs=1e-9)
     assert simulated["cycles_per_hour"] == pytest.approx(found.best.cycles_per_hour, abs=1e-9)
@@ -116,11 +118,7 @@ def test_an_undetermined_loss_is_spanned_and_the_span_is_simulate_of_the_scaled_
     assert f"loss_w_per_k: {loss:g}" in text
     scaled = tmp_path / "lossy.yaml"
     scaled.write_text(text.replace(f"loss_w_per_k: {loss:g}", f"loss_w_per_k: {loss * 3!r}"))
-    out = tmp_path / "sim.json"
-    assert main(
-        ["simulate", "-c", str(path), "--zone", "den", "--plant", str(scaled), "--json", str(out)]
-    ) == 0
-    simulated = json.loads(out.read_text())["overall"]
+    simulated = simulated_overall(path, str(scaled))
     assert LOSS_FACTORS[1] == 3.0
     assert found.spans[1][0].control_accuracy_k == pytest.approx(
         simulated["control_accuracy_k"], abs=1e-9
