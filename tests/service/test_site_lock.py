@@ -76,6 +76,8 @@ def _second_is_refused(first: Run, second: Run) -> None:
     assert second.wait_exit() == 1
     text = second.text()
     assert f"is already run by process {first.process.pid}" in text, text
+    # the way out is to stop the first, never a second controller beside it
+    assert "stop that one first" in text and "another state directory" not in text, text
     assert "Traceback" not in text
     assert first.process.poll() is None  # the first one runs on
 

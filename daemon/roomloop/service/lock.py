@@ -39,8 +39,9 @@ class LockHeld(Exception):
         self.pid = pid
         holder = f"process {pid}" if pid is not None else "another process"
         super().__init__(
-            f"site {site!r} is already run by {holder} (lock {path}); "
-            "stop it first, or give this one another state directory"
+            f"site {site!r} is already run by {holder} (lock {path}); stop that one first "
+            "(systemctl stop roomloop, or kill the process): two processes for one site "
+            "switch the same relays and throw each other off the broker"
         )
 
 
