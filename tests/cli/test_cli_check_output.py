@@ -179,3 +179,25 @@ calendar:
         lines
     ), out
     assert "  closure: 2026-12-24 to 2027-01-01 (whole day): protection, every zone" in lines, out
+
+
+def test_check_shows_the_history_the_outdoor_point_and_each_heater_power(
+    capsys: pytest.CaptureFixture[str], tmp_path: Path
+) -> None:
+    """The keys issue 11 added are shown as resolved, defaults included."""
+    _code, out, _err, _path = _check(capsys, tmp_path, 0)
+    assert "outdoor temperature: none" in out
+    assert re.search(r"history: \S+/warn\.history\.sqlite, a commit at most every 60 s, "
+                     r"kept 60 days", out), out
+    assert "heater power: not given (no energy figures" in out
+    path = tmp_path / "site.yaml"
+    path.write_text(
+        SITE.format(address=0).replace("site: {name: warn}", "site: {name: warn}\nhistory: "
+                                       "{enabled: false}").replace(
+            "    heating: hydronic\n", "    heating: hydronic\n    heater_w: 1500\n"
+        ),
+        encoding="utf-8",
+    )
+    assert main(["check", "-c", str(path)]) == 0
+    out = capsys.readouterr().out
+    assert "history: off" in out and "heater power: 1500 W" in out, out

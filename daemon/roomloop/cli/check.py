@@ -34,6 +34,7 @@ from roomloop.config.models import (
 from roomloop.core.settings import ZoneSettings
 from roomloop.core.stages.constants import smoothing_time_s
 from roomloop.errors import ConfigProblem
+from roomloop.history.store import history_path
 
 
 def main(args: argparse.Namespace) -> int:
@@ -76,6 +77,9 @@ def print_site(site: Site, out: TextIO) -> None:
     info = site.site
     w(f"site {info.name}: units {units}, time zone {info.timezone}, state in {info.state_dir}\n")
     w(f"logging: level {site.logging.level}, format {site.logging.format}\n")
+    outdoor = info.outdoor_point
+    w(f"outdoor temperature: {'point ' + outdoor if outdoor else 'none'} (tune, optimum start)\n")
+    w(f"history: {_history_text(site)}\n")
 
     w("\nlinks\n")
     if not site.links:
@@ -123,6 +127,16 @@ def print_site(site: Site, out: TextIO) -> None:
         w("  (none)\n")
     for source in site.heat_sources:
         _heat_source(source, site.topic_prefix, w)
+
+
+def _history_text(site: Site) -> str:
+    history = site.history
+    if not history.enabled:
+        return "off (report and tune then need a --history CSV)"
+    return (
+        f"{history_path(site.site.state_dir, site.name)}, a commit at most every "
+        f"{_n(history.commit_s)} s, kept {_n(history.keep_days)} days"
+    )
 
 
 def _broker_text(broker: Broker | None, site: Site) -> str:
@@ -275,6 +289,12 @@ def _zone(
         f"{level} {temperature_text(zone.setpoints.for_level(level), units)}" for level in LEVELS
     )
     write(f"    set points: {sp}\n")
+    heater = (
+        f"{_n(zone.heater_w)} W (energy figures; tune's plant in watts)"
+        if zone.heater_w is not None
+        else "not given (no energy figures; tune's plant on a nominal 1000 W scale)"
+    )
+    write(f"    heater power: {heater}\n")
     write(
         f"    limits: {temperature_text(zone.limits.min, units)} to "
         f"{temperature_text(zone.limits.max, units)}; "
