@@ -234,7 +234,12 @@ def _host(value: str, scheme_note: str) -> str:
     scheme is told, for the kind of peer the host names.
     """
     if any(c.isspace() for c in value):
-        raise ValueError(f"{value!r} contains a space: a host is one name or address")
+        joined = "".join(value.split())
+        try:
+            fixed = f" (host: {_host(joined, scheme_note)}?)" if joined else ""
+        except ValueError:
+            fixed = ""  # no better guess than the plain rule
+        raise ValueError(f"{value!r} contains a space: a host is one name or address{fixed}")
     if "://" in value:
         _scheme, _, rest = value.partition("://")
         host, _, port = rest.partition(":")
