@@ -172,3 +172,33 @@ async def test_a_lost_broker_is_logged_in_our_words(mosquitto: Any, tmp_path: Pa
     lost = [e for e in events if e["event"] == "broker.disconnected"]
     assert lost[0]["reason"] == "the connection to the broker was lost", lost[0]
     assert all("Disconnected during message iteration" not in e["reason"] for e in lost)
+
+
+@pytest.mark.needs_mosquitto
+async def test_two_clients_with_one_client_id_are_named_as_the_likely_cause(
+    mosquitto: Any, tmp_path: Path
+) -> None:
+    """Mosquitto closes the older of two sessions with one client id without a reason code:
+    the journal must point at the client id, not just say the connection was lost."""
+    site = load_site(site_file(tmp_path, mosquitto.port))
+    assert site.broker is not None and site.broker.client_id is not None
+    ours, theirs = (
+        BrokerConnection(site.broker, backoff_min_s=0.05, backoff_max_s=0.2) for _ in range(2)
+    )
+
+    def hinted(events: list[Any]) -> bool:
+        return any("another client using client id" in e.get("reason", "") for e in events)
+
+    with capture_logs() as events:
+        tasks = [asyncio.create_task(ours.run(lambda message: None))]
+        try:
+            await asyncio.wait_for(ours.connected.wait(), 10)
+            tasks.append(asyncio.create_task(theirs.run(lambda message: None)))
+            await until(lambda: hinted(events), 20)
+        finally:
+            for task in tasks:
+                task.cancel()
+            await asyncio.gather(*tasks, return_exceptions=True)
+    lost = [e for e in events if e["event"] == "broker.disconnected"]
+    assert repr(site.broker.client_id) in next(e["reason"] for e in lost if hinted([e]))
+    # one lost connection alone (the broker stopped) gets no such guess: see the test above

@@ -164,6 +164,9 @@ async def _call(hook: Callable[..., Any] | None, arg: Any) -> None:
 
 
 PROBE_EVERY_S = 1.0
+SHORT_SESSION_S = 10.0
+"""A session lost this soon after it was made, twice running, with a fixed client id: the
+sign of another client using the same id (the broker hands the session to the newer one)."""
 """How often a reconnect pause looks whether the broker's port takes a connection again."""
 
 
@@ -197,6 +200,7 @@ class BrokerConnection:
         self.connections = 0
         """How many times a connection was made (tests and status)."""
         self._events = RateLimitedLog(log, 300.0)
+        self._short_sessions = 0
 
     def make_client(self) -> aiomqtt.Client:
         """A new, not yet connected client (reads the password again, so a rotated one is used)."""
@@ -212,11 +216,13 @@ class BrokerConnection:
         backoff = Backoff(self.backoff_min_s, self.backoff_max_s)
         delay = backoff.first()
         while True:
+            began: float | None = None
             try:
                 client = self.make_client()
                 async with client:
                     self.client = client
                     self.connections += 1
+                    began = self.clock.io.monotonic()
                     delay = backoff.first()
                     log.info(
                         "broker.connected", endpoint=self.endpoint, connections=self.connections
@@ -234,7 +240,7 @@ class BrokerConnection:
                     "broker.disconnected",
                     self.clock.now(),
                     endpoint=self.endpoint,
-                    reason=describe_broker_error(exc),  # our words, not aiomqtt's
+                    reason=describe_broker_error(exc) + self._takeover_hint(began),
                     retry_in_s=delay,
                 )
             finally:
@@ -245,6 +251,22 @@ class BrokerConnection:
                     await _call_noarg(on_disconnect)
             await self._pause(delay)
             delay = backoff.after(delay)
+
+    def _takeover_hint(self, began: float | None) -> str:
+        """Words for a session that keeps ending soon after it was made under a fixed client
+        id (mosquitto closes the older session without a reason code)."""
+        if began is None:
+            return ""  # no session: a refused or failed connection
+        lasted = self.clock.io.monotonic() - began
+        short = lasted < SHORT_SESSION_S and self.broker.client_id is not None
+        self._short_sessions = self._short_sessions + 1 if short else 0
+        if self._short_sessions < 2:
+            return ""
+        return (  # the same words each time, so the repeats fold
+            f"; the sessions keep ending within {SHORT_SESSION_S:g} s of being made: is "
+            f"another client using client id {self.broker.client_id!r}? (the broker hands "
+            "the session to the newer one)"
+        )
 
     async def _pause(self, delay: float) -> None:
         """The backoff's pause, cut short once the broker's port takes a connection again: a
