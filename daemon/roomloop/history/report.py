@@ -4,8 +4,11 @@ The figures are those of the standard protocol (:mod:`roomloop.plant.figures`): 
 accuracy after EN 15500 (CA = |CSD| + CV, CSD = mean(T) - S, CV = (max T - min T) / 2)
 over each stretch of constant set point, once it has settled (the first ``SETTLE_S``
 after a set-point change are left out, as the protocol leaves out its warm-up and
-ramps; stretches with less than ``MIN_STRETCH_S`` after that are not scored); the day's
-CA is the worst stretch's. Cycles per hour, on-fraction, shortest complete on and off
+ramps, and the time until the temperature first reached the new set point: a slow floor's
+free cool-down after a set-back or its slow warm-up is no steady-state error, but a raised
+set point never reached is scored (see :func:`_settled_at`);
+stretches with less than ``MIN_STRETCH_S`` after that are not scored); the day's CA is the
+worst stretch's. Cycles per hour, on-fraction, shortest complete on and off
 runs and energy (``heater_w`` x on-time, when the zone has ``heater_w``) over the whole
 day. Minutes in fail-safe, and minutes each input point was not ``ok``.
 
@@ -129,18 +132,45 @@ def _shortest_runs(
     return shortest
 
 
+def _settled_at(history: ZoneHistory) -> list[float]:
+    """Per sample, when its stretch of constant set point counts as settled: ``SETTLE_S``
+    after the change, and not before the temperature first reached the new set point.
+    A set-back never reached is never settled (a warm floor cooling freely is no control
+    error); a raised set point never reached is scored from ``SETTLE_S`` (a room that does
+    not get warm is one)."""
+    settled = [math.inf] * len(history.time)
+    for first, end in _stretches(history.setpoint):
+        at = history.time[first] + SETTLE_S
+        setpoint = history.setpoint[first]
+        before = history.setpoint[first - 1] if first > 0 else None
+        if setpoint is not None and before is not None and before != setpoint:
+            down = before > setpoint
+            reached = next(
+                (
+                    history.time[k] for k in range(first, end)
+                    if (t := history.temperature[k]) is not None
+                    and (t <= setpoint if down else t >= setpoint)
+                ),
+                math.inf if down else at,
+            )
+            at = max(at, reached)
+        for k in range(first, end):
+            settled[k] = at
+    return settled
+
+
 def _accuracy(
     history: ZoneHistory,
     weight: dict[int, float],
     first: int,
     end: int,
-    stretch_start: Sequence[float],
+    settled_at: Sequence[float],
 ) -> tuple[tuple[float, float, float] | None, float]:
     """The day's worst settled stretch (CA, CSD, CV) and the seconds scored."""
     worst: tuple[float, float, float] | None = None
     scored = 0.0
     for s_first, s_end in _stretches(history.setpoint[first:end]):
-        settled = stretch_start[first + s_first] + SETTLE_S
+        settled = settled_at[first + s_first]
         ok: list[tuple[int, float]] = []  # (sample, T) of the settled part, not in fail-safe
         for k in range(first + s_first, first + s_end):
             temperature = history.temperature[k]
@@ -168,10 +198,7 @@ def day_figures(
     cover = cover_s(history, tick_of(history))
     # set-point stretches over the whole history, so a change just before midnight still
     # counts as unsettled after it
-    stretch_start = [0.0] * len(history.time)
-    for first, end in _stretches(history.setpoint):
-        for k in range(first, end):
-            stretch_start[k] = history.time[first]
+    settled_at = _settled_at(history)
     out: list[DayFigures] = []
     for day, first, end in _days(history, tz):
         begin, finish = _day_bounds(day, tz)
@@ -186,7 +213,7 @@ def day_figures(
             1 for k in range(max(first, 1), end) if history.relay[k] and not history.relay[k - 1]
         )
         runs = _shortest_runs(history.relay, cover, first, end)
-        worst, scored = _accuracy(history, weight, first, end, stretch_start)
+        worst, scored = _accuracy(history, weight, first, end, settled_at)
         faults = {
             name: math.fsum(w for k, w in weight.items() if column[k][1] not in ("ok", "absent"))
             / 60.0
@@ -244,7 +271,8 @@ def format_report(
         )
     lines.append(
         "CA = |CSD| + CV (EN 15500), worst settled stretch of constant set point "
-        f"(the first {SETTLE_S / 60:.0f} min after a change left out); min on/off in s"
+        f"(the first {SETTLE_S / 60:.0f} min after a change left out, and the time until T "
+        "first reached the new set point); min on/off in s"
     )
     lines.append(
         "hours: the time the samples cover (each holds until the next, at most "
