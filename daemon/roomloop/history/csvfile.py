@@ -7,7 +7,10 @@ seconds. A local time without an offset is read as the site's zone has it; acros
 clock change (:func:`parse_time`), the hour the clocks go back over occurs twice and is
 read as its first pass unless that would go back from the row before (then as its
 second), and a time in the hour the clocks go forward over does not exist and is refused.
-Temperatures are in the site's units (``C`` or ``F``); ``relay`` and
+Temperatures are in the site's units (``C`` or ``F``), finite and within
+:data:`~roomloop.core.state.PLAUSIBLE_C` (-100 to 200 C, -148 to 392 F: the bounds the
+service holds every saved temperature to: nothing a room, pipe or the outdoor air reads
+is beyond them, so a value outside is a broken file, not a reading); ``relay`` and
 ``fail_safe`` are ``0`` or ``1``. An empty ``temperature`` is a tick without a
 reliable temperature. Rows must go forward in time: each row's time, as read, later
 than the row before (the export writes times to the millisecond, so ticks less than a
@@ -27,6 +30,7 @@ from pathlib import Path
 from typing import TextIO
 from zoneinfo import ZoneInfo
 
+from roomloop.core.state import PLAUSIBLE_C
 from roomloop.errors import ConfigError, ConfigProblem
 from roomloop.history.store import ZoneHistory
 from roomloop.units import from_celsius, to_celsius
@@ -197,7 +201,7 @@ def _read(handle: Iterable[str], file: str, *, zone: str, tz: ZoneInfo, units: s
                 )
                 continue
             try:
-                parsed = _parse_row(row, index, tz, last)
+                parsed = _parse_row(row, index, tz, last, units)
             except ValueError as exc:
                 problems.append(_problem(file, line, str(exc)))
                 continue
@@ -261,15 +265,22 @@ class _Row:
 
 
 def _parse_row(
-    row: list[str], index: dict[str, int], tz: ZoneInfo, after: float | None
+    row: list[str], index: dict[str, int], tz: ZoneInfo, after: float | None, units: str
 ) -> _Row:
     """The row's values (``after``: the time of the row before); ValueError with the
     message for the row's line."""
+    low, high = (_to_site(bound, units) for bound in PLAUSIBLE_C)
 
     def number(column: str) -> float | None:
         if column not in index:
             return None
-        return _number(row[index[column]], column, empty_ok=True)
+        value = _number(row[index[column]], column, empty_ok=True)
+        if value is not None and not low <= value <= high:
+            raise ValueError(
+                f"{column} {row[index[column]].strip()!r} is outside {low:.0f} to {high:.0f} "
+                f"{units} (no room, pipe or outdoor air reads beyond that)"
+            )
+        return value
 
     at = parse_time(row[index["time"]], tz, after=after)
     temperature = number("temperature")
