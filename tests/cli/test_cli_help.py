@@ -91,3 +91,16 @@ def test_every_sub_command_is_in_the_help_checks() -> None:
         if isinstance(action, argparse._SubParsersAction)
     )
     assert sorted(commands) == sorted(COMMANDS)
+
+
+@pytest.mark.parametrize("command", ["history", "report", "tune"])
+def test_the_help_says_a_span_counts_back_from_the_end_of_the_history(
+    command: str, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    """``--since 24h`` is the last 24 h of the history (source.parse_bound), which on an
+    old history or one of the demo's fast clock is not the last 24 h before now."""
+    text = " ".join(_help(capsys, monkeypatch, command).split())
+    assert (
+        "--since WHEN 24h, 7d (counted back from the newest tick of the history, not from "
+        "now), a date or date-time"
+    ) in text

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dataclasses
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -105,6 +106,11 @@ def test_report_figures_of_a_day_known_by_construction(
         "24.0", "0.50", "+0.20", "0.30", "2.0", "33", "600", "1200", "12.00", "10",
     ], row
     assert "t1 30" in row
+    # the shortest runs are seconds, and the header says so above each (right-aligned) value
+    header = next(line for line in text.splitlines() if line.startswith("day "))
+    ends = [m.end() for m in re.finditer(r"\S+", row)]
+    for label, field in (("on %", 6), ("min on s", 7), ("min off s", 8), ("kWh", 9)):
+        assert header.index(label) + len(label) == ends[field], (header, row)
 
 
 def test_bad_csv_rows_are_named_by_file_and_line(

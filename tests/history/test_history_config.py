@@ -75,3 +75,20 @@ def test_bad_values_name_file_key_and_line(
     assert f"{path}:{line}: {key}" in text
     assert main(["check", "-c", str(path)]) == 2
     assert key in capsys.readouterr().err
+
+
+def test_keep_days_bounds_are_the_ones_the_docs_give(tmp_path: Path) -> None:
+    """docs/configuration.md said 0-3660, but the model refuses 0 (it would prune every
+    row): the docs' row gives the model's bounds, and the model holds to them."""
+    docs = (Path(__file__).resolve().parents[2] / "docs" / "configuration.md").read_text()
+    row = next(line for line in docs.splitlines() if line.startswith("| `keep_days` |"))
+    assert "(above 0, at most 3660; 0.5: half a day)" in row
+    for days in ("0.5", "3660"):
+        (tmp_path / days).mkdir()
+        site = load_site(_write(tmp_path / days, extra=f"history: {{keep_days: {days}}}\n"))
+        assert site.history.keep_days == float(days)
+    for days in ("0", "3660.5"):
+        (tmp_path / days).mkdir()
+        with pytest.raises(ConfigError) as caught:
+            load_site(_write(tmp_path / days, extra=f"history: {{keep_days: {days}}}\n"))
+        assert "history.keep_days" in str(caught.value)

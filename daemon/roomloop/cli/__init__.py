@@ -228,6 +228,13 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+SINCE_HELP = (
+    "24h, 7d (counted back from the newest tick of the history, not from now), "
+    "a date or date-time"
+)
+"""``--since`` of history, report and tune (:func:`roomloop.history.source.parse_bound`)."""
+
+
 def _add_history_commands(add: Callable[[str, str], argparse.ArgumentParser]) -> None:
     """history, report, tune: the zone history the service keeps, and what is learnt from it."""
 
@@ -240,7 +247,7 @@ def _add_history_commands(add: Callable[[str, str], argparse.ArgumentParser]) ->
 
     hist = add("history", "export a zone's history (what the service recorded) as CSV")
     site_zone(hist, True)
-    hist.add_argument("--since", metavar="WHEN", help="24h, 7d, a date or date-time, or POSIX s")
+    hist.add_argument("--since", metavar="WHEN", help=SINCE_HELP + ", or POSIX s")
     hist.add_argument("--until", metavar="WHEN", help="same forms as --since")
     hist.add_argument(
         "--csv", required=True, metavar="OUT.csv", help="the file to write ('-': stdout)"
@@ -248,14 +255,14 @@ def _add_history_commands(add: Callable[[str, str], argparse.ArgumentParser]) ->
 
     report = add("report", "per zone and day: control accuracy, cycles, on-time, energy, faults")
     site_zone(report, False)
-    report.add_argument("--since", metavar="WHEN", help="24h, 7d, a date or date-time")
+    report.add_argument("--since", metavar="WHEN", help=SINCE_HELP)
     report.add_argument("--until", metavar="WHEN", help="same forms as --since")
     report.add_argument("--history", metavar="FILE.csv", help="read this CSV (needs --zone)")
     report.add_argument("--plot", metavar="OUT.png", help="write a plot (needs matplotlib)")
 
     tune = add("tune", "identify a zone's plant from its history and recommend its tuning")
     site_zone(tune, True)
-    tune.add_argument("--since", metavar="WHEN", help="24h, 7d, a date or date-time")
+    tune.add_argument("--since", metavar="WHEN", help=SINCE_HELP)
     tune.add_argument("--history", metavar="FILE.csv", help="read this CSV instead")
     tune.add_argument("--write-plant", metavar="OUT.yaml", help="write the identified plant file")
     tune.add_argument(

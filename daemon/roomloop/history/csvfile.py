@@ -3,7 +3,14 @@
 Columns (DESIGN.md glossary, "history"): ``time,temperature,relay`` required,
 ``setpoint``, ``outdoor`` and ``fail_safe`` optional, in any order. ``time`` is
 ISO 8601 (with an offset, or without one in the site's time zone) or POSIX
-seconds; temperatures are in the site's units (``C`` or ``F``); ``relay`` and
+seconds. A local time without an offset is read as the site's zone has it; across a
+clock change (:func:`parse_time`), the hour the clocks go back over occurs twice and is
+read as its first pass unless that would go back from the row before (then as its
+second), and a time in the hour the clocks go forward over does not exist and is refused.
+Temperatures are in the site's units (``C`` or ``F``), finite and within
+:data:`~roomloop.core.state.PLAUSIBLE_C` (-100 to 200 C, -148 to 392 F: the bounds the
+service holds every saved temperature to: nothing a room, pipe or the outdoor air reads
+is beyond them, so a value outside is a broken file, not a reading); ``relay`` and
 ``fail_safe`` are ``0`` or ``1``. An empty ``temperature`` is a tick without a
 reliable temperature. Rows must go forward in time: each row's time, as read, later
 than the row before (the export writes times to the millisecond, so ticks less than a
@@ -23,6 +30,7 @@ from pathlib import Path
 from typing import TextIO
 from zoneinfo import ZoneInfo
 
+from roomloop.core.state import PLAUSIBLE_C
 from roomloop.errors import ConfigError, ConfigProblem
 from roomloop.history.store import ZoneHistory
 from roomloop.units import from_celsius, to_celsius
@@ -79,8 +87,20 @@ def write_csv(history: ZoneHistory, out: TextIO, *, tz: ZoneInfo, units: str) ->
     return rows
 
 
-def parse_time(text: str, tz: ZoneInfo) -> float:
-    """ISO 8601 (with an offset, or in ``tz``) or POSIX seconds, to POSIX seconds."""
+class LocalTimeGap(ValueError):
+    """A local time the clocks went forward over: it never happened in the zone."""
+
+
+def parse_time(text: str, tz: ZoneInfo, *, after: float | None = None) -> float:
+    """ISO 8601 (with an offset, or in ``tz``) or POSIX seconds, to POSIX seconds.
+
+    A local time (no offset) is read in ``tz``. When the clocks go back, the repeated
+    local times stand for two instants: the first (``fold=0``) is taken, unless it is not
+    later than ``after`` (the row before) while the second (``fold=1``) is, so rows that go
+    on through the repeated hour read forward. When the clocks go forward, the skipped
+    local times never happened: :class:`LocalTimeGap` (a ValueError), rather than a guess
+    at which instant was meant.
+    """
     text = text.strip()
     try:
         value = float(text)
@@ -97,9 +117,26 @@ def parse_time(text: str, tz: ZoneInfo) -> float:
             f"{text!r} is not a time (ISO 8601 such as 2026-01-05T07:00:00+01:00, "
             "or POSIX seconds)"
         ) from None
-    if when.tzinfo is None:
-        when = when.replace(tzinfo=tz)
-    return when.timestamp()
+    if when.tzinfo is not None:
+        return when.timestamp()
+    return _local_time(when, tz, text, after)
+
+
+def _local_time(naive: dt.datetime, tz: ZoneInfo, text: str, after: float | None) -> float:
+    """The POSIX time of a local time in ``tz`` (see :func:`parse_time`)."""
+    first = naive.replace(tzinfo=tz, fold=0)
+    second = naive.replace(tzinfo=tz, fold=1)
+    # exact arithmetic (no float): a local time the zone never shows does not come back
+    back = first.astimezone(dt.UTC).astimezone(tz).replace(tzinfo=None)
+    if back != naive:
+        raise LocalTimeGap(
+            f"{text!r} does not exist in {tz.key} (the clocks go forward over it): "
+            "give the time with its offset"
+        )
+    early, late = first.timestamp(), second.timestamp()
+    if after is not None and early <= after < late:
+        return late
+    return early
 
 
 def _flag(text: str, column: str) -> bool:
@@ -164,7 +201,7 @@ def _read(handle: Iterable[str], file: str, *, zone: str, tz: ZoneInfo, units: s
                 )
                 continue
             try:
-                parsed = _parse_row(row, index, tz)
+                parsed = _parse_row(row, index, tz, last, units)
             except ValueError as exc:
                 problems.append(_problem(file, line, str(exc)))
                 continue
@@ -227,15 +264,25 @@ class _Row:
     fail_safe: bool
 
 
-def _parse_row(row: list[str], index: dict[str, int], tz: ZoneInfo) -> _Row:
-    """The row's values; ValueError with the message for the row's line."""
+def _parse_row(
+    row: list[str], index: dict[str, int], tz: ZoneInfo, after: float | None, units: str
+) -> _Row:
+    """The row's values (``after``: the time of the row before); ValueError with the
+    message for the row's line."""
+    low, high = (_to_site(bound, units) for bound in PLAUSIBLE_C)
 
     def number(column: str) -> float | None:
         if column not in index:
             return None
-        return _number(row[index[column]], column, empty_ok=True)
+        value = _number(row[index[column]], column, empty_ok=True)
+        if value is not None and not low <= value <= high:
+            raise ValueError(
+                f"{column} {row[index[column]].strip()!r} is outside {low:.0f} to {high:.0f} "
+                f"{units} (no room, pipe or outdoor air reads beyond that)"
+            )
+        return value
 
-    at = parse_time(row[index["time"]], tz)
+    at = parse_time(row[index["time"]], tz, after=after)
     temperature = number("temperature")
     relay = _flag(row[index["relay"]], "relay")
     setpoint = number("setpoint")

@@ -257,7 +257,7 @@ def format_report(
     lines = [
         f"zone {zone} ({heating}), tick {tick_s:.0f} s; T is the zone's measured temperature",
         f"{'day':<10} {'hours':>5} {'CA ' + unit:>6} {'CSD ' + unit:>6} {'CV ' + unit:>6} "
-        f"{'cyc/h':>5} {'on %':>5} {'min on':>6} {'min off':>7} {'kWh':>6} {'fail-safe':>9}  "
+        f"{'cyc/h':>5} {'on %':>5} {'min on s':>8} {'min off s':>9} {'kWh':>6} {'fail-safe':>9}  "
         "point faults (min)",
     ]
     for f in days:
@@ -266,7 +266,7 @@ def format_report(
             f"{f.day.isoformat():<10} {f.hours:>5.1f} {d(f.control_accuracy_k):>6} "
             f"{d(f.setpoint_deviation_k, '{:+.2f}'):>6} {d(f.control_variation_k):>6} "
             f"{f.cycles_per_hour:>5.1f} {100 * f.on_fraction:>5.0f} "
-            f"{_k(f.shortest_on_s, '{:.0f}'):>6} {_k(f.shortest_off_s, '{:.0f}'):>7} "
+            f"{_k(f.shortest_on_s, '{:.0f}'):>8} {_k(f.shortest_off_s, '{:.0f}'):>9} "
             f"{_k(f.energy_kwh):>6} {f.fail_safe_min:>7.0f} m  {faults or '-'}"
         )
     lines.append(

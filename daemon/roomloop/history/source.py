@@ -17,7 +17,7 @@ from zoneinfo import ZoneInfo
 
 from roomloop.config.models import Site
 from roomloop.errors import RoomloopError
-from roomloop.history.csvfile import parse_time, read_csv
+from roomloop.history.csvfile import LocalTimeGap, parse_time, read_csv
 from roomloop.history.store import HistoryFile, ZoneHistory, history_path, is_damaged
 
 _SPAN = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*([mhdw])\s*$")
@@ -71,6 +71,8 @@ def parse_bound(text: str | None, tz: ZoneInfo, option: str) -> Bound:
         return Bound(back_s=float(match.group(1)) * _UNIT_S[match.group(2)])
     try:
         return Bound(at=parse_time(text, tz))
+    except LocalTimeGap as exc:
+        raise ValueError(f"{option} {exc}") from None
     except ValueError:
         raise ValueError(
             f"{option} {text!r}: give a span back from the end of the history (24h, 7d, 90m), "
