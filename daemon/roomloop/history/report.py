@@ -272,7 +272,7 @@ def format_report(
     lines.append(
         "CA = |CSD| + CV (EN 15500), worst settled stretch of constant set point "
         f"(the first {SETTLE_S / 60:.0f} min after a change left out, and the time until T "
-        "first reached the new set point); min on/off in s"
+        "first reached the new set point)"
     )
     lines.append(
         "hours: the time the samples cover (each holds until the next, at most "
