@@ -228,6 +228,31 @@ async def test_every_register_reads_what_the_state_json_shows(
             client.close()
 
 
+# 20.0 = 1.25 x 2^4 in IEEE 754 binary32: 0x41A00000, bytes A B C D = 0x41 0xA0 0x00 0x00
+COMFORT_20_WORDS = {"ABCD": [0x41A0, 0x0000], "CDAB": [0x0000, 0x41A0]}
+
+
+@pytest.mark.parametrize(
+    ("word_order", "layout"),
+    [("big", "ABCD"), ("ABCD", "ABCD"), ("little", "CDAB"), ("CDAB", "CDAB"), ("cdab", "CDAB")],
+)
+async def test_a_float32_reads_the_same_registers_for_the_letters_and_big_little(
+    modbus_tcp_server: Any, tmp_path: Path, word_order: str, layout: str
+) -> None:
+    """README: ``word_order: big  # ABCD; little = CDAB``: the letters as for a point."""
+    port = free_port()
+    bms = {"port": port, "data_type": "float32", "word_order": word_order}
+    async with running_face(modbus_tcp_server, tmp_path, bms) as run:
+        client = await tcp_client(port)
+        try:
+            reg = run.map.register("room0", "comfort_setpoint")
+            reply = await client.read_holding_registers(reg.address, count=2, device_id=1)
+            assert not reply.isError(), reply
+            assert reply.registers == COMFORT_20_WORDS[layout]
+        finally:
+            client.close()
+
+
 async def test_fahrenheit_site_reads_fahrenheit(modbus_tcp_server: Any, tmp_path: Path) -> None:
     port = free_port()
     async with running_face(modbus_tcp_server, tmp_path, {"port": port}, units="F") as run:

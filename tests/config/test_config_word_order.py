@@ -13,7 +13,7 @@ import struct
 import pytest
 from pydantic import ValidationError
 
-from roomloop.config.models import ModbusInput
+from roomloop.config.models import Bms, ModbusInput
 from roomloop.io.codec import decode_raw
 
 # The registers each layout puts 21.5 into, from the byte names (A = 0x41, B = 0xAC, C = D = 0).
@@ -61,5 +61,32 @@ def test_a_matching_byte_order_is_fine_and_a_conflicting_one_refused() -> None:
 
 
 def test_other_letter_orders_are_refused_with_the_four() -> None:
-    with pytest.raises(ValidationError, match="use ABCD, CDAB, BADC or DCBA"):
+    with pytest.raises(ValidationError, match="ABCD, CDAB, BADC or DCBA"):
         _point(word_order="BACD")
+
+
+@pytest.mark.parametrize("word_order", ["XYZW", "ABC", "Big", "middle"])
+def test_an_unknown_layout_is_refused_naming_the_words_and_the_letters(word_order: str) -> None:
+    with pytest.raises(ValidationError) as caught:
+        _point(word_order=word_order)
+    message = str(caught.value)
+    assert f"word_order {word_order!r} is not a register layout" in message
+    assert "big or little" in message and "ABCD, CDAB, BADC or DCBA" in message
+    assert "input should be" not in message.lower()
+
+
+@pytest.mark.parametrize(("letters", "word"), [("ABCD", "big"), ("CDAB", "little")])
+def test_bms_takes_abcd_and_cdab_as_a_point_does(letters: str, word: str) -> None:
+    bms = Bms.model_validate({"data_type": "float32", "word_order": letters})
+    assert bms.word_order == word == _point(word_order=letters).word_order
+
+
+@pytest.mark.parametrize("letters", ["BADC", "DCBA"])
+def test_bms_refuses_a_byte_swapped_layout_by_name(letters: str) -> None:
+    with pytest.raises(ValidationError, match=f"word_order {letters} swaps the bytes"):
+        Bms.model_validate({"data_type": "float32", "word_order": letters})
+
+
+def test_bms_refuses_an_unknown_layout_naming_both_spellings() -> None:
+    with pytest.raises(ValidationError, match=r"use big \(ABCD\) or little \(CDAB\)"):
+        Bms.model_validate({"data_type": "float32", "word_order": "XYZW"})

@@ -91,6 +91,30 @@ def test_a_hold_that_expires_and_a_program_switch_are_logged_once() -> None:
     assert zone.step(20.0, level="economy") == []
 
 
+def test_a_fresh_start_in_standby_is_no_program_switch_but_the_next_change_is() -> None:
+    zone = Zone()  # no state file: the initial state's level is the default, comfort
+    assert zone.state.scheduled_level == "comfort"
+    first = zone.step(20.0, level="standby")
+    assert "zone.program_switched" not in names(first), first
+    assert zone.state.scheduled_level == "standby"
+    switched = zone.step(20.0, level="comfort")
+    assert names(switched) == ["zone.program_switched"]
+    assert switched[0].fields["level_from"] == "standby"
+
+
+def test_a_zone_that_ran_before_a_restart_logs_the_program_moving_on_at_its_first_step() -> None:
+    ran = Zone()
+    ran.step(20.0)
+    ran.step(20.0)  # it ran at comfort
+    restarted = Zone()
+    restarted.state, restarted.now = ran.state, ran.now + 600.0  # the saved state, resumed
+    switched = restarted.step(20.0, level="standby")
+    assert names(switched) == ["zone.program_switched"]
+    assert (switched[0].fields["level_from"], switched[0].fields["level_to"]) == (
+        "comfort", "standby"
+    )
+
+
 def test_frost_protection_runs_are_logged_at_start_and_end() -> None:
     zone = Zone()
     protection = zone.settings.protection_c

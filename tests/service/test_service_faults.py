@@ -209,3 +209,52 @@ async def test_a_slow_disk_stalls_no_zone_loop_and_the_last_state_is_saved(
         clock.jump_during_threads = False
     assert while_running and all(while_running), while_running
     assert service.store.load()["room0"]["hold_setpoint"] == 23.0
+
+
+async def test_a_state_file_that_cannot_be_saved_for_an_hour_is_a_few_lines_then_one_recovery(
+    tmp_path: Path, modbus_tcp_server: Any
+) -> None:
+    """A real write error: the state directory replaced by a file (a lost mount, a full
+    disk alike: the save raises), while a changed hold makes every zone step try again."""
+    import shutil
+
+    clock = VirtualClock()
+    server = await modbus_tcp_server()
+    server.clock = clock
+    data = site_yaml(modbus_port=server.port, broker_port=1)
+    del data["broker"]
+    state_dir = tmp_path / "state"
+    service = Service(write_site(tmp_path, data), clock=clock, state_dir=state_dir)
+    with capture_logs() as events:
+        async with RoomPlant(server, [19.0], clock), running(service):
+            await until(clock, service.store.path.is_file)
+            shutil.rmtree(state_dir)
+            state_dir.write_text("not a directory\n")
+            started = clock.now()
+            setpoint = 20.0
+            while clock.now() - started < 3600.0:  # commands keep the state changing
+                setpoint = 41.0 - setpoint
+                service.apply_command("room0", "setpoint", setpoint)
+                await clock.sleep(60.0)
+            assert service.store.status.startswith("failed: cannot write")
+            failed = [e for e in events if e["event"] == "persist.save_failed"]
+            tries = 1 + sum(e.get("suppressed", 0) for e in failed)
+            assert tries >= 60, failed  # tried at every change ...
+            # ... and said at once, then after 5, 10, 20 minutes: not once a try
+            assert 2 <= len(failed) <= 5, failed
+            assert all(e["log_level"] == "warning" for e in failed)
+            assert "cannot write" in failed[0]["reason"]
+            # the switches' own records fail on the same disk: folded alike
+            records = [e for e in events if e["event"] == "persist.switch_record_failed"]
+            assert 1 <= len(records) <= 5, records
+            assert not [e for e in events if e["event"] == "persist.recovered"]
+            state_dir.unlink()  # the disk is back
+            await until(clock, lambda: service.store.status == "ok", 30)
+            recovered = [e for e in events if e["event"] == "persist.save_recovered"]
+            # one event closes both stories
+            assert len(recovered) == 1 and recovered[0]["failures"] >= tries, recovered
+            assert recovered[0]["failed_for_s"] >= 3500.0, recovered
+            service.apply_command("room0", "setpoint", 22.0)
+            await clock.sleep(60.0)
+    assert len([e for e in events if e["event"] == "persist.save_recovered"]) == 1
+    assert len([e for e in events if e["event"] == "persist.save_failed"]) == len(failed)

@@ -40,6 +40,7 @@ from roomloop.core.alarms import (
     acknowledge,
     evaluate,
 )
+from roomloop.core.commands import ACK_FIELD
 from roomloop.core.state import ZoneState
 from roomloop.core.types import ZoneOutputs
 from roomloop.service.commands import Answer, RateLimit, result_topic
@@ -48,7 +49,6 @@ from roomloop.units import from_celsius
 
 log = structlog.get_logger("roomloop.alarm")
 
-ACK_FIELD = "ack"
 TEMPERATURE_KINDS = ("too-cold", "too-warm", "frost-protection")
 MAX_ACK_BYTES = 256
 

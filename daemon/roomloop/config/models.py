@@ -600,14 +600,14 @@ class ModbusInput(InputBase):
         """
         if not isinstance(data, dict) or not isinstance(data.get("word_order"), str):
             return data
+        if data["word_order"] in ("big", "little"):
+            return data
         letters = data["word_order"].strip().upper()
         if letters not in BYTE_LETTERS:
-            if re.fullmatch(r"[ABCD]{4}", letters):
-                raise ValueError(
-                    f"word_order {letters} is not a register layout; use ABCD, CDAB, BADC or "
-                    "DCBA (or word_order and byte_order: big / little)"
-                )
-            return data
+            raise ValueError(
+                f"word_order {data['word_order']!r} is not a register layout; use big or "
+                "little (with byte_order big / little), or ABCD, CDAB, BADC or DCBA"
+            )
         word, byte = BYTE_LETTERS[letters]
         given = data.get("byte_order")
         if given is not None and given != byte:
@@ -1430,7 +1430,8 @@ class Bms(Strict):
     data_type: Literal["int16x10", "float32"] = "int16x10"
     """Temperatures as int16 in tenths, or IEEE 754 float32 over two registers."""
     word_order: Literal["big", "little"] = "big"
-    """float32 only: ``big`` sends the high word first (ABCD), ``little`` the low word (CDAB)."""
+    """float32 only: ``big`` sends the high word first (ABCD), ``little`` the low word (CDAB).
+    ABCD and CDAB are taken as these, as for a point."""
     base_address: Annotated[Int, Field(ge=0, le=MODBUS_MAX_ADDRESS)] = 0
     zone_block: Annotated[Int, Field(ge=1, le=1000)] = 100
     """Registers per zone: zone ``i`` (file order) starts at ``base_address + i * zone_block``."""
@@ -1451,6 +1452,29 @@ class Bms(Strict):
                 "this machine's addresses)"
             ) from None
         return value.strip()
+
+    @model_validator(mode="before")
+    @classmethod
+    def _byte_letters(cls, data: Any) -> Any:
+        """``word_order: CDAB`` (and ABCD) with the meaning they have for a point; the BMS face
+        sends each word's bytes high first, so BADC and DCBA are refused by name."""
+        if not isinstance(data, dict) or not isinstance(data.get("word_order"), str):
+            return data
+        if data["word_order"] in ("big", "little"):
+            return data
+        letters = data["word_order"].strip().upper()
+        layout = BYTE_LETTERS.get(letters)
+        if layout is not None and layout[1] == "big":
+            return {**data, "word_order": layout[0]}
+        if layout is not None:
+            raise ValueError(
+                f"word_order {letters} swaps the bytes within each register, which the BMS "
+                "face does not do; use big (ABCD) or little (CDAB)"
+            )
+        raise ValueError(
+            f"word_order {data['word_order']!r} is not a register layout; use big (ABCD) or "
+            "little (CDAB)"
+        )
 
     @model_validator(mode="after")
     def _fits(self) -> Bms:

@@ -50,6 +50,15 @@ from .state import ZoneState, with_cooling_state
 COMMAND_FIELDS = ("setpoint", "mode", "level", "hold_until")
 COOLING_FIELDS = ("changeover", "cooling_setpoint")
 """Further fields of a zone with a cooling call."""
+ACK_FIELD = "ack"
+"""Acknowledges a zone's alarms: answered by the service's alarm book, not here."""
+
+
+def command_fields(*, cooling: bool) -> tuple[str, ...]:
+    """Every field a zone takes a command on (``cmd/<field>``), in one order: the one list
+    the refusal of an unknown field names and the zone's description publishes."""
+    return COMMAND_FIELDS + (COOLING_FIELDS if cooling else ()) + (ACK_FIELD,)
+
 LIMIT_TOLERANCE_K = 1e-6
 """A set point this close to a limit is the limit (82.4 F converts to 28.000000000000004 C)."""
 MAX_HOLD_S = 366 * 86400.0
@@ -119,7 +128,7 @@ def apply_command(
     heating_command = _HEATING_COMMANDS.get(field)
     if heating_command is not None:
         return heating_command(settings, state, value, now, units)
-    fields = COMMAND_FIELDS + (COOLING_FIELDS if settings.cooling is not None else ())
+    fields = command_fields(cooling=settings.cooling is not None)
     raise CommandRejected(field, f"unknown field {field!r}; use one of {', '.join(fields)}")
 
 

@@ -34,15 +34,16 @@ from zoneinfo import ZoneInfo
 import structlog
 
 from roomloop.config.models import Zone
-from roomloop.core.commands import UNSET, UNTIL_FIELDS, Unset
+from roomloop.core.commands import COMMAND_FIELDS, COOLING_FIELDS, UNSET, UNTIL_FIELDS, Unset
 from roomloop.service.publisher import iso
 from roomloop.units import from_celsius, to_celsius
 
 log = structlog.get_logger("roomloop.service")
 
-FIELDS = ("setpoint", "mode", "level", "hold_until", "changeover", "cooling_setpoint")
-"""The command fields (``changeover`` and ``cooling_setpoint`` for a zone with a cooling call:
-the core refuses them for any other)."""
+FIELDS = COMMAND_FIELDS + COOLING_FIELDS
+"""The fields whose commands are parsed here and applied by the core (``changeover`` and
+``cooling_setpoint`` for a zone with a cooling call: the core refuses them for any other);
+``ack`` goes to the alarm book (``roomloop.core.commands.command_fields`` lists them all)."""
 NEXT_CHANGE = "next-change"
 """The word for "until the program's next change" (``until`` and ``hold_until``)."""
 Ends = Literal["next-change", "time", "never"]

@@ -12,12 +12,9 @@ from typing import Any
 
 from roomloop.config.models import Zone
 from roomloop.core.alarms import ALARM_KINDS
-from roomloop.core.commands import COOLING_FIELDS, MAX_HOLD_S
+from roomloop.core.commands import MAX_HOLD_S, command_fields
 from roomloop.core.settings import LEVEL_NAMES, MODE_NAMES, ZoneSettings
-from roomloop.service.commands import FIELDS
 from roomloop.units import delta_from_kelvin, from_celsius
-
-ACK = "ack"
 
 
 def _abs(celsius: float, units: str) -> float:
@@ -33,7 +30,6 @@ def description_payload(
 ) -> dict[str, Any]:
     """The retained description JSON of one zone."""
     low, high = settings.limit_min_c, settings.limit_max_c
-    commands = [f for f in FIELDS if f not in COOLING_FIELDS or settings.cooling is not None]
     payload: dict[str, Any] = {
         "zone": zone.name,
         "units": units,
@@ -47,7 +43,7 @@ def description_payload(
         "differential": _delta(settings.differential_k, units),
         "levels": list(LEVEL_NAMES),
         "modes": list(MODE_NAMES),
-        "commands": [*commands, ACK],
+        "commands": list(command_fields(cooling=settings.cooling is not None)),
         "max_hold_s": MAX_HOLD_S,
         "program": [
             {"days": list(entry.days), "at": entry.at, "level": entry.level}

@@ -88,7 +88,10 @@ def zone_events(
                 {"zone": zone, "hold_until": before.hold_until, "mode": after.mode},
             )
         )
-    if after.scheduled_level != before.scheduled_level:
+    # a zone that never stepped (a fresh start) holds the default level as a placeholder:
+    # the program's level at its first step is where it starts, not a switch
+    never_ran = previous is None and before.last_step_at == before.started_at
+    if after.scheduled_level != before.scheduled_level and not never_ran:
         events.append(
             ZoneEvent(
                 "zone.program_switched",

@@ -46,6 +46,8 @@ from typing import TYPE_CHECKING, Any
 
 import structlog
 
+from roomloop.io.eventlog import RateLimitedLog
+
 if TYPE_CHECKING:
     from roomloop.core.state import ZoneState
 
@@ -111,6 +113,8 @@ class StateStore:
         self.journal_path = self.directory / f"{site_name}.switches"
         self.failure: str | None = None
         """Why the state cannot be made durable (``None`` while saves work)."""
+        self._events = RateLimitedLog(log)
+        """Folds the failed saves: a full disk is tried at every change, not logged each time."""
         self._lock = threading.Lock()
         """Saves run in a worker thread, switch records in another: one at a time."""
         self._recorded: dict[str, tuple[float, bool]] = {}
@@ -135,7 +139,7 @@ class StateStore:
         """
         problem = _unwritable(self.directory)
         if problem is not None:
-            self._failed(problem)
+            self.failure = problem  # told once, by persist.failed_at_start
             log.error(
                 "persist.failed_at_start",
                 path=str(self.path),
@@ -223,7 +227,13 @@ class StateStore:
                     _fsync_directory(self.directory)
                     self._journal_synced = True
             except OSError as exc:
-                self._failed(f"cannot write {self.journal_path}: {exc.strerror or exc}")
+                self.failure = f"cannot write {self.journal_path}: {exc.strerror or exc}"
+                # folded as the saves are, on the switch's time; the next save that works
+                # (it holds the switch) closes both with persist.save_recovered
+                self._events.problem(
+                    "store", "persist.switch_record_failed", entry[0],
+                    path=str(self.journal_path), reason=self.failure,
+                )
                 return False
             self._recorded[zone] = entry
         return True
@@ -281,12 +291,22 @@ class StateStore:
             try:
                 self._write(_dump(document).encode("utf-8"))
             except OSError as exc:
-                self._failed(f"cannot write {self.path}: {exc.strerror or exc}")
+                self.failure = f"cannot write {self.path}: {exc.strerror or exc}"
+                # on the caller's clock (``now``): the first at once, then reminders spaced
+                self._events.problem(
+                    "store", "persist.save_failed", now, path=str(self.path), reason=self.failure
+                )
                 raise
             self._empty_journal_if_covered(zones)
-        if self.failure is not None:
-            log.warning("persist.recovered", path=str(self.path), was=self.failure)
-            self.failure = None
+            if self.failure is not None:
+                # one event closes the story: the folded failures' own, else (only the
+                # check at start had failed) persist.recovered
+                closed = self._events.recovered(
+                    "store", "persist.save_recovered", now, path=str(self.path)
+                )
+                if not closed:
+                    log.warning("persist.recovered", path=str(self.path), was=self.failure)
+                self.failure = None
         self._last_written = comparable
         return True
 
@@ -319,11 +339,6 @@ class StateStore:
         with contextlib.suppress(OSError):
             os.truncate(self.journal_path, 0)
             self._recorded.clear()
-
-    def _failed(self, reason: str) -> None:
-        if reason != self.failure:
-            log.error("persist.failed", path=str(self.path), reason=reason)
-        self.failure = reason
 
     def _move_aside(self, reason: str) -> None:
         stamp = time.strftime("%Y%m%dT%H%M%S", time.gmtime())

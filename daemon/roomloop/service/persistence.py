@@ -227,9 +227,8 @@ class Persistence:
             self._in_flight = write
             try:
                 written = await asyncio.shield(write)
-            except OSError as exc:
-                log.error("persist.save_failed", path=str(self.store.path), error=str(exc))
-                return
+            except OSError:
+                return  # logged by the store (persist.save_failed, folded); tried again later
             self._last_saved_key.update(keys)
             self._saved_source_key.update(source_keys)
             if written:
