@@ -7,8 +7,8 @@ file ``simulate --plant`` reads, and runs the standard protocol on the identifie
 plant over candidate tunings, printing today's tuning and the best side by side with
 the site-file lines to paste.
 Exit codes: 0 ok; 1 no history (none, or a damaged history file), or the data cannot
-support an identification, or the fit is poor (the reason is printed; no plant file, no
-recommendation); 2 a bad site file or CSV, an unknown zone, numpy/scipy missing.
+support an identification, or the fit is poor or unphysical (the reason is printed; no plant
+file, no recommendation); 2 a bad site file or CSV, an unknown zone, numpy/scipy missing.
 """
 
 from __future__ import annotations
@@ -81,7 +81,7 @@ def _tune(args: argparse.Namespace, site: Site) -> int:
     # numpy and scipy are known to be there from here on (roomloop.plant.identify needs them)
     from zoneinfo import ZoneInfo
 
-    from roomloop.plant.identify import to_plant_spec
+    from roomloop.plant.identify import to_plant_spec, unphysical
 
     zone = site.zone(args.zone)
     tz = ZoneInfo(site.site.timezone)
@@ -98,6 +98,16 @@ def _tune(args: argparse.Namespace, site: Site) -> int:
     spec = to_plant_spec(
         fit, name=f"{zone.name}-identified", resolution_k=series.resolution_k or 0.1
     )
+    problems = unphysical(spec)
+    if problems:  # simulate --plant would refuse such a file: neither it nor a tuning
+        raise Refused(
+            "no plant file and no recommendation from an unphysical fit: "
+            + "; ".join(problems)
+            + " (simulate --plant refuses such a plant). These data do not show a room "
+            "being heated: does the temperature follow the relay within seconds (a sensor "
+            "on the heater, or readings not from this zone)?",
+            EXIT_RUNTIME,
+        )
     if args.write_plant:
         source = args.history or f"the history of site {site.name}"
         _write_plant(args.write_plant, spec, fit, source)

@@ -691,6 +691,29 @@ def to_plant_spec(fit: Fit, *, name: str, resolution_k: float, noise_k: float = 
     return PlantSpec.model_validate(data)
 
 
+def unphysical(spec: PlantSpec) -> list[str]:
+    """What makes an identified plant one that ``simulate --plant`` would refuse (the plant
+    file's own checks, :meth:`PlantSpec.time_constant_problems`), in words for a fit: empty
+    when the plant is physical."""
+    from roomloop.plant.spec import MIN_NODE_TIME_CONSTANT_S, MIN_SENSOR_TIME_CONSTANT_S
+
+    out: list[str] = []
+    for path, _ in spec.time_constant_problems():
+        node = path[0]
+        tau = spec.node_time_constants_s()[path]
+        if node == "sensor":
+            out.append(
+                f"a sensor lag of {tau:.3g} s is not physical (a lag is 0 or at least "
+                f"{MIN_SENSOR_TIME_CONSTANT_S:g} s)"
+            )
+        else:
+            out.append(
+                f"the {node} node's time constant (capacity over its conductances) is "
+                f"{tau:.3g} s, below the physical bound of {MIN_NODE_TIME_CONSTANT_S:g} s"
+            )
+    return out
+
+
 def plant_yaml(spec: PlantSpec, fit: Fit, source: str) -> str:
     """The plant file's text, with a header saying where it came from and how well it fits."""
     lines = [

@@ -1,0 +1,100 @@
+"""``roomloop tune`` as the user runs it, on CSV histories it must refuse or qualify.
+
+- The plant file it writes is one ``simulate --plant`` reads (a simulated history, round
+  trip through both commands); a fit ``simulate`` would refuse (a temperature that follows
+  the relay within seconds gives a room node of milliseconds) is refused with no plant file
+  and no recommendation.
+"""
+
+from __future__ import annotations
+
+import math
+import random
+import sys
+from pathlib import Path
+from zoneinfo import ZoneInfo
+
+import pytest
+
+from roomloop.cli import main
+from roomloop.history.csvfile import write_csv
+from roomloop.history.store import ZoneHistory
+from roomloop.plant.loader import load_plant
+
+sys.path.insert(0, str(Path(__file__).parent))
+from simulated_history import EPOCH, simulate
+
+SITE = """\
+site: {{name: oak-flat, timezone: UTC, units: C, state_dir: {state}}}
+links:
+  - {{type: modbus-tcp, name: io, host: 127.0.0.1}}
+points:
+  - {{type: modbus-input, name: air, link: io, address: 0}}
+  - {{type: modbus-output, name: valve, link: io, address: 0}}
+zones:
+  - {{name: den, inputs: [air], output: valve, heating: {heating}{heater}}}
+"""
+
+
+def _site(tmp_path: Path, heating: str = "hydronic", heater_w: float | None = None) -> Path:
+    path = tmp_path / "site.yaml"
+    heater = "" if heater_w is None else f", heater_w: {heater_w:g}"
+    path.write_text(SITE.format(state=tmp_path / "state", heating=heating, heater=heater))
+    return path
+
+
+def _csv(history: ZoneHistory, path: Path) -> Path:
+    with open(path, "w", encoding="utf-8", newline="") as out:
+        write_csv(history, out, tz=ZoneInfo("UTC"), units="C")
+    return path
+
+
+def _instant_history(hours: float = 48.0, tau_s: float = 1.0) -> ZoneHistory:
+    """Relay 10 min on, 10 min off at a 10 s tick; the reading follows it with a lag of
+    ``tau_s`` between 19 and 21 C (seeded noise, 0.1 K steps): no room heats that fast."""
+    rng = random.Random(3)
+    h = ZoneHistory("den")
+    temp = 19.0
+    for k in range(int(hours * 360)):
+        t = k * 10.0
+        on = (t // 600.0) % 2 == 0
+        h.time.append(EPOCH + t)
+        h.temperature.append(round(temp + rng.gauss(0.0, 0.05), 1))
+        h.relay.append(on)
+        h.setpoint.append(20.0)
+        h.fail_safe.append(False)
+        for column in (h.level, h.mode, h.reason):
+            column.append("")
+        h.anticipator_k.append(0.0)
+        h.droop_k.append(0.0)
+        target = 21.0 if on else 19.0
+        temp = target + (temp - target) * math.exp(-10.0 / tau_s)
+    h.outdoor = [5.0] * len(h.time)
+    return h
+
+
+def test_the_plant_file_tune_writes_is_one_simulate_reads(tmp_path: Path) -> None:
+    site = _site(tmp_path, heater_w=1500)
+    history = simulate(load_plant("hydronic"), days=2).history
+    csv_path = _csv(history, tmp_path / "two-days.csv")
+    plant = tmp_path / "den.yaml"
+    argv = ["tune", "-c", str(site), "--zone", "den", "--history", str(csv_path)]
+    assert main([*argv, "--no-recommend", "--write-plant", str(plant)]) == 0
+    assert plant.exists()
+    assert main(["simulate", "-c", str(site), "--zone", "den", "--plant", str(plant)]) == 0
+
+
+def test_a_fit_simulate_would_refuse_writes_no_plant_file(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    site = _site(tmp_path, heating="electric")
+    csv_path = _csv(_instant_history(), tmp_path / "instant.csv")
+    plant = tmp_path / "den.yaml"
+    argv = ["tune", "-c", str(site), "--zone", "den", "--history", str(csv_path)]
+    assert main([*argv, "--write-plant", str(plant)]) == 1
+    out, err = capsys.readouterr()
+    assert not plant.exists()
+    assert "no plant file and no recommendation from an unphysical fit" in err
+    assert "the room node's time constant" in err and "below the physical bound of 10 s" in err
+    assert "Traceback" not in err
+    assert "site-file lines to paste" not in out
