@@ -4,10 +4,13 @@
   trip through both commands); a fit ``simulate`` would refuse (a temperature that follows
   the relay within seconds gives a room node of milliseconds) is refused with no plant file
   and no recommendation.
+- Covered time, not the span: two three-hour stretches a week apart are 6 h of history
+  (as ``roomloop report`` counts it), too little, whatever the span.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import random
 import sys
@@ -22,7 +25,7 @@ from roomloop.history.store import ZoneHistory
 from roomloop.plant.loader import load_plant
 
 sys.path.insert(0, str(Path(__file__).parent))
-from simulated_history import EPOCH, simulate
+from simulated_history import DAY, EPOCH, simulate
 
 SITE = """\
 site: {{name: oak-flat, timezone: UTC, units: C, state_dir: {state}}}
@@ -98,3 +101,46 @@ def test_a_fit_simulate_would_refuse_writes_no_plant_file(
     assert "the room node's time constant" in err and "below the physical bound of 10 s" in err
     assert "Traceback" not in err
     assert "site-file lines to paste" not in out
+
+
+def _joined(first: ZoneHistory, second: ZoneHistory) -> ZoneHistory:
+    """``second`` after ``first``, column by column (a gap between them)."""
+    joined = ZoneHistory(first.zone)
+    for f in dataclasses.fields(ZoneHistory):
+        a, b = getattr(first, f.name), getattr(second, f.name)
+        if isinstance(a, list):
+            setattr(joined, f.name, a + b)
+    return joined
+
+
+def test_a_gap_is_not_history(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """3 h, a week without a tick, 3 h: 6 h covered, refused as too little data (once read
+    as 171 h of history and fitted, with site-file lines to paste)."""
+    site = _site(tmp_path, heater_w=1500)
+    plant = load_plant("hydronic")
+    before = simulate(plant, days=0.125).history
+    after = simulate(plant, days=0.125, start_s=EPOCH + 7 * DAY, seed=2).history
+    history = _joined(before, after)
+    assert history.time[-1] - history.time[0] > 7 * DAY
+    csv_path = _csv(history, tmp_path / "gap.csv")
+    argv = ["tune", "-c", str(site), "--zone", "den", "--history", str(csv_path)]
+    assert main(argv) == 1
+    out, err = capsys.readouterr()
+    assert "refused: too little data: 6.0 h of history (over a span of 171.0 h" in err, err
+    assert "at least 24 h needed" in err
+    assert "site-file lines to paste" not in out
+
+
+def test_the_hours_of_history_are_those_covered(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    """25 h, 6 h without a tick, 2 h: the fit's first line says 27 h, and the span."""
+    site = _site(tmp_path, heater_w=1500)
+    plant = load_plant("hydronic")
+    before = simulate(plant, days=25 / 24).history
+    after = simulate(plant, days=2 / 24, start_s=EPOCH + 31 * 3600.0, seed=2).history
+    csv_path = _csv(_joined(before, after), tmp_path / "gap.csv")
+    argv = ["tune", "-c", str(site), "--zone", "den", "--history", str(csv_path)]
+    main([*argv, "--no-recommend"])
+    out, _ = capsys.readouterr()
+    assert "zone den (hydronic): 27.0 h of history (over a span of 33.0 h: " in out, out

@@ -159,9 +159,10 @@ def _identify(history: ZoneHistory, zone: Zone) -> tuple[Fit, list[Fit], Series]
 def _print_fit(zone: Zone, history: ZoneHistory, fit: Fit, tried: list[Fit]) -> None:
     """What was fitted: the data, the structures tried, each parameter with its spread,
     the time constants, the residual with a verdict, and the fit's notes."""
-    hours = (history.time[-1] - history.time[0]) / 3600.0
+    from roomloop.plant.identify import history_hours_text
+
     print(
-        f"zone {zone.name} ({zone.heating}): {hours:.1f} h of history, "
+        f"zone {zone.name} ({zone.heating}): {history_hours_text(history)}, "
         f"{'with' if fit.outdoor else 'without'} outdoor temperature"
         + ("" if fit.outdoor else " (an unknown load is fitted instead)")
     )
