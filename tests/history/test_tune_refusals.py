@@ -144,3 +144,24 @@ def test_the_hours_of_history_are_those_covered(
     main([*argv, "--no-recommend"])
     out, _ = capsys.readouterr()
     assert "zone den (hydronic): 27.0 h of history (over a span of 33.0 h: " in out, out
+
+
+@pytest.mark.parametrize("heater_w", [None, 1500.0])
+def test_no_energy_figure_without_the_heaters_power(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], heater_w: float | None
+) -> None:
+    """Without heater_w the fit's heat is on a nominal 1000 W scale: its kWh are not the
+    zone's, so the energy row shows '-' and says why; with heater_w it shows the kWh."""
+    site = _site(tmp_path, heater_w=heater_w)
+    history = simulate(load_plant("hydronic"), days=2).history
+    csv_path = _csv(history, tmp_path / "two-days.csv")
+    assert main(["tune", "-c", str(site), "--zone", "den", "--history", str(csv_path)]) == 0
+    out, _ = capsys.readouterr()
+    energy = next(line for line in out.splitlines() if line.startswith("energy kWh"))
+    if heater_w is None:
+        assert energy.split()[2:] == ["-", "-"], energy
+        assert "no energy figure: the zone has no heater_w" in out
+    else:
+        today, best = (float(cell) for cell in energy.split()[2:])
+        assert today > 0 and best > 0
+        assert "no energy figure" not in out

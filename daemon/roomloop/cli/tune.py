@@ -235,7 +235,11 @@ def _print_recommendation(site: Site, zone_name: str, spec: PlantSpec, fit: Fit)
             "the prediction below uses the fitted values of the undetermined parameters: "
             "indicative only"
         )
-    print(recommend(site, zone_name, spec, span_loss=loss_undetermined))
+    print(
+        recommend(
+            site, zone_name, spec, span_loss=loss_undetermined, heater_known=fit.heater_known
+        )
+    )
 
 
 def _protocol_runner(
@@ -400,18 +404,25 @@ def _with_loss(spec: Any, factor: float) -> Any:
     return spec.model_copy(update={"room": room})
 
 
-def recommend(site: object, zone_name: str, spec: Any, *, span_loss: bool = False) -> str:
+def recommend(
+    site: object, zone_name: str, spec: Any, *, span_loss: bool = False,
+    heater_known: bool = True,
+) -> str:
     """The standard protocol on the identified plant: today's tuning and the best candidate
     side by side, and the site-file lines to paste."""
     found = search_tuning(site, zone_name, spec, span_loss=span_loss)
-    return recommendation_text(found, zone_name, loss_w_per_k=spec.room.loss_w_per_k)
+    return recommendation_text(
+        found, zone_name, loss_w_per_k=spec.room.loss_w_per_k, heater_known=heater_known
+    )
 
 
 def recommendation_text(
-    found: Recommendation, zone_name: str, *, loss_w_per_k: float | None = None
+    found: Recommendation, zone_name: str, *, loss_w_per_k: float | None = None,
+    heater_known: bool = True,
 ) -> str:
     """Today's figures and the recommendation's side by side, and the lines to paste; with
-    the loss spanned, each figure as its range over the span."""
+    the loss spanned, each figure as its range over the span. Without ``heater_known`` (the
+    zone has no ``heater_w``: the plant's heat is on a nominal scale) no energy figure."""
     today, o_best, s_best = found.today, found.best, found.settings
     rows = [
         f"predicted on the identified plant (standard protocol, true room air; "
@@ -440,7 +451,14 @@ def recommendation_text(
     ):
         today_cell = cell(fmt, key, [today, *(t for t, _ in found.spans)])
         best_cell = cell(fmt, key, [o_best, *(b for _, b in found.spans)])
+        if key == "energy_kwh" and not heater_known:
+            today_cell = best_cell = "-"
         rows.append(f"{label:<24} {today_cell:>{width}} {best_cell:>{width + 2}}")
+    if not heater_known:
+        rows.append(
+            "no energy figure: the zone has no heater_w, so the identified plant's heat is "
+            "on a nominal scale, not the heater's own (give the zone its heater_w)"
+        )
     if not found.changes:
         rows.append(
             "today's tuning is as good as the best candidate (within "
