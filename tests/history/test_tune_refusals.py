@@ -6,6 +6,7 @@
   and no recommendation.
 - Covered time, not the span: two three-hour stretches a week apart are 6 h of history
   (as ``roomloop report`` counts it), too little, whatever the span.
+- Without heater_w no energy figure; without numpy or scipy one line, exit 2.
 """
 
 from __future__ import annotations
@@ -13,6 +14,7 @@ from __future__ import annotations
 import dataclasses
 import math
 import random
+import subprocess
 import sys
 from pathlib import Path
 from zoneinfo import ZoneInfo
@@ -20,6 +22,7 @@ from zoneinfo import ZoneInfo
 import pytest
 
 from roomloop.cli import main
+from roomloop.cli.tune import SCIPY_MISSING
 from roomloop.history.csvfile import write_csv
 from roomloop.history.store import ZoneHistory
 from roomloop.plant.loader import load_plant
@@ -165,3 +168,24 @@ def test_no_energy_figure_without_the_heaters_power(
         today, best = (float(cell) for cell in energy.split()[2:])
         assert today > 0 and best > 0
         assert "no energy figure" not in out
+
+
+@pytest.mark.parametrize("hidden", ["numpy", "scipy"])
+def test_without_numpy_or_scipy_one_line_and_exit_2(tmp_path: Path, hidden: str) -> None:
+    """The real CLI in a child whose ``import numpy`` (or scipy) fails as if it were not
+    installed (None in sys.modules: importlib finds no such module), on a history it could
+    otherwise fit."""
+    site = _site(tmp_path, heater_w=1500)
+    csv_path = _csv(simulate(load_plant("hydronic"), days=1.1).history, tmp_path / "day.csv")
+    argv = ["tune", "-c", str(site), "--zone", "den", "--history", str(csv_path)]
+    code = (
+        f"import sys; sys.modules[{hidden!r}] = None\n"
+        "from roomloop.cli import main\n"
+        f"sys.exit(main({argv!r}))\n"
+    )
+    done = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, timeout=120, check=False
+    )
+    assert done.returncode == 2, done.stdout + done.stderr
+    assert done.stderr == f"roomloop tune: {SCIPY_MISSING}\n"
+    assert done.stdout == ""
