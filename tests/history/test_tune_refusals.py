@@ -38,14 +38,18 @@ points:
   - {{type: modbus-input, name: air, link: io, address: 0}}
   - {{type: modbus-output, name: valve, link: io, address: 0}}
 zones:
-  - {{name: den, inputs: [air], output: valve, heating: {heating}{heater}}}
+  - {{name: {zone}, inputs: [air], output: valve, heating: {heating}{heater}}}
 """
 
 
-def _site(tmp_path: Path, heating: str = "hydronic", heater_w: float | None = None) -> Path:
+def _site(
+    tmp_path: Path, heating: str = "hydronic", heater_w: float | None = None, zone: str = "den"
+) -> Path:
     path = tmp_path / "site.yaml"
     heater = "" if heater_w is None else f", heater_w: {heater_w:g}"
-    path.write_text(SITE.format(state=tmp_path / "state", heating=heating, heater=heater))
+    path.write_text(
+        SITE.format(state=tmp_path / "state", heating=heating, heater=heater, zone=zone)
+    )
     return path
 
 
@@ -79,15 +83,18 @@ def _instant_history(hours: float = 48.0, tau_s: float = 1.0) -> ZoneHistory:
     return h
 
 
-def test_the_plant_file_tune_writes_is_one_simulate_reads(tmp_path: Path) -> None:
-    site = _site(tmp_path, heater_w=1500)
+@pytest.mark.parametrize("zone", ["den", "x" * 64])
+def test_the_plant_file_tune_writes_is_one_simulate_reads(tmp_path: Path, zone: str) -> None:
+    """Also for a zone with the longest name a site allows (the plant file's name is the
+    zone's with '-identified': it once went past the plant name's 64 characters)."""
+    site = _site(tmp_path, heater_w=1500, zone=zone)
     history = simulate(load_plant("hydronic"), days=2).history
     csv_path = _csv(history, tmp_path / "two-days.csv")
     plant = tmp_path / "den.yaml"
-    argv = ["tune", "-c", str(site), "--zone", "den", "--history", str(csv_path)]
+    argv = ["tune", "-c", str(site), "--zone", zone, "--history", str(csv_path)]
     assert main([*argv, "--no-recommend", "--write-plant", str(plant)]) == 0
     assert plant.exists()
-    assert main(["simulate", "-c", str(site), "--zone", "den", "--plant", str(plant)]) == 0
+    assert main(["simulate", "-c", str(site), "--zone", zone, "--plant", str(plant)]) == 0
 
 
 def test_a_fit_simulate_would_refuse_writes_no_plant_file(

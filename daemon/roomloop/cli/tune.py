@@ -95,8 +95,10 @@ def _tune(args: argparse.Namespace, site: Site) -> int:
             "(a window left open, another heat source, a sensor far from the room air?)",
             EXIT_RUNTIME,
         )
+    suffix = "-identified"  # a plant's name, like a zone's, has at most 64 characters
     spec = to_plant_spec(
-        fit, name=f"{zone.name}-identified", resolution_k=series.resolution_k or 0.1
+        fit, name=zone.name[: 64 - len(suffix)] + suffix,
+        resolution_k=series.resolution_k or 0.1,
     )
     problems = unphysical(spec)
     if problems:  # simulate --plant would refuse such a file: neither it nor a tuning
