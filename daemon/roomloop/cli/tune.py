@@ -7,8 +7,8 @@ file ``simulate --plant`` reads, and runs the standard protocol on the identifie
 plant over candidate tunings, printing today's tuning and the best side by side with
 the site-file lines to paste.
 Exit codes: 0 ok; 1 no history (none, or a damaged history file), or the data cannot
-support an identification, or the fit is poor (the reason is printed; no plant file, no
-recommendation); 2 a bad site file or CSV, an unknown zone, numpy/scipy missing.
+support an identification, or the fit is poor or unphysical (the reason is printed; no plant
+file, no recommendation); 2 a bad site file or CSV, an unknown zone, numpy/scipy missing.
 """
 
 from __future__ import annotations
@@ -81,7 +81,7 @@ def _tune(args: argparse.Namespace, site: Site) -> int:
     # numpy and scipy are known to be there from here on (roomloop.plant.identify needs them)
     from zoneinfo import ZoneInfo
 
-    from roomloop.plant.identify import to_plant_spec
+    from roomloop.plant.identify import to_plant_spec, unphysical
 
     zone = site.zone(args.zone)
     tz = ZoneInfo(site.site.timezone)
@@ -95,9 +95,21 @@ def _tune(args: argparse.Namespace, site: Site) -> int:
             "(a window left open, another heat source, a sensor far from the room air?)",
             EXIT_RUNTIME,
         )
+    suffix = "-identified"  # a plant's name, like a zone's, has at most 64 characters
     spec = to_plant_spec(
-        fit, name=f"{zone.name}-identified", resolution_k=series.resolution_k or 0.1
+        fit, name=zone.name[: 64 - len(suffix)] + suffix,
+        resolution_k=series.resolution_k or 0.1,
     )
+    problems = unphysical(spec)
+    if problems:  # simulate --plant would refuse such a file: neither it nor a tuning
+        raise Refused(
+            "no plant file and no recommendation from an unphysical fit: "
+            + "; ".join(problems)
+            + " (simulate --plant refuses such a plant). These data do not show a room "
+            "being heated: does the temperature follow the relay within seconds (a sensor "
+            "on the heater, or readings not from this zone)?",
+            EXIT_RUNTIME,
+        )
     if args.write_plant:
         source = args.history or f"the history of site {site.name}"
         _write_plant(args.write_plant, spec, fit, source)
@@ -149,9 +161,10 @@ def _identify(history: ZoneHistory, zone: Zone) -> tuple[Fit, list[Fit], Series]
 def _print_fit(zone: Zone, history: ZoneHistory, fit: Fit, tried: list[Fit]) -> None:
     """What was fitted: the data, the structures tried, each parameter with its spread,
     the time constants, the residual with a verdict, and the fit's notes."""
-    hours = (history.time[-1] - history.time[0]) / 3600.0
+    from roomloop.plant.identify import history_hours_text
+
     print(
-        f"zone {zone.name} ({zone.heating}): {hours:.1f} h of history, "
+        f"zone {zone.name} ({zone.heating}): {history_hours_text(history)}, "
         f"{'with' if fit.outdoor else 'without'} outdoor temperature"
         + ("" if fit.outdoor else " (an unknown load is fitted instead)")
     )
@@ -224,7 +237,11 @@ def _print_recommendation(site: Site, zone_name: str, spec: PlantSpec, fit: Fit)
             "the prediction below uses the fitted values of the undetermined parameters: "
             "indicative only"
         )
-    print(recommend(site, zone_name, spec, span_loss=loss_undetermined))
+    print(
+        recommend(
+            site, zone_name, spec, span_loss=loss_undetermined, heater_known=fit.heater_known
+        )
+    )
 
 
 def _protocol_runner(
@@ -389,18 +406,25 @@ def _with_loss(spec: Any, factor: float) -> Any:
     return spec.model_copy(update={"room": room})
 
 
-def recommend(site: object, zone_name: str, spec: Any, *, span_loss: bool = False) -> str:
+def recommend(
+    site: object, zone_name: str, spec: Any, *, span_loss: bool = False,
+    heater_known: bool = True,
+) -> str:
     """The standard protocol on the identified plant: today's tuning and the best candidate
     side by side, and the site-file lines to paste."""
     found = search_tuning(site, zone_name, spec, span_loss=span_loss)
-    return recommendation_text(found, zone_name, loss_w_per_k=spec.room.loss_w_per_k)
+    return recommendation_text(
+        found, zone_name, loss_w_per_k=spec.room.loss_w_per_k, heater_known=heater_known
+    )
 
 
 def recommendation_text(
-    found: Recommendation, zone_name: str, *, loss_w_per_k: float | None = None
+    found: Recommendation, zone_name: str, *, loss_w_per_k: float | None = None,
+    heater_known: bool = True,
 ) -> str:
     """Today's figures and the recommendation's side by side, and the lines to paste; with
-    the loss spanned, each figure as its range over the span."""
+    the loss spanned, each figure as its range over the span. Without ``heater_known`` (the
+    zone has no ``heater_w``: the plant's heat is on a nominal scale) no energy figure."""
     today, o_best, s_best = found.today, found.best, found.settings
     rows = [
         f"predicted on the identified plant (standard protocol, true room air; "
@@ -429,7 +453,14 @@ def recommendation_text(
     ):
         today_cell = cell(fmt, key, [today, *(t for t, _ in found.spans)])
         best_cell = cell(fmt, key, [o_best, *(b for _, b in found.spans)])
+        if key == "energy_kwh" and not heater_known:
+            today_cell = best_cell = "-"
         rows.append(f"{label:<24} {today_cell:>{width}} {best_cell:>{width + 2}}")
+    if not heater_known:
+        rows.append(
+            "no energy figure: the zone has no heater_w, so the identified plant's heat is "
+            "on a nominal scale, not the heater's own (give the zone its heater_w)"
+        )
     if not found.changes:
         rows.append(
             "today's tuning is as good as the best candidate (within "

@@ -51,6 +51,7 @@ for _var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
 import numpy as np  # noqa: E402
 from scipy import linalg, optimize, signal  # noqa: E402
 
+from roomloop.history.report import cover_s, tick_of  # noqa: E402
 from roomloop.history.store import ZoneHistory  # noqa: E402
 from roomloop.plant.spec import PlantSpec  # noqa: E402
 
@@ -207,22 +208,41 @@ def prepare(history: ZoneHistory, *, step_s: float = STEP_S) -> Series:
     return Series(step_s, t0, u, y, outdoor, round(resolution, 4), min(tick, step_s))
 
 
+def history_hours(history: ZoneHistory) -> tuple[float, float]:
+    """(covered, spanned) hours of ``history``. Covered as ``roomloop report`` counts it
+    (:func:`roomloop.history.report.cover_s`): each sample holds until the next, at most a
+    few ticks, so a gap (the service stopped) is not counted; spanned: first to last."""
+    if not history.time:
+        return 0.0, 0.0
+    covered = sum(cover_s(history, tick_of(history))) / 3600.0
+    return covered, (history.time[-1] - history.time[0]) / 3600.0
+
+
+def history_hours_text(history: ZoneHistory) -> str:
+    """'N h of history', with the span when gaps leave it longer than the covered time."""
+    covered, span = history_hours(history)
+    text = f"{covered:.1f} h of history"
+    if span + tick_of(history) / 3600.0 - covered >= 0.05:
+        text += f" (over a span of {span:.1f} h: the gaps are not counted)"
+    return text
+
+
 def check_data(history: ZoneHistory) -> list[str]:
     """Why these data cannot support an identification (empty: they can)."""
     reasons: list[str] = []
     if len(history.time) < 2:
         return ["too little data: fewer than two ticks"]
-    hours = (history.time[-1] - history.time[0]) / 3600.0
+    hours, _ = history_hours(history)
     normal = [
         k for k, t in enumerate(history.temperature)
         if t is not None and not history.fail_safe[k]
     ]
-    tick = (history.time[-1] - history.time[0]) / max(1, len(history.time) - 1)
-    normal_hours = len(normal) * tick / 3600.0
+    cover = cover_s(history, tick_of(history))
+    normal_hours = sum(cover[k] for k in normal) / 3600.0
     if hours < MIN_HOURS:
         reasons.append(
-            f"too little data: {hours:.1f} h of history, at least {MIN_HOURS:.0f} h needed "
-            "(a week is better)"
+            f"too little data: {history_hours_text(history)}, at least {MIN_HOURS:.0f} h "
+            "needed (a week is better)"
         )
     elif normal_hours < MIN_HOURS:
         reasons.append(
@@ -689,6 +709,29 @@ def to_plant_spec(fit: Fit, *, name: str, resolution_k: float, noise_k: float = 
     if "Cm" in p:
         data["mass"] = {"capacity_j_per_k": p["Cm"], "conductance_w_per_k": p["Km"]}
     return PlantSpec.model_validate(data)
+
+
+def unphysical(spec: PlantSpec) -> list[str]:
+    """What makes an identified plant one that ``simulate --plant`` would refuse (the plant
+    file's own checks, :meth:`PlantSpec.time_constant_problems`), in words for a fit: empty
+    when the plant is physical."""
+    from roomloop.plant.spec import MIN_NODE_TIME_CONSTANT_S, MIN_SENSOR_TIME_CONSTANT_S
+
+    out: list[str] = []
+    for path, _ in spec.time_constant_problems():
+        node = path[0]
+        tau = spec.node_time_constants_s()[path]
+        if node == "sensor":
+            out.append(
+                f"a sensor lag of {tau:.3g} s is not physical (a lag is 0 or at least "
+                f"{MIN_SENSOR_TIME_CONSTANT_S:g} s)"
+            )
+        else:
+            out.append(
+                f"the {node} node's time constant (capacity over its conductances) is "
+                f"{tau:.3g} s, below the physical bound of {MIN_NODE_TIME_CONSTANT_S:g} s"
+            )
+    return out
 
 
 def plant_yaml(spec: PlantSpec, fit: Fit, source: str) -> str:
