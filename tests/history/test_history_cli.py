@@ -111,6 +111,14 @@ def test_report_figures_of_a_day_known_by_construction(
     ends = [m.end() for m in re.finditer(r"\S+", row)]
     for label, field in (("on %", 6), ("min on s", 7), ("min off s", 8), ("kWh", 9)):
         assert header.index(label) + len(label) == ends[field], (header, row)
+    assert "no heater_w" not in text  # the zone has one
+    # without heater_w the energy is '-', and a line says why
+    site.write_text(site.read_text().replace(", heater_w: 1500", ""))
+    assert main(["report", "-c", str(site)]) == 0
+    text = capsys.readouterr().out
+    row = next(line for line in text.splitlines() if line.startswith("2026-01-02"))
+    assert row.split()[9] == "-", row
+    assert "kWh: - where the zone has no heater_w" in text
 
 
 def test_bad_csv_rows_are_named_by_file_and_line(

@@ -278,4 +278,6 @@ def format_report(
         "hours: the time the samples cover (each holds until the next, at most "
         f"{MAX_COVER_TICKS} ticks: a longer gap, the service stopped, is not counted)"
     )
+    if any(f.energy_kwh is None for f in days):
+        lines.append("kWh: - where the zone has no heater_w (give it the heater's power)")
     return "\n".join(lines)
