@@ -186,8 +186,10 @@ class BrokerConnection:
         backoff_max_s: float = 60.0,
         env: Mapping[str, str] | None = None,
         clock: Clock | None = None,
+        short_session_s: float = SHORT_SESSION_S,
     ) -> None:
         self.broker = broker
+        self.short_session_s = short_session_s
         self.endpoint = endpoint_of(broker)
         self.will = will
         self.backoff_min_s = backoff_min_s
@@ -217,19 +219,23 @@ class BrokerConnection:
         delay = backoff.first()
         while True:
             began: float | None = None
+            check: asyncio.Task[None] | None = None
             try:
                 client = self.make_client()
                 async with client:
                     self.client = client
                     self.connections += 1
                     began = self.clock.io.monotonic()
-                    delay = backoff.first()
-                    log.info(
-                        "broker.connected", endpoint=self.endpoint, connections=self.connections
-                    )
-                    self._events.recovered(
-                        self.endpoint, "broker.reconnected", endpoint=self.endpoint
-                    )
+                    if self._short_sessions == 0:
+                        delay = backoff.first()
+                        self._connected_again()
+                    else:
+                        # sessions that keep ending at once (another client with our id) are
+                        # no recovery until one lasts: the pause keeps growing and the story
+                        # stays open, so a tug of war is a few folded lines, not two a second
+                        check = asyncio.create_task(
+                            self._lasting(client), name="broker:session-check"
+                        )
                     await _call(on_connect, client)
                     self.connected.set()
                     async for message in client.messages:
@@ -244,13 +250,28 @@ class BrokerConnection:
                     retry_in_s=delay,
                 )
             finally:
+                if check is not None:
+                    check.cancel()
                 was_connected = self.client is not None
                 self.client = None
                 self.connected.clear()
                 if was_connected:
                     await _call_noarg(on_disconnect)
+            if self._short_sessions == 0 and began is not None:
+                delay = backoff.first()  # a session that lasted: the pauses start again
             await self._pause(delay)
             delay = backoff.after(delay)
+
+    def _connected_again(self) -> None:
+        log.info("broker.connected", endpoint=self.endpoint, connections=self.connections)
+        self._events.recovered(self.endpoint, "broker.reconnected", endpoint=self.endpoint)
+
+    async def _lasting(self, client: aiomqtt.Client) -> None:
+        """After a run of short sessions: once this one has lasted, it is a recovery."""
+        await self.clock.io.sleep(self.short_session_s)
+        if self.client is client:
+            self._short_sessions = 0
+            self._connected_again()
 
     def _takeover_hint(self, began: float | None) -> str:
         """Words for a session that keeps ending soon after it was made under a fixed client
@@ -258,12 +279,12 @@ class BrokerConnection:
         if began is None:
             return ""  # no session: a refused or failed connection
         lasted = self.clock.io.monotonic() - began
-        short = lasted < SHORT_SESSION_S and self.broker.client_id is not None
+        short = lasted < self.short_session_s and self.broker.client_id is not None
         self._short_sessions = self._short_sessions + 1 if short else 0
         if self._short_sessions < 2:
             return ""
         return (  # the same words each time, so the repeats fold
-            f"; the sessions keep ending within {SHORT_SESSION_S:g} s of being made: is "
+            f"; the sessions keep ending within {self.short_session_s:g} s of being made: is "
             f"another client using client id {self.broker.client_id!r}? (the broker hands "
             "the session to the newer one)"
         )
