@@ -311,6 +311,9 @@ class Recommendation:
     """The best candidate's ZoneSettings (``today_settings`` itself when nothing beat it)."""
     tried: int
     spans: tuple[tuple[Any, Any], ...] = ()
+    own_time_constant: bool = False
+    """The site file sets the anticipator's time constant itself (else it is derived from
+    the cycle rate): the lines to paste must then set the candidate's too."""
     """With the loss to outdoors spanned: (today, best) figures at each of
     :data:`LOSS_FACTORS` times the fitted loss."""
 
@@ -341,7 +344,7 @@ def search_tuning(
     best: list[Any] = [today_score, today, base]
     tried = 1
     seen: set[tuple[float, float, float, float]] = set()
-    if math.isclose(
+    if base.anticipator_gain_k > base.differential_k and math.isclose(
         base.anticipator_time_constant_s,
         time_constant_for_cycle_rate(
             base.cycle_rate_cph, base.anticipator_gain_k, base.differential_k
@@ -397,7 +400,9 @@ def search_tuning(
         if not holds:  # better only at the fitted loss: not a recommendation
             best[:] = [today_score, today, base]
             spans = [(t, t) for t, _ in spans]
-    return Recommendation(today, best[1], base, best[2], tried, tuple(spans))
+    zone = site.zone(zone_name)  # type: ignore[attr-defined]
+    own = zone.origins.get("anticipator_time_constant_s") == "file"
+    return Recommendation(today, best[1], base, best[2], tried, tuple(spans), own)
 
 
 def _with_loss(spec: Any, factor: float) -> Any:
@@ -474,6 +479,10 @@ def recommendation_text(
         f"      anticipator_gain_k: {s_best.anticipator_gain_k:g}",
         f"      cycle_rate_cph: {s_best.cycle_rate_cph:g}",
     ]
+    if found.own_time_constant:  # the site's own would override the one this cycle rate needs
+        rows.append(
+            f"      anticipator_time_constant_s: {s_best.anticipator_time_constant_s:.6g}"
+        )
     if s_best.droop_compensation:
         rows.append(f"      droop_time_s: {s_best.droop_time_s:g}")
     return "\n".join(rows)

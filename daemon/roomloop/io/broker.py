@@ -164,10 +164,10 @@ async def _call(hook: Callable[..., Any] | None, arg: Any) -> None:
 
 
 PROBE_EVERY_S = 1.0
+"""How often a reconnect pause looks whether the broker's port takes a connection again."""
 SHORT_SESSION_S = 10.0
 """A session lost this soon after it was made, twice running, with a fixed client id: the
 sign of another client using the same id (the broker hands the session to the newer one)."""
-"""How often a reconnect pause looks whether the broker's port takes a connection again."""
 
 
 class BrokerConnection:
