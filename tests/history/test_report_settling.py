@@ -86,3 +86,18 @@ def test_a_slow_warm_up_is_scored_once_the_room_got_there() -> None:
     day = day_figures(_day(temperature, lambda hour: 18.0 if hour < 6 else 20.0), UTC,
                       heater_w=None)[0]
     assert day.control_accuracy_k == pytest.approx(0.0, abs=1e-9)
+
+
+def test_a_warm_up_slower_than_six_hours_is_scored_from_then() -> None:
+    # 18 C until 06:00, then 21 C: the room creeps up 0.18 K an hour and touches 21.0 only
+    # at 22:40. Counted as settled at 12:00 (6 h after the rise, the standard protocol's
+    # recovery phase) all the same: the room is still cold, and CA says so. 12:00-24:00:
+    # T from 19.08 to 21.0, mean (time-weighted) about 20.18 (CSD -0.82), CV 0.96.
+    def temperature(hour: float) -> float:
+        return 18.0 if hour < 6 else min(21.0, 18.0 + 0.18 * (hour - 6))
+
+    day = day_figures(_day(temperature, lambda hour: 18.0 if hour < 6 else 21.0), UTC,
+                      heater_w=None)[0]
+    assert day.scored_hours == pytest.approx(5.0 + 12.0, abs=0.05)
+    assert day.control_variation_k == pytest.approx((21.0 - 19.08) / 2, abs=0.01)
+    assert day.control_accuracy_k is not None and day.control_accuracy_k > 1.5

@@ -6,7 +6,7 @@ over each stretch of constant set point, once it has settled (the first ``SETTLE
 after a set-point change are left out, as the protocol leaves out its warm-up and
 ramps, and the time until the temperature first reached the new set point: a slow floor's
 free cool-down after a set-back or its slow warm-up is no steady-state error, but a raised
-set point never reached is scored (see :func:`_settled_at`);
+set point not reached within ``RECOVERY_S`` is scored from then (see :func:`_settled_at`);
 stretches with less than ``MIN_STRETCH_S`` after that are not scored); the day's CA is the
 worst stretch's. Cycles per hour, on-fraction, shortest complete on and off
 runs and energy (``heater_w`` x on-time, when the zone has ``heater_w``) over the whole
@@ -39,6 +39,9 @@ from roomloop.history.store import ZoneHistory
 from roomloop.units import delta_from_kelvin
 
 SETTLE_S = 3600.0
+RECOVERY_S = 6 * 3600.0
+"""The longest a raised set point waits to count as settled: the standard protocol's own
+recovery phase is 6 h (roomloop.plant.protocol); a room slower than that is scored."""
 MIN_STRETCH_S = 3600.0
 MAX_COVER_TICKS = 3
 """A sample holds at most this many ticks: a longer gap after it is not counted."""
@@ -136,8 +139,8 @@ def _settled_at(history: ZoneHistory) -> list[float]:
     """Per sample, when its stretch of constant set point counts as settled: ``SETTLE_S``
     after the change, and not before the temperature first reached the new set point.
     A set-back never reached is never settled (a warm floor cooling freely is no control
-    error); a raised set point never reached is scored from ``SETTLE_S`` (a room that does
-    not get warm is one)."""
+    error); a raised set point counts as settled at the latest ``RECOVERY_S`` after the
+    change, reached or not (a room that does not get warm in time is one)."""
     settled = [math.inf] * len(history.time)
     for first, end in _stretches(history.setpoint):
         at = history.time[first] + SETTLE_S
@@ -151,9 +154,11 @@ def _settled_at(history: ZoneHistory) -> list[float]:
                     if (t := history.temperature[k]) is not None
                     and (t <= setpoint if down else t >= setpoint)
                 ),
-                math.inf if down else at,
+                math.inf,
             )
             at = max(at, reached)
+            if not down:
+                at = min(at, history.time[first] + RECOVERY_S)
         for k in range(first, end):
             settled[k] = at
     return settled
@@ -272,7 +277,7 @@ def format_report(
     lines.append(
         "CA = |CSD| + CV (EN 15500), worst settled stretch of constant set point "
         f"(the first {SETTLE_S / 60:.0f} min after a change left out, and the time until T "
-        "first reached the new set point)"
+        f"first reached the new set point, at most {RECOVERY_S / 3600:.0f} h after a rise)"
     )
     lines.append(
         "hours: the time the samples cover (each holds until the next, at most "
