@@ -23,23 +23,13 @@ from pathlib import Path
 from zoneinfo import ZoneInfo
 
 sys.path.insert(0, str(Path(__file__).parents[1] / "history"))
-from simulated_history import simulate
+from simulated_history import one_zone_site, simulate
 
 from roomloop.history.csvfile import write_csv
 from roomloop.history.store import ZoneHistory
 from roomloop.plant.loader import load_plant
 
 TUNE_TIMEOUT_S = 900.0
-SITE = """\
-site: {{name: bench-house, timezone: UTC, units: C, state_dir: {state}}}
-links:
-  - {{type: modbus-tcp, name: io, host: 127.0.0.1}}
-points:
-  - {{type: modbus-input, name: air, link: io, address: 0}}
-  - {{type: modbus-output, name: valve, link: io, address: 0}}
-zones:
-  - {{name: den, inputs: [air], output: valve, heating: {heating}, heater_w: {heater_w}}}
-"""
 
 
 CHILD = """\
@@ -79,7 +69,9 @@ def _time_tune(
 ) -> tuple[int, float, float, str]:
     """The whole ``roomloop tune --history week.csv`` on ``history``."""
     site = tmp / "site.yaml"
-    site.write_text(SITE.format(state=tmp / "state", heating=heating, heater_w=heater_w))
+    site.write_text(
+        one_zone_site(tmp / "state", heating=heating, heater_w=heater_w, site="bench-house")
+    )
     csv_path = tmp / ("week.csv" if outdoor else "week-no-outdoor.csv")
     kept = history.outdoor
     if not outdoor:

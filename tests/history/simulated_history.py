@@ -26,6 +26,26 @@ EPOCH = 1_767_225_600.0
 """2026-01-01T00:00:00Z, a Thursday."""
 DAY = 86400.0
 
+ONE_ZONE_SITE = """\
+site: {{name: {site}, timezone: UTC, units: C, state_dir: {state}}}
+links:
+  - {{type: modbus-tcp, name: io, host: 127.0.0.1}}
+points:
+  - {{type: modbus-input, name: air, link: io, address: 0}}
+  - {{type: modbus-output, name: valve, link: io, address: 0}}
+zones:
+  - {{name: {zone}, inputs: [air], output: valve, heating: {heating}{heater}}}
+"""
+
+
+def one_zone_site(
+    state: object, *, heating: str = "hydronic", heater_w: float | None = None,
+    zone: str = "den", site: str = "oak-flat",
+) -> str:
+    """An invented one-zone site (UTC, Celsius) for a simulated history's zone."""
+    heater = "" if heater_w is None else f", heater_w: {heater_w:g}"
+    return ONE_ZONE_SITE.format(site=site, state=state, zone=zone, heating=heating, heater=heater)
+
 
 @dataclass
 class Simulated:

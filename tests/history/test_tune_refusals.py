@@ -28,27 +28,15 @@ from roomloop.history.store import ZoneHistory
 from roomloop.plant.loader import load_plant
 
 sys.path.insert(0, str(Path(__file__).parent))
-from simulated_history import DAY, EPOCH, simulate
-
-SITE = """\
-site: {{name: oak-flat, timezone: UTC, units: C, state_dir: {state}}}
-links:
-  - {{type: modbus-tcp, name: io, host: 127.0.0.1}}
-points:
-  - {{type: modbus-input, name: air, link: io, address: 0}}
-  - {{type: modbus-output, name: valve, link: io, address: 0}}
-zones:
-  - {{name: {zone}, inputs: [air], output: valve, heating: {heating}{heater}}}
-"""
+from simulated_history import DAY, EPOCH, one_zone_site, simulate
 
 
 def _site(
     tmp_path: Path, heating: str = "hydronic", heater_w: float | None = None, zone: str = "den"
 ) -> Path:
     path = tmp_path / "site.yaml"
-    heater = "" if heater_w is None else f", heater_w: {heater_w:g}"
     path.write_text(
-        SITE.format(state=tmp_path / "state", heating=heating, heater=heater, zone=zone)
+        one_zone_site(tmp_path / "state", heating=heating, heater_w=heater_w, zone=zone)
     )
     return path
 
