@@ -311,11 +311,11 @@ class Recommendation:
     """The best candidate's ZoneSettings (``today_settings`` itself when nothing beat it)."""
     tried: int
     spans: tuple[tuple[Any, Any], ...] = ()
+    """With the loss to outdoors spanned: (today, best) figures at each of
+    :data:`LOSS_FACTORS` times the fitted loss."""
     own_time_constant: bool = False
     """The site file sets the anticipator's time constant itself (else it is derived from
     the cycle rate): the lines to paste must then set the candidate's too."""
-    """With the loss to outdoors spanned: (today, best) figures at each of
-    :data:`LOSS_FACTORS` times the fitted loss."""
 
     @property
     def changes(self) -> bool:

@@ -524,6 +524,23 @@ BYTE_LETTERS: dict[str, tuple[Literal["big", "little"], Literal["big", "little"]
 }
 """The usual spellings of a 32-bit register layout -> (word_order, byte_order)."""
 
+
+def _letters_layout(data: Any, spellings: str) -> tuple[str, tuple[str, str]] | None:
+    """The letters of a ``word_order`` given as ABCD, CDAB, ... and the (word, byte) order
+    they name; None when there is no such text (or it is ``big`` / ``little``); ValueError
+    naming ``spellings`` for anything else."""
+    if not isinstance(data, dict) or not isinstance(data.get("word_order"), str):
+        return None
+    if data["word_order"] in ("big", "little"):
+        return None
+    letters = data["word_order"].strip().upper()
+    if letters not in BYTE_LETTERS:
+        raise ValueError(
+            f"word_order {data['word_order']!r} is not a register layout; use {spellings}"
+        )
+    return letters, BYTE_LETTERS[letters]
+
+
 DATA_TYPE_REGISTERS = {"int16": 1, "uint16": 1, "int32": 2, "uint32": 2, "float32": 2}
 
 
@@ -598,17 +615,12 @@ class ModbusInput(InputBase):
         out a float32 (21.5 = 0x41AC0000: A = 0x41, B = 0xAC, C = D = 0x00), in the order
         they arrive: CDAB sends the low word first with each word's bytes high first.
         """
-        if not isinstance(data, dict) or not isinstance(data.get("word_order"), str):
+        found = _letters_layout(
+            data, "big or little (with byte_order big / little), or ABCD, CDAB, BADC or DCBA"
+        )
+        if found is None:
             return data
-        if data["word_order"] in ("big", "little"):
-            return data
-        letters = data["word_order"].strip().upper()
-        if letters not in BYTE_LETTERS:
-            raise ValueError(
-                f"word_order {data['word_order']!r} is not a register layout; use big or "
-                "little (with byte_order big / little), or ABCD, CDAB, BADC or DCBA"
-            )
-        word, byte = BYTE_LETTERS[letters]
+        letters, (word, byte) = found
         given = data.get("byte_order")
         if given is not None and given != byte:
             raise ValueError(
@@ -1458,23 +1470,16 @@ class Bms(Strict):
     def _byte_letters(cls, data: Any) -> Any:
         """``word_order: CDAB`` (and ABCD) with the meaning they have for a point; the BMS face
         sends each word's bytes high first, so BADC and DCBA are refused by name."""
-        if not isinstance(data, dict) or not isinstance(data.get("word_order"), str):
+        found = _letters_layout(data, "big (ABCD) or little (CDAB)")
+        if found is None:
             return data
-        if data["word_order"] in ("big", "little"):
-            return data
-        letters = data["word_order"].strip().upper()
-        layout = BYTE_LETTERS.get(letters)
-        if layout is not None and layout[1] == "big":
-            return {**data, "word_order": layout[0]}
-        if layout is not None:
+        letters, (word, byte) = found
+        if byte != "big":
             raise ValueError(
                 f"word_order {letters} swaps the bytes within each register, which the BMS "
                 "face does not do; use big (ABCD) or little (CDAB)"
             )
-        raise ValueError(
-            f"word_order {data['word_order']!r} is not a register layout; use big (ABCD) or "
-            "little (CDAB)"
-        )
+        return {**data, "word_order": word}
 
     @model_validator(mode="after")
     def _fits(self) -> Bms:

@@ -7,7 +7,7 @@ import os
 from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
 
-from roomloop.plant.plot import PlotUnavailable
+from roomloop.plant.plot import PlotUnavailable, agg_figure
 
 if TYPE_CHECKING:
     from matplotlib.figure import Figure
@@ -36,26 +36,20 @@ def demo_figure(result: DemoResult) -> Figure:
     """Room air (true), sensor, set point, the relay on its own strip, and fail-safe, per zone,
     against the site's clock times (the text log's); a strip per heat source below.
 
-    A figure on matplotlib's non-interactive Agg canvas, outside pyplot (nothing to close).
-    Raises :class:`PlotUnavailable` without matplotlib.
+    An :func:`~roomloop.plant.plot.agg_figure`. Raises :class:`PlotUnavailable` without
+    matplotlib.
     """
-    try:
-        from matplotlib.backends.backend_agg import FigureCanvasAgg
-        from matplotlib.figure import Figure
-    except ImportError as exc:
-        raise PlotUnavailable(str(exc)) from None
+    zones = list(result.traces)
+    sources = [n for n in result.sources if f"{n}:enable" in result.watched]
+    # per zone: temperatures on a tall axis, the relay on its own strip below it; then a
+    # strip per heat source (its enable and its pump)
+    fig = agg_figure((12, 3.6 * len(zones) + 1.2 * len(sources)))  # first: matplotlib there?
 
     from zoneinfo import ZoneInfo
 
     import matplotlib.dates as mdates
 
     tz = ZoneInfo(result.site.site.timezone)
-    zones = list(result.traces)
-    sources = [n for n in result.sources if f"{n}:enable" in result.watched]
-    # per zone: temperatures on a tall axis, the relay on its own strip below it; then a
-    # strip per heat source (its enable and its pump)
-    fig = Figure(figsize=(12, 3.6 * len(zones) + 1.2 * len(sources)))
-    FigureCanvasAgg(fig)
     axes = fig.subplots(
         2 * len(zones) + len(sources), 1, sharex=True,
         gridspec_kw={"height_ratios": [4, 1] * len(zones) + [1.2] * len(sources)},

@@ -246,7 +246,7 @@ class BrokerConnection:
                     "broker.disconnected",
                     self.clock.now(),
                     endpoint=self.endpoint,
-                    reason=describe_broker_error(exc) + self._takeover_hint(began),
+                    reason=describe_broker_error(exc) + self._session_ended(began),
                     retry_in_s=delay,
                 )
             finally:
@@ -273,11 +273,12 @@ class BrokerConnection:
             self._short_sessions = 0
             self._connected_again()
 
-    def _takeover_hint(self, began: float | None) -> str:
-        """Words for a session that keeps ending soon after it was made under a fixed client
-        id (mosquitto closes the older session without a reason code)."""
+    def _session_ended(self, began: float | None) -> str:
+        """Count a session that ended soon after it was made (``began``: when; None: there
+        was no session, a refused or failed connection) under a fixed client id, and the
+        words for a run of them (mosquitto closes the older session without a reason code)."""
         if began is None:
-            return ""  # no session: a refused or failed connection
+            return ""
         lasted = self.clock.io.monotonic() - began
         short = lasted < self.short_session_s and self.broker.client_id is not None
         self._short_sessions = self._short_sessions + 1 if short else 0

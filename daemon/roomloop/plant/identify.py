@@ -232,12 +232,12 @@ def check_data(history: ZoneHistory) -> list[str]:
     reasons: list[str] = []
     if len(history.time) < 2:
         return ["too little data: fewer than two ticks"]
-    hours, _ = history_hours(history)
+    cover = cover_s(history, tick_of(history))
+    hours = sum(cover) / 3600.0  # covered, as history_hours counts it
     normal = [
         k for k, t in enumerate(history.temperature)
         if t is not None and not history.fail_safe[k]
     ]
-    cover = cover_s(history, tick_of(history))
     normal_hours = sum(cover[k] for k in normal) / 3600.0
     if hours < MIN_HOURS:
         reasons.append(

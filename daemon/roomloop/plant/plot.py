@@ -15,6 +15,19 @@ class PlotUnavailable(Exception):
     """matplotlib is not installed (the optional ``plot`` extra)."""
 
 
+def agg_figure(figsize: tuple[float, float]) -> Figure:
+    """A figure on matplotlib's non-interactive Agg canvas, outside pyplot (nothing to close,
+    no process-wide backend switch). Raises :class:`PlotUnavailable` without matplotlib."""
+    try:
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+        from matplotlib.figure import Figure
+    except ImportError as exc:
+        raise PlotUnavailable(str(exc)) from None
+    fig = Figure(figsize=figsize)
+    FigureCanvasAgg(fig)
+    return fig
+
+
 def write_plot(result: ProtocolResult, path: str | os.PathLike[str]) -> None:
     """The run's :func:`protocol_figure` as a PNG. Raises :class:`PlotUnavailable` without
     matplotlib, ``OSError`` if unwritable."""
@@ -26,18 +39,10 @@ def protocol_figure(result: ProtocolResult) -> Figure:
     load (on a second y axis of the outdoor panel), against hours since the start; phases
     shaded; figures in the title.
 
-    A figure on matplotlib's non-interactive Agg canvas, outside pyplot (nothing to close).
-    Raises :class:`PlotUnavailable` without matplotlib."""
-    try:
-        from matplotlib.backends.backend_agg import FigureCanvasAgg
-        from matplotlib.figure import Figure
-    except ImportError as exc:
-        raise PlotUnavailable(str(exc)) from None
-
+    An :func:`agg_figure`. Raises :class:`PlotUnavailable` without matplotlib."""
+    fig = agg_figure((12, 9.5))
     trace = result.trace
     hours = [t / 3600.0 for t in trace.time_s]
-    fig = Figure(figsize=(12, 9.5))
-    FigureCanvasAgg(fig)
     ax_t, ax_r, ax_a, ax_o = fig.subplots(
         4, 1, sharex=True, gridspec_kw={"height_ratios": [3, 1, 1.5, 1.5]}
     )
